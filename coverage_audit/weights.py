@@ -1,0 +1,332 @@
+"""Spatial weights: contiguity between analysed areas, islands, components, shared edges.
+
+Takes the analysed area geometries (in the equal-area analysis CRS) and gives an
+:class:`AreaGraph`: the binary queen or rook contiguity built with libpysal's immutable
+``Graph``, the islands (areas with no contiguity neighbour) and connected components, and
+the weights used by the spatial statistics under the chosen island policy:
+
+- ``"exclude"`` (default): islands take no part in the spatial statistics; the caller
+  lists them in exclusions with :data:`ISLAND_REASON`.
+- ``"knn"``: each island is joined to its ``k`` nearest areas (by representative point),
+  symmetrically, so every area takes part.
+
+Statistics use :meth:`AreaGraph.stats_graph`, row-standardised, over
+:attr:`AreaGraph.stats_mask`. Enclave detection uses the plain contiguity
+(:attr:`AreaGraph.adjacency`) and exact shared-edge lengths from
+:func:`shared_boundary_lengths`, never the k-nearest links.
+"""
+
+from __future__ import annotations
+
+import warnings
+from dataclasses import dataclass, field
+from functools import cached_property
+from typing import Literal
+
+import geopandas as gpd
+import numpy as np
+import pandas as pd
+import scipy.sparse as sp
+import shapely
+from libpysal.graph import Graph
+from scipy.sparse.csgraph import connected_components
+
+from .errors import AnalysisError, IslandWarning, SpecError
+
+ContiguityKind = Literal["queen", "rook"]
+IslandPolicy = Literal["exclude", "knn"]
+
+CONTIGUITY_KINDS: tuple[str, ...] = ("queen", "rook")
+ISLAND_POLICIES: tuple[str, ...] = ("exclude", "knn")
+ISLAND_REASON = "island: no contiguity neighbour, left out of spatial statistics"
+
+
+@dataclass(frozen=True, eq=False)
+class AreaGraph:
+    """Contiguity of the analysed areas and the weights the spatial statistics use.
+
+    Attributes
+    ----------
+    ids : tuple of str
+        Area ids, in the order of the geometries given; position ``i`` is area ``i``.
+    kind : {"queen", "rook"}
+        Contiguity rule.
+    adjacency : scipy.sparse.csr_matrix
+        Symmetric binary contiguity (1 where two areas are neighbours), n x n.
+    islands : tuple of str
+        Ids of areas with no contiguity neighbour.
+    component_labels : numpy.ndarray
+        Connected-component label of each area under contiguity (islands are their own
+        components); labels are 0..n_components-1 in order of first appearance.
+    island_policy : {"exclude", "knn"}
+        How islands enter the spatial statistics.
+    knn_k : int
+        Neighbours given to each island under the ``"knn"`` policy.
+    """
+
+    ids: tuple[str, ...]
+    kind: str
+    adjacency: sp.csr_matrix
+    islands: tuple[str, ...]
+    component_labels: np.ndarray
+    island_policy: str
+    knn_k: int
+    _knn_links: sp.csr_matrix = field(repr=False)
+
+    @property
+    def n(self) -> int:
+        """Number of areas."""
+        return len(self.ids)
+
+    @property
+    def n_components(self) -> int:
+        """Number of connected components under contiguity (islands count as components)."""
+        return int(self.component_labels.max()) + 1 if self.n else 0
+
+    @cached_property
+    def island_mask(self) -> np.ndarray:
+        """Boolean mask of islands, by position."""
+        return np.asarray(self.adjacency.sum(axis=1)).ravel() == 0
+
+    @cached_property
+    def stats_mask(self) -> np.ndarray:
+        """Boolean mask of the areas that take part in the spatial statistics."""
+        if self.island_policy == "knn":
+            return np.ones(self.n, dtype=bool)
+        return ~self.island_mask
+
+    @cached_property
+    def stats_adjacency(self) -> sp.csr_matrix:
+        """Binary weights of the spatial statistics, restricted to :attr:`stats_mask`."""
+        full = self.adjacency
+        if self.island_policy == "knn":
+            full = ((full + self._knn_links) > 0).astype(np.float64).tocsr()
+        keep = np.flatnonzero(self.stats_mask)
+        return full[keep][:, keep].tocsr()
+
+    def stats_graph(self, transform: str = "r") -> Graph:
+        """Return the libpysal ``Graph`` of the spatial statistics.
+
+        Parameters
+        ----------
+        transform : str
+            libpysal transformation; ``"r"`` (row-standardised, the default and what the
+            Moran statistics use) or ``"b"`` (binary, for join counts).
+
+        Returns
+        -------
+        libpysal.graph.Graph
+            Indexed by position within :attr:`stats_mask` (0..m-1).
+        """
+        graph = Graph.from_sparse(self.stats_adjacency)
+        return graph.transform(transform)
+
+    def components(self) -> list[tuple[str, ...]]:
+        """Return the ids of each connected component, largest first, then by first id."""
+        ids = np.asarray(self.ids, dtype=object)
+        groups = [tuple(ids[self.component_labels == c]) for c in range(self.n_components)]
+        return sorted(groups, key=lambda g: (-len(g), g[0]))
+
+    def to_dict(self) -> dict:
+        """Describe the weights for summary.json."""
+        sizes = np.bincount(self.component_labels) if self.n else np.array([], dtype=int)
+        return {
+            "contiguity": self.kind,
+            "transform": "row-standardised",
+            "areas": self.n,
+            "links": int(self.adjacency.nnz // 2),
+            "islands": list(self.islands),
+            "island_policy": self.island_policy,
+            "knn_k": self.knn_k if self.island_policy == "knn" else None,
+            "components": int(self.n_components),
+            "largest_component_areas": int(sizes.max()) if sizes.size else 0,
+            "areas_in_statistics": int(self.stats_mask.sum()),
+        }
+
+
+def build_area_graph(
+    geometries: np.ndarray,
+    ids: list[str] | tuple[str, ...] | np.ndarray,
+    *,
+    kind: str = "queen",
+    island_policy: str = "exclude",
+    knn_k: int = 1,
+) -> AreaGraph:
+    """Build the contiguity of the analysed areas.
+
+    Parameters
+    ----------
+    geometries : numpy.ndarray of shapely geometries
+        Area polygons in a projected CRS, forming a coverage (no overlaps).
+    ids : sequence of str
+        Area ids, one per geometry.
+    kind : {"queen", "rook"}
+        Queen: areas sharing at least a point are neighbours; rook: sharing an edge.
+    island_policy : {"exclude", "knn"}
+        See the module docstring.
+    knn_k : int
+        Neighbours per island under ``"knn"`` (at least 1).
+
+    Returns
+    -------
+    AreaGraph
+
+    Notes
+    -----
+    Contiguity uses libpysal's strict topological method, so neighbours are found even
+    when two areas' shared boundary does not have identical vertices. An
+    :class:`~coverage_audit.errors.IslandWarning` is issued when there are islands or
+    several components.
+    """
+    if kind not in CONTIGUITY_KINDS:
+        raise SpecError(f'contiguity was "{kind}" but is expected to be one of {list(CONTIGUITY_KINDS)}')
+    if island_policy not in ISLAND_POLICIES:
+        raise SpecError(
+            f'islands was "{island_policy}" but is expected to be one of {list(ISLAND_POLICIES)}'
+        )
+    if int(knn_k) < 1:
+        raise SpecError(f"knn_k was {knn_k} but must be a whole number of at least 1")
+    geoms = np.asarray(geometries, dtype=object)
+    n = geoms.size
+    ids_t = tuple(str(i) for i in ids)
+    if len(ids_t) != n:
+        raise AnalysisError(f"{len(ids_t)} ids were given for {n} geometries")
+    if n == 0:
+        raise AnalysisError("no areas to build contiguity from")
+    adjacency = _contiguity_matrix(geoms, rook=(kind == "rook"))
+    island_mask = np.asarray(adjacency.sum(axis=1)).ravel() == 0
+    _, labels = connected_components(adjacency, directed=False)
+    labels = _relabel_in_order(labels)
+    islands = tuple(np.asarray(ids_t, dtype=object)[island_mask])
+    knn_links = sp.csr_matrix((n, n), dtype=np.float64)
+    if island_policy == "knn" and island_mask.any():
+        if n < 2:
+            raise AnalysisError("a single area has no nearest neighbour to link to")
+        knn_links = _island_knn_links(geoms, island_mask, min(int(knn_k), n - 1))
+    graph = AreaGraph(
+        ids=ids_t,
+        kind=kind,
+        adjacency=adjacency,
+        islands=islands,
+        component_labels=labels,
+        island_policy=island_policy,
+        knn_k=int(knn_k),
+        _knn_links=knn_links,
+    )
+    if islands or graph.n_components > 1:
+        shown = ", ".join(islands[:10]) + (" ..." if len(islands) > 10 else "")
+        warnings.warn(
+            f"{len(islands)} island(s) with no {kind} neighbour"
+            + (f" ({shown})" if islands else "")
+            + f"; {graph.n_components} connected component(s); island policy: {island_policy}",
+            IslandWarning,
+            stacklevel=2,
+        )
+    return graph
+
+
+def _contiguity_matrix(geoms: np.ndarray, *, rook: bool) -> sp.csr_matrix:
+    n = geoms.size
+    if n == 1:
+        return sp.csr_matrix((1, 1), dtype=np.float64)
+    series = gpd.GeoSeries(geoms, index=pd.RangeIndex(n))
+    graph = Graph.build_contiguity(series, rook=rook, strict=True)
+    adj = graph.adjacency
+    focal = adj.index.get_level_values("focal").to_numpy()
+    neighbor = adj.index.get_level_values("neighbor").to_numpy()
+    keep = (focal != neighbor) & (adj.to_numpy() != 0)
+    focal, neighbor = focal[keep], neighbor[keep]
+    data = np.ones(focal.size, dtype=np.float64)
+    matrix = sp.csr_matrix((data, (focal, neighbor)), shape=(n, n))
+    matrix = ((matrix + matrix.T) > 0).astype(np.float64).tocsr()
+    matrix.sort_indices()
+    return matrix
+
+
+def _relabel_in_order(labels: np.ndarray) -> np.ndarray:
+    _, first = np.unique(labels, return_index=True)
+    order = np.argsort(first, kind="stable")
+    mapping = np.empty(order.size, dtype=np.int64)
+    mapping[np.unique(labels)[order]] = np.arange(order.size)
+    return mapping[labels]
+
+
+def _island_knn_links(geoms: np.ndarray, island_mask: np.ndarray, k: int) -> sp.csr_matrix:
+    """Symmetric links from each island to its ``k`` nearest other areas."""
+    n = geoms.size
+    points = shapely.point_on_surface(geoms)
+    coords = shapely.get_coordinates(points)
+    from scipy.spatial import cKDTree
+
+    tree = cKDTree(coords)
+    rows, cols = [], []
+    for i in np.flatnonzero(island_mask):
+        # k + 1 because the nearest point is the island itself.
+        _, idx = tree.query(coords[i], k=k + 1)
+        neighbours = [j for j in np.atleast_1d(idx) if j != i][:k]
+        rows.extend([i] * len(neighbours))
+        cols.extend(neighbours)
+    data = np.ones(len(rows), dtype=np.float64)
+    links = sp.csr_matrix((data, (rows, cols)), shape=(n, n))
+    return ((links + links.T) > 0).astype(np.float64).tocsr()
+
+
+@dataclass(frozen=True)
+class SharedBoundaries:
+    """Exact shared-edge lengths between pairs of areas, and each area's perimeter.
+
+    Attributes
+    ----------
+    pairs : pandas.DataFrame
+        Columns ``i``, ``j`` (positions, ``i < j``) and ``length`` (metres in the
+        analysis CRS) for every requested pair with a shared edge of positive length.
+    perimeter : numpy.ndarray
+        Length of each area's whole boundary (exterior and interior rings).
+    """
+
+    pairs: pd.DataFrame
+    perimeter: np.ndarray
+
+
+def shared_boundary_lengths(geometries: np.ndarray, pairs: np.ndarray | None = None) -> SharedBoundaries:
+    """Return the length of boundary shared by each pair of areas.
+
+    Parameters
+    ----------
+    geometries : numpy.ndarray of shapely geometries
+        Area polygons in a projected (metric) CRS.
+    pairs : numpy.ndarray of shape (m, 2), optional
+        Positions of the pairs to measure; by default every pair of areas whose
+        boundaries intersect.
+
+    Returns
+    -------
+    SharedBoundaries
+
+    Notes
+    -----
+    The length is that of ``boundary(a) ∩ boundary(b)`` computed with GEOS, so it is exact
+    for a clean coverage and still right where the two boundaries do not share vertices.
+    Point contacts (queen-only neighbours) have length 0 and are dropped.
+    """
+    geoms = np.asarray(geometries, dtype=object)
+    boundaries = shapely.boundary(geoms)
+    perimeter = shapely.length(boundaries)
+    if pairs is None:
+        tree = shapely.STRtree(boundaries)
+        left, right = tree.query(boundaries, predicate="intersects")
+        keep = left < right
+        pair_arr = np.column_stack([left[keep], right[keep]])
+    else:
+        pair_arr = np.asarray(pairs, dtype=np.int64).reshape(-1, 2)
+        pair_arr = np.column_stack([pair_arr.min(axis=1), pair_arr.max(axis=1)])
+        pair_arr = np.unique(pair_arr[pair_arr[:, 0] != pair_arr[:, 1]], axis=0)
+    if pair_arr.size == 0:
+        empty = pd.DataFrame({"i": np.array([], dtype=np.int64), "j": np.array([], dtype=np.int64),
+                              "length": np.array([], dtype=np.float64)})
+        return SharedBoundaries(pairs=empty, perimeter=perimeter)
+    shapely.prepare(boundaries)
+    lengths = shapely.length(shapely.intersection(boundaries[pair_arr[:, 0]], boundaries[pair_arr[:, 1]]))
+    keep = lengths > 0
+    frame = pd.DataFrame({"i": pair_arr[keep, 0], "j": pair_arr[keep, 1], "length": lengths[keep]})
+    return SharedBoundaries(pairs=frame.reset_index(drop=True), perimeter=perimeter)
