@@ -42,3 +42,7 @@ class IslandWarning(CoverageAuditWarning):
 
 class DegenerateStatisticWarning(CoverageAuditWarning):
     """A statistic is undefined for these data (constant variable, no served area, ...)."""
+
+
+class IdWarning(CoverageAuditWarning):
+    """Ids were stored as numbers, so leading zeros (GEOIDs of states 01-09) may be lost."""

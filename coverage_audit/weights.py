@@ -173,13 +173,18 @@ def build_area_graph(
 
     Notes
     -----
-    Contiguity uses libpysal's strict topological method, so neighbours are found even
-    when two areas' shared boundary does not have identical vertices. An
+    When the polygons form a valid GEOS coverage (``shapely.coverage_is_valid``: shared
+    edges match vertex for vertex, as in a clean tract layer or a Voronoi tessellation),
+    neighbours are found by comparing vertices and edges, which is exact there. Otherwise
+    libpysal's strict topological method is used, so neighbours are found even when two
+    areas' shared boundary does not have identical vertices. An
     :class:`~coverage_audit.errors.IslandWarning` is issued when there are islands or
     several components.
     """
     if kind not in CONTIGUITY_KINDS:
-        raise SpecError(f'contiguity was "{kind}" but is expected to be one of {list(CONTIGUITY_KINDS)}')
+        raise SpecError(
+            f'contiguity was "{kind}" but is expected to be one of {list(CONTIGUITY_KINDS)}'
+        )
     if island_policy not in ISLAND_POLICIES:
         raise SpecError(
             f'islands was "{island_policy}" but is expected to be one of {list(ISLAND_POLICIES)}'
@@ -229,6 +234,84 @@ def _contiguity_matrix(geoms: np.ndarray, *, rook: bool) -> sp.csr_matrix:
     n = geoms.size
     if n == 1:
         return sp.csr_matrix((1, 1), dtype=np.float64)
+    if _is_clean_coverage(geoms):
+        return _vertex_contiguity(geoms, rook=rook)
+    return _strict_contiguity(geoms, rook=rook)
+
+
+def _is_clean_coverage(geoms: np.ndarray) -> bool:
+    """Whether the polygons form a valid GEOS coverage (shared edges match vertex for vertex).
+
+    In such a coverage two areas touch exactly where they share a vertex, and share an
+    edge of positive length exactly where they share a segment between two vertices: a
+    vertex lying inside another area's edge makes the coverage invalid (GEOS
+    ``CoverageValidator``). So the vertex comparison below is exact there, and much faster
+    than libpysal's strict topological test.
+    """
+    types = shapely.get_type_id(geoms)
+    if not np.isin(types, (3, 6)).all() or shapely.is_empty(geoms).any():
+        return False
+    if not shapely.is_valid(geoms).all():
+        return False
+    try:
+        return bool(shapely.coverage_is_valid(geoms))
+    except (AttributeError, shapely.errors.UnsupportedGEOSVersionError):
+        # coverage validation needs GEOS 3.12; without it take the strict path.
+        return False
+
+
+def _vertex_contiguity(geoms: np.ndarray, *, rook: bool) -> sp.csr_matrix:
+    """Contiguity from shared vertices (queen) or shared segments (rook) of a clean coverage."""
+    n = geoms.size
+    parts, part_owner = shapely.get_parts(geoms, return_index=True)
+    rings, ring_part = shapely.get_rings(parts, return_index=True)
+    coords, coord_ring = shapely.get_coordinates(rings, return_index=True)
+    owner = part_owner[ring_part[coord_ring]]
+    # Exact coordinate identity; packing into a complex keeps the bits and makes -0.0 == 0.0.
+    _, vertex = np.unique(coords[:, 0] + 1j * coords[:, 1], return_inverse=True)
+    vertex = vertex.ravel().astype(np.int64)
+    if rook:
+        same_ring = coord_ring[1:] == coord_ring[:-1]
+        a, b = vertex[:-1][same_ring], vertex[1:][same_ring]
+        edge_owner = owner[:-1][same_ring]
+        proper = a != b
+        lo = np.minimum(a, b)[proper]
+        hi = np.maximum(a, b)[proper]
+        keys, owners = lo * (int(vertex.max()) + 1) + hi, edge_owner[proper]
+    else:
+        keys, owners = vertex, owner
+    left, right = _pairs_sharing_key(keys, owners)
+    data = np.ones(left.size, dtype=np.float64)
+    matrix = sp.csr_matrix((data, (left, right)), shape=(n, n))
+    matrix = ((matrix + matrix.T) > 0).astype(np.float64).tocsr()
+    matrix.sort_indices()
+    return matrix
+
+
+def _pairs_sharing_key(keys: np.ndarray, owners: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Every pair of distinct owners that share a key (a vertex or an edge)."""
+    order = np.lexsort((owners, keys))
+    keys, owners = keys[order], owners[order]
+    distinct = np.r_[True, (keys[1:] != keys[:-1]) | (owners[1:] != owners[:-1])]
+    keys, owners = keys[distinct], owners[distinct]
+    left, right = [], []
+    # Positions t and t + d hold the same key only if every position between them does,
+    # so the candidate set shrinks with d and the loop runs as often as the largest group.
+    step = 1
+    start = np.flatnonzero(keys[1:] == keys[:-1])
+    while start.size:
+        left.append(owners[start])
+        right.append(owners[start + step])
+        step += 1
+        start = start[start + step < keys.size]
+        start = start[keys[start + step] == keys[start]]
+    if not left:
+        return np.array([], dtype=np.int64), np.array([], dtype=np.int64)
+    return np.concatenate(left), np.concatenate(right)
+
+
+def _strict_contiguity(geoms: np.ndarray, *, rook: bool) -> sp.csr_matrix:
+    n = geoms.size
     series = gpd.GeoSeries(geoms, index=pd.RangeIndex(n))
     graph = Graph.build_contiguity(series, rook=rook, strict=True)
     adj = graph.adjacency
@@ -253,20 +336,21 @@ def _relabel_in_order(labels: np.ndarray) -> np.ndarray:
 
 def _island_knn_links(geoms: np.ndarray, island_mask: np.ndarray, k: int) -> sp.csr_matrix:
     """Symmetric links from each island to its ``k`` nearest other areas."""
-    n = geoms.size
-    points = shapely.point_on_surface(geoms)
-    coords = shapely.get_coordinates(points)
     from scipy.spatial import cKDTree
 
-    tree = cKDTree(coords)
-    rows, cols = [], []
-    for i in np.flatnonzero(island_mask):
-        # k + 1 because the nearest point is the island itself.
-        _, idx = tree.query(coords[i], k=k + 1)
-        neighbours = [j for j in np.atleast_1d(idx) if j != i][:k]
-        rows.extend([i] * len(neighbours))
-        cols.extend(neighbours)
-    data = np.ones(len(rows), dtype=np.float64)
+    n = geoms.size
+    coords = shapely.get_coordinates(shapely.point_on_surface(geoms))
+    islands = np.flatnonzero(island_mask)
+    # k + 1 because the nearest point is normally the island itself.
+    _, idx = cKDTree(coords).query(coords[islands], k=k + 1)
+    idx = idx.reshape(islands.size, k + 1)
+    # Drop the island itself wherever it appears (a duplicate point may come first); a
+    # stable sort keeps the remaining neighbours in distance order.
+    others = idx != islands[:, None]
+    first = np.argsort(~others, axis=1, kind="stable")[:, :k]
+    cols = np.take_along_axis(idx, first, axis=1).ravel()
+    rows = np.repeat(islands, k)
+    data = np.ones(rows.size, dtype=np.float64)
     links = sp.csr_matrix((data, (rows, cols)), shape=(n, n))
     return ((links + links.T) > 0).astype(np.float64).tocsr()
 
@@ -288,7 +372,9 @@ class SharedBoundaries:
     perimeter: np.ndarray
 
 
-def shared_boundary_lengths(geometries: np.ndarray, pairs: np.ndarray | None = None) -> SharedBoundaries:
+def shared_boundary_lengths(
+    geometries: np.ndarray, pairs: np.ndarray | None = None
+) -> SharedBoundaries:
     """Return the length of boundary shared by each pair of areas.
 
     Parameters
@@ -322,11 +408,18 @@ def shared_boundary_lengths(geometries: np.ndarray, pairs: np.ndarray | None = N
         pair_arr = np.column_stack([pair_arr.min(axis=1), pair_arr.max(axis=1)])
         pair_arr = np.unique(pair_arr[pair_arr[:, 0] != pair_arr[:, 1]], axis=0)
     if pair_arr.size == 0:
-        empty = pd.DataFrame({"i": np.array([], dtype=np.int64), "j": np.array([], dtype=np.int64),
-                              "length": np.array([], dtype=np.float64)})
+        empty = pd.DataFrame(
+            {
+                "i": np.array([], dtype=np.int64),
+                "j": np.array([], dtype=np.int64),
+                "length": np.array([], dtype=np.float64),
+            }
+        )
         return SharedBoundaries(pairs=empty, perimeter=perimeter)
     shapely.prepare(boundaries)
-    lengths = shapely.length(shapely.intersection(boundaries[pair_arr[:, 0]], boundaries[pair_arr[:, 1]]))
+    lengths = shapely.length(
+        shapely.intersection(boundaries[pair_arr[:, 0]], boundaries[pair_arr[:, 1]])
+    )
     keep = lengths > 0
     frame = pd.DataFrame({"i": pair_arr[keep, 0], "j": pair_arr[keep, 1], "length": lengths[keep]})
     return SharedBoundaries(pairs=frame.reset_index(drop=True), perimeter=perimeter)

@@ -1,0 +1,305 @@
+"""The audit pipeline: spec -> inputs -> footprint -> coverage -> statistics -> findings.
+
+:func:`run_audit` runs every stage in order and returns an :class:`AuditResult` holding the
+per-area GeoDataFrame, the summary (the content of summary.json), the exclusions table and
+the manifest; :meth:`AuditResult.write` writes the output folder. Randomness enters only
+through one ``numpy.random.Generator`` made from the spec's seed, from which each
+statistic gets its own child stream, so adding a statistic does not change the others.
+"""
+
+from __future__ import annotations
+
+import datetime as _dt
+import platform
+from dataclasses import dataclass, field
+from importlib import metadata
+from pathlib import Path
+from typing import Any
+
+import geopandas as gpd
+import numpy as np
+import pandas as pd
+
+from . import __version__
+from .coverage import CoverageResult, coverage_by_group, footprint_fractions, nearest_site_distance
+from .footprint import Footprint, build_footprint
+from .inputs import AreaInputs, load_areas
+from .progress import SilentProgress
+from .spec import AuditSpec, load_spec, spec_from_dict
+
+SCHEMA_VERSION = 1
+
+#: The cautions every summary and report carries, in plain words.
+CAUTIONS = (
+    "A statistical disparity in coverage is a reason to look closer; it is not by itself "
+    "proof of discrimination.",
+    "Results depend on the areal units chosen (tracts, block groups or other boundaries "
+    "can give other figures) and coverage is areal-weighted: people are assumed to be "
+    "spread evenly within each area.",
+    "Counts from surveys such as the American Community Survey are estimates with margins "
+    "of error; small-area figures can be uncertain and this audit does not carry those "
+    "margins into its figures.",
+    "Legitimate business and operational factors must be considered before any conclusion "
+    "is drawn about why a gap exists.",
+    "Legal conclusions belong to counsel and to the regulators under the applicable law. "
+    "The four-fifths screen (29 CFR 1607.4(D)) is an employment-selection rule, used here "
+    "only as a rule of thumb.",
+)
+
+#: Libraries whose versions go into the manifest.
+LIBRARIES = (
+    "numpy",
+    "pandas",
+    "shapely",
+    "pyproj",
+    "pyogrio",
+    "geopandas",
+    "libpysal",
+    "esda",
+    "scipy",
+    "statsmodels",
+    "folium",
+    "xstatic-leaflet",
+    "matplotlib",
+)
+
+#: Child-stream names, in a fixed order, so each statistic has its own seeded stream.
+RNG_STREAMS = ("segregation", "clustering", "enclaves", "explain", "sensitivity")
+
+
+def library_versions() -> dict[str, str | None]:
+    """Installed versions of the libraries the results depend on."""
+    out: dict[str, str | None] = {}
+    for name in LIBRARIES:
+        try:
+            out[name] = metadata.version(name)
+        except metadata.PackageNotFoundError:
+            out[name] = None
+    return out
+
+
+def random_streams(seed: int) -> dict[str, np.random.Generator]:
+    """One independent Generator per statistic, all from the spec's seed."""
+    children = np.random.SeedSequence(seed).spawn(len(RNG_STREAMS))
+    return {name: np.random.default_rng(child) for name, child in zip(RNG_STREAMS, children, strict=True)}
+
+
+@dataclass
+class AuditResult:
+    """Everything an audit found.
+
+    Attributes
+    ----------
+    areas : geopandas.GeoDataFrame
+        One row per analysed area (analysis CRS) with the output columns.
+    summary : dict
+        The findings; exactly what summary.json holds.
+    exclusions : pandas.DataFrame
+        Every input row not analysed: source, row, id, reason.
+    manifest : dict
+        Provenance: versions, resolved spec, input digests, CRS, seed, times.
+    spec : AuditSpec
+    footprint : Footprint
+    """
+
+    areas: gpd.GeoDataFrame
+    summary: dict[str, Any]
+    exclusions: pd.DataFrame
+    manifest: dict[str, Any]
+    spec: AuditSpec
+    footprint: Footprint
+    id_column: str
+    groups: list[str]
+    extras: dict[str, Any] = field(default_factory=dict)
+
+    def write(self, out_dir: str | Path, *, progress: SilentProgress | None = None) -> dict[str, Path]:
+        """Write the output folder (see DESIGN.md's output contract); return the paths."""
+        from .outputs import write_all
+
+        progress = progress or SilentProgress()
+        out = Path(out_dir)
+        with progress.stage("writing tables"):
+            paths = write_all(
+                out,
+                summary=self.summary,
+                areas=self.areas,
+                exclusions=self.exclusions,
+                manifest_fn=lambda: self.manifest,
+            )
+        return paths
+
+
+def _as_spec(spec: AuditSpec | str | Path | dict[str, Any]) -> AuditSpec:
+    if isinstance(spec, AuditSpec):
+        return spec
+    if isinstance(spec, dict):
+        return spec_from_dict(spec)
+    return load_spec(spec)
+
+
+def run_audit(
+    spec: AuditSpec | str | Path | dict[str, Any],
+    *,
+    progress: SilentProgress | None = None,
+) -> AuditResult:
+    """Run a coverage audit.
+
+    Parameters
+    ----------
+    spec : AuditSpec, path or dict
+        The audit spec, a TOML file, or a mapping with the TOML file's structure.
+    progress : SilentProgress, optional
+        Step reporter (the CLI passes a terminal one).
+
+    Returns
+    -------
+    AuditResult
+
+    Examples
+    --------
+    >>> result = run_audit("demo_regions/ostmere/delivery.toml")  # doctest: +SKIP
+    >>> result.summary["coverage"]["groups"]["minority"]["ratio"]  # doctest: +SKIP
+    """
+    spec = _as_spec(spec)
+    progress = progress or SilentProgress()
+    started = _dt.datetime.now(_dt.timezone.utc)
+    streams = random_streams(spec.analysis.seed)
+    with progress.stage("reading areas"):
+        inputs = load_areas(spec.areas, spec.population, analysis_crs=spec.analysis.analysis_crs)
+    frame = inputs.frame
+    with progress.stage(f"building footprint '{spec.footprint.name}'"):
+        footprint = build_footprint(
+            spec.footprint,
+            inputs,
+            inputs.exclusions,
+            circle_vertices=spec.analysis.circle_vertices,
+            id_width=spec.areas.id_width,
+        )
+    with progress.stage("measuring coverage"):
+        coverage, frame = measure_coverage(spec, inputs, footprint, frame)
+
+    summary: dict[str, Any] = {
+        "schema_version": SCHEMA_VERSION,
+        "title": spec.title,
+        "footprint": footprint.to_dict(),
+        "areas": _areas_section(inputs, frame),
+    }
+    table_section = _table_section(inputs)
+    if table_section:
+        summary["inputs"] = table_section
+    summary["coverage"] = coverage.to_dict()
+
+    exclusions = inputs.exclusions
+    summary["exclusions"] = {"count": exclusions.count(), "by_reason": exclusions.by_reason()}
+    summary["cautions"] = list(CAUTIONS)
+    finished = _dt.datetime.now(_dt.timezone.utc)
+    manifest = build_manifest(spec, inputs, footprint, started, finished)
+    frame = _order_columns(frame, inputs)
+    return AuditResult(
+        areas=frame,
+        summary=summary,
+        exclusions=exclusions.to_frame(),
+        manifest=manifest,
+        spec=spec,
+        footprint=footprint,
+        id_column=inputs.id_column,
+        groups=inputs.groups,
+        extras={"streams": streams, "inputs": inputs, "coverage": coverage},
+    )
+
+
+def measure_coverage(
+    spec: AuditSpec, inputs: AreaInputs, footprint: Footprint, frame: gpd.GeoDataFrame
+) -> tuple[CoverageResult, gpd.GeoDataFrame]:
+    """Covered fraction, served flag and (points) nearest-site distance of each area."""
+    geoms = np.asarray(frame.geometry.array, dtype=object)
+    fraction = footprint_fractions(footprint, geoms, frame[inputs.id_column].tolist())
+    frame = frame.copy()
+    frame["covered_fraction"] = fraction
+    frame["served"] = fraction >= spec.analysis.served_threshold
+    distance = None
+    if footprint.kind == "points" and footprint.points is not None:
+        distance = nearest_site_distance(geoms, np.asarray(footprint.points.geometry.array), inputs.analysis_crs)
+        frame["nearest_site_m"] = distance
+    coverage = coverage_by_group(
+        frame,
+        groups=inputs.groups,
+        reference=inputs.reference,
+        fraction=fraction,
+        threshold=spec.analysis.served_threshold,
+        comparison=spec.analysis.comparison,
+        distance_m=distance,
+    )
+    return coverage, frame
+
+
+def _areas_section(inputs: AreaInputs, frame: gpd.GeoDataFrame) -> dict[str, Any]:
+    excluded = inputs.exclusions.count("areas")
+    return {
+        "input": inputs.input_rows,
+        "analysed": int(len(frame)),
+        "excluded": excluded,
+        "repaired_geometries": inputs.repaired,
+        "zero_population": int((frame["population"] <= 0).sum()),
+        "income_unknown": inputs.income_unknown,
+    }
+
+
+def _table_section(inputs: AreaInputs) -> dict[str, Any] | None:
+    table = [r for r in inputs.inputs if r.role == "table"]
+    if not table:
+        return None
+    rows = table[0].rows
+    excluded = inputs.exclusions.count("table")
+    return {"table": {"rows": rows, "matched": rows - excluded, "excluded": excluded}}
+
+
+def _order_columns(frame: gpd.GeoDataFrame, inputs: AreaInputs) -> gpd.GeoDataFrame:
+    first = [inputs.id_column, "population", *inputs.groups, *[f"{g}_share" for g in inputs.groups]]
+    middle = [
+        c
+        for c in (
+            "majority_minority",
+            "income_ratio",
+            "income_tier",
+            "area_km2",
+            "covered_fraction",
+            "served",
+            "nearest_site_m",
+            "lisa_cluster",
+            "lisa_I",
+            "lisa_p",
+            "lisa_q",
+            "enclave_id",
+        )
+        if c in frame.columns
+    ]
+    rest = [c for c in frame.columns if c not in first and c not in middle and c != frame.geometry.name]
+    return frame[[*first, *middle, *rest, frame.geometry.name]]
+
+
+def build_manifest(
+    spec: AuditSpec,
+    inputs: AreaInputs,
+    footprint: Footprint,
+    started: _dt.datetime,
+    finished: _dt.datetime,
+) -> dict[str, Any]:
+    """Provenance of an audit: everything needed to rerun it and check its inputs."""
+    records = [r.to_dict() for r in inputs.inputs] + [r.to_dict() for r in footprint.records]
+    return {
+        "tool": "coverage_audit",
+        "version": __version__,
+        "python": platform.python_version(),
+        "libraries": library_versions(),
+        "spec_file": str(spec.source) if spec.source else None,
+        "spec": spec.to_dict(),
+        "inputs": records,
+        "source_crs": inputs.source_crs.to_string(),
+        "analysis_crs": inputs.analysis_crs.srs,
+        "analysis_crs_wkt": inputs.analysis_crs.to_wkt(),
+        "seed": spec.analysis.seed,
+        "footprint": footprint.manifest(),
+        "started": started.isoformat(timespec="seconds"),
+        "finished": finished.isoformat(timespec="seconds"),
+    }

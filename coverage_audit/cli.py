@@ -1,0 +1,349 @@
+"""Command line: ``coverage-audit run | demo | check``, a thin layer over the Python API.
+
+Every user-facing problem (bad spec, missing file, no CRS, ...) is printed as one
+``error:`` line naming the file, row or column and what to do, and the command exits
+with status 2; no traceback unless ``--debug``.
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+import time
+import warnings
+from collections.abc import Sequence
+from pathlib import Path
+from typing import Any
+
+from . import __version__
+from .errors import CoverageAuditError, CoverageAuditWarning, SpecError
+from .progress import progress_for
+
+EXIT_OK = 0
+EXIT_USER_ERROR = 2
+EXIT_INTERNAL_ERROR = 3
+
+DESCRIPTION = (
+    "Audit who a service footprint (branch network, delivery zone, assessment area, clinic "
+    "or broadband reach) covers, by population group: coverage rates, disparity ratios, "
+    "segregation and clustering statistics, unserved enclaves, maps and a report."
+)
+
+
+def _build_parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(
+        prog="coverage-audit",
+        description=DESCRIPTION,
+        formatter_class=argparse.RawDescriptionHelpFormatter,
+        epilog="Run 'coverage-audit COMMAND --help' for the options of each command.",
+    )
+    parser.add_argument("--version", action="version", version=f"coverage_audit {__version__}")
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND")
+
+    run = sub.add_parser(
+        "run",
+        help="run an audit described by a TOML spec (or by options)",
+        description=(
+            "Run an audit. Give a TOML spec file, or describe the audit with the options "
+            "below (options also override the spec's settings). Outputs: summary.json, "
+            "areas.csv, areas.gpkg, exclusions.csv, manifest.json, map.html, report.html."
+        ),
+    )
+    run.add_argument("spec", nargs="?", type=Path, help="the audit spec, a TOML file (paths in it are relative to it)")
+    run.add_argument("--out", type=Path, default=None, help="folder for the outputs (default: outputs/<spec name>)")
+    _add_common(run)
+    inline = run.add_argument_group(
+        "describing the audit without a spec file",
+        "Use these instead of SPEC; --write-spec saves them as a spec for exact reruns.",
+    )
+    inline.add_argument("--areas", type=Path, help="areas layer: GeoPackage, GeoJSON, Shapefile or GeoParquet")
+    inline.add_argument("--areas-layer", help="layer name inside the areas file (when it has several)")
+    inline.add_argument("--id", dest="id_column", help="column of the areas holding their id (e.g. GEOID)")
+    inline.add_argument("--id-width", type=int, help="zero-pad numeric ids to this many digits (11 tracts, 12 block groups)")
+    inline.add_argument("--areas-crs", help='CRS of an areas file that declares none, e.g. "EPSG:4326"')
+    inline.add_argument("--table", type=Path, help="demographics table (CSV or Parquet) joined to the areas on the id")
+    inline.add_argument("--table-id", help="id column of the table, when named differently from --id")
+    inline.add_argument("--total", help="column with each area's total population")
+    inline.add_argument(
+        "--group",
+        action="append",
+        metavar="NAME=COLUMN",
+        help="a population group and its count column; repeat for each group",
+    )
+    inline.add_argument("--reference", help="name of the reference group (e.g. white_nh)")
+    inline.add_argument(
+        "--derive-minority",
+        action="store_true",
+        help="add the group 'minority' = total minus the reference group (census convention "
+        "when the reference is non-Hispanic white alone)",
+    )
+    inline.add_argument("--income-ratio", help="column with tract median family income as a percent of the area median")
+    inline.add_argument("--footprint", type=Path, help="service footprint file: polygons, or points with --radius")
+    inline.add_argument("--footprint-name", default=None, help="a short name for the footprint (default: the file name)")
+    inline.add_argument("--footprint-crs", help="CRS of a footprint file that declares none")
+    inline.add_argument("--radius", help='reach of each service point, e.g. "3000", "3 km", "2 mi" (metres by default)')
+    inline.add_argument("--served-ids", type=Path, help="file listing the served area ids (CSV column or one per line)")
+    inline.add_argument("--served-column", help="yes/no column of the areas marking served areas")
+    inline.add_argument("--title", help="title of the audit, shown in the report")
+    inline.add_argument("--write-spec", type=Path, help="save the audit described by the options as a TOML spec here")
+
+    demo = sub.add_parser(
+        "demo",
+        help="run the audits of the fictional demo region Ostmere",
+        description=(
+            "Run every scenario of the bundled fictional demo region (a delivery zone, a "
+            "branch network, an assessment area) and write each one's outputs."
+        ),
+    )
+    demo.add_argument("--out", type=Path, default=Path("outputs/demo"), help="parent folder of the scenario outputs (default: outputs/demo)")
+    demo.add_argument(
+        "--scenario",
+        action="append",
+        choices=["delivery", "branches", "assessment_area"],
+        help="run only this scenario (repeatable; default: all)",
+    )
+    demo.add_argument(
+        "--regenerate",
+        action="store_true",
+        help="generate the demo region afresh (from its fixed seed) into OUT/region instead of using the bundled files",
+    )
+    _add_common(demo)
+
+    check = sub.add_parser(
+        "check",
+        help="check a spec and its inputs without running the statistics",
+        description="Read the spec and every input, report what would be analysed and excluded, and write nothing.",
+    )
+    check.add_argument("spec", type=Path, help="the audit spec, a TOML file")
+    check.add_argument("--debug", action="store_true", help="show a traceback on errors")
+    return parser
+
+
+def _add_common(p: argparse.ArgumentParser) -> None:
+    g = p.add_argument_group("analysis settings (override the spec)")
+    g.add_argument("--threshold", type=float, help="an area is served when at least this fraction of it is covered (default 0.5)")
+    g.add_argument("--comparison", choices=["reference", "highest"], help="compare each group with the reference group or with the highest-rate group")
+    g.add_argument("--contiguity", choices=["queen", "rook"], help="neighbours share a point (queen) or an edge (rook)")
+    g.add_argument("--permutations", type=int, help="random permutations for p-values (0 skips them; default 999)")
+    g.add_argument("--seed", type=int, help="seed of all random draws; the same seed gives the same results")
+    g.add_argument("--no-map", action="store_true", help="do not write map.html")
+    g.add_argument("--no-report", action="store_true", help="do not write report.html")
+    g.add_argument("--quiet", action="store_true", help="print only errors")
+    g.add_argument("--debug", action="store_true", help="show a traceback on errors")
+
+
+def _overrides(args: argparse.Namespace) -> dict[str, Any]:
+    out: dict[str, Any] = {}
+    for key, name in (
+        ("threshold", "served_threshold"),
+        ("comparison", "comparison"),
+        ("contiguity", "contiguity"),
+        ("permutations", "permutations"),
+        ("seed", "seed"),
+    ):
+        value = getattr(args, key, None)
+        if value is not None:
+            out[name] = value
+    return out
+
+
+def spec_dict_from_options(args: argparse.Namespace) -> dict[str, Any]:
+    """Build a spec mapping from ``run`` options (no spec file)."""
+    missing = [
+        flag
+        for flag, value in (
+            ("--areas", args.areas),
+            ("--id", args.id_column),
+            ("--total", args.total),
+            ("--group", args.group),
+            ("--reference", args.reference),
+        )
+        if not value
+    ]
+    if missing:
+        raise SpecError(f"without a spec file, give {', '.join(missing)} (see coverage-audit run --help)")
+    groups: dict[str, str] = {}
+    for item in args.group:
+        if "=" not in item:
+            raise SpecError(f'--group "{item}" must be NAME=COLUMN, e.g. --group black_nh=B03002_004E')
+        name, column = item.split("=", 1)
+        groups[name.strip()] = column.strip()
+    areas: dict[str, Any] = {"path": str(args.areas.resolve()), "id": args.id_column}
+    for key, value in (("layer", args.areas_layer), ("crs", args.areas_crs), ("table_id", args.table_id), ("id_width", args.id_width)):
+        if value is not None:
+            areas[key] = value
+    if args.table is not None:
+        areas["table"] = str(args.table.resolve())
+    population: dict[str, Any] = {"total": args.total, "groups": groups, "reference": args.reference}
+    if args.derive_minority:
+        population["derive_minority"] = True
+    if args.income_ratio:
+        population["income_ratio"] = args.income_ratio
+    footprint: dict[str, Any] = {}
+    if args.footprint is not None:
+        footprint["path"] = str(args.footprint.resolve())
+        footprint["name"] = args.footprint_name or args.footprint.stem
+        if args.radius is not None:
+            footprint["kind"] = "points"
+            footprint["radius"] = args.radius
+        if args.footprint_crs:
+            footprint["crs"] = args.footprint_crs
+    elif args.served_ids is not None:
+        footprint = {"name": args.footprint_name or args.served_ids.stem, "served_ids": str(args.served_ids.resolve())}
+    elif args.served_column:
+        footprint = {"name": args.footprint_name or args.served_column, "served_column": args.served_column}
+    else:
+        raise SpecError("without a spec file, give a footprint: --footprint FILE [--radius R], --served-ids FILE or --served-column COLUMN")
+    data: dict[str, Any] = {"areas": areas, "population": population, "footprint": footprint}
+    if args.title:
+        data["title"] = args.title
+    return data
+
+
+def _toml_value(value: Any) -> str:
+    if isinstance(value, bool):
+        return "true" if value else "false"
+    if isinstance(value, (int, float)):
+        return repr(value)
+    if isinstance(value, dict):
+        return "{ " + ", ".join(f"{k} = {_toml_value(v)}" for k, v in value.items()) + " }"
+    if isinstance(value, (list, tuple)):
+        return "[" + ", ".join(_toml_value(v) for v in value) + "]"
+    text = str(value).replace("\\", "\\\\").replace('"', '\\"')
+    return f'"{text}"'
+
+
+def toml_text(data: dict[str, Any]) -> str:
+    """Write a spec mapping as TOML (the subset specs use)."""
+    lines = ["# coverage_audit spec written by 'coverage-audit run --write-spec'"]
+    for key, value in data.items():
+        if not isinstance(value, dict):
+            lines.append(f"{key} = {_toml_value(value)}")
+    for key, value in data.items():
+        if isinstance(value, dict):
+            lines.append("")
+            lines.append(f"[{key}]")
+            for k, v in value.items():
+                lines.append(f"{k} = {_toml_value(v)}")
+    return "\n".join(lines) + "\n"
+
+
+def _run_one(spec: Any, out: Path, args: argparse.Namespace, stream: Any) -> dict[str, Any]:
+    from .audit import run_audit
+    from .spec import replace_output
+
+    progress = progress_for(sys.stderr, args.quiet)
+    if args.no_map or args.no_report:
+        spec = replace_output(spec, map=not args.no_map and spec.output.map, report=not args.no_report and spec.output.report)
+    t0 = time.perf_counter()
+    result = run_audit(spec, progress=progress)
+    paths = result.write(out, progress=progress)
+    if not args.quiet:
+        from .console import print_summary
+
+        print_summary(result, paths, seconds=time.perf_counter() - t0, stream=stream)
+    return result.summary
+
+
+def _cmd_run(args: argparse.Namespace) -> int:
+    from .spec import load_spec, spec_from_dict
+
+    if args.spec is not None:
+        spec = load_spec(args.spec)
+        default_out = Path("outputs") / args.spec.stem
+    else:
+        data = spec_dict_from_options(args)
+        if args.write_spec is not None:
+            from .outputs import write_text
+
+            write_text(args.write_spec, toml_text(data))
+        spec = spec_from_dict(data, base_dir=Path.cwd(), source="options")
+        default_out = Path("outputs") / spec.footprint.name
+    overrides = _overrides(args)
+    if overrides:
+        spec = spec.with_analysis(**overrides)
+    _run_one(spec, args.out or default_out, args, sys.stdout)
+    return EXIT_OK
+
+
+def _cmd_demo(args: argparse.Namespace) -> int:
+    from .demo import DEMO_NAME, SCENARIOS, write_demo_region
+    from .spec import load_spec
+
+    bundled = Path(__file__).resolve().parent.parent / "demo_regions" / DEMO_NAME
+    if args.regenerate or not (bundled / "delivery.toml").is_file():
+        region = write_demo_region(args.out / "region")
+    else:
+        region = bundled
+    scenarios = args.scenario or list(SCENARIOS)
+    for name in scenarios:
+        spec = load_spec(region / f"{name}.toml")
+        overrides = _overrides(args)
+        if overrides:
+            spec = spec.with_analysis(**overrides)
+        _run_one(spec, args.out / name, args, sys.stdout)
+    if not args.quiet:
+        print(f"\nDemo region: {region}\nOpen {args.out / scenarios[0] / 'report.html'} in a browser to read the first report.")
+    return EXIT_OK
+
+
+def _cmd_check(args: argparse.Namespace) -> int:
+    from .footprint import build_footprint
+    from .inputs import load_areas
+    from .spec import load_spec
+
+    spec = load_spec(args.spec)
+    inputs = load_areas(spec.areas, spec.population, analysis_crs=spec.analysis.analysis_crs)
+    for fp in spec.footprints:
+        build_footprint(fp, inputs, inputs.exclusions, circle_vertices=spec.analysis.circle_vertices, id_width=spec.areas.id_width)
+    ex = inputs.exclusions
+    print(f"spec {args.spec}: readable")
+    print(f"areas: {inputs.input_rows} rows, {len(inputs.frame)} would be analysed, {ex.count('areas')} excluded")
+    for reason, n in ex.by_reason().items():
+        print(f"  {n:6d}  {reason}")
+    print(f"analysis CRS: {inputs.analysis_crs.srs}")
+    return EXIT_OK
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    """Entry point of the ``coverage-audit`` command."""
+    parser = _build_parser()
+    args = parser.parse_args(argv)
+    if args.command is None:
+        parser.print_help()
+        return EXIT_USER_ERROR
+    handlers = {"run": _cmd_run, "demo": _cmd_demo, "check": _cmd_check}
+    debug = getattr(args, "debug", False)
+    try:
+        with warnings.catch_warnings():
+            # Our own warnings are shown once each, as one line, not with source lines.
+            warnings.simplefilter("default", CoverageAuditWarning)
+            warnings.showwarning = _show_warning  # type: ignore[assignment]
+            return handlers[args.command](args)
+    except CoverageAuditError as exc:
+        if debug:
+            raise
+        print(f"error: {exc}", file=sys.stderr)
+        return EXIT_USER_ERROR
+    except KeyboardInterrupt:
+        print("interrupted; outputs already written are whole, the rest were not written", file=sys.stderr)
+        return 130
+    except Exception as exc:  # an internal fault: say so plainly, keep details for --debug
+        if debug:
+            raise
+        print(
+            f"internal error: {type(exc).__name__}: {exc}\n"
+            "This is a fault of coverage_audit, not of your inputs; rerun with --debug and "
+            "report the traceback.",
+            file=sys.stderr,
+        )
+        return EXIT_INTERNAL_ERROR
+
+
+def _show_warning(message: Any, category: Any, filename: str, lineno: int, file: Any = None, line: Any = None) -> None:
+    name = getattr(category, "__name__", "Warning")
+    print(f"warning ({name}): {message}", file=sys.stderr)
+
+
+if __name__ == "__main__":  # pragma: no cover
+    raise SystemExit(main())

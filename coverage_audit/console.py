@@ -1,0 +1,68 @@
+"""Console summary: a short, readable table of the findings and where the files are."""
+
+from __future__ import annotations
+
+from pathlib import Path
+from typing import IO, Any
+
+
+def _pct(value: float | None) -> str:
+    return "n/a" if value is None else f"{100 * value:.1f}%"
+
+
+def _num(value: float | None, digits: int = 2) -> str:
+    return "n/a" if value is None else f"{value:.{digits}f}"
+
+
+def print_summary(result: Any, paths: dict[str, Path], *, seconds: float, stream: IO[str]) -> None:
+    """Print the coverage table, key statistics and output paths with rich."""
+    from rich.console import Console
+    from rich.table import Table
+
+    console = Console(file=stream, highlight=False, soft_wrap=True)
+    s = result.summary
+    cov = s["coverage"]
+    areas = s["areas"]
+    console.print(f"\n[bold]{s['title']}[/bold]  footprint: {s['footprint']['name']} ({s['footprint']['kind']})")
+    console.print(
+        f"areas: {areas['input']} in, {areas['analysed']} analysed, {areas['excluded']} excluded; "
+        f"served: {cov['served_areas']} of {cov['areas']} (threshold {cov['served_threshold']:g})"
+    )
+    table = Table(show_edge=False, header_style="bold")
+    console.print(
+        f"[dim]coverage = areal-weighted rate; served = share living in served areas; ratio and "
+        f"diff (percentage points) against {cov['comparison_group']}; <4/5 = ratio below 0.8[/dim]"
+    )
+    for col in ("group", "people", "coverage", "served", "ratio", "diff pp", "<4/5"):
+        table.add_column(col, justify="left" if col == "group" else "right")
+    for g, row in cov["groups"].items():
+        diff = row["difference"]
+        table.add_row(
+            g,
+            f"{row['population']:,.0f}",
+            _pct(row["rate"]),
+            _pct(row["served_area_rate"]),
+            _num(row["ratio"]),
+            "n/a" if diff is None else f"{100 * diff:+.1f}",
+            "yes" if row["below_four_fifths"] else "",
+        )
+    console.print(table)
+    seg = s.get("segregation")
+    if seg:
+        d = ", ".join(f"{g} {_num(v)}" for g, v in seg.get("dissimilarity", {}).items())
+        console.print(f"dissimilarity vs {seg.get('reference_group')}: {d}")
+    clu = s.get("clustering")
+    if clu and clu.get("moran"):
+        m = clu["moran"]
+        console.print(f"Moran's I of covered fraction: {_num(m.get('I'), 3)} (pseudo p {_num(m.get('p_sim'), 3)}, {m.get('permutations')} permutations)")
+    enclaves = s.get("enclaves")
+    if enclaves is not None:
+        top = ", ".join(f"{e['id']} ({e['population']:,.0f} people)" for e in enclaves[:3])
+        console.print(f"enclaves: {len(enclaves)}" + (f"; largest {top}" if top else ""))
+    ex = s.get("exclusions", {})
+    if ex.get("count"):
+        console.print(f"excluded rows: {ex['count']} (see exclusions.csv)")
+    console.print("[dim]A disparity is a reason to look closer, not proof of discrimination; see the report's cautions.[/dim]")
+    out_dir = paths["summary"].parent
+    names = ", ".join(p.name for p in paths.values())
+    console.print(f"wrote {out_dir}/: {names}  ({seconds:.1f} s)")

@@ -1,0 +1,236 @@
+"""The fictional demo region: Ostmere, a made-up county on an empty stretch of ocean.
+
+:func:`write_demo_region` generates, from a fixed seed, a region of a few hundred census-
+tract-like areas with spatially patterned demographics and incomes, and three service
+footprints of the kinds the tool reads:
+
+- ``branches.geojson``: a bank's branch network as points (reach 2 km), sited mostly in
+  higher-income, mostly-white neighbourhoods;
+- ``delivery_zone.geojson``: a same-day delivery zone polygon that covers the central city
+  but goes around one neighbourhood;
+- ``assessment_area.csv``: a bank's assessment area as a list of whole tracts, which
+  leaves out a cluster of low- and moderate-income tracts on its edge.
+
+Nothing here depicts a real place, person or company: the coordinates lie in the open
+South Pacific, ids use the unassigned state code 99, and names are invented.
+"""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+
+import geopandas as gpd
+import numpy as np
+import pandas as pd
+import shapely
+
+from .synthetic import FICTIONAL_CRS, demographics, tessellation
+
+DEMO_SEED = 20_261_201
+DEMO_NAME = "ostmere"
+_REGION_AREAS = 420
+_CELL_M = 1_400.0
+
+SPEC_TEMPLATE = """# Ostmere demo audit: {title}. A fictional region; see README.md beside this file.
+title = "{title}"
+
+[areas]
+path = "areas.gpkg"
+layer = "tracts"
+id = "geoid"
+table = "demographics.csv"
+
+[population]
+total = "pop_total"
+reference = "white_nh"
+derive_minority = true
+income_ratio = "income_ratio"
+
+[population.groups]
+white_nh = "pop_white_nh"
+black_nh = "pop_black_nh"
+hispanic = "pop_hispanic"
+asian_nh = "pop_asian_nh"
+
+[footprint]
+{footprint}
+
+[analysis]
+served_threshold = 0.5
+contiguity = "queen"
+permutations = 999
+enclave_draws = 999
+transparent_zero_population = true
+seed = {seed}
+"""
+
+SCENARIOS = {
+    "delivery": (
+        "Same-day delivery zone, Ostmere",
+        'name = "same_day_zone"\npath = "delivery_zone.geojson"',
+    ),
+    "branches": (
+        "Branch network reach, Ostmere",
+        'name = "branches"\npath = "branches.geojson"\nradius = 2\nradius_unit = "km"',
+    ),
+    "assessment_area": (
+        "Assessment area, Ostmere",
+        'name = "assessment_area"\nserved_ids = "assessment_area.csv"\nserved_ids_column = "geoid"',
+    ),
+}
+
+
+def build_region(seed: int = DEMO_SEED) -> tuple[gpd.GeoDataFrame, pd.DataFrame]:
+    """Return the tract polygons (projected, metres) and their demographics."""
+    cells = tessellation(_REGION_AREAS, seed=seed, cell_size_m=_CELL_M, jitter=0.38)
+    width = cells.total_bounds[2]
+    height = cells.total_bounds[3]
+    cells = cells.set_geometry(shapely.transform(cells.geometry.values, lambda c: c - [width / 2, height / 2]))
+    cells["x"] = cells["x"] - width / 2
+    cells["y"] = cells["y"] - height / 2
+    cells["geoid"] = [f"99017{k:06d}" for k in range(100, 100 + 100 * len(cells), 100)]
+    demo = demographics(cells, seed=seed + 1)
+    # A lake and a park: zero-population areas (transparent to enclave detection).
+    r = np.hypot(cells["x"], cells["y"])
+    lake = int(np.argmin(np.hypot(cells["x"] + 0.30 * width, cells["y"] - 0.25 * height)))
+    park = int(np.argmin(np.hypot(cells["x"] - 0.05 * width, cells["y"] + 0.08 * height)))
+    for k in (lake, park):
+        demo.loc[demo.index[k], [c for c in demo.columns if c.startswith("pop_") or c == "households"]] = 0
+        demo.loc[demo.index[k], "income_ratio"] = np.nan
+    names = np.array([f"Tract {k / 100:.2f}" for k in range(100, 100 + 100 * len(cells), 100)], dtype=object)
+    names[lake] = "Ostmere Lake"
+    names[park] = "Heron Commons Park"
+    cells["name"] = names
+    cells["_r"] = r
+    return cells, demo
+
+
+def _minority_share(demo: pd.DataFrame) -> np.ndarray:
+    total = demo["pop_total"].to_numpy(float)
+    return np.where(total > 0, 1 - demo["pop_white_nh"].to_numpy(float) / np.maximum(total, 1), 0.0)
+
+
+def _delivery_zone(cells: gpd.GeoDataFrame, demo: pd.DataFrame) -> shapely.Polygon:
+    x, y = cells["x"].to_numpy(), cells["y"].to_numpy()
+    span = float(np.ptp(x))
+    central = np.hypot(x, y) < 0.36 * span
+    share = _minority_share(demo)
+    # The skipped neighbourhood: around the most minority central tract away from the edge.
+    inner = np.hypot(x, y) < 0.2 * span
+    pivot = int(np.argmax(np.where(inner, share, -1)))
+    skipped = np.hypot(x - x[pivot], y - y[pivot]) < 2.2 * _CELL_M
+    zone = shapely.union_all(cells.geometry.values[central])
+    zone = shapely.buffer(shapely.buffer(zone, 400.0), -400.0)
+    hole = shapely.union_all(cells.geometry.values[skipped])
+    zone = shapely.difference(zone, shapely.buffer(hole, 120.0, join_style="mitre"))
+    # A delivery zone is drawn by hand: keep it simple.
+    return shapely.simplify(zone, 60.0)
+
+
+def _branch_sites(cells: gpd.GeoDataFrame, demo: pd.DataFrame, rng: np.random.Generator) -> gpd.GeoDataFrame:
+    share = _minority_share(demo)
+    income = demo["income_ratio"].fillna(0).to_numpy(float)
+    weight = (income / 100.0) ** 3 * (1.0 - share) ** 2
+    weight[demo["pop_total"].to_numpy() == 0] = 0
+    chosen = rng.choice(len(cells), size=16, replace=False, p=weight / weight.sum())
+    points = shapely.point_on_surface(cells.geometry.values[chosen])
+    names = [f"Ostmere Savings branch {k:02d}" for k in range(1, len(chosen) + 1)]
+    return gpd.GeoDataFrame(
+        {"site_id": [f"B{k:02d}" for k in range(1, len(chosen) + 1)], "name": names},
+        geometry=points,
+        crs=cells.crs,
+    )
+
+
+def _assessment_area(cells: gpd.GeoDataFrame, demo: pd.DataFrame) -> list[str]:
+    x, y = cells["x"].to_numpy(), cells["y"].to_numpy()
+    span = float(np.ptp(x))
+    inside = (x < 0.22 * span) & (y > -0.3 * span)
+    # Leave out a run of low- and moderate-income tracts along the eastern edge.
+    lmi = demo["income_ratio"].to_numpy(float) < 80
+    edge = inside & (x > 0.08 * span) & lmi
+    return list(cells.loc[inside & ~edge, "geoid"])
+
+
+def write_demo_region(folder: str | Path, seed: int = DEMO_SEED) -> Path:
+    """Generate the Ostmere demo region and its audit specs into ``folder``.
+
+    Returns the folder. Files: areas.gpkg (layer ``tracts``, EPSG:4326),
+    demographics.csv, branches.geojson, delivery_zone.geojson, assessment_area.csv,
+    one ``<scenario>.toml`` spec per scenario, and README.md.
+    """
+    out = Path(folder)
+    out.mkdir(parents=True, exist_ok=True)
+    rng = np.random.default_rng(seed + 2)
+    cells, demo = build_region(seed)
+    geo = cells[["geoid", "name", "geometry"]].to_crs("EPSG:4326")
+    geo = geo.set_geometry(shapely.set_precision(geo.geometry.values, 1e-7))
+    path = out / "areas.gpkg"
+    if path.exists():
+        path.unlink()
+    geo.to_file(path, layer="tracts", driver="GPKG")
+    table = pd.concat([cells[["geoid"]], demo], axis=1)
+    table.to_csv(out / "demographics.csv", index=False, lineterminator="\n")
+    zone = gpd.GeoDataFrame({"zone": ["same-day"]}, geometry=[_delivery_zone(cells, demo)], crs=FICTIONAL_CRS)
+    _write_geojson(zone.to_crs("EPSG:4326"), out / "delivery_zone.geojson")
+    _write_geojson(_branch_sites(cells, demo, rng).to_crs("EPSG:4326"), out / "branches.geojson")
+    pd.DataFrame({"geoid": _assessment_area(cells, demo)}).to_csv(
+        out / "assessment_area.csv", index=False, lineterminator="\n"
+    )
+    for key, (title, footprint) in SCENARIOS.items():
+        (out / f"{key}.toml").write_text(
+            SPEC_TEMPLATE.format(title=title, footprint=footprint, seed=seed), encoding="utf-8"
+        )
+    (out / "README.md").write_text(_readme(len(cells)), encoding="utf-8")
+    return out
+
+
+def _write_geojson(frame: gpd.GeoDataFrame, path: Path) -> None:
+    data = json.loads(frame.to_json(drop_id=True))
+    for feature in data["features"]:
+        feature["geometry"] = _round_coords(feature["geometry"])
+    data["crs"] = {"type": "name", "properties": {"name": "urn:ogc:def:crs:OGC:1.3:CRS84"}}
+    path.write_text(json.dumps(data, separators=(",", ":")) + "\n", encoding="utf-8")
+
+
+def _round_coords(geometry: dict) -> dict:
+    def walk(c):
+        if isinstance(c, (list, tuple)) and c and isinstance(c[0], (int, float)):
+            return [round(float(v), 7) for v in c]
+        return [walk(v) for v in c]
+
+    return {"type": geometry["type"], "coordinates": walk(geometry["coordinates"])}
+
+
+def _readme(n: int) -> str:
+    return f"""# Ostmere: a fictional demo region
+
+Ostmere is an invented county of {n} census-tract-like areas, generated by
+`coverage_audit.demo.write_demo_region` with seed {DEMO_SEED} (regenerate with
+`python -m coverage_audit.demo demo_regions/ostmere`). Its coordinates lie on an empty
+stretch of the South Pacific; ids use the unassigned state code 99; every name is made
+up. Population counts follow smooth spatial patterns (a few concentrations of each
+group), and tract income ratios (tract median family income as a percent of the area
+median) fall where the share of minority residents is high, as in many real regions.
+Two areas have no residents: Ostmere Lake and Heron Commons Park.
+
+## Scenarios
+- `delivery.toml`: a same-day delivery zone (`delivery_zone.geojson`) drawn around the
+  central city. The zone goes around one neighbourhood, a pocket surrounded by served
+  streets. Is it the sort of gap a reporter should ask about?
+- `branches.toml`: the branch network of a fictional bank (`branches.geojson`, 16 branches,
+  reach 2 km). Branches sit mostly in higher-income, mostly-white tracts.
+- `assessment_area.toml`: the bank's assessment area as a list of whole tracts
+  (`assessment_area.csv`). It leaves out a run of low- and moderate-income tracts on its
+  eastern edge.
+
+Run all three with `coverage-audit demo`; outputs go to `outputs/demo/<scenario>/`.
+"""
+
+
+if __name__ == "__main__":  # pragma: no cover
+    import sys
+
+    target = sys.argv[1] if len(sys.argv) > 1 else "demo_regions/ostmere"
+    print(write_demo_region(target))

@@ -1,0 +1,553 @@
+"""Inputs: read the areas layer and demographics table, validate, repair, project.
+
+Takes the ``[areas]`` and ``[population]`` parts of a spec and gives :class:`AreaInputs`:
+the analysed areas as a GeoDataFrame in the equal-area analysis CRS, with string ids,
+numeric group counts, shares, income tiers and the input row each came from; the
+:class:`Exclusions` (every input row not analysed, with its reason); and a record of each
+input file read (path, SHA-256, rows, CRS). Files are only ever read.
+
+Row numbers in exclusions are 1-based data rows: row 1 is the first feature of a layer or
+the first line after the header of a CSV file.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import warnings
+from collections.abc import Iterable
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import geopandas as gpd
+import numpy as np
+import pandas as pd
+import pyogrio
+import shapely
+from pyproj import CRS, Transformer
+
+from .errors import IdWarning, InputError, RepairWarning
+from .spec import AreasSpec, PopulationSpec
+
+#: Extensions read with pandas/pyarrow rather than GDAL.
+PARQUET_SUFFIXES = (".parquet", ".geoparquet", ".pq")
+TABLE_SUFFIXES = (".csv", ".txt", ".tsv") + PARQUET_SUFFIXES
+INCOME_TIERS = ("low", "moderate", "middle", "upper", "unknown")
+
+
+@dataclass(frozen=True)
+class InputRecord:
+    """One input file as read: for the manifest."""
+
+    role: str
+    path: str
+    sha256: str
+    rows: int
+    crs: str | None = None
+    layer: str | None = None
+
+    def to_dict(self) -> dict[str, Any]:
+        """Plain data for the manifest."""
+        return {
+            "role": self.role,
+            "path": self.path,
+            "sha256": self.sha256,
+            "rows": self.rows,
+            "crs": self.crs,
+            "layer": self.layer,
+        }
+
+
+@dataclass
+class Exclusions:
+    """Rows left out of an analysis, each with its source file, row, id and reason."""
+
+    records: list[dict[str, Any]] = field(default_factory=list)
+
+    def add(self, source: str, rows: Iterable[Any], ids: Iterable[Any], reason: str | Iterable[str]) -> None:
+        """Record rows; ``reason`` is one string for all or one per row."""
+        rows_l = list(rows)
+        ids_l = list(ids)
+        reasons = [reason] * len(rows_l) if isinstance(reason, str) else list(reason)
+        for r, i, why in zip(rows_l, ids_l, reasons, strict=True):
+            self.records.append(
+                {
+                    "source": source,
+                    "row": None if r is None else int(r),
+                    "id": None if i is None or (isinstance(i, float) and np.isnan(i)) else str(i),
+                    "reason": why,
+                }
+            )
+
+    def count(self, source: str | None = None) -> int:
+        """Number of records, optionally of one source."""
+        return sum(1 for r in self.records if source is None or r["source"] == source)
+
+    def to_frame(self) -> pd.DataFrame:
+        """Return the records as a table with columns source, row, id, reason."""
+        frame = pd.DataFrame(self.records, columns=["source", "row", "id", "reason"])
+        frame["row"] = frame["row"].astype("Int64")
+        return frame
+
+    def by_reason(self) -> dict[str, int]:
+        """Counts by a short form of the reason (the text before any colon)."""
+        out: dict[str, int] = {}
+        for r in self.records:
+            key = f"{r['source']}: {str(r['reason']).split(':')[0]}"
+            out[key] = out.get(key, 0) + 1
+        return dict(sorted(out.items()))
+
+
+@dataclass
+class AreaInputs:
+    """The analysed areas and everything learnt while reading them."""
+
+    frame: gpd.GeoDataFrame
+    id_column: str
+    groups: list[str]
+    reference: str
+    input_rows: int
+    exclusions: Exclusions
+    inputs: list[InputRecord]
+    analysis_crs: CRS
+    repaired: int
+    income_unknown: int
+    source_crs: CRS
+
+
+def sha256_file(path: Path) -> str:
+    """Return the SHA-256 hex digest of a file (of every file of a shapefile set)."""
+    digest = hashlib.sha256()
+    with open(path, "rb") as handle:
+        for block in iter(lambda: handle.read(1 << 20), b""):
+            digest.update(block)
+    return digest.hexdigest()
+
+
+def _require_file(path: Path, role: str) -> None:
+    if not path.exists():
+        raise InputError(f"{role} file '{path}' was not found; check the path in the spec")
+    if path.is_dir() and path.suffix.lower() != ".gdb":
+        raise InputError(f"{role} path '{path}' is a folder; name the file itself")
+
+
+def read_layer(path: Path, *, layer: str | None, role: str) -> gpd.GeoDataFrame:
+    """Read a vector layer (GeoPackage, GeoJSON, Shapefile, GeoParquet, ...) as is.
+
+    Raises
+    ------
+    InputError
+        When the file is missing or unreadable or the layer does not exist.
+    """
+    _require_file(path, role)
+    suffix = path.suffix.lower()
+    try:
+        if suffix in PARQUET_SUFFIXES:
+            return gpd.read_parquet(path)
+        if layer is not None:
+            available = [str(name) for name in pyogrio.list_layers(path)[:, 0]]
+            if layer not in available:
+                raise InputError(
+                    f"{role} file '{path}' has no layer \"{layer}\"; its layers are {available}"
+                )
+        return pyogrio.read_dataframe(path, layer=layer)
+    except InputError:
+        raise
+    except Exception as exc:  # GDAL and pyarrow raise many kinds; all mean "unreadable"
+        raise InputError(
+            f"{role} file '{path}' could not be read as a spatial layer ({exc}); "
+            "use GeoPackage, GeoJSON, Shapefile or GeoParquet"
+        ) from None
+
+
+def read_table(path: Path, *, id_column: str, role: str) -> pd.DataFrame:
+    """Read a CSV or Parquet table keeping ``id_column`` as text (leading zeros kept)."""
+    _require_file(path, role)
+    suffix = path.suffix.lower()
+    try:
+        if suffix in PARQUET_SUFFIXES:
+            table = pd.read_parquet(path)
+        else:
+            sep = "\t" if suffix == ".tsv" else ","
+            table = pd.read_csv(path, sep=sep, dtype={id_column: str}, keep_default_na=True)
+    except Exception as exc:
+        raise InputError(f"{role} file '{path}' could not be read as a table ({exc})") from None
+    if "geometry" in table.columns and isinstance(table, gpd.GeoDataFrame):
+        table = pd.DataFrame(table.drop(columns="geometry"))
+    return table
+
+
+def ids_as_text(values: pd.Series, *, width: int | None, where: str) -> pd.Series:
+    """Return ids as strings; numbers become integers' text, zero-padded to ``width``.
+
+    Census GEOIDs must be strings (states 01-09 start with a zero). When ids arrive as
+    numbers the zeros are already gone; ``width`` (11 for tracts, 12 for block groups)
+    restores them, and without it an :class:`IdWarning` says so.
+    """
+    series = values.copy()
+    missing = series.isna()
+    if pd.api.types.is_numeric_dtype(series.dtype) and not pd.api.types.is_bool_dtype(series.dtype):
+        numbers = pd.to_numeric(series, errors="coerce")
+        integral = numbers.dropna()
+        if (integral % 1 != 0).any():
+            raise InputError(f"{where}: ids must be whole numbers or text, found {integral[integral % 1 != 0].iloc[0]}")
+        text = numbers.map(lambda v: None if pd.isna(v) else str(int(v)))
+        if width is None:
+            warnings.warn(
+                f"{where}: ids are stored as numbers, so leading zeros may be lost "
+                "(GEOIDs of states 01-09); set id_width (11 for tracts, 12 for block groups) "
+                "to restore them",
+                IdWarning,
+                stacklevel=2,
+            )
+        series = text
+    else:
+        series = series.map(lambda v: None if v is None or (isinstance(v, float) and np.isnan(v)) else str(v).strip())
+    if width is not None:
+        series = series.map(lambda v: v if v is None else v.zfill(width))
+    series = series.where(~missing, None)
+    series = series.map(lambda v: None if v == "" else v)
+    return series.astype(object)
+
+
+def _crs_text(crs: CRS | None) -> str | None:
+    if crs is None:
+        return None
+    auth = crs.to_authority()
+    return f"{auth[0]}:{auth[1]}" if auth else crs.to_string()
+
+
+def resolve_crs(layer: gpd.GeoDataFrame, declared: str | None, *, role: str, path: Path, key: str) -> gpd.GeoDataFrame:
+    """Give ``layer`` its CRS: the file's own, or the one the spec declares.
+
+    Raises
+    ------
+    InputError
+        When neither the file nor the spec gives a CRS, or the two disagree.
+    """
+    if declared is not None:
+        try:
+            declared_crs = CRS.from_user_input(declared)
+        except Exception:
+            raise InputError(f'{role}: crs "{declared}" is not a known CRS; write e.g. "EPSG:4326"') from None
+        if layer.crs is None:
+            return layer.set_crs(declared_crs)
+        if not CRS(layer.crs).equals(declared_crs, ignore_axis_order=True):
+            raise InputError(
+                f"{role} file '{path}' declares CRS {_crs_text(layer.crs)} but the spec says "
+                f"{key} = \"{declared}\"; remove {key} from the spec (it is only for files without "
+                "a CRS) or fix the file"
+            )
+        return layer
+    if layer.crs is None:
+        raise InputError(
+            f"{role} file '{path}' has no coordinate reference system; name it in the spec with "
+            f'{key} = "EPSG:4326" (or the CRS the coordinates are in)'
+        )
+    return layer
+
+
+def choose_analysis_crs(geometries: gpd.GeoSeries, override: str | None) -> CRS:
+    """Return the equal-area CRS the analysis runs in.
+
+    By default a Lambert azimuthal equal-area projection centred on the middle of the
+    areas' extent (rounded to 0.01 degree so that it is stable), on the GRS80 ellipsoid:
+    areas are exact wherever the region lies; distances are near-true close to the centre.
+    """
+    if override is not None:
+        try:
+            crs = CRS.from_user_input(override)
+        except Exception:
+            raise InputError(f'analysis_crs "{override}" is not a known CRS') from None
+        if crs.is_geographic:
+            raise InputError(
+                f'analysis_crs "{override}" is geographic (degrees); areas and lengths need a '
+                "projected equal-area CRS, e.g. EPSG:5070 for the conterminous United States"
+            )
+        return crs
+    bounds = geometries.total_bounds
+    to_geo = Transformer.from_crs(geometries.crs, "EPSG:4326", always_xy=True)
+    xs = np.linspace(bounds[0], bounds[2], 5)
+    ys = np.linspace(bounds[1], bounds[3], 5)
+    gx, gy = np.meshgrid(xs, ys)
+    lon, lat = to_geo.transform(gx.ravel(), gy.ravel())
+    lon_c = float(np.round((np.nanmin(lon) + np.nanmax(lon)) / 2, 2))
+    lat_c = float(np.round((np.nanmin(lat) + np.nanmax(lat)) / 2, 2))
+    return CRS.from_proj4(
+        f"+proj=laea +lat_0={lat_c:g} +lon_0={lon_c:g} +x_0=0 +y_0=0 +ellps=GRS80 +units=m +no_defs"
+    )
+
+
+def polygonal(geoms: np.ndarray) -> np.ndarray:
+    """Keep only the polygonal parts of each geometry (empty where none)."""
+    out = np.empty(geoms.size, dtype=object)
+    for k, g in enumerate(geoms):
+        if g is None:
+            out[k] = None
+            continue
+        kind = shapely.get_type_id(g)
+        if kind in (3, 6):  # Polygon, MultiPolygon
+            out[k] = g
+        else:
+            parts = [p for p in shapely.get_parts(g) if shapely.get_type_id(p) in (3, 6)]
+            out[k] = shapely.union_all(parts) if parts else shapely.Polygon()
+    return out
+
+
+def repair(geoms: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Repair invalid geometries with ``make_valid``, keeping polygonal parts.
+
+    Returns the repaired array and a mask of the positions that were repaired.
+    """
+    geoms = np.asarray(geoms, dtype=object)
+    present = ~(shapely.is_missing(geoms) | shapely.is_empty(geoms))
+    invalid = np.zeros(geoms.size, dtype=bool)
+    invalid[present] = ~shapely.is_valid(geoms[present])
+    if invalid.any():
+        fixed = shapely.make_valid(geoms[invalid])
+        geoms = geoms.copy()
+        geoms[invalid] = polygonal(fixed)
+    return geoms, invalid
+
+
+def income_tier(ratio: np.ndarray | pd.Series) -> np.ndarray:
+    """Return the income tier of each tract income ratio.
+
+    The ratio is tract median family income as a percent of the area median. Tiers per
+    the CRA rule's definition of income level, 12 CFR 228.12(m) (paragraph letter from
+    memory): low < 50; moderate >= 50 and < 80; middle >= 80 and < 120; upper >= 120.
+    A missing ratio is "unknown", never low.
+    """
+    r = np.asarray(pd.to_numeric(pd.Series(ratio), errors="coerce"), dtype=float)
+    tiers = np.full(r.size, "unknown", dtype=object)
+    ok = np.isfinite(r)
+    tiers[ok & (r < 50)] = "low"
+    tiers[ok & (r >= 50) & (r < 80)] = "moderate"
+    tiers[ok & (r >= 80) & (r < 120)] = "middle"
+    tiers[ok & (r >= 120)] = "upper"
+    return tiers
+
+
+def _numeric_problem(raw: pd.Series) -> tuple[pd.Series, pd.Series]:
+    """Return numbers and a per-row problem text ('' where fine)."""
+    numbers = pd.to_numeric(raw, errors="coerce")
+    problem = pd.Series("", index=raw.index, dtype=object)
+    missing = raw.isna() | (raw.astype(str).str.strip() == "")
+    bad = numbers.isna() & ~missing
+    problem[missing] = "missing"
+    problem[bad] = "not a number"
+    infinite = ~np.isfinite(numbers.fillna(0.0))
+    problem[infinite] = "not a finite number"
+    problem[(numbers < 0) & (problem == "")] = "negative"
+    return numbers.astype(float), problem
+
+
+def load_areas(areas_spec: AreasSpec, pop_spec: PopulationSpec, *, analysis_crs: str | None = None) -> AreaInputs:
+    """Read, join, validate, repair and project the areas.
+
+    Parameters
+    ----------
+    areas_spec, pop_spec : AreasSpec, PopulationSpec
+        The spec's ``[areas]`` and ``[population]``.
+    analysis_crs : str, optional
+        Projected CRS to use instead of the automatic local equal-area one.
+
+    Returns
+    -------
+    AreaInputs
+    """
+    exclusions = Exclusions()
+    records: list[InputRecord] = []
+    path = areas_spec.path
+    layer = read_layer(path, layer=areas_spec.layer, role="areas")
+    layer = resolve_crs(layer, areas_spec.crs, role="areas", path=path, key="[areas] crs")
+    source_crs = CRS(layer.crs)
+    records.append(
+        InputRecord("areas", str(path), sha256_file(path), len(layer), _crs_text(layer.crs), areas_spec.layer)
+    )
+    n_input = len(layer)
+    id_col = areas_spec.id
+    if id_col not in layer.columns:
+        raise InputError(
+            f"areas file '{path}' has no id column \"{id_col}\"; its columns are "
+            f"{[c for c in layer.columns if c != 'geometry']}"
+        )
+    frame = pd.DataFrame(layer.drop(columns=layer.geometry.name))
+    frame["_row"] = np.arange(1, n_input + 1)
+    frame[id_col] = ids_as_text(frame[id_col], width=areas_spec.id_width, where=f"areas file '{path}' column {id_col}")
+    geoms = np.asarray(layer.geometry.array, dtype=object)
+    keep = np.ones(n_input, dtype=bool)
+
+    def drop(mask: np.ndarray, reason: str | list[str], source: str = "areas") -> None:
+        nonlocal keep
+        mask = mask & keep
+        if mask.any():
+            reasons = reason if isinstance(reason, str) else list(np.asarray(reason, dtype=object)[mask])
+            exclusions.add(source, frame.loc[mask, "_row"], frame.loc[mask, id_col], reasons)
+            keep &= ~mask
+
+    ids = frame[id_col]
+    drop(ids.isna().to_numpy(), "missing id")
+    dup_counts = ids[keep].value_counts()
+    dup_mask = ids.map(dup_counts).fillna(0).to_numpy() > 1
+    drop(dup_mask, [f"duplicate id: appears {int(dup_counts.get(v, 0))} times in the areas file" for v in ids])
+    missing_geom = shapely.is_missing(geoms) | shapely.is_empty(geoms)
+    drop(missing_geom, "null or empty geometry")
+    type_ids = shapely.get_type_id(geoms)
+    wrong_type = ~np.isin(type_ids, (3, 6, 7)) & ~missing_geom
+    drop(wrong_type, [f"not a polygon: {'' if g is None else g.geom_type}" for g in geoms])
+    repaired_geoms, repaired_mask = repair(np.where(keep, geoms, None))
+    collection = keep & (type_ids == 7)
+    if collection.any():
+        repaired_geoms[collection] = polygonal(repaired_geoms[collection])
+    still_empty = keep & (shapely.is_missing(repaired_geoms) | shapely.is_empty(repaired_geoms))
+    drop(still_empty, "geometry has no polygonal part after repair")
+    repaired = int((repaired_mask & keep).sum())
+    if repaired:
+        warnings.warn(f"repaired {repaired} invalid area geometries with make_valid", RepairWarning, stacklevel=2)
+    geoms = repaired_geoms
+
+    if areas_spec.table is not None:
+        table_id = areas_spec.table_id or id_col
+        table = read_table(areas_spec.table, id_column=table_id, role="demographics table")
+        records.append(
+            InputRecord("table", str(areas_spec.table), sha256_file(areas_spec.table), len(table))
+        )
+        if table_id not in table.columns:
+            raise InputError(
+                f"demographics table '{areas_spec.table}' has no id column \"{table_id}\"; its columns "
+                f"are {list(table.columns)}"
+            )
+        table = table.copy()
+        table["_trow"] = np.arange(1, len(table) + 1)
+        table[table_id] = ids_as_text(
+            table[table_id], width=areas_spec.id_width, where=f"demographics table column {table_id}"
+        )
+        tkeep = table[table_id].notna().to_numpy().copy()
+        exclusions.add("table", table.loc[~tkeep, "_trow"], table.loc[~tkeep, table_id], "missing id")
+        tcounts = table.loc[tkeep, table_id].value_counts()
+        tdup = table[table_id].map(tcounts).fillna(0).to_numpy() > 1
+        tdup &= tkeep
+        exclusions.add(
+            "table",
+            table.loc[tdup, "_trow"],
+            table.loc[tdup, table_id],
+            [f"duplicate id: appears {int(tcounts[v])} times in the table" for v in table.loc[tdup, table_id]],
+        )
+        tkeep &= ~tdup
+        layer_ids = set(ids[keep].dropna())
+        only_table = tkeep & ~table[table_id].isin(layer_ids).to_numpy()
+        all_layer_ids = set(ids.dropna())
+        exclusions.add(
+            "table",
+            table.loc[only_table, "_trow"],
+            table.loc[only_table, table_id],
+            [
+                "no area with this id in the areas file"
+                if v not in all_layer_ids
+                else "its area was excluded (see the areas rows)"
+                for v in table.loc[only_table, table_id]
+            ],
+        )
+        tkeep &= ~only_table
+        good_table = table.loc[tkeep].set_index(table_id)
+        overlap = [c for c in good_table.columns if c in frame.columns and c not in ("_trow",)]
+        # Columns present in both: the table's values are the demographics; say so by suffix.
+        frame = frame.rename(columns={c: f"{c}_areas" for c in overlap})
+        joined = frame.join(good_table, on=id_col)
+        no_table_row = keep & joined["_trow"].isna().to_numpy()
+        drop(no_table_row, f"no row with this id in the demographics table '{areas_spec.table.name}'")
+        frame = joined.drop(columns=["_trow"])
+
+    # Count columns: the total, each group and the optional income ratio.
+    where_counts = f"'{areas_spec.table}'" if areas_spec.table is not None else f"areas file '{path}'"
+    needed = [pop_spec.total] + [c for _, c in pop_spec.groups]
+    missing_cols = [c for c in needed if c not in frame.columns]
+    if missing_cols:
+        raise InputError(
+            f"{where_counts} has no column {missing_cols[0]!r} named in [population]; its columns are "
+            f"{[c for c in frame.columns if not c.startswith('_')]}"
+        )
+    if pop_spec.income_ratio is not None and pop_spec.income_ratio not in frame.columns:
+        raise InputError(
+            f"{where_counts} has no income ratio column {pop_spec.income_ratio!r}; its columns are "
+            f"{[c for c in frame.columns if not c.startswith('_')]}"
+        )
+    numbers: dict[str, pd.Series] = {}
+    for label, column in [("total", pop_spec.total)] + list(pop_spec.groups):
+        values, problem = _numeric_problem(frame[column])
+        numbers[label] = values
+        bad = (problem != "").to_numpy()
+        reasons = [f"{p} count in column {column}: {v!r}" for p, v in zip(problem, frame[column], strict=True)]
+        drop(bad, reasons)
+    total = numbers["total"]
+    for name, column in pop_spec.groups:
+        above = (numbers[name] > total + 1e-9).to_numpy()
+        reasons = [
+            f"group count above the total: {column} = {g:g} > {pop_spec.total} = {t:g}"
+            for g, t in zip(numbers[name].fillna(0), total.fillna(0), strict=True)
+        ]
+        drop(above, reasons)
+    income_unknown = 0
+    if pop_spec.income_ratio is not None:
+        ratio = pd.to_numeric(frame[pop_spec.income_ratio], errors="coerce")
+        negative = (ratio < 0).to_numpy()
+        drop(negative, f"negative income ratio in column {pop_spec.income_ratio}")
+
+    # Build the analysed frame.
+    sel = np.flatnonzero(keep)
+    out = pd.DataFrame({id_col: frame[id_col].to_numpy()[sel]})
+    out["population"] = total.to_numpy()[sel]
+    groups = pop_spec.group_names
+    for name, _ in pop_spec.groups:
+        out[name] = numbers[name].to_numpy()[sel]
+    if pop_spec.derive_minority:
+        out["minority"] = np.clip(out["population"] - out[pop_spec.reference], 0.0, None)
+    pop = out["population"].to_numpy()
+    with np.errstate(divide="ignore", invalid="ignore"):
+        for name in groups:
+            out[f"{name}_share"] = np.where(pop > 0, out[name].to_numpy() / np.where(pop > 0, pop, 1), np.nan)
+    if "minority" in groups:
+        share = out["minority_share"].to_numpy()
+        cut = pop_spec.majority_minority_share
+        if pop_spec.majority_minority_rule == "above":
+            out["majority_minority"] = share > cut
+        else:
+            out["majority_minority"] = share >= cut
+        out.loc[~np.isfinite(share), "majority_minority"] = False
+    if pop_spec.income_ratio is not None:
+        ratio = pd.to_numeric(frame[pop_spec.income_ratio], errors="coerce").to_numpy()[sel]
+        out["income_ratio"] = ratio
+        out["income_tier"] = income_tier(ratio)
+        income_unknown = int((out["income_tier"] == "unknown").sum())
+    used = {id_col, pop_spec.total, pop_spec.income_ratio, *[c for _, c in pop_spec.groups]}
+    for column in frame.columns:
+        if column in used or column.startswith("_") or column in out.columns:
+            continue
+        out[column] = frame[column].to_numpy()[sel]
+    out["source_row"] = frame["_row"].to_numpy()[sel]
+
+    analysed = gpd.GeoDataFrame(out, geometry=gpd.GeoSeries(geoms[sel], crs=layer.crs).values, crs=layer.crs)
+    if len(analysed) == 0:
+        raise InputError(
+            f"no area of '{path}' can be analysed: all {n_input} rows were excluded "
+            f"({exclusions.by_reason()}); see the reasons above and fix the inputs"
+        )
+    crs = choose_analysis_crs(analysed.geometry, analysis_crs)
+    analysed = analysed.to_crs(crs)
+    analysed["area_km2"] = analysed.geometry.area.to_numpy() / 1e6
+    analysed = analysed.reset_index(drop=True)
+    assert exclusions.count("areas") + len(analysed) == n_input, "area rows lost between input and output"
+    return AreaInputs(
+        frame=analysed,
+        id_column=id_col,
+        groups=groups,
+        reference=pop_spec.reference,
+        input_rows=n_input,
+        exclusions=exclusions,
+        inputs=records,
+        analysis_crs=crs,
+        repaired=repaired,
+        income_unknown=income_unknown,
+        source_crs=source_crs,
+    )

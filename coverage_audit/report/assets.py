@@ -1,0 +1,467 @@
+"""Offline web assets of the map: Leaflet from the installed package, our own JS and CSS.
+
+Takes nothing but the installed ``xstatic-leaflet`` package and gives the text that
+``map.py`` inlines into ``map.html``: Leaflet's JavaScript (source-map comment removed)
+and CSS (its control images turned into ``data:`` URIs, so the page makes no request of
+any kind when opened from disk), plus the project's own stylesheet and the drawing script
+``coverageAuditDraw(map, data)``. Leaflet is read from the installed wheel at build time
+and never copied into the repository.
+"""
+
+from __future__ import annotations
+
+import base64
+import re
+from functools import lru_cache
+from pathlib import Path
+
+from ..errors import InputError
+
+__all__ = [
+    "LEAFLET_VERSION",
+    "MAP_CSS",
+    "MAP_JS",
+    "inline_script",
+    "inline_style",
+    "leaflet_css",
+    "leaflet_dir",
+    "leaflet_js",
+]
+
+
+def leaflet_dir() -> Path:
+    """Return the folder of the installed Leaflet distribution (``xstatic-leaflet``).
+
+    Raises
+    ------
+    InputError
+        When ``xstatic-leaflet`` is not installed.
+    """
+    try:
+        from xstatic.pkg import leaflet
+    except ImportError as exc:  # pragma: no cover - it is a declared dependency
+        raise InputError(
+            "the offline map needs Leaflet from the 'xstatic-leaflet' package; "
+            "install it with: pip install xstatic-leaflet"
+        ) from exc
+    return Path(leaflet.BASE_DIR)
+
+
+def _leaflet_version() -> str:
+    try:
+        from xstatic.pkg import leaflet
+    except ImportError:  # pragma: no cover
+        return "unknown"
+    return str(leaflet.VERSION)
+
+
+LEAFLET_VERSION: str = _leaflet_version()
+
+_SOURCE_MAP = re.compile(r"^\s*//# sourceMappingURL=.*$", re.MULTILINE)
+_CSS_IMAGE = re.compile(r"url\((['\"]?)(images/[A-Za-z0-9_.-]+\.png)\1\)")
+
+
+@lru_cache(maxsize=1)
+def leaflet_js() -> str:
+    """Return Leaflet's minified JavaScript, without its source-map comment.
+
+    The comment is dropped because developer tools would otherwise try to load the map
+    file next to ``map.html``, which does not exist there.
+    """
+    text = (leaflet_dir() / "leaflet.js").read_text(encoding="utf-8")
+    return _SOURCE_MAP.sub("", text)
+
+
+@lru_cache(maxsize=1)
+def leaflet_css() -> str:
+    """Return Leaflet's CSS with its ``images/*.png`` references inlined as data URIs."""
+    base = leaflet_dir()
+    text = (base / "leaflet.css").read_text(encoding="utf-8")
+
+    def to_data_uri(match: re.Match[str]) -> str:
+        data = (base / match.group(2)).read_bytes()
+        return "url(data:image/png;base64," + base64.b64encode(data).decode("ascii") + ")"
+
+    return _CSS_IMAGE.sub(to_data_uri, text)
+
+
+def inline_script(code: str) -> str:
+    """Wrap JavaScript in a ``<script>`` element, refusing text that would end it early."""
+    if re.search(r"</script", code, re.IGNORECASE):
+        raise InputError("script text contains '</script' and cannot be inlined safely")
+    return "<script>\n" + code + "\n</script>"
+
+
+def inline_style(css: str) -> str:
+    """Wrap CSS in a ``<style>`` element, refusing text that would end it early."""
+    if re.search(r"</style", css, re.IGNORECASE):
+        raise InputError("style text contains '</style' and cannot be inlined safely")
+    return "<style>\n" + css + "\n</style>"
+
+
+#: The project's own map stylesheet. The neutral background keeps the map readable when
+#: no base tiles are loaded (the default, since tiles need the network).
+MAP_CSS = """
+.leaflet-container { background: #eeede8; font: 13px/1.35 system-ui, -apple-system,
+  "Segoe UI", Roboto, "Helvetica Neue", Arial, sans-serif; }
+.ca-panel { background: rgba(255,255,255,0.94); border-radius: 4px; padding: 8px 10px;
+  box-shadow: 0 1px 4px rgba(0,0,0,0.3); color: #1f1f1f; max-width: 320px; }
+.ca-title h1 { font-size: 15px; margin: 0 0 2px 0; }
+.ca-title p { margin: 0; color: #444; font-size: 12px; }
+.ca-legend h2, .ca-hover h2 { font-size: 13px; margin: 0 0 4px 0; }
+.ca-legend .ca-note { font-size: 11px; color: #555; margin: 2px 0 4px 0; }
+.ca-legend ul { list-style: none; margin: 0 0 6px 0; padding: 0; }
+.ca-legend li { display: flex; align-items: center; margin: 1px 0; }
+.ca-swatch { display: inline-block; width: 16px; height: 12px; margin-right: 6px;
+  border: 1px solid rgba(0,0,0,0.35); flex: none; }
+.ca-swatch.ca-line { background: transparent; border: 2px solid #111; height: 8px; }
+.ca-swatch.ca-dash { background: transparent; border: 2px dashed #111; height: 8px; }
+.ca-swatch.ca-dot { border-radius: 50%; width: 10px; height: 10px; margin: 0 9px 0 3px; }
+.ca-hover { min-width: 220px; }
+.ca-hover table { border-collapse: collapse; }
+.ca-hover th { text-align: left; font-weight: normal; color: #555; padding: 0 8px 0 0; }
+.ca-hover td { text-align: right; font-variant-numeric: tabular-nums; }
+.ca-hover .ca-hint { color: #555; margin: 0; }
+.ca-enclave-label { background: rgba(255,255,255,0.85); border: 1px solid #111;
+  font-weight: 600; padding: 0 4px; box-shadow: none; }
+.ca-enclave-label:before { display: none; }
+@media (max-width: 600px) { .ca-panel { max-width: 200px; font-size: 11px; } }
+"""
+
+
+#: The drawing script. Every value that comes from input files is put on the page with
+#: ``textContent`` or passed through ``esc`` where Leaflet would use ``innerHTML``, so a
+#: name such as ``<script>...</script>`` shows as text and never runs.
+MAP_JS = r"""
+(function () {
+"use strict";
+
+function esc(s) {
+  return String(s).replace(/[&<>"']/g, function (c) {
+    return {"&": "&amp;", "<": "&lt;", ">": "&gt;", '"': "&quot;", "'": "&#39;"}[c];
+  });
+}
+
+function el(tag, cls, text) {
+  var e = document.createElement(tag);
+  if (cls) { e.className = cls; }
+  if (text !== undefined && text !== null) { e.textContent = String(text); }
+  return e;
+}
+
+function fmtInt(v) {
+  return (v === null || v === undefined) ? "n/a" : Math.round(v).toLocaleString("en-US");
+}
+
+function fmtPct(v, scale) {
+  return (v === null || v === undefined) ? "n/a" : (100 * v / scale).toFixed(1) + "%";
+}
+
+function fmtNum(v, digits) {
+  return (v === null || v === undefined) ? "n/a" : Number(v).toFixed(digits);
+}
+
+function fmtP(v) {
+  if (v === null || v === undefined) { return "n/a"; }
+  return v < 0.001 ? "< 0.001" : Number(v).toFixed(3);
+}
+
+// Shapes arrive as one flat, delta-encoded integer chain (lon, lat in units of
+// 1/scale degree) with ring, part and shape lengths, which is far smaller than
+// GeoJSON and parses in one JSON.parse call.
+function decodeShapes(S) {
+  var out = new Array(S.shape_parts.length);
+  var xy = S.xy, rn = S.ring_len, pr = S.part_rings, sp = S.shape_parts;
+  var scale = S.scale, ox = S.origin[0], oy = S.origin[1];
+  var k = 0, ri = 0, pi = 0, x = 0, y = 0;
+  for (var i = 0; i < sp.length; i++) {
+    var parts = [];
+    for (var p = 0; p < sp[i]; p++, pi++) {
+      var rings = [];
+      for (var r = 0; r < pr[pi]; r++, ri++) {
+        var m = rn[ri], ring = new Array(m);
+        for (var v = 0; v < m; v++) {
+          x += xy[k++]; y += xy[k++];
+          ring[v] = L.latLng((oy + y) / scale, (ox + x) / scale);
+        }
+        rings.push(ring);
+      }
+      parts.push(rings);
+    }
+    out[i] = parts.length === 1 ? parts[0] : parts;
+  }
+  return out;
+}
+
+window.coverageAuditDraw = function (map, D) {
+  var t0 = performance.now();
+  var api = window.coverageAuditMap = {ready: false, drawn: 0, expected: D.n, map: map,
+                                       view: null, errors: []};
+  var container = map.getContainer();
+  container.setAttribute("data-areas-expected", String(D.n));
+
+  var overlayPane = map.createPane("caOverlay");
+  overlayPane.style.zIndex = 450;
+  // Overlays sit above the areas but must let the pointer through, or hovering an area
+  // under an enclave outline or a reach circle would show nothing.
+  overlayPane.style.pointerEvents = "none";
+  var overlayRenderer = L.canvas({pane: "caOverlay", padding: 0.2});
+  var areaRenderer = L.canvas({padding: 0.2, tolerance: 0});
+
+  var F = D.fields;
+  var n = D.n;
+  var S = D.style;
+  var bounds = L.latLngBounds(D.bounds);
+  map.fitBounds(bounds, {padding: [10, 10]});
+
+  // Areas: drawn once on one canvas; a view change only restyles them.
+  var shapes = decodeShapes(D.areas);
+  var base = {renderer: areaRenderer, weight: S.edge_weight, color: S.edge, opacity: S.edge_opacity,
+              fillOpacity: S.fill_opacity, fillColor: S.missing};
+  var layers = new Array(n);
+  var group = L.featureGroup();
+  for (var i = 0; i < n; i++) {
+    var poly = L.polygon(shapes[i], base);
+    poly._caIndex = i;
+    layers[i] = poly;
+    group.addLayer(poly);
+  }
+  shapes = null;
+
+  var views = D.views, viewByKey = {};
+  views.forEach(function (v) { viewByKey[v.key] = v; });
+
+  function classOf(view, i) {
+    var v = F[view.field][i];
+    if (v === null || v === undefined) { return -1; }
+    if (view.type === "codes") { return v; }
+    var t = view.thresholds;
+    for (var c = 0; c < t.length; c++) { if (v < t[c]) { return c; } }
+    return t.length;
+  }
+  function colourOf(view, i) {
+    var c = classOf(view, i);
+    return c < 0 ? view.missing_color : view.colors[c];
+  }
+  api.colourOf = function (key, i) { return colourOf(viewByKey[key], i); };
+  api.classOf = function (key, i) { return classOf(viewByKey[key], i); };
+
+  // Legend: the active view, then each visible overlay.
+  var legend = L.control({position: "bottomright"});
+  var legendBox = el("div", "ca-panel ca-legend");
+  legendBox.setAttribute("data-role", "legend");
+  L.DomEvent.disableClickPropagation(legendBox);
+  L.DomEvent.disableScrollPropagation(legendBox);
+  legend.onAdd = function () { return legendBox; };
+  legend.addTo(map);
+  var visibleOverlays = {};
+
+  function swatch(colour, kind) {
+    var s = el("span", "ca-swatch" + (kind ? " ca-" + kind : ""));
+    if (kind === "line" || kind === "dash") { s.style.borderColor = colour; }
+    else { s.style.background = colour; }
+    return s;
+  }
+  function renderLegend() {
+    legendBox.textContent = "";
+    var view = viewByKey[api.view];
+    if (view) {
+      legendBox.appendChild(el("h2", null, view.title));
+      if (view.note) { legendBox.appendChild(el("p", "ca-note", view.note)); }
+      var ul = el("ul");
+      for (var c = 0; c < view.colors.length; c++) {
+        var li = el("li");
+        li.appendChild(swatch(view.colors[c]));
+        li.appendChild(el("span", null, view.labels[c]));
+        ul.appendChild(li);
+      }
+      if (view.has_missing) {
+        var lm = el("li");
+        lm.appendChild(swatch(view.missing_color));
+        lm.appendChild(el("span", null, view.missing_label));
+        ul.appendChild(lm);
+      }
+      legendBox.appendChild(ul);
+    }
+    D.overlays.forEach(function (o) {
+      if (!visibleOverlays[o.key]) { return; }
+      var ul = el("ul");
+      o.legend.forEach(function (item) {
+        var li = el("li");
+        li.appendChild(swatch(item.color, item.kind));
+        li.appendChild(el("span", null, item.label));
+        ul.appendChild(li);
+      });
+      legendBox.appendChild(el("h2", null, o.label));
+      legendBox.appendChild(ul);
+    });
+  }
+
+  function applyView(key) {
+    var view = viewByKey[key];
+    if (!view) { return; }
+    api.view = key;
+    for (var i = 0; i < n; i++) {
+      layers[i].setStyle({fillColor: colourOf(view, i)});
+    }
+    container.setAttribute("data-view", key);
+    renderLegend();
+  }
+
+  // Hover panel: every figure goes in with textContent.
+  var hover = L.control({position: "bottomleft"});
+  var hoverBox = el("div", "ca-panel ca-hover");
+  hoverBox.setAttribute("data-role", "hover");
+  hover.onAdd = function () { return hoverBox; };
+  hover.addTo(map);
+  function hint() {
+    hoverBox.textContent = "";
+    hoverBox.appendChild(el("p", "ca-hint", D.texts.hover_hint));
+    hoverBox.removeAttribute("data-area");
+  }
+  hint();
+
+  function row(table, label, value) {
+    var tr = el("tr");
+    tr.appendChild(el("th", null, label));
+    tr.appendChild(el("td", null, value));
+    table.appendChild(tr);
+  }
+  function showArea(i) {
+    hoverBox.textContent = "";
+    hoverBox.setAttribute("data-area", String(F.id[i]));
+    hoverBox.appendChild(el("h2", null, F.id[i]));
+    if (F.label && F.label[i] !== null) { hoverBox.appendChild(el("p", "ca-label", F.label[i])); }
+    var t = el("table");
+    if (F.pop) { row(t, "Population", fmtInt(F.pop[i])); }
+    if (F.cf) { row(t, "Covered fraction", fmtPct(F.cf[i], D.scales.cf)); }
+    if (F.served) { row(t, "Served", F.served[i] === null ? "n/a" : (F.served[i] ? "yes" : "no")); }
+    D.groups.forEach(function (g) {
+      row(t, g.label + " share", fmtPct(F[g.field][i], D.scales.share));
+    });
+    if (F.mm) { row(t, "Majority-minority", F.mm[i] === null ? "n/a" : (F.mm[i] ? "yes" : "no")); }
+    if (F.tier) { row(t, "Income tier", F.tier[i] === null ? "n/a" : D.codes.tier[F.tier[i]]); }
+    if (F.inc) { row(t, "Income ratio (% of area median)", fmtNum(F.inc[i], 1)); }
+    if (F.dist) { row(t, "Nearest site", F.dist[i] === null ? "n/a" : fmtInt(F.dist[i]) + " m"); }
+    if (F.lisa) {
+      var lc = F.lisa[i] === null ? "left out" : D.codes.lisa[F.lisa[i]];
+      if (F.lisa_p && F.lisa_p[i] !== null) { lc += " (p = " + fmtP(F.lisa_p[i]) + ")"; }
+      row(t, "LISA cluster", lc);
+    }
+    if (F.enc) {
+      var ec = F.enc[i] === null ? "none" : D.codes.enc[F.enc[i]];
+      var info = F.enc[i] === null ? null : D.enclave_info[ec];
+      if (info) {
+        ec += " (population " + fmtInt(info.population) + ", p = " + fmtP(info.p_value) + ")";
+      }
+      row(t, "Enclave", ec);
+    }
+    hoverBox.appendChild(t);
+  }
+  api.showArea = showArea;
+
+  var highlighted = null;
+  group.on("mouseover", function (e) {
+    var layer = e.layer;
+    if (highlighted && highlighted !== layer) {
+      highlighted.setStyle({weight: S.edge_weight, color: S.edge, opacity: S.edge_opacity});
+    }
+    highlighted = layer;
+    layer.setStyle({weight: 2.5, color: S.highlight, opacity: 1});
+    layer.bringToFront();
+    showArea(layer._caIndex);
+  });
+  group.on("mouseout", function (e) {
+    e.layer.setStyle({weight: S.edge_weight, color: S.edge, opacity: S.edge_opacity});
+    if (highlighted === e.layer) { highlighted = null; }
+  });
+  group.on("click", function (e) { showArea(e.layer._caIndex); });
+
+  // Views are radio "base layers": empty layer groups whose selection restyles the areas.
+  var baseLayers = {}, overlays = {};
+  views.forEach(function (v) {
+    var lg = L.layerGroup();
+    lg._caView = v.key;
+    baseLayers[esc(v.label)] = lg;
+    v._layer = lg;
+  });
+  map.on("baselayerchange", function (e) {
+    if (e.layer && e.layer._caView) { applyView(e.layer._caView); }
+  });
+  api.setView = function (key) {
+    var v = viewByKey[key];
+    if (!v || api.view === key) { return; }
+    var current = viewByKey[api.view];
+    if (current) { map.removeLayer(current._layer); }
+    map.addLayer(v._layer);
+  };
+
+  // Overlays.
+  D.overlays.forEach(function (o) {
+    var lg = L.featureGroup();
+    if (o.kind === "outline") {
+      var polys = decodeShapes(o.shapes);
+      for (var j = 0; j < polys.length; j++) {
+        var pl = L.polygon(polys[j], {renderer: overlayRenderer, interactive: false,
+          color: o.color, weight: o.weight, dashArray: o.dash || null,
+          fill: !!o.fill_color, fillColor: o.fill_color || o.color, fillOpacity: o.fill_opacity || 0});
+        if (o.labels) {
+          var lab = el("span", null, o.labels[j]);
+          pl.bindTooltip(lab, {permanent: true, direction: "center", className: "ca-enclave-label",
+                               interactive: false, opacity: 1});
+        }
+        lg.addLayer(pl);
+      }
+    } else if (o.kind === "points") {
+      for (var q = 0; q < o.lat.length; q++) {
+        var ll = L.latLng(o.lat[q], o.lon[q]);
+        if (o.radius_m) {
+          lg.addLayer(L.circle(ll, {renderer: overlayRenderer, interactive: false, radius: o.radius_m,
+            color: o.reach_color, weight: 1, fillColor: o.reach_color, fillOpacity: 0.06}));
+        }
+        lg.addLayer(L.circleMarker(ll, {renderer: overlayRenderer, interactive: false, radius: 3,
+          color: "#ffffff", weight: 1, fillColor: o.color, fillOpacity: 1}));
+      }
+    }
+    lg._caOverlay = o.key;
+    overlays[esc(o.label)] = lg;
+    o._layer = lg;
+  });
+  if (D.tiles) {
+    var tl = L.tileLayer(D.tiles.url, {attribution: esc(D.tiles.attribution), maxZoom: 19});
+    tl._caOverlay = "tiles";
+    overlays[esc(D.tiles.label)] = tl;
+    tl.addTo(map);
+    visibleOverlays.tiles = true;
+  }
+  map.on("overlayadd", function (e) {
+    if (e.layer && e.layer._caOverlay) { visibleOverlays[e.layer._caOverlay] = true; renderLegend(); }
+  });
+  map.on("overlayremove", function (e) {
+    if (e.layer && e.layer._caOverlay) { visibleOverlays[e.layer._caOverlay] = false; renderLegend(); }
+  });
+
+  // Title panel.
+  var titleCtl = L.control({position: "topleft"});
+  var titleBox = el("div", "ca-panel ca-title");
+  titleBox.appendChild(el("h1", null, D.texts.title));
+  D.texts.subtitle.forEach(function (line) { titleBox.appendChild(el("p", null, line)); });
+  titleCtl.onAdd = function () { return titleBox; };
+  titleCtl.addTo(map);
+
+  group.addTo(map);
+  D.overlays.forEach(function (o) {
+    if (o.visible) { o._layer.addTo(map); visibleOverlays[o.key] = true; }
+  });
+  if (views.length) { views[0]._layer.addTo(map); applyView(views[0].key); } else { renderLegend(); }
+  var control = L.control.layers(baseLayers, overlays, {collapsed: D.collapse_control, position: "topright"});
+  control.addTo(map);
+  control.getContainer().setAttribute("data-role", "layers");
+
+  api.drawn = group.getLayers().length;
+  api.buildMs = performance.now() - t0;
+  container.setAttribute("data-areas-drawn", String(api.drawn));
+  api.ready = true;
+};
+})();
+"""

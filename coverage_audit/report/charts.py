@@ -1,0 +1,471 @@
+"""Figures of the audit report, drawn with matplotlib and returned as inline SVG markup.
+
+Takes plain numbers (rates, standardised values and their spatial lags) and shapely
+geometries in the projected analysis CRS, and gives SVG strings ready to be placed inline
+in report.html: a coverage bar chart, a Moran scatterplot, an overview map of the region
+and a locator figure for each enclave. Figures are built on
+:class:`matplotlib.figure.Figure` directly, never through pyplot, so no backend or global
+figure state is touched; rc settings are applied only inside ``rc_context`` while a figure
+is saved. Output is deterministic: the SVG ids are salted with a per-figure string and the
+date metadata is left out, so the same inputs give the same bytes.
+"""
+
+from __future__ import annotations
+
+import io
+from html import escape
+from collections.abc import Sequence
+from dataclasses import dataclass
+
+import matplotlib
+import numpy as np
+import shapely
+from matplotlib.collections import PatchCollection
+from matplotlib.figure import Figure
+from matplotlib.patches import PathPatch, Rectangle
+from matplotlib.path import Path
+
+#: Colours of the report figures (our own palette: greys for context, one blue for
+#: coverage, one warm tone for what needs a closer look).
+REGION_GREY = "#d9d9d6"
+SERVED_TONE = "#7f9cb8"
+BAR_TONE = "#4f7396"
+FLAG_TONE = "#c0612b"
+ENCLAVE_TONE = "#d1495b"
+RING_EDGE = "#1f2a44"
+TEXT_TONE = "#222222"
+
+#: Beyond this many points the Moran scatter markers are rasterised inside the SVG, which
+#: keeps the report small for regions of thousands of areas.
+RASTERISE_SCATTER_ABOVE = 1500
+
+
+def mpl_text(value: object) -> str:
+    """Return ``value`` as text matplotlib draws literally (``$`` would start mathtext)."""
+    return str(value).replace("$", r"\$")
+
+
+def figure_to_svg(fig: Figure, *, salt: str, title: str) -> str:
+    """Render ``fig`` to an SVG element string for inline use in HTML.
+
+    Parameters
+    ----------
+    fig : matplotlib.figure.Figure
+        The figure to render.
+    salt : str
+        Salt of the SVG element ids; distinct per figure so that several inline SVGs in
+        one page never share an id, and fixed so that output is reproducible.
+    title : str
+        Accessible name of the figure (placed in ``aria-label``; escaped here).
+
+    Returns
+    -------
+    str
+        An ``<svg>`` element without XML declaration or doctype.
+    """
+    buffer = io.BytesIO()
+    rc = {"svg.hashsalt": salt, "svg.fonttype": "none", "svg.image_inline": True}
+    with matplotlib.rc_context(rc):
+        fig.savefig(buffer, format="svg", metadata={"Date": None})
+    svg = buffer.getvalue().decode("utf-8")
+    svg = svg[svg.index("<svg") :]
+    label = escape(title, quote=True)
+    return svg.replace("<svg ", f'<svg role="img" aria-label="{label}" ', 1)
+
+
+def _new_figure(width_in: float, height_in: float) -> Figure:
+    fig = Figure(figsize=(width_in, height_in), dpi=100, layout="constrained")
+    return fig
+
+
+def coverage_bar_chart(
+    labels: Sequence[str],
+    rates: Sequence[float | None],
+    *,
+    comparison_rate: float | None,
+    comparison_label: str,
+    flagged: Sequence[bool],
+    salt: str = "coverage-bars",
+) -> str:
+    """Draw coverage rates by group as horizontal bars, with the comparison rate marked.
+
+    Parameters
+    ----------
+    labels : sequence of str
+        Group names, drawn top to bottom in the order given.
+    rates : sequence of float or None
+        Coverage rates as fractions; ``None`` draws no bar and the label ``n/a``.
+    comparison_rate : float or None
+        Rate every group is compared with (the reference group's or the highest); drawn as
+        a solid line, with four-fifths of it as a dotted line.
+    comparison_label : str
+        Legend text of the comparison line.
+    flagged : sequence of bool
+        Groups below four-fifths of the comparison rate; drawn hatched and in the warm
+        tone, so the flag does not rest on colour alone.
+    salt : str
+        SVG id salt (see :func:`figure_to_svg`).
+
+    Returns
+    -------
+    str
+        Inline SVG markup.
+    """
+    n = len(labels)
+    fig = _new_figure(7.0, 0.9 + 0.42 * max(n, 1))
+    ax = fig.add_subplot()
+    y = np.arange(n)[::-1]
+    values = np.array([np.nan if r is None else 100.0 * float(r) for r in rates], dtype=float)
+    colours = [FLAG_TONE if f else BAR_TONE for f in flagged]
+    hatches = ["///" if f else "" for f in flagged]
+    bars = ax.barh(y, np.nan_to_num(values, nan=0.0), color=colours, height=0.62)
+    for bar, hatch in zip(bars, hatches, strict=True):
+        bar.set_hatch(hatch)
+        bar.set_edgecolor("white")
+    for yi, value in zip(y, values, strict=True):
+        text = "n/a" if np.isnan(value) else f"{value:.1f}%"
+        ax.text(
+            (0.0 if np.isnan(value) else value) + 1.0,
+            yi,
+            text,
+            va="center",
+            fontsize=9,
+            color=TEXT_TONE,
+        )
+    if comparison_rate is not None and np.isfinite(comparison_rate):
+        ref = 100.0 * comparison_rate
+        ax.axvline(ref, color=TEXT_TONE, linewidth=1.4, label=mpl_text(comparison_label))
+        ax.axvline(0.8 * ref, color=TEXT_TONE, linewidth=1.0, linestyle=":", label="four-fifths")
+        ax.legend(loc="lower right", fontsize=8, frameon=True, framealpha=0.9)
+    ax.set_yticks(y, [mpl_text(label) for label in labels])
+    ax.set_xlim(0, 112)
+    ax.set_xlabel("Coverage rate (% of group population)")
+    ax.spines[["top", "right"]].set_visible(False)
+    ax.tick_params(axis="y", length=0)
+    return figure_to_svg(fig, salt=salt, title="Coverage rate by group")
+
+
+def moran_scatter_chart(
+    z: np.ndarray,
+    lag: np.ndarray,
+    *,
+    moran_i: float | None,
+    variable: str,
+    salt: str = "moran-scatter",
+) -> str:
+    """Draw the Moran scatterplot: standardised values against their spatial lag.
+
+    The slope of the least-squares line through the origin of ``lag`` on ``z`` equals
+    Moran's I for row-standardised weights (Anselin 1996, "The Moran scatterplot as an ESDA
+    tool", in Fischer, Scholten and Unwin, Spatial Analytical Perspectives on GIS); the
+    line is drawn with the fitted slope, and the published I is quoted in the title.
+
+    Parameters
+    ----------
+    z : numpy.ndarray
+        Standardised variable (mean 0, population standard deviation 1).
+    lag : numpy.ndarray
+        Spatial lag ``W z`` under row-standardised weights.
+    moran_i : float or None
+        Moran's I from the summary, shown in the title.
+    variable : str
+        Name of the variable.
+    salt : str
+        SVG id salt (see :func:`figure_to_svg`).
+
+    Returns
+    -------
+    str
+        Inline SVG markup.
+    """
+    fig = _new_figure(5.2, 4.6)
+    ax = fig.add_subplot()
+    many = z.size > RASTERISE_SCATTER_ABOVE
+    ax.scatter(
+        z,
+        lag,
+        s=9 if many else 16,
+        color=BAR_TONE,
+        alpha=0.55,
+        linewidths=0,
+        rasterized=many,
+    )
+    ax.axhline(0, color="#888888", linewidth=0.8)
+    ax.axvline(0, color="#888888", linewidth=0.8)
+    denom = float(np.dot(z, z))
+    slope = float(np.dot(z, lag) / denom) if denom > 0 else np.nan
+    lim = float(max(np.max(np.abs(z), initial=1.0), np.max(np.abs(lag), initial=1.0)) * 1.08)
+    if np.isfinite(slope):
+        xs = np.array([-lim, lim])
+        ax.plot(xs, slope * xs, color=FLAG_TONE, linewidth=1.5, label=f"slope {slope:.3f}")
+        ax.legend(loc="lower right", fontsize=8)
+    for x, yv, text in (
+        (0.97, 0.97, "high-high"),
+        (0.03, 0.03, "low-low"),
+        (0.97, 0.03, "high-low"),
+        (0.03, 0.97, "low-high"),
+    ):
+        ax.text(
+            x,
+            yv,
+            text,
+            transform=ax.transAxes,
+            ha="right" if x > 0.5 else "left",
+            va="top" if yv > 0.5 else "bottom",
+            fontsize=8,
+            color="#555555",
+        )
+    ax.set_xlim(-lim, lim)
+    ax.set_ylim(-lim, lim)
+    ax.set_aspect("equal")
+    ax.set_xlabel(mpl_text(f"{variable} (z)"))
+    ax.set_ylabel(mpl_text(f"spatial lag of {variable} (W z)"))
+    heading = "Moran scatterplot"
+    if moran_i is not None and np.isfinite(moran_i):
+        heading += f" (I = {moran_i:.4f})"
+    ax.set_title(heading, fontsize=10)
+    return figure_to_svg(fig, salt=salt, title=heading)
+
+
+def polygon_path(geometries: np.ndarray | Sequence[object]) -> Path | None:
+    """Return one compound matplotlib path of all polygons in ``geometries``.
+
+    Multi-part geometries are split and non-polygonal parts dropped. Rings are oriented
+    (exteriors counter-clockwise, holes clockwise) so that holes stay empty under either
+    fill rule. Built from flat coordinate arrays, without a Python loop over geometries.
+
+    Parameters
+    ----------
+    geometries : array of shapely geometries
+        Polygons or multipolygons.
+
+    Returns
+    -------
+    matplotlib.path.Path or None
+        ``None`` when there is no polygon to draw.
+    """
+    geoms = np.asarray(geometries, dtype=object).ravel()
+    if geoms.size == 0:
+        return None
+    geoms = geoms[~(shapely.is_missing(geoms) | shapely.is_empty(geoms))]
+    parts = shapely.get_parts(geoms)
+    polys = parts[shapely.get_type_id(parts) == shapely.GeometryType.POLYGON]
+    if polys.size == 0:
+        return None
+    polys = shapely.orient_polygons(polys, exterior_cw=False)
+    rings = shapely.get_rings(polys)
+    coords, ring_index = shapely.get_coordinates(rings, return_index=True)
+    if coords.shape[0] == 0:
+        return None
+    codes = np.full(coords.shape[0], Path.LINETO, dtype=Path.code_type)
+    starts = np.concatenate([[0], np.flatnonzero(np.diff(ring_index)) + 1])
+    ends = np.concatenate([starts[1:] - 1, [coords.shape[0] - 1]])
+    codes[starts] = Path.MOVETO
+    codes[ends] = Path.CLOSEPOLY
+    return Path(coords, codes)
+
+
+@dataclass(frozen=True, eq=False)
+class RegionLayers:
+    """Geometry of the analysed region prepared once for all map figures.
+
+    Attributes
+    ----------
+    geometries : numpy.ndarray
+        Area geometries in the analysis CRS, in the order of the ``areas`` frame.
+    served : numpy.ndarray
+        Boolean mask of served areas.
+    region : shapely.Geometry
+        Union of all areas, simplified for drawing.
+    served_union : shapely.Geometry
+        Union of the served areas, simplified for drawing.
+    tree : shapely.STRtree
+        Spatial index of ``geometries``.
+    """
+
+    geometries: np.ndarray
+    served: np.ndarray
+    region: object
+    served_union: object
+    tree: shapely.STRtree
+
+    @classmethod
+    def build(cls, geometries: np.ndarray, served: np.ndarray) -> RegionLayers:
+        """Union and simplify the region and its served part.
+
+        Simplification tolerance is 1/1500 of the region's larger side: invisible at report
+        size, but it keeps detailed boundaries (census line files) from bloating the SVG.
+        """
+        geoms = np.asarray(geometries, dtype=object)
+        served = np.asarray(served, dtype=bool)
+        region = shapely.union_all(geoms)
+        xmin, ymin, xmax, ymax = shapely.total_bounds(geoms)
+        tolerance = max(xmax - xmin, ymax - ymin, 1.0) / 1500.0
+        served_union = shapely.union_all(geoms[served])
+        return cls(
+            geometries=geoms,
+            served=served,
+            region=shapely.simplify(region, tolerance, preserve_topology=True),
+            served_union=shapely.simplify(served_union, tolerance, preserve_topology=True),
+            tree=shapely.STRtree(geoms),
+        )
+
+    def neighbours(self, members: np.ndarray) -> np.ndarray:
+        """Return the positions of areas touching the union of ``members`` (not in it)."""
+        union = shapely.union_all(self.geometries[members])
+        hits = self.tree.query(union, predicate="intersects")
+        mask = np.zeros(self.geometries.size, dtype=bool)
+        mask[hits] = True
+        mask[members] = False
+        return np.flatnonzero(mask)
+
+
+def _add_path(ax, path: Path | None, **style) -> None:
+    if path is not None:
+        ax.add_patch(PathPatch(path, **style))
+
+
+def _frame(ax, bounds: Sequence[float], pad: float = 0.02) -> None:
+    xmin, ymin, xmax, ymax = bounds
+    dx, dy = (xmax - xmin) or 1.0, (ymax - ymin) or 1.0
+    ax.set_xlim(xmin - pad * dx, xmax + pad * dx)
+    ax.set_ylim(ymin - pad * dy, ymax + pad * dy)
+    ax.set_aspect("equal")
+    ax.set_xticks([])
+    ax.set_yticks([])
+    for spine in ax.spines.values():
+        spine.set_visible(False)
+
+
+def overview_chart(
+    layers: RegionLayers,
+    *,
+    footprint: object | None = None,
+    points: np.ndarray | None = None,
+    salt: str = "overview",
+) -> str:
+    """Draw the region (light grey), served areas (mid tone) and the footprint outline.
+
+    Parameters
+    ----------
+    layers : RegionLayers
+        Prepared region geometry.
+    footprint : shapely.Geometry or None
+        Dissolved footprint, outlined.
+    points : numpy.ndarray or None
+        Service points (shapely points), drawn as dots.
+    salt : str
+        SVG id salt (see :func:`figure_to_svg`).
+
+    Returns
+    -------
+    str
+        Inline SVG markup.
+    """
+    fig = _new_figure(6.4, 4.6)
+    ax = fig.add_subplot()
+    _add_path(ax, polygon_path([layers.region]), facecolor=REGION_GREY, edgecolor="none")
+    _add_path(ax, polygon_path([layers.served_union]), facecolor=SERVED_TONE, edgecolor="none")
+    handles = [
+        Rectangle((0, 0), 1, 1, facecolor=REGION_GREY, label="not served"),
+        Rectangle((0, 0), 1, 1, facecolor=SERVED_TONE, label="served"),
+    ]
+    if footprint is not None and not shapely.is_empty(footprint):
+        bounds = shapely.bounds(layers.region)
+        tolerance = max(bounds[2] - bounds[0], bounds[3] - bounds[1], 1.0) / 1500.0
+        outline = shapely.simplify(footprint, tolerance, preserve_topology=True)
+        patch_style = {"facecolor": "none", "edgecolor": RING_EDGE, "linewidth": 0.8}
+        _add_path(ax, polygon_path([outline]), **patch_style)
+        handles.append(Rectangle((0, 0), 1, 1, label="footprint", **patch_style))
+    if points is not None and len(points):
+        xy = shapely.get_coordinates(np.asarray(points, dtype=object))
+        ax.scatter(xy[:, 0], xy[:, 1], s=5, color=RING_EDGE, linewidths=0, label="service point")
+    _frame(ax, shapely.bounds(layers.region))
+    ax.legend(handles=[*handles, *ax.collections], loc="upper left", fontsize=8, framealpha=0.9)
+    return figure_to_svg(fig, salt=salt, title="Overview of the region and the served areas")
+
+
+def enclave_locator_chart(
+    layers: RegionLayers,
+    members: np.ndarray,
+    ring: np.ndarray,
+    *,
+    label: str,
+    salt: str,
+) -> str:
+    """Draw where an enclave lies: the whole region with a box, and a close-up.
+
+    Parameters
+    ----------
+    layers : RegionLayers
+        Prepared region geometry.
+    members : numpy.ndarray
+        Positions of the enclave's areas.
+    ring : numpy.ndarray
+        Positions of the areas of its surrounding ring (outlined).
+    label : str
+        Enclave id, used in the figure title.
+    salt : str
+        SVG id salt (see :func:`figure_to_svg`).
+
+    Returns
+    -------
+    str
+        Inline SVG markup.
+    """
+    fig = _new_figure(6.4, 2.9)
+    overview, close = fig.subplots(1, 2, width_ratios=[1, 1.25])
+    _add_path(overview, polygon_path([layers.region]), facecolor=REGION_GREY, edgecolor="none")
+    served_path = polygon_path([layers.served_union])
+    _add_path(overview, served_path, facecolor=SERVED_TONE, edgecolor="none")
+    enclave_path = polygon_path(layers.geometries[members])
+    _add_path(overview, enclave_path, facecolor=ENCLAVE_TONE, edgecolor=ENCLAVE_TONE, linewidth=0.8)
+    focus = np.concatenate([members, ring])
+    xmin, ymin, xmax, ymax = shapely.total_bounds(layers.geometries[focus])
+    side = max(xmax - xmin, ymax - ymin, 1.0) * 1.3
+    cx, cy = (xmin + xmax) / 2, (ymin + ymax) / 2
+    window = (cx - side / 2, cy - side / 2, cx + side / 2, cy + side / 2)
+    overview.add_patch(
+        Rectangle(
+            (window[0], window[1]),
+            side,
+            side,
+            facecolor="none",
+            edgecolor=RING_EDGE,
+            linewidth=1.0,
+        )
+    )
+    _frame(overview, shapely.bounds(layers.region))
+    overview.set_title("in the region", fontsize=9)
+
+    nearby = layers.tree.query(shapely.box(*window))
+    nearby = np.sort(nearby)
+    colours = np.where(layers.served[nearby], SERVED_TONE, REGION_GREY).astype(object)
+    colours[np.isin(nearby, members)] = ENCLAVE_TONE
+    patches = []
+    facecolors = []
+    for tone in (REGION_GREY, SERVED_TONE, ENCLAVE_TONE):
+        path = polygon_path(layers.geometries[nearby[colours == tone]])
+        if path is not None:
+            patches.append(PathPatch(path))
+            facecolors.append(tone)
+    close.add_collection(
+        PatchCollection(patches, facecolors=facecolors, edgecolors="white", linewidths=0.6)
+    )
+    _add_path(
+        close,
+        polygon_path(layers.geometries[ring]),
+        facecolor="none",
+        edgecolor=RING_EDGE,
+        linewidth=1.3,
+    )
+    _frame(close, window, pad=0.0)
+    close.set_title("close-up: enclave and its ring (outlined)", fontsize=9)
+    handles = [
+        Rectangle((0, 0), 1, 1, facecolor=ENCLAVE_TONE, label="enclave"),
+        Rectangle((0, 0), 1, 1, facecolor=SERVED_TONE, label="served"),
+        Rectangle((0, 0), 1, 1, facecolor=REGION_GREY, label="not served"),
+        Rectangle((0, 0), 1, 1, facecolor="none", edgecolor=RING_EDGE, label="ring"),
+    ]
+    close.legend(handles=handles, loc="upper left", bbox_to_anchor=(1.0, 1.0), fontsize=7)
+    return figure_to_svg(fig, salt=salt, title=f"Locator of enclave {label}")

@@ -1,0 +1,1037 @@
+"""Interactive offline map: analysed areas, switchable views, overlays, one ``map.html``.
+
+Takes the analysed areas (a GeoDataFrame in the projected analysis CRS with the columns
+the pipeline adds: ``covered_fraction``, ``served``, ``<group>_share``, ``income_tier``,
+``lisa_cluster``, ``enclave_id`` ...), the footprint and the summary, and gives one
+self-contained HTML page built on folium/Leaflet that works with no network: Leaflet is
+inlined from the installed package, areas are drawn once on a canvas and restyled when the
+reader picks another view, and geometry is simplified for display only (the shared
+coverage is simplified as a whole, so neighbours keep their common edges). Every value
+from the inputs reaches the page as JSON data and is shown with ``textContent``.
+"""
+
+from __future__ import annotations
+
+import html
+import json
+import math
+import os
+import tempfile
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+import folium
+import geopandas as gpd
+import numpy as np
+import pandas as pd
+import shapely
+from branca.element import Element, MacroElement
+from jinja2 import Template
+
+from .._util import clean_number, to_jsonable
+from ..errors import InputError, SpecError
+from . import assets
+
+__all__ = [
+    "COVERED_COLORS",
+    "FOOTPRINT_KINDS",
+    "INCOME_TIERS",
+    "LISA_LABELS",
+    "MapInfo",
+    "View",
+    "build_map",
+    "display_tolerance",
+    "encode_shapes",
+]
+
+#: Scale of the integer fractions on the page: covered fraction in 1/10000, shares in 1/1000.
+CF_SCALE = 10_000
+SHARE_SCALE = 1_000
+
+# Our own palettes. Sequential ramps run light to dark with strictly falling luminance,
+# so they read in grey and under the common colour-vision deficiencies; categorical pairs
+# differ in lightness as well as hue (blue against amber, not red against green).
+COVERED_COLORS: tuple[str, ...] = (
+    "#f7f4d9",
+    "#d3e7b6",
+    "#93cda4",
+    "#4fa79b",
+    "#2b7186",
+    "#233f6b",
+)
+COVERED_LABELS: tuple[str, ...] = ("0%", "> 0-25%", "25-50%", "50-75%", "75% to < 100%", "100%")
+COVERED_THRESHOLDS: tuple[int, ...] = (1, 2_500, 5_000, 7_500, CF_SCALE)
+
+SHARE_COLORS: tuple[str, ...] = ("#f6eff4", "#e3c3db", "#c98bbd", "#9c4f98", "#5c1f66")
+SHARE_LABELS: tuple[str, ...] = ("< 10%", "10-25%", "25-50%", "50-75%", ">= 75%")
+SHARE_THRESHOLDS: tuple[int, ...] = (100, 250, 500, 750)
+
+SERVED_COLORS: tuple[str, ...] = ("#e6a03b", "#2b7186")  # unserved, served
+MAJORITY_MINORITY_COLORS: tuple[str, ...] = ("#e4e1d8", "#7a3f8f")  # no, yes
+
+INCOME_TIERS: tuple[str, ...] = ("low", "moderate", "middle", "upper", "unknown")
+INCOME_COLORS: tuple[str, ...] = ("#9a4a0b", "#df8f3a", "#c7d3e0", "#4b6c9c", "#d0d0d0")
+
+LISA_LABELS: tuple[str, ...] = ("high-high", "low-low", "high-low", "low-high", "not significant")
+LISA_COLORS: tuple[str, ...] = ("#c2423b", "#2f67a8", "#eda39b", "#9cc0e3", "#f1f0ec")
+
+MISSING_COLOR = "#bdbdbd"
+FOOTPRINT_KINDS: tuple[str, ...] = ("polygons", "points", "ids")
+
+#: Display simplification tolerance as a fraction of the region's larger extent: a
+#: quarter of a pixel on a 1,250-pixel wide view of the whole region.
+EXTENT_FRACTION = 1.0 / 5_000
+#: Cap of the tolerance as a fraction of the square root of the 10th-percentile area, so
+#: that small urban areas in a large rural region keep their shape.
+SMALL_AREA_FRACTION = 0.1
+
+_TILES = {
+    "label": "Base map (online tiles)",
+    "url": "https://tile.openstreetmap.org/{z}/{x}/{y}.png",
+    "attribution": "(c) OpenStreetMap contributors",
+}
+
+
+@dataclass(frozen=True)
+class View:
+    """One way of colouring the areas, chosen in the layer control.
+
+    Attributes
+    ----------
+    key : str
+        Stable identifier (``covered``, ``share:<group>``, ``served`` ...).
+    label : str
+        Name in the layer control.
+    title : str
+        Legend heading.
+    field : str
+        Name of the per-area value array on the page that drives the colour.
+    type : {"bins", "codes"}
+        ``bins``: the class is the first ``k`` with ``value < thresholds[k]`` (else the
+        last class); ``codes``: the value is the class index.
+    colors, labels : tuple of str
+        One colour and one legend label per class.
+    thresholds : tuple of int
+        Class limits on the page's integer scale (``bins`` only).
+    has_missing : bool
+        Whether some area has no value (drawn in ``missing_color``).
+    missing_label : str
+        Legend label of areas with no value.
+    note : str or None
+        One line under the legend heading.
+    """
+
+    key: str
+    label: str
+    title: str
+    field: str
+    type: str
+    colors: tuple[str, ...]
+    labels: tuple[str, ...]
+    thresholds: tuple[int, ...] = ()
+    has_missing: bool = False
+    missing_label: str = "no data"
+    missing_color: str = MISSING_COLOR
+    note: str | None = None
+
+    def to_dict(self) -> dict[str, Any]:
+        """Return the view as JSON-safe data, as the page reads it."""
+        return {
+            "key": self.key,
+            "label": self.label,
+            "title": self.title,
+            "field": self.field,
+            "type": self.type,
+            "colors": list(self.colors),
+            "labels": list(self.labels),
+            "thresholds": list(self.thresholds),
+            "has_missing": self.has_missing,
+            "missing_label": self.missing_label,
+            "missing_color": self.missing_color,
+            "note": self.note,
+        }
+
+
+@dataclass(frozen=True)
+class MapInfo:
+    """What :func:`build_map` wrote, for the manifest.
+
+    Attributes
+    ----------
+    path : str
+        The written ``map.html``.
+    n_features : int
+        Number of area shapes drawn.
+    bytes : int
+        Size of the file.
+    simplify_tolerance : float
+        Display simplification tolerance in units of the areas' CRS (0 when none).
+    simplify_units : str
+        Unit of ``simplify_tolerance`` (``"m"`` for a projected CRS in metres).
+    simplify_method : {"coverage", "per_area", "none"}
+        ``coverage``: shapely.coverage_simplify on the whole tessellation (shared edges
+        kept); ``per_area``: each area simplified on its own because the areas do not form
+        a valid coverage; ``none``: no simplification.
+    coordinate_decimals : int
+        Decimal places of the longitude/latitude written to the page.
+    n_without_geometry : int
+        Areas not drawn because they have no polygonal geometry.
+    views : tuple of str
+        Keys of the views offered.
+    overlays : tuple of str
+        Keys of the overlays offered.
+    """
+
+    path: str
+    n_features: int
+    bytes: int
+    simplify_tolerance: float
+    simplify_units: str
+    simplify_method: str
+    coordinate_decimals: int
+    n_without_geometry: int
+    views: tuple[str, ...]
+    overlays: tuple[str, ...]
+
+    def to_dict(self) -> dict[str, Any]:
+        """Return the map facts as JSON-safe data."""
+        return {
+            "path": self.path,
+            "n_features": self.n_features,
+            "bytes": self.bytes,
+            "simplify_tolerance": clean_number(self.simplify_tolerance),
+            "simplify_units": self.simplify_units,
+            "simplify_method": self.simplify_method,
+            "coordinate_decimals": self.coordinate_decimals,
+            "n_without_geometry": self.n_without_geometry,
+            "views": list(self.views),
+            "overlays": list(self.overlays),
+        }
+
+
+# --------------------------------------------------------------------------- geometry
+
+
+def _unit_metres(crs: Any) -> tuple[float, str]:
+    """Return (metres per CRS unit, unit name); degrees count as ~111 km at the equator."""
+    if crs is None:
+        return 1.0, "unknown"
+    if crs.is_geographic:
+        return 111_320.0, "degree"
+    try:
+        axis = crs.axis_info[0]
+        return float(axis.unit_conversion_factor), "m" if axis.unit_name == "metre" else str(
+            axis.unit_name
+        )
+    except (IndexError, AttributeError):  # pragma: no cover - every projected CRS has axes
+        return 1.0, "unknown"
+
+
+def display_tolerance(geoms: np.ndarray) -> float:
+    """Return the display simplification tolerance for a set of area geometries.
+
+    The tolerance is :data:`EXTENT_FRACTION` of the larger side of the bounding box, capped
+    at :data:`SMALL_AREA_FRACTION` of the square root of the 10th-percentile area (common
+    practice, no source: a fraction of a screen pixel at the whole-region view, and never
+    so coarse that the smaller areas lose their shape).
+
+    Parameters
+    ----------
+    geoms : numpy.ndarray of shapely geometries
+        Area geometries in a projected CRS.
+
+    Returns
+    -------
+    float
+        Tolerance in CRS units; 0 for an empty or degenerate input.
+    """
+    geoms = np.asarray(geoms)
+    keep = ~(shapely.is_missing(geoms) | shapely.is_empty(geoms))
+    if not keep.any():
+        return 0.0
+    xmin, ymin, xmax, ymax = shapely.total_bounds(geoms[keep])
+    extent = max(xmax - xmin, ymax - ymin)
+    small = math.sqrt(float(np.quantile(shapely.area(geoms[keep]), 0.1)))
+    tol = min(extent * EXTENT_FRACTION, small * SMALL_AREA_FRACTION)
+    return float(tol) if math.isfinite(tol) and tol > 0 else 0.0
+
+
+def _simplify(geoms: np.ndarray, tolerance: float) -> tuple[np.ndarray, str]:
+    """Simplify areas for display, keeping shared edges when they form a valid coverage."""
+    if tolerance <= 0:
+        return geoms, "none"
+    if shapely.coverage_is_valid(geoms):
+        return shapely.coverage_simplify(geoms, tolerance), "coverage"
+    # Overlapping or misaligned areas: simplifying each alone may open slivers between
+    # neighbours on screen, which is acceptable for display and is reported in MapInfo.
+    return shapely.simplify(geoms, tolerance, preserve_topology=True), "per_area"
+
+
+def _coordinate_decimals(tolerance_m: float) -> int:
+    """Decimals of degrees that resolve a tenth of the tolerance (4 to 7).
+
+    One degree of latitude is about 111 km, so 5 decimals are about 1.1 m.
+    """
+    if tolerance_m <= 0:
+        return 6
+    step_deg = tolerance_m / 10.0 / 111_320.0
+    return int(min(7, max(4, math.ceil(-math.log10(step_deg)))))
+
+
+def _polygon_parts(geoms: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Return polygon parts and the index of the geometry each came from."""
+    parts, owner = shapely.get_parts(geoms, return_index=True)
+    # GeometryCollections left by repairs can hold lines or points: only polygons draw.
+    is_poly = shapely.get_type_id(parts) == shapely.GeometryType.POLYGON
+    is_poly &= ~shapely.is_empty(parts)
+    # Nested collections (a MultiPolygon inside a collection) need a second pass.
+    nested = shapely.get_type_id(parts) >= shapely.GeometryType.MULTIPOLYGON
+    if nested.any():
+        sub, sub_owner = shapely.get_parts(parts[nested], return_index=True)
+        sub_owner = owner[nested][sub_owner]
+        sub_poly = (shapely.get_type_id(sub) == shapely.GeometryType.POLYGON) & ~shapely.is_empty(
+            sub
+        )
+        parts = np.concatenate([parts[is_poly], sub[sub_poly]])
+        owner = np.concatenate([owner[is_poly], sub_owner[sub_poly]])
+        order = np.argsort(owner, kind="stable")
+        return parts[order], owner[order]
+    return parts[is_poly], owner[is_poly]
+
+
+def encode_shapes(geoms_lonlat: np.ndarray, decimals: int) -> dict[str, Any]:
+    """Encode polygon geometries (lon/lat) as one delta-encoded integer chain.
+
+    Coordinates are rounded to ``decimals`` places and written as integer steps from the
+    previous vertex (the first from ``origin``); each ring's closing vertex and repeated
+    vertices are dropped (a ring keeps at least three). Every geometry must have at least
+    one polygon part.
+
+    Parameters
+    ----------
+    geoms_lonlat : numpy.ndarray of shapely geometries
+        Polygons or multipolygons in longitude/latitude.
+    decimals : int
+        Decimal places kept.
+
+    Returns
+    -------
+    dict
+        ``scale`` (10**decimals), ``origin`` ([lon, lat] in scaled units), ``xy`` (flat
+        steps lon, lat, lon, lat ...), ``ring_len`` (vertices per ring), ``part_rings``
+        (rings per polygon part, exterior first) and ``shape_parts`` (parts per geometry).
+    """
+    geoms_lonlat = np.asarray(geoms_lonlat)
+    parts, owner = _polygon_parts(geoms_lonlat)
+    rings, ring_part = shapely.get_rings(parts, return_index=True)
+    coords, ring_of = shapely.get_coordinates(rings, return_index=True)
+    scale = 10**decimals
+    q = np.rint(coords * scale).astype(np.int64)
+    n_rings = rings.size
+    ring_size = np.bincount(ring_of, minlength=n_rings)
+    ring_end = np.cumsum(ring_size) - 1
+    keep = np.ones(len(q), dtype=bool)
+    keep[ring_end[ring_size > 0]] = False  # the closing vertex repeats the first
+    same = np.zeros(len(q), dtype=bool)
+    same[1:] = (q[1:] == q[:-1]).all(axis=1) & (ring_of[1:] == ring_of[:-1])
+    keep &= ~same
+    kept_per_ring = np.bincount(ring_of[keep], minlength=n_rings)
+    # A ring that rounding shrinks below a triangle keeps all its vertices but the closing.
+    short = kept_per_ring < 3
+    if short.any():
+        restore = short[ring_of]
+        keep |= restore
+        keep[ring_end[ring_size > 0]] &= ~restore[ring_end[ring_size > 0]]
+        kept_per_ring = np.bincount(ring_of[keep], minlength=n_rings)
+    q = q[keep]
+    origin = q.min(axis=0) if len(q) else np.zeros(2, dtype=np.int64)
+    steps = np.diff(q - origin, axis=0, prepend=np.zeros((1, 2), dtype=np.int64))
+    shape_parts = np.bincount(owner, minlength=geoms_lonlat.size)
+    return {
+        "scale": scale,
+        "origin": origin.tolist(),
+        "xy": steps.ravel().tolist(),
+        "ring_len": kept_per_ring.tolist(),
+        "part_rings": np.bincount(ring_part, minlength=parts.size).tolist(),
+        "shape_parts": shape_parts.tolist(),
+    }
+
+
+def _has_polygon(geoms: np.ndarray) -> np.ndarray:
+    """Boolean mask of geometries with at least one non-empty polygon part."""
+    geoms = np.asarray(geoms)
+    result = np.zeros(geoms.size, dtype=bool)
+    valid = ~(shapely.is_missing(geoms) | shapely.is_empty(geoms))
+    if valid.any():
+        _, owner = _polygon_parts(geoms[valid])
+        idx = np.flatnonzero(valid)
+        result[idx[np.unique(owner)]] = True
+    return result
+
+
+# --------------------------------------------------------------------------- fields
+
+
+def _nullable(values: np.ndarray, valid: np.ndarray) -> list[Any]:
+    out = values.astype(object)
+    out[~valid] = None
+    return out.tolist()
+
+
+def _scaled_fraction(series: pd.Series, scale: int, name: str) -> list[Any]:
+    """Fractions as integers in ``1/scale``: truncated, but never 0 for a positive value
+    nor ``scale`` for a value below 1, so the page's classes match the exact figures."""
+    values = pd.to_numeric(series, errors="coerce").to_numpy(dtype=float)
+    valid = np.isfinite(values)
+    if (values[valid] < -1e-9).any() or (values[valid] > 1 + 1e-9).any():
+        raise InputError(
+            f"column '{name}' holds values outside 0..1; shares and covered fractions must "
+            "be fractions, not percentages"
+        )
+    clipped = np.clip(np.where(valid, values, 0.0), 0.0, 1.0)
+    q = np.floor(clipped * scale + 1e-9).astype(np.int64)
+    q = np.where((clipped > 0) & (q == 0), 1, q)
+    q = np.where((clipped < 1) & (q >= scale), scale - 1, q)
+    return _nullable(q, valid)
+
+
+def _bool_codes(series: pd.Series) -> tuple[list[Any], bool]:
+    """Booleans (possibly with missing values) as 0/1/None; also whether any is missing."""
+    missing = series.isna().to_numpy()
+    values = np.where(missing, False, series.fillna(False).astype(bool).to_numpy())
+    return _nullable(values.astype(np.int64), ~missing), bool(missing.any())
+
+
+def _category_codes(
+    series: pd.Series, allowed: Sequence[str], column: str
+) -> tuple[list[Any], bool]:
+    """Category strings as indices into ``allowed`` (None stays None)."""
+    missing = series.isna().to_numpy()
+    text = series.astype(object).where(~series.isna(), None).astype("string")
+    codes = pd.Categorical(text, categories=list(allowed)).codes.astype(np.int64)
+    bad = (codes < 0) & ~missing
+    if bad.any():
+        found = sorted(set(text[bad].tolist()))[:5]
+        raise InputError(
+            f"column '{column}' holds {found} which the map does not know; allowed values "
+            f"are {list(allowed)} (or empty)"
+        )
+    return _nullable(codes.astype(np.int64), ~missing), bool(missing.any())
+
+
+def _share_series(areas: pd.DataFrame, group: str) -> pd.Series:
+    share_col = f"{group}_share"
+    if share_col in areas.columns:
+        return areas[share_col]
+    if group in areas.columns and "population" in areas.columns:
+        pop = pd.to_numeric(areas["population"], errors="coerce")
+        counts = pd.to_numeric(areas[group], errors="coerce")
+        return (counts / pop.where(pop > 0)).astype(float)
+    raise InputError(
+        f"group '{group}' has neither a '{share_col}' column nor '{group}' and 'population' "
+        "count columns in the areas; add the share column or drop the group from the list"
+    )
+
+
+def _check_footprint(footprint: Mapping[str, Any] | None) -> None:
+    if footprint is None:
+        return
+    if not isinstance(footprint, Mapping):
+        raise InputError(
+            f"footprint must be a dict with 'kind', 'name' and 'geometry', got "
+            f"{type(footprint).__name__}"
+        )
+    kind = footprint.get("kind")
+    if kind not in FOOTPRINT_KINDS:
+        raise SpecError(
+            f"footprint kind was {kind!r} but is expected to be one of {list(FOOTPRINT_KINDS)}"
+        )
+    if kind == "points" and footprint.get("points") is None:
+        raise InputError(
+            "footprint of kind 'points' has no 'points' GeoDataFrame of service points; "
+            "pass the points so the map can draw them"
+        )
+    radius = footprint.get("radius_m")
+    if radius is not None and not (isinstance(radius, (int, float)) and radius >= 0):
+        raise SpecError(f"footprint radius_m was {radius!r} but must be a number >= 0 (metres)")
+
+
+# --------------------------------------------------------------------------- page data
+
+
+def _views(
+    areas: pd.DataFrame,
+    fields: dict[str, list[Any]],
+    missing: dict[str, bool],
+    groups: Sequence[str],
+    reference: str,
+    summary: Mapping[str, Any],
+) -> list[View]:
+    views: list[View] = []
+    coverage = summary.get("coverage") or {}
+    if "cf" in fields:
+        views.append(
+            View(
+                key="covered",
+                label="Covered fraction",
+                title="Covered fraction of the area",
+                field="cf",
+                type="bins",
+                colors=COVERED_COLORS,
+                labels=COVERED_LABELS,
+                thresholds=COVERED_THRESHOLDS,
+                has_missing=missing["cf"],
+            )
+        )
+    if "served" in fields:
+        threshold = clean_number(coverage.get("served_threshold"))
+        note = (
+            f"Served: covered fraction >= {threshold:g}"
+            if isinstance(threshold, (int, float))
+            else None
+        )
+        views.append(
+            View(
+                key="served",
+                label="Served / unserved",
+                title="Served areas",
+                field="served",
+                type="codes",
+                colors=SERVED_COLORS,
+                labels=("unserved", "served"),
+                has_missing=missing["served"],
+                note=note,
+            )
+        )
+    for k, group in enumerate(groups):
+        field = f"s{k}"
+        note = "reference group" if group == reference else None
+        views.append(
+            View(
+                key=f"share:{group}",
+                label=f"Share: {group}",
+                title=f"Share of population: {group}",
+                field=field,
+                type="bins",
+                colors=SHARE_COLORS,
+                labels=SHARE_LABELS,
+                thresholds=SHARE_THRESHOLDS,
+                has_missing=missing[field],
+                missing_label="no population",
+                note=note,
+            )
+        )
+    if "mm" in fields:
+        views.append(
+            View(
+                key="majority_minority",
+                label="Majority-minority areas",
+                title="Majority-minority areas",
+                field="mm",
+                type="codes",
+                colors=MAJORITY_MINORITY_COLORS,
+                labels=("not majority-minority", "majority-minority"),
+                has_missing=missing["mm"],
+                missing_label="no population",
+            )
+        )
+    if "tier" in fields:
+        views.append(
+            View(
+                key="income_tier",
+                label="Income tiers",
+                title="Income tier (median family income, % of area median)",
+                field="tier",
+                type="codes",
+                colors=INCOME_COLORS,
+                labels=("low (< 50)", "moderate (50-80)", "middle (80-120)", "upper (>= 120)",
+                        "unknown"),
+                has_missing=missing["tier"],
+            )
+        )
+    if "lisa" in fields:
+        local = (summary.get("clustering") or {}).get("local_moran") or {}
+        alpha = clean_number(local.get("alpha"))
+        fdr = local.get("fdr")
+        parts = ["Local Moran's I of the covered fraction"]
+        if isinstance(alpha, (int, float)):
+            parts.append(f"alpha {alpha:g}" + (" with FDR" if fdr else ""))
+        views.append(
+            View(
+                key="lisa",
+                label="LISA clusters",
+                title="LISA clusters",
+                field="lisa",
+                type="codes",
+                colors=LISA_COLORS,
+                labels=LISA_LABELS,
+                has_missing=missing["lisa"],
+                missing_label="left out of the statistic",
+                note="; ".join(parts),
+            )
+        )
+    return views
+
+
+def _texts(title: str, summary: Mapping[str, Any], n: int, footprint: Mapping | None) -> dict:
+    subtitle: list[str] = []
+    counts = summary.get("areas") or {}
+    analysed = clean_number(counts.get("analysed"))
+    subtitle.append(f"{analysed if analysed is not None else n:,} areas analysed")
+    excluded = clean_number(counts.get("excluded"))
+    if excluded:
+        subtitle.append(f"{excluded:,} input rows excluded (see exclusions.csv)")
+    if footprint is not None and footprint.get("name"):
+        subtitle.append(f"Footprint: {footprint['name']}")
+    return {
+        "title": str(title),
+        "subtitle": subtitle,
+        "hover_hint": "Point at an area to see its figures.",
+    }
+
+
+def _footprint_overlays(
+    footprint: Mapping[str, Any] | None,
+    crs: Any,
+    tolerance: float,
+    decimals: int,
+) -> list[dict[str, Any]]:
+    if footprint is None:
+        return []
+    kind = footprint["kind"]
+    name = str(footprint.get("name") or "footprint")
+    out: list[dict[str, Any]] = []
+    if kind in ("polygons", "ids") and footprint.get("geometry") is not None:
+        geo = footprint["geometry"]
+        series = geo.geometry if isinstance(geo, gpd.GeoDataFrame) else gpd.GeoSeries(geo)
+        if series.crs is None:
+            series = series.set_crs(crs)
+        geoms = series.values.to_numpy() if hasattr(series.values, "to_numpy") else series.values
+        geoms = np.asarray(geoms)
+        if tolerance > 0:
+            geoms = shapely.simplify(geoms, tolerance, preserve_topology=True)
+        lonlat = gpd.GeoSeries(geoms, crs=series.crs).to_crs(4326).values
+        lonlat = np.asarray(lonlat)[_has_polygon(np.asarray(lonlat))]
+        if lonlat.size:
+            label = "Footprint (listed areas)" if kind == "ids" else "Footprint"
+            out.append(
+                {
+                    "key": "footprint",
+                    "label": f"{label}: {name}",
+                    "kind": "outline",
+                    "shapes": encode_shapes(lonlat, decimals),
+                    "color": "#111111",
+                    "weight": 2,
+                    "dash": "6 4",
+                    "fill_color": "#111111",
+                    "fill_opacity": 0.04,
+                    "visible": True,
+                    "legend": [{"color": "#111111", "kind": "dash", "label": "footprint edge"}],
+                }
+            )
+    if kind == "points":
+        points = footprint["points"]
+        pts = points.geometry if isinstance(points, gpd.GeoDataFrame) else gpd.GeoSeries(points)
+        if pts.crs is None:
+            pts = pts.set_crs(crs)
+        pts = pts[~(pts.is_empty | pts.isna())].to_crs(4326)
+        radius = clean_number(footprint.get("radius_m"))
+        legend = [{"color": "#1f1f1f", "kind": "dot", "label": "service point"}]
+        if radius:
+            legend.append(
+                {"color": "#5a3d8a", "kind": "line", "label": f"reach: {radius:,.0f} m radius"}
+            )
+        out.append(
+            {
+                "key": "points",
+                "label": f"Service points: {name}",
+                "kind": "points",
+                "lon": np.round(pts.x.to_numpy(), 6).tolist(),
+                "lat": np.round(pts.y.to_numpy(), 6).tolist(),
+                "radius_m": radius,
+                "color": "#1f1f1f",
+                "reach_color": "#5a3d8a",
+                "visible": True,
+                "legend": legend,
+            }
+        )
+    return out
+
+
+def _enclave_overlay(
+    display: gpd.GeoSeries, enclave: pd.Series, decimals: int
+) -> dict[str, Any] | None:
+    ids = enclave.where(enclave.notna(), None)
+    mask = ids.notna().to_numpy()
+    if not mask.any():
+        return None
+    frame = gpd.GeoDataFrame({"enclave": ids[mask].astype(str).to_numpy()},
+                             geometry=display.values[mask], crs=display.crs)
+    dissolved = frame.dissolve(by="enclave", sort=False)
+    # Natural order E1, E2, ..., E10 rather than the string order E1, E10, E2.
+    keys = sorted(dissolved.index, key=lambda s: (len(s), s))
+    dissolved = dissolved.loc[keys].to_crs(4326)
+    geoms = np.asarray(dissolved.geometry.values)
+    has = _has_polygon(geoms)
+    return {
+        "key": "enclaves",
+        "label": "Enclaves",
+        "kind": "outline",
+        "shapes": encode_shapes(geoms[has], decimals),
+        "labels": [str(k) for k, h in zip(keys, has, strict=True) if h],
+        "color": "#111111",
+        "weight": 2.5,
+        "dash": None,
+        "fill_color": None,
+        "visible": True,
+        "legend": [{"color": "#111111", "kind": "line", "label": "unserved enclave (labelled)"}],
+    }
+
+
+def _enclave_info(summary: Mapping[str, Any]) -> dict[str, dict[str, Any]]:
+    info: dict[str, dict[str, Any]] = {}
+    for item in summary.get("enclaves") or []:
+        if isinstance(item, Mapping) and item.get("id") is not None:
+            info[str(item["id"])] = {
+                "population": clean_number(item.get("population")),
+                "p_value": clean_number(item.get("p_value")),
+                "surround_share": clean_number(item.get("surround_share")),
+            }
+    return info
+
+
+def _page_json(data: Mapping[str, Any]) -> str:
+    """JSON for a ``<script type="application/json">`` block.
+
+    ``<`` is written as ``\\u003c`` so no value can close the element, and the two line
+    separators that older JavaScript parsers reject are escaped too.
+    """
+    text = json.dumps(data, separators=(",", ":"), allow_nan=False, ensure_ascii=False)
+    return (
+        text.replace("<", "\\u003c")
+        .replace(">", "\\u003e")
+        .replace("&", "\\u0026")
+        .replace("\u2028", "\\u2028")
+        .replace("\u2029", "\\u2029")
+    )
+
+
+# --------------------------------------------------------------------------- page
+
+
+class _OfflineMap(folium.Map):
+    """A folium Map that links no CDN: Leaflet is inlined by :func:`_render_page`."""
+
+    default_js: list[tuple[str, str]] = []
+    default_css: list[tuple[str, str]] = []
+
+
+class _DrawCall(MacroElement):
+    _template = Template(
+        """
+        {% macro script(this, kwargs) %}
+        coverageAuditDraw({{ this._parent.get_name() }},
+            JSON.parse(document.getElementById("ca-map-data").textContent));
+        {% endmacro %}
+        """
+    )
+
+
+# Placeholders filled after folium renders, so no input value ever passes through Jinja.
+_HEAD_MARK = "<!--ca-head-assets-->"
+_DATA_MARK = "<!--ca-map-data-->"
+
+
+def _render_page(title: str, bounds: list[list[float]], data_json: str) -> str:
+    (south, west), (north, east) = bounds
+    fmap = _OfflineMap(
+        location=[(south + north) / 2, (west + east) / 2],
+        zoom_start=8,
+        tiles=None,
+        prefer_canvas=True,
+        control_scale=True,
+    )
+    root = fmap.get_root()
+    root.title = html.escape(title)
+    root.header.add_child(Element('<meta charset="utf-8" />'), name="ca_charset", index=0)
+    root.header.add_child(Element(_HEAD_MARK), name="ca_assets")
+    root.html.add_child(Element(_DATA_MARK), name="ca_data")
+    fmap.add_child(_DrawCall(), name="ca_draw")
+    page = root.render()
+    head = "\n".join(
+        [
+            assets.inline_style(assets.leaflet_css()),
+            assets.inline_script(assets.leaflet_js()),
+            assets.inline_style(assets.MAP_CSS),
+            assets.inline_script(assets.MAP_JS),
+        ]
+    )
+    if page.count(_HEAD_MARK) != 1 or page.count(_DATA_MARK) != 1:  # pragma: no cover
+        raise RuntimeError("folium page template changed: asset placeholders not found once")
+    page = page.replace(_HEAD_MARK, head)
+    block = f'<script type="application/json" id="ca-map-data">{data_json}</script>'
+    return page.replace(_DATA_MARK, block)
+
+
+def _write_atomic(path: Path, text: str) -> int:
+    path.parent.mkdir(parents=True, exist_ok=True)
+    payload = text.encode("utf-8")
+    fd, tmp = tempfile.mkstemp(prefix=".map-", suffix=".html.tmp", dir=path.parent)
+    try:
+        with os.fdopen(fd, "wb") as fh:
+            fh.write(payload)
+        os.replace(tmp, path)
+    except BaseException:
+        Path(tmp).unlink(missing_ok=True)
+        raise
+    return len(payload)
+
+
+# --------------------------------------------------------------------------- public
+
+
+def build_map(
+    areas: gpd.GeoDataFrame,
+    *,
+    id_column: str,
+    groups: Sequence[str],
+    reference: str,
+    footprint: Mapping[str, Any] | None = None,
+    summary: Mapping[str, Any] | None = None,
+    title: str,
+    path: str | os.PathLike[str],
+    tiles: bool = False,
+    label_column: str | None = None,
+    simplify_tolerance: float | None = None,
+) -> MapInfo:
+    """Write a self-contained, offline interactive map of the analysed areas.
+
+    Parameters
+    ----------
+    areas : geopandas.GeoDataFrame
+        One row per analysed area in the projected analysis CRS, with ``id_column``,
+        ``geometry`` and as present ``population``, ``covered_fraction``, ``served``,
+        ``<group>_share`` (or the group count and ``population``), ``majority_minority``,
+        ``income_tier``, ``income_ratio``, ``nearest_site_m``, ``lisa_cluster``,
+        ``lisa_p`` and ``enclave_id``. Views whose column is absent are left out.
+    id_column : str
+        Name of the area id column (string ids such as GEOIDs).
+    groups : sequence of str
+        Group names; each gets a share view.
+    reference : str
+        The reference group; must be one of ``groups``.
+    footprint : dict, optional
+        ``{"kind": "polygons" | "points" | "ids", "name": str, "geometry": GeoSeries}``;
+        points also give ``"points"`` (GeoDataFrame) and ``"radius_m"``.
+    summary : dict, optional
+        The audit summary (``summary.json`` content); used for the served threshold, the
+        LISA settings, the area counts and enclave figures. Missing parts are skipped.
+    title : str
+        Page title.
+    path : path-like
+        Where to write ``map.html`` (written atomically; parent folders are created).
+    tiles : bool, default False
+        Add an OpenStreetMap tile layer (needs the network when viewed); without it the
+        map has a neutral background and needs nothing from outside.
+    label_column : str, optional
+        A column shown under the id when hovering (for example area names); defaults to
+        ``name`` when the areas have such a column.
+    simplify_tolerance : float, optional
+        Display simplification tolerance in CRS units; ``None`` picks one from the
+        region's extent (:func:`display_tolerance`), ``0`` keeps the geometry as is.
+
+    Returns
+    -------
+    MapInfo
+        Path, number of shapes drawn, size in bytes and simplification facts.
+
+    Raises
+    ------
+    InputError
+        A required column is missing, the areas have no CRS, or a category column holds
+        an unknown value.
+    SpecError
+        ``reference`` is not one of ``groups``, a bad footprint kind, or a negative
+        tolerance.
+
+    Notes
+    -----
+    Simplification and rounding change what is drawn only; the analysis never sees them.
+    """
+    _check_areas(areas, id_column, groups, reference, label_column)
+    _check_footprint(footprint)
+    if simplify_tolerance is not None and not (simplify_tolerance >= 0):
+        raise SpecError(
+            f"simplify_tolerance was {simplify_tolerance!r} but must be >= 0 (CRS units) or "
+            "None for automatic"
+        )
+    summary = summary or {}
+    if label_column is None and "name" in areas.columns and id_column != "name":
+        label_column = "name"
+
+    geoms = np.asarray(areas.geometry.values)
+    drawable = _has_polygon(geoms)
+    frame = areas.loc[drawable]
+    tolerance = display_tolerance(geoms[drawable]) if simplify_tolerance is None else float(
+        simplify_tolerance
+    )
+    display, method = _simplify(geoms[drawable], tolerance)
+    metres_per_unit, unit = _unit_metres(areas.crs)
+    decimals = _coordinate_decimals(tolerance * metres_per_unit)
+    display_series = gpd.GeoSeries(display, crs=areas.crs)
+    lonlat = np.asarray(display_series.to_crs(4326).values)
+    lonlat_has = _has_polygon(lonlat)
+    if not lonlat_has.all():  # pragma: no cover - reprojection keeps polygons polygons
+        lonlat = np.where(lonlat_has, lonlat, np.asarray(frame.geometry.to_crs(4326).values))
+    n = int(len(frame))
+    xmin, ymin, xmax, ymax = shapely.total_bounds(lonlat) if n else (0.0, 0.0, 0.0, 0.0)
+    bounds = [[float(ymin), float(xmin)], [float(ymax), float(xmax)]]
+
+    fields, missing = _fields(frame, id_column, groups, label_column)
+    views = _views(frame, fields, missing, groups, reference, summary)
+    overlays = _footprint_overlays(footprint, areas.crs, tolerance, decimals)
+    codes: dict[str, list[str]] = {"tier": list(INCOME_TIERS), "lisa": list(LISA_LABELS)}
+    if "enclave_id" in frame.columns:
+        enclave = _enclave_overlay(display_series, frame["enclave_id"].reset_index(drop=True),
+                                   decimals)
+        if enclave is not None:
+            overlays.insert(0, enclave)
+        enc_ids = sorted({str(v) for v in frame["enclave_id"].dropna()}, key=lambda s: (len(s), s))
+        enc = frame["enclave_id"]
+        enc_codes = pd.Categorical(enc.astype("string"), categories=enc_ids).codes
+        fields["enc"] = _nullable(enc_codes.astype(np.int64), enc_codes >= 0)
+        codes["enc"] = enc_ids
+
+    data = {
+        "n": n,
+        "bounds": bounds,
+        "areas": encode_shapes(lonlat, decimals) if n else _empty_shapes(),
+        "fields": fields,
+        "scales": {"cf": CF_SCALE, "share": SHARE_SCALE},
+        "codes": codes,
+        "groups": [
+            {"label": str(g), "field": f"s{k}", "reference": g == reference}
+            for k, g in enumerate(groups)
+        ],
+        "views": [v.to_dict() for v in views],
+        "overlays": overlays,
+        "enclave_info": _enclave_info(summary),
+        "texts": _texts(title, summary, n, footprint),
+        "style": {
+            "edge": "#ffffff",
+            "edge_weight": 0.4 if n > 5_000 else 0.8,
+            "edge_opacity": 0.8,
+            "fill_opacity": 0.55 if tiles else 0.9,
+            "missing": MISSING_COLOR,
+            "highlight": "#111111",
+        },
+        "tiles": dict(_TILES) if tiles else None,
+        "collapse_control": False,
+    }
+    page = _render_page(str(title), bounds, _page_json(to_jsonable(data)))
+    out = Path(path)
+    size = _write_atomic(out, page)
+    return MapInfo(
+        path=str(out),
+        n_features=n,
+        bytes=size,
+        simplify_tolerance=float(tolerance),
+        simplify_units=unit,
+        simplify_method=method,
+        coordinate_decimals=decimals,
+        n_without_geometry=int((~drawable).sum()),
+        views=tuple(v.key for v in views),
+        overlays=tuple(o["key"] for o in overlays) + (("tiles",) if tiles else ()),
+    )
+
+
+def _empty_shapes() -> dict[str, Any]:
+    return {"scale": 1, "origin": [0, 0], "xy": [], "ring_len": [], "part_rings": [],
+            "shape_parts": []}
+
+
+def _check_areas(
+    areas: Any,
+    id_column: str,
+    groups: Sequence[str],
+    reference: str,
+    label_column: str | None,
+) -> None:
+    if not isinstance(areas, gpd.GeoDataFrame):
+        raise InputError(
+            f"areas must be a GeoDataFrame with a geometry column, got {type(areas).__name__}"
+        )
+    if id_column not in areas.columns:
+        raise InputError(
+            f"id column '{id_column}' is not among the area columns "
+            f"{list(map(str, areas.columns))[:20]}; pass the name of the column holding the ids"
+        )
+    if areas.crs is None:
+        raise InputError(
+            "the areas have no CRS; the map must reproject them to longitude/latitude, so set "
+            "the analysis CRS (GeoDataFrame.set_crs) before building the map"
+        )
+    if isinstance(groups, str):
+        raise SpecError(f"groups must be a list of group names, got the string {groups!r}")
+    if reference not in groups:
+        raise SpecError(
+            f"reference group was {reference!r} but is expected to be one of {list(groups)}"
+        )
+    if label_column is not None and label_column not in areas.columns:
+        raise InputError(
+            f"label column '{label_column}' is not among the area columns; pass an existing "
+            "column or None"
+        )
+    if len(areas) == 0:
+        raise InputError("the areas are empty: there is nothing to draw on the map")
+
+
+def _fields(
+    frame: gpd.GeoDataFrame, id_column: str, groups: Sequence[str], label_column: str | None
+) -> tuple[dict[str, list[Any]], dict[str, bool]]:
+    """Per-area value arrays for the page, compact: short keys, integer fractions."""
+    fields: dict[str, list[Any]] = {}
+    missing: dict[str, bool] = {}
+    ids = frame[id_column]
+    fields["id"] = ids.astype(object).where(ids.notna(), "").astype(str).tolist()
+    if label_column is not None:
+        lab = frame[label_column]
+        fields["label"] = np.where(lab.isna(), None, lab.astype(str)).tolist()
+    if "population" in frame.columns:
+        pop = pd.to_numeric(frame["population"], errors="coerce").to_numpy(dtype=float)
+        ok = np.isfinite(pop)
+        fields["pop"] = _nullable(np.rint(np.where(ok, pop, 0)).astype(np.int64), ok)
+    if "covered_fraction" in frame.columns:
+        fields["cf"] = _scaled_fraction(frame["covered_fraction"], CF_SCALE, "covered_fraction")
+        missing["cf"] = any(v is None for v in fields["cf"])
+    if "served" in frame.columns:
+        fields["served"], missing["served"] = _bool_codes(frame["served"])
+    for k, group in enumerate(groups):
+        field = f"s{k}"
+        fields[field] = _scaled_fraction(_share_series(frame, group), SHARE_SCALE, f"{group}_share")
+        missing[field] = any(v is None for v in fields[field])
+    if "majority_minority" in frame.columns:
+        fields["mm"], missing["mm"] = _bool_codes(frame["majority_minority"])
+    if "income_tier" in frame.columns:
+        fields["tier"], missing["tier"] = _category_codes(
+            frame["income_tier"], INCOME_TIERS, "income_tier"
+        )
+    if "income_ratio" in frame.columns:
+        inc = pd.to_numeric(frame["income_ratio"], errors="coerce").to_numpy(dtype=float)
+        ok = np.isfinite(inc)
+        fields["inc"] = _nullable(np.round(np.where(ok, inc, 0.0), 1), ok)
+    if "nearest_site_m" in frame.columns:
+        dist = pd.to_numeric(frame["nearest_site_m"], errors="coerce").to_numpy(dtype=float)
+        ok = np.isfinite(dist)
+        fields["dist"] = _nullable(np.rint(np.where(ok, dist, 0.0)).astype(np.int64), ok)
+    if "lisa_cluster" in frame.columns:
+        fields["lisa"], missing["lisa"] = _category_codes(
+            frame["lisa_cluster"], LISA_LABELS, "lisa_cluster"
+        )
+    if "lisa_p" in frame.columns:
+        lp = pd.to_numeric(frame["lisa_p"], errors="coerce").to_numpy(dtype=float)
+        ok = np.isfinite(lp)
+        fields["lisa_p"] = _nullable(np.round(np.where(ok, lp, 0.0), 4), ok)
+    return fields, missing

@@ -1,0 +1,624 @@
+"""The audit spec: TOML (or a mapping) -> frozen dataclasses, validated with precise messages.
+
+An audit is described once, in a TOML file whose paths are relative to the file itself, so
+that any finding can be rerun exactly. :func:`load_spec` reads the file; :func:`spec_from_dict`
+validates a mapping (the CLI builds one from its options). Every error names the table and
+key, repeats the bad value and lists what is allowed. Unknown keys are errors.
+"""
+
+from __future__ import annotations
+
+import math
+import re
+import sys
+from collections.abc import Mapping
+from dataclasses import dataclass, field, fields, replace
+from pathlib import Path
+from typing import Any
+
+from .errors import SpecError
+
+if sys.version_info >= (3, 11):
+    import tomllib
+else:  # pragma: no cover - exercised only on Python 3.10
+    import tomli as tomllib
+
+#: Seed used when a spec names none, so that reruns are identical by default.
+DEFAULT_SEED = 20_261_201
+
+FOOTPRINT_KINDS = ("polygons", "points", "ids")
+COMPARISONS = ("reference", "highest")
+FDR_METHODS = ("bh", "none")
+MAJORITY_RULES = ("above", "at_or_above")
+#: Length units accepted for a reach radius, in metres.
+LENGTH_UNITS = {"m": 1.0, "km": 1000.0, "mi": 1609.344, "ft": 0.3048}
+#: Names a group may not take because the per-area output uses them.
+RESERVED_NAMES = frozenset(
+    {
+        "population",
+        "covered_fraction",
+        "served",
+        "geometry",
+        "area_km2",
+        "income_ratio",
+        "income_tier",
+        "majority_minority",
+        "nearest_site_m",
+        "lisa_cluster",
+        "enclave_id",
+    }
+)
+_NAME_RE = re.compile(r"^[A-Za-z_][A-Za-z0-9_]*$")
+
+
+@dataclass(frozen=True)
+class AreasSpec:
+    """Where the areas and their demographics come from."""
+
+    path: Path
+    id: str
+    layer: str | None = None
+    crs: str | None = None
+    table: Path | None = None
+    table_id: str | None = None
+    id_width: int | None = None
+
+
+@dataclass(frozen=True)
+class PopulationSpec:
+    """Which columns hold the total, each group and the income ratio."""
+
+    total: str
+    groups: tuple[tuple[str, str], ...]
+    reference: str
+    derive_minority: bool = False
+    income_ratio: str | None = None
+    majority_minority_share: float = 0.5
+    majority_minority_rule: str = "above"
+
+    @property
+    def group_columns(self) -> dict[str, str]:
+        """Group name -> input column, in the order given."""
+        return dict(self.groups)
+
+    @property
+    def group_names(self) -> list[str]:
+        """Every analysed group name, with ``minority`` last when derived."""
+        names = [name for name, _ in self.groups]
+        return names + (["minority"] if self.derive_minority else [])
+
+
+@dataclass(frozen=True)
+class FootprintSpec:
+    """One service footprint: polygons, points with a reach radius, or listed area ids."""
+
+    name: str
+    kind: str
+    path: Path | None = None
+    layer: str | None = None
+    crs: str | None = None
+    radius_m: float | None = None
+    radius_unit: str = "m"
+    radius_column: str | None = None
+    served_ids: Path | None = None
+    served_ids_column: str | None = None
+    served_column: str | None = None
+    ids: tuple[str, ...] | None = None
+
+
+@dataclass(frozen=True)
+class AnalysisSpec:
+    """Thresholds, inference settings and the seed."""
+
+    served_threshold: float = 0.5
+    comparison: str = "reference"
+    contiguity: str = "queen"
+    islands: str = "exclude"
+    knn_k: int = 1
+    permutations: int = 999
+    seed: int = DEFAULT_SEED
+    fdr: str = "bh"
+    alpha: float = 0.05
+    enclave_min_surround: float = 0.75
+    enclave_min_population: float = 0.0
+    enclave_draws: int = 999
+    transparent_zero_population: bool = False
+    circle_vertices: int = 128
+    analysis_crs: str | None = None
+
+
+@dataclass(frozen=True)
+class OutputSpec:
+    """Which optional outputs to write."""
+
+    map: bool = True
+    report: bool = True
+    tiles: bool = False
+
+
+@dataclass(frozen=True)
+class AuditSpec:
+    """A whole audit, as resolved from a spec file or options.
+
+    Attributes
+    ----------
+    footprints : tuple of FootprintSpec
+        The first is the audited footprint; any others are compared with it.
+    base_dir : Path
+        Folder that relative paths were resolved against.
+    source : Path or None
+        The spec file, when the spec came from one.
+    """
+
+    title: str
+    areas: AreasSpec
+    population: PopulationSpec
+    footprints: tuple[FootprintSpec, ...]
+    analysis: AnalysisSpec = field(default_factory=AnalysisSpec)
+    output: OutputSpec = field(default_factory=OutputSpec)
+    base_dir: Path = field(default_factory=Path.cwd)
+    source: Path | None = None
+
+    @property
+    def footprint(self) -> FootprintSpec:
+        """The audited (first) footprint."""
+        return self.footprints[0]
+
+    def with_analysis(self, **changes: Any) -> AuditSpec:
+        """Return a copy with some analysis settings changed (validated again)."""
+        merged = {**_dataclass_dict(self.analysis), **changes}
+        analysis = _analysis_from(merged, self._where())
+        return replace(self, analysis=analysis)
+
+    def _where(self) -> str:
+        return str(self.source) if self.source else "spec"
+
+    def to_dict(self) -> dict[str, Any]:
+        """Return the resolved spec as TOML-like plain data (paths as given, resolved)."""
+        out: dict[str, Any] = {"title": self.title}
+        out["areas"] = _dataclass_dict(self.areas)
+        pop = _dataclass_dict(self.population)
+        pop["groups"] = dict(self.population.groups)
+        out["population"] = pop
+        out["footprint"] = [_dataclass_dict(f) for f in self.footprints]
+        out["analysis"] = _dataclass_dict(self.analysis)
+        out["output"] = _dataclass_dict(self.output)
+        return out
+
+
+def _dataclass_dict(obj: Any) -> dict[str, Any]:
+    out: dict[str, Any] = {}
+    for f in fields(obj):
+        value = getattr(obj, f.name)
+        if isinstance(value, Path):
+            value = str(value)
+        elif isinstance(value, tuple):
+            value = list(value)
+        out[f.name] = value
+    return out
+
+
+def load_spec(path: str | Path) -> AuditSpec:
+    """Read and validate a TOML audit spec.
+
+    Parameters
+    ----------
+    path : str or Path
+        The spec file. Relative paths inside it are resolved against its folder.
+
+    Returns
+    -------
+    AuditSpec
+
+    Raises
+    ------
+    SpecError
+        When the file is missing, is not valid TOML, or any key or value is invalid.
+    """
+    spec_path = Path(path)
+    if not spec_path.is_file():
+        raise SpecError(f"spec file '{spec_path}' was not found; check the path")
+    try:
+        data = tomllib.loads(spec_path.read_text(encoding="utf-8"))
+    except tomllib.TOMLDecodeError as exc:
+        raise SpecError(f"{spec_path}: not valid TOML ({exc}); fix the line it names") from None
+    except UnicodeDecodeError:
+        raise SpecError(f"{spec_path}: not a UTF-8 text file") from None
+    return spec_from_dict(data, base_dir=spec_path.resolve().parent, source=spec_path)
+
+
+_TOP_KEYS = ("title", "areas", "population", "footprint", "analysis", "output")
+_AREAS_KEYS = ("path", "id", "layer", "crs", "table", "table_id", "id_width")
+_POP_KEYS = (
+    "total",
+    "groups",
+    "reference",
+    "derive_minority",
+    "income_ratio",
+    "majority_minority_share",
+    "majority_minority_rule",
+)
+_FOOT_KEYS = (
+    "name",
+    "kind",
+    "path",
+    "layer",
+    "crs",
+    "radius",
+    "radius_unit",
+    "radius_column",
+    "served_ids",
+    "served_ids_column",
+    "served_column",
+    "ids",
+)
+_ANALYSIS_KEYS = tuple(f.name for f in fields(AnalysisSpec))
+_OUTPUT_KEYS = tuple(f.name for f in fields(OutputSpec))
+
+
+def spec_from_dict(
+    data: Mapping[str, Any],
+    *,
+    base_dir: str | Path | None = None,
+    source: str | Path | None = None,
+) -> AuditSpec:
+    """Validate a spec given as a mapping with the TOML file's structure.
+
+    Parameters
+    ----------
+    data : Mapping
+        Keys ``title``, ``areas``, ``population``, ``footprint`` (a table, or a list of
+        tables for several footprints), ``analysis`` and ``output``.
+    base_dir : str or Path, optional
+        Folder against which relative paths are resolved (default: the working folder).
+    source : str or Path, optional
+        Where the mapping came from, used in messages.
+
+    Returns
+    -------
+    AuditSpec
+    """
+    where = str(source) if source else "spec"
+    base = Path(base_dir) if base_dir is not None else Path.cwd()
+    if not isinstance(data, Mapping):
+        raise SpecError(f"{where}: expected a table of settings")
+    _check_keys(data, _TOP_KEYS, where, "top level")
+    for required in ("areas", "population", "footprint"):
+        if required not in data:
+            raise SpecError(f"{where}: the [{required}] table is missing; it is required")
+
+    areas_d = _table(data["areas"], where, "areas")
+    _check_keys(areas_d, _AREAS_KEYS, where, "[areas]")
+    areas = AreasSpec(
+        path=_path(areas_d, "path", base, where, "areas", required=True),  # type: ignore[arg-type]
+        id=_str(areas_d, "id", where, "areas", required=True),  # type: ignore[arg-type]
+        layer=_str(areas_d, "layer", where, "areas"),
+        crs=_str(areas_d, "crs", where, "areas"),
+        table=_path(areas_d, "table", base, where, "areas"),
+        table_id=_str(areas_d, "table_id", where, "areas"),
+        id_width=_int(areas_d, "id_width", where, "areas", minimum=1),
+    )
+
+    pop_d = _table(data["population"], where, "population")
+    _check_keys(pop_d, _POP_KEYS, where, "[population]")
+    population = _population_from(pop_d, where)
+
+    raw_fp = data["footprint"]
+    fp_list = list(raw_fp) if isinstance(raw_fp, list) else [raw_fp]
+    if not fp_list:
+        raise SpecError(f"{where}: [footprint] is empty; give at least one footprint")
+    footprints = []
+    for k, item in enumerate(fp_list):
+        label = "footprint" if len(fp_list) == 1 else f"footprint #{k + 1}"
+        footprints.append(_footprint_from(_table(item, where, label), base, where, label, k))
+    names = [f.name for f in footprints]
+    dupes = sorted({n for n in names if names.count(n) > 1})
+    if dupes:
+        raise SpecError(f"{where}: footprint names must differ; repeated: {dupes}")
+
+    analysis = _analysis_from(_table(data.get("analysis", {}), where, "analysis"), where)
+    out_d = _table(data.get("output", {}), where, "output")
+    _check_keys(out_d, _OUTPUT_KEYS, where, "[output]")
+    output = OutputSpec(
+        map=_bool(out_d, "map", where, "output", True),
+        report=_bool(out_d, "report", where, "output", True),
+        tiles=_bool(out_d, "tiles", where, "output", False),
+    )
+    title = data.get("title", "Coverage audit")
+    if not isinstance(title, str) or not title.strip():
+        raise SpecError(f"{where}: title must be a non-empty string")
+    return AuditSpec(
+        title=title.strip(),
+        areas=areas,
+        population=population,
+        footprints=tuple(footprints),
+        analysis=analysis,
+        output=output,
+        base_dir=base,
+        source=Path(source) if source else None,
+    )
+
+
+def _population_from(pop_d: Mapping[str, Any], where: str) -> PopulationSpec:
+    total = _str(pop_d, "total", where, "population", required=True)
+    groups_raw = pop_d.get("groups")
+    if not isinstance(groups_raw, Mapping) or not groups_raw:
+        raise SpecError(
+            f'{where}: [population] groups must be a table of name = "column", '
+            f'for example groups = {{ white_nh = "B03002_003E", black_nh = "B03002_004E" }}'
+        )
+    groups: list[tuple[str, str]] = []
+    for name, column in groups_raw.items():
+        if not _NAME_RE.match(str(name)):
+            raise SpecError(
+                f'{where}: [population] group name "{name}" must start with a letter or _ and '
+                "hold only letters, digits and _"
+            )
+        if name in RESERVED_NAMES or str(name).endswith("_share"):
+            raise SpecError(
+                f'{where}: [population] group name "{name}" is reserved for outputs; '
+                f"choose another (reserved: {sorted(RESERVED_NAMES)} and names ending in _share)"
+            )
+        if not isinstance(column, str) or not column:
+            raise SpecError(f'{where}: [population] groups.{name} must name a column, got {column!r}')
+        groups.append((str(name), column))
+    names = [n for n, _ in groups]
+    reference = _str(pop_d, "reference", where, "population", required=True)
+    if reference not in names:
+        raise SpecError(
+            f'{where}: [population] reference was "{reference}" but must be one of the groups '
+            f"{names}"
+        )
+    derive = _bool(pop_d, "derive_minority", where, "population", False)
+    if derive and "minority" in names:
+        raise SpecError(
+            f'{where}: [population] has a group named "minority" and derive_minority = true; '
+            "use one or the other"
+        )
+    share = _float(pop_d, "majority_minority_share", where, "population", 0.5, 0.0, 1.0)
+    rule = _choice(pop_d, "majority_minority_rule", where, "population", MAJORITY_RULES, "above")
+    return PopulationSpec(
+        total=total,  # type: ignore[arg-type]
+        groups=tuple(groups),
+        reference=reference,  # type: ignore[arg-type]
+        derive_minority=derive,
+        income_ratio=_str(pop_d, "income_ratio", where, "population"),
+        majority_minority_share=share,
+        majority_minority_rule=rule,
+    )
+
+
+def _footprint_from(
+    fp_d: Mapping[str, Any], base: Path, where: str, label: str, index: int
+) -> FootprintSpec:
+    _check_keys(fp_d, _FOOT_KEYS, where, f"[{label}]")
+    name = _str(fp_d, "name", where, label) or ("footprint" if index == 0 else f"footprint_{index + 1}")
+    path = _path(fp_d, "path", base, where, label)
+    served_ids = _path(fp_d, "served_ids", base, where, label)
+    served_column = _str(fp_d, "served_column", where, label)
+    ids_raw = fp_d.get("ids")
+    ids: tuple[str, ...] | None = None
+    if ids_raw is not None:
+        if not isinstance(ids_raw, list) or not all(isinstance(i, (str, int)) for i in ids_raw):
+            raise SpecError(f"{where}: [{label}] ids must be a list of area ids (strings)")
+        ids = tuple(str(i) for i in ids_raw)
+    radius = fp_d.get("radius")
+    radius_column = _str(fp_d, "radius_column", where, label)
+    kind = fp_d.get("kind")
+    if kind is None:
+        if served_ids is not None or served_column is not None or ids is not None:
+            kind = "ids"
+        elif radius is not None or radius_column is not None:
+            kind = "points"
+        elif path is not None:
+            kind = "polygons"
+        else:
+            raise SpecError(
+                f"{where}: [{label}] needs a path (polygons, or points with radius), "
+                "served_ids, served_column or ids"
+            )
+    if kind not in FOOTPRINT_KINDS:
+        raise SpecError(
+            f'{where}: [{label}] kind was "{kind}" but is expected to be one of {list(FOOTPRINT_KINDS)}'
+        )
+    unit = _choice(fp_d, "radius_unit", where, label, tuple(LENGTH_UNITS), "m")
+    radius_m: float | None = None
+    if kind in ("polygons", "points") and path is None:
+        raise SpecError(f"{where}: [{label}] kind = \"{kind}\" needs path = the footprint file")
+    if kind == "points":
+        if radius is None and radius_column is None:
+            raise SpecError(
+                f"{where}: [{label}] points need a reach: radius = 3000 (with radius_unit, "
+                "default m) or radius_column = a column of the points file"
+            )
+        if radius is not None:
+            radius_m = _parse_length(radius, unit, where, label)
+    elif radius is not None or radius_column is not None:
+        raise SpecError(f'{where}: [{label}] radius applies only to kind = "points"')
+    if kind == "ids":
+        given = [k for k, v in (("served_ids", served_ids), ("served_column", served_column),
+                                ("ids", ids)) if v is not None]
+        if len(given) != 1:
+            raise SpecError(
+                f"{where}: [{label}] a list of served areas needs exactly one of served_ids "
+                f"(a file of ids), served_column (a flag column of the areas) or ids; got {given}"
+            )
+    elif served_ids is not None or served_column is not None or ids is not None:
+        raise SpecError(f'{where}: [{label}] served_ids/served_column/ids apply only to kind = "ids"')
+    return FootprintSpec(
+        name=name,
+        kind=kind,
+        path=path,
+        layer=_str(fp_d, "layer", where, label),
+        crs=_str(fp_d, "crs", where, label),
+        radius_m=radius_m,
+        radius_unit=unit,
+        radius_column=radius_column,
+        served_ids=served_ids,
+        served_ids_column=_str(fp_d, "served_ids_column", where, label),
+        served_column=served_column,
+        ids=ids,
+    )
+
+
+_LENGTH_RE = re.compile(r"^\s*([0-9]*\.?[0-9]+(?:[eE][+-]?[0-9]+)?)\s*([a-zA-Z]*)\s*$")
+
+
+def parse_length(value: Any, default_unit: str = "m") -> float:
+    """Parse a length such as ``3000``, ``"3 km"`` or ``"2mi"`` into metres.
+
+    Raises
+    ------
+    ValueError
+        With a message listing the accepted units.
+    """
+    if isinstance(value, bool):
+        raise ValueError(f"a length must be a number, got {value!r}")
+    if isinstance(value, (int, float)):
+        number, unit = float(value), default_unit
+    elif isinstance(value, str):
+        match = _LENGTH_RE.match(value)
+        if not match:
+            raise ValueError(f'"{value}" is not a length; write e.g. 3000, "3 km" or "2 mi"')
+        number, unit = float(match.group(1)), (match.group(2) or default_unit).lower()
+    else:
+        raise ValueError(f"a length must be a number or a string, got {value!r}")
+    if unit not in LENGTH_UNITS:
+        raise ValueError(f'unit "{unit}" is not known; use one of {list(LENGTH_UNITS)}')
+    if not math.isfinite(number) or number <= 0:
+        raise ValueError(f"a length must be positive, got {value!r}")
+    return number * LENGTH_UNITS[unit]
+
+
+def _parse_length(value: Any, unit: str, where: str, label: str) -> float:
+    try:
+        return parse_length(value, unit)
+    except ValueError as exc:
+        raise SpecError(f"{where}: [{label}] radius: {exc}") from None
+
+
+def _analysis_from(an_d: Mapping[str, Any], where: str) -> AnalysisSpec:
+    _check_keys(an_d, _ANALYSIS_KEYS, where, "[analysis]")
+    t = "analysis"
+    return AnalysisSpec(
+        served_threshold=_float(an_d, "served_threshold", where, t, 0.5, 0.0, 1.0, open_low=True),
+        comparison=_choice(an_d, "comparison", where, t, COMPARISONS, "reference"),
+        contiguity=_choice(an_d, "contiguity", where, t, ("queen", "rook"), "queen"),
+        islands=_choice(an_d, "islands", where, t, ("exclude", "knn"), "exclude"),
+        knn_k=_int(an_d, "knn_k", where, t, minimum=1) or 1,
+        permutations=_int_default(an_d, "permutations", where, t, 999, minimum=0),
+        seed=_int_default(an_d, "seed", where, t, DEFAULT_SEED, minimum=0),
+        fdr=_choice(an_d, "fdr", where, t, FDR_METHODS, "bh"),
+        alpha=_float(an_d, "alpha", where, t, 0.05, 0.0, 1.0, open_low=True),
+        enclave_min_surround=_float(an_d, "enclave_min_surround", where, t, 0.75, 0.0, 1.0),
+        enclave_min_population=_float(an_d, "enclave_min_population", where, t, 0.0, 0.0, None),
+        enclave_draws=_int_default(an_d, "enclave_draws", where, t, 999, minimum=0),
+        transparent_zero_population=_bool(an_d, "transparent_zero_population", where, t, False),
+        circle_vertices=_int_default(an_d, "circle_vertices", where, t, 128, minimum=16),
+        analysis_crs=_str(an_d, "analysis_crs", where, t),
+    )
+
+
+def _check_keys(table: Mapping[str, Any], allowed: tuple[str, ...], where: str, label: str) -> None:
+    unknown = [k for k in table if k not in allowed]
+    if unknown:
+        raise SpecError(
+            f'{where}: unknown key "{unknown[0]}" in {label}; allowed keys are {list(allowed)}'
+        )
+
+
+def _table(value: Any, where: str, label: str) -> Mapping[str, Any]:
+    if not isinstance(value, Mapping):
+        raise SpecError(f"{where}: [{label}] must be a table of settings, got {value!r}")
+    return value
+
+
+def _str(d: Mapping[str, Any], key: str, where: str, label: str, required: bool = False) -> str | None:
+    value = d.get(key)
+    if value is None:
+        if required:
+            raise SpecError(f"{where}: [{label}] {key} is required")
+        return None
+    if not isinstance(value, str) or not value.strip():
+        raise SpecError(f"{where}: [{label}] {key} must be a non-empty string, got {value!r}")
+    return value
+
+
+def _path(
+    d: Mapping[str, Any], key: str, base: Path, where: str, label: str, required: bool = False
+) -> Path | None:
+    value = _str(d, key, where, label, required)
+    if value is None:
+        return None
+    p = Path(value).expanduser()
+    return p if p.is_absolute() else (base / p)
+
+
+def _bool(d: Mapping[str, Any], key: str, where: str, label: str, default: bool) -> bool:
+    value = d.get(key, default)
+    if not isinstance(value, bool):
+        raise SpecError(f"{where}: [{label}] {key} must be true or false, got {value!r}")
+    return value
+
+
+def _number(value: Any, key: str, where: str, label: str) -> float:
+    if isinstance(value, bool) or not isinstance(value, (int, float)) or not math.isfinite(value):
+        raise SpecError(f"{where}: [{label}] {key} must be a number, got {value!r}")
+    return float(value)
+
+
+def _float(
+    d: Mapping[str, Any],
+    key: str,
+    where: str,
+    label: str,
+    default: float,
+    low: float | None,
+    high: float | None,
+    open_low: bool = False,
+) -> float:
+    if key not in d:
+        return default
+    value = _number(d[key], key, where, label)
+    bad_low = low is not None and (value <= low if open_low else value < low)
+    bad_high = high is not None and value > high
+    if bad_low or bad_high:
+        lo = "" if low is None else (f"above {low}" if open_low else f"at least {low}")
+        hi = "" if high is None else f"at most {high}"
+        rng = " and ".join(s for s in (lo, hi) if s)
+        raise SpecError(f"{where}: [{label}] {key} was {value} but must be {rng}")
+    return value
+
+
+def _int(d: Mapping[str, Any], key: str, where: str, label: str, minimum: int = 0) -> int | None:
+    if key not in d:
+        return None
+    value = d[key]
+    if isinstance(value, bool) or not isinstance(value, int):
+        raise SpecError(f"{where}: [{label}] {key} must be a whole number, got {value!r}")
+    if value < minimum:
+        raise SpecError(f"{where}: [{label}] {key} was {value} but must be at least {minimum}")
+    return value
+
+
+def _int_default(
+    d: Mapping[str, Any], key: str, where: str, label: str, default: int, minimum: int = 0
+) -> int:
+    value = _int(d, key, where, label, minimum)
+    return default if value is None else value
+
+
+def _choice(
+    d: Mapping[str, Any], key: str, where: str, label: str, allowed: tuple[str, ...], default: str
+) -> str:
+    value = d.get(key, default)
+    if value not in allowed:
+        raise SpecError(
+            f'{where}: [{label}] {key} was "{value}" but is expected to be one of {list(allowed)}'
+        )
+    return str(value)
+
+
+def replace_output(spec: AuditSpec, **changes: bool) -> AuditSpec:
+    """Return a copy of ``spec`` with some ``[output]`` switches changed."""
+    return replace(spec, output=replace(spec.output, **changes))
