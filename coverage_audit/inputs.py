@@ -231,7 +231,9 @@ def resolve_crs(layer: gpd.GeoDataFrame, declared: str | None, *, role: str, pat
         except Exception:
             raise InputError(f'{role}: crs "{declared}" is not a known CRS; write e.g. "EPSG:4326"') from None
         if layer.crs is None:
-            return layer.set_crs(declared_crs)
+            layer = layer.set_crs(declared_crs)
+            _check_degrees(layer, role=role, path=path)
+            return layer
         if not CRS(layer.crs).equals(declared_crs, ignore_axis_order=True):
             raise InputError(
                 f"{role} file '{path}' declares CRS {_crs_text(layer.crs)} but the spec says "
@@ -244,14 +246,35 @@ def resolve_crs(layer: gpd.GeoDataFrame, declared: str | None, *, role: str, pat
             f"{role} file '{path}' has no coordinate reference system; name it in the spec with "
             f'{key} = "EPSG:4326" (or the CRS the coordinates are in)'
         )
+    _check_degrees(layer, role=role, path=path)
     return layer
+
+
+def _check_degrees(layer: gpd.GeoDataFrame, *, role: str, path: Path) -> None:
+    """Refuse longitudes/latitudes out of range: the file's CRS is then not the real one.
+
+    GeoJSON files carry no CRS by default and are read as WGS 84 (RFC 7946), so a GeoJSON
+    written in metres shows up here.
+    """
+    if layer.crs is None or not CRS(layer.crs).is_geographic or len(layer) == 0:
+        return
+    xmin, ymin, xmax, ymax = layer.total_bounds
+    if not np.all(np.isfinite([xmin, ymin, xmax, ymax])):
+        return
+    if xmin < -360 or xmax > 360 or ymin < -90 or ymax > 90:
+        raise InputError(
+            f"{role} file '{path}' is read as {_crs_text(layer.crs)} (longitude/latitude) but its "
+            f"coordinates reach ({xmin:g}, {ymin:g}) to ({xmax:g}, {ymax:g}), outside the range of "
+            "degrees; the file's coordinates are in another CRS. Save it with its CRS (GeoPackage "
+            "keeps any CRS; GeoJSON holds only WGS 84 longitude/latitude)"
+        )
 
 
 def choose_analysis_crs(geometries: gpd.GeoSeries, override: str | None) -> CRS:
     """Return the equal-area CRS the analysis runs in.
 
     By default a Lambert azimuthal equal-area projection centred on the middle of the
-    areas' extent (rounded to 0.01 degree so that it is stable), on the GRS80 ellipsoid:
+    areas' extent (rounded to 0.01 degree so that it is stable), on WGS 84:
     areas are exact wherever the region lies; distances are near-true close to the centre.
     """
     if override is not None:
@@ -274,7 +297,7 @@ def choose_analysis_crs(geometries: gpd.GeoSeries, override: str | None) -> CRS:
     lon_c = float(np.round((np.nanmin(lon) + np.nanmax(lon)) / 2, 2))
     lat_c = float(np.round((np.nanmin(lat) + np.nanmax(lat)) / 2, 2))
     return CRS.from_proj4(
-        f"+proj=laea +lat_0={lat_c:g} +lon_0={lon_c:g} +x_0=0 +y_0=0 +ellps=GRS80 +units=m +no_defs"
+        f"+proj=laea +lat_0={lat_c:g} +lon_0={lon_c:g} +x_0=0 +y_0=0 +datum=WGS84 +units=m +no_defs"
     )
 
 

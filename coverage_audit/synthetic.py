@@ -17,7 +17,7 @@ import shapely
 
 #: A Lambert azimuthal equal-area projection centred in the open South Pacific, far from
 #: any land, used for fictional regions so that no real place is depicted.
-FICTIONAL_CRS = "+proj=laea +lat_0=-32 +lon_0=-135 +x_0=0 +y_0=0 +ellps=GRS80 +units=m +no_defs"
+FICTIONAL_CRS = "+proj=laea +lat_0=-32 +lon_0=-135 +x_0=0 +y_0=0 +datum=WGS84 +units=m +no_defs"
 
 
 def tessellation(
