@@ -407,8 +407,9 @@ def _gap_test(
         null[start:stop] = w_total - sums if use_complement else sums
 
     # Equal gaps summed in a different order can differ by rounding; bound that error
-    # (Higham 2002, Accuracy and Stability of Numerical Algorithms, 2nd ed., eq. 4.4:
-    # |error| <= (n-1) u sum|w_i|, for both sums and the complement) so ties count as ties.
+    # (Higham 2002, Accuracy and Stability of Numerical Algorithms, 2nd ed., ch. 4, the
+    # recursive-summation bound |error| <= (n-1) u sum|w_i| + O(u^2), chapter from memory;
+    # taken for both sums and the complement) so ties count as ties.
     tol = 2.0 * (n + 1) * _EPS * float(np.abs(w).sum())
     extreme_two = int(np.count_nonzero(np.abs(null) >= abs(observed) - tol))
     extreme_one = int(np.count_nonzero(null >= observed - tol))
@@ -764,8 +765,8 @@ def coverage_gap_test(
     counted among the draws follows Hope (1968), JRSS B 30(3), 582-598. Simulated gaps
     that equal the observed one up to summation rounding count as ties. Permutations are
     drawn in chunks that hold at most about two million area indices, so memory stays
-    bounded for any number of areas; 85,000 areas x 999 permutations take well under a
-    second on one core (benchmarks/bench_segregation.py).
+    bounded for any number of areas (about 33 MiB); 85,000 areas x 999 permutations take
+    about half a second (benchmarks/bench_segregation.py).
     """
     xa = _counts(x, "x")
     ya = _counts(y, "y")

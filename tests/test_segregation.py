@@ -281,10 +281,12 @@ def test_null_case_is_not_significant():
     ("x", "y", "served"),
     [
         ([4, 9, 0, 7, 3, 12, 5, 1], [10, 2, 6, 1, 8, 0, 7, 9], [1, 0, 0, 1, 0, 1, 0, 0]),
-        # Repeated areas: 12 of the 84 served sets tie with the observed |gap| exactly,
-        # while their float sums differ in the last bits; counting them only when the
-        # floats compare equal would give p near 0.56 instead of the exact 0.702.
+        # Repeated areas: 12 of the 84 served sets tie with the observed |gap| exactly.
         ([3, 3, 3, 5, 5, 1, 1, 2, 7], [1, 1, 1, 4, 4, 6, 6, 2, 3], [1, 0, 0, 1, 0, 1, 0, 0, 0]),
+        # Different served sets whose gaps are equal as fractions but not as float sums
+        # (found by a seeded search): comparing floats without the rounding bound gives
+        # p = 0.816 here instead of the exact 0.857.
+        ([2, 3, 0, 4, 10, 9, 4, 4, 3], [7, 7, 1, 11, 2, 6, 11, 7, 2], [0, 1, 0, 0, 0, 1, 0, 1, 0]),
     ],
 )
 def test_gap_p_value_matches_exact_randomisation_distribution(x, y, served):
@@ -304,6 +306,8 @@ def test_gap_p_value_matches_exact_randomisation_distribution(x, y, served):
     B = 20_000
     result = coverage_gap_test(x, y, served, permutations=B, rng=np.random.default_rng(SEED))
     assert result.gap == pytest.approx(float(observed), rel=RTOL_EXACT)
+    # null_sd is the ddof-0 sd of the simulated sample, as esda reports seI_sim.
+    assert result.null_sd == np.std(result.null_distribution)
     for estimate, exact in ((result.p_value, exact_two), (result.p_value_one_sided, exact_one)):
         se = math.sqrt(exact * (1 - exact) / B)
         assert abs(estimate - exact) < 4 * se + 1 / (B + 1), (estimate, exact)
@@ -314,7 +318,8 @@ def test_gap_null_moments_match_sampling_theory(share_served):
     # Under the null the gap is the sum of w_i = y_i/Y - x_i/X over a simple random
     # sample of k of n areas without replacement: mean k * mean(w) = 0 and variance
     # k (1 - k/n) S^2, S^2 = sum (w - mean w)^2 / (n - 1) (Cochran 1977, Sampling
-    # Techniques, 3rd ed., Theorem 2.2, scaled from the sample mean to the sample sum).
+    # Techniques, 3rd ed., Theorem 2.2 (theorem number from memory), scaled from the
+    # sample mean to the sample sum).
     rng = np.random.default_rng(SEED)
     n = 40
     x = rng.integers(0, 300, n).astype(float)
