@@ -668,7 +668,7 @@ def _check_rank(x: np.ndarray, names: Sequence[str], minority_column: str) -> No
     null = vt[s <= tol]
     if null.size == 0:
         return
-    involved = [names[j] for j in np.flatnonzero((np.abs(null) > 1e-6).any(axis=0))]
+    involved = [names[int(j)] for j in np.flatnonzero((np.abs(null) > 1e-6).any(axis=0))]
     if involved == ["intercept", names[1]] or involved == [names[1]]:
         raise AnalysisError(
             f"{minority_column} is the same in every area, so it cannot explain anything"
@@ -687,10 +687,8 @@ def _check_separation(
     found = _separation_direction(x, y)
     if found is None:
         return
-    n_strict, direction = found
-    predictors = [
-        names[j] for j in np.flatnonzero(np.abs(direction) > 1e-6) if names[j] != "intercept"
-    ]
+    complete, n_strict, direction = found
+    predictors = [names[int(j)] for j in np.flatnonzero(np.abs(direction) > 1e-6) if int(j) != 0]
     detail = ""
     if len(names) == 2:
         share = x[:, 1] * MINORITY_STEP
@@ -698,13 +696,13 @@ def _check_separation(
         detail = (
             f" (areas with {outcome} = 1 have {minority_column} {share[hi].min():.3f} to "
             f"{share[hi].max():.3f}; areas with {outcome} = 0 have {share[lo].min():.3f} to "
-            f"{share[lo].max():.3f}: no overlap)"
+            f"{share[lo].max():.3f}: {'no overlap' if complete else 'they only touch'})"
         )
     raise AnalysisError(
         f"the model of {outcome} on "
         + ", ".join(names[1:])
         + " cannot be estimated: the outcome is "
-        f"{'perfectly' if n_strict == y.size else 'quasi-perfectly'} separated by "
+        f"{'perfectly' if complete else 'quasi-perfectly'} separated by "
         + ", ".join(predictors or list(names[1:]))
         + detail
         + f"; {n_strict} area(s) are predicted without error, so the odds ratios would be "
@@ -713,15 +711,20 @@ def _check_separation(
     )
 
 
-def _separation_direction(x: np.ndarray, y: np.ndarray) -> tuple[int, np.ndarray] | None:
+def _separation_direction(x: np.ndarray, y: np.ndarray) -> tuple[bool, int, np.ndarray] | None:
     """Find a direction that separates the outcome, by linear programming.
 
     For areas with ``y == 1`` the direction must give ``x'd >= 0``, for ``y == 0``
     ``x'd <= 0``, and for fractional ``0 < y < 1`` ``x'd == 0`` (otherwise the
     quasi-likelihood would fall along ``d``). Maximising the summed margins with ``d`` in
     a box is Konis's (2007) test; a positive optimum means the estimate does not exist.
-    Returns the number of areas strictly on their side and ``d`` (on the original column
-    scale's sign pattern), or None when there is no separation.
+    A second programme maximises the smallest margin: positive means complete separation
+    (Albert and Anderson 1984), zero quasi-complete.
+
+    Returns
+    -------
+    tuple or None
+        ``(complete, areas strictly on their side, d)``, or None without separation.
     """
     scale = np.abs(x).max(axis=0)
     scale[scale == 0] = 1.0
@@ -734,13 +737,14 @@ def _separation_direction(x: np.ndarray, y: np.ndarray) -> tuple[int, np.ndarray
     if not edge.any():
         return None
     signed = np.where(one[edge], 1.0, -1.0)[:, None] * xs[edge]
+    box = [(-1.0, 1.0)] * xs.shape[1]
     result = linprog(
         -signed.sum(axis=0),
         A_ub=-signed,
         b_ub=np.zeros(signed.shape[0]),
         A_eq=xs[mid] if mid.any() else None,
         b_eq=np.zeros(int(mid.sum())) if mid.any() else None,
-        bounds=[(-1.0, 1.0)] * xs.shape[1],
+        bounds=box,
         method="highs",
     )
     if result.status != 0:
@@ -752,7 +756,20 @@ def _separation_direction(x: np.ndarray, y: np.ndarray) -> tuple[int, np.ndarray
     strict = int((margins > 1e-6).sum())
     if strict == 0:
         return None
-    return strict, d
+    complete = False
+    if not mid.any():
+        # Variables (d, t): maximise t subject to signed @ d >= t.
+        m, k = signed.shape
+        widest = linprog(
+            np.r_[np.zeros(k), -1.0],
+            A_ub=np.column_stack([-signed, np.ones(m)]),
+            b_ub=np.zeros(m),
+            bounds=[*box, (0.0, 1.0)],
+            method="highs",
+        )
+        if widest.status == 0 and widest.x[-1] > 1e-7:
+            complete, strict, d = True, m, widest.x[:k]
+    return complete, strict, d
 
 
 def _fit(
@@ -834,10 +851,20 @@ def _fit(
         covariance=covariance,
         n=n,
         terms=terms,
-        log_likelihood=float(fitted.llf),
+        log_likelihood=_bernoulli_log_likelihood(y, x @ beta),
         pseudo_r2=pseudo,
         residual_moran=moran,
     )
+
+
+def _bernoulli_log_likelihood(y: np.ndarray, eta: np.ndarray) -> float:
+    """Return sum(y log mu + (1 - y) log(1 - mu)) at the linear predictor ``eta``.
+
+    For a fractional ``y`` this is the Bernoulli quasi-log-likelihood that Papke and
+    Wooldridge maximise; statsmodels' binomial ``llf`` adds a binomial-coefficient term
+    that is not zero for fractional outcomes, so it is computed here.
+    """
+    return float(-np.sum(y * np.logaddexp(0.0, -eta) + (1.0 - y) * np.logaddexp(0.0, eta)))
 
 
 def _resolve_weights(weights: Any, ids: np.ndarray) -> tuple[np.ndarray, sp.csr_matrix] | None:
