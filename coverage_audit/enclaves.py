@@ -37,8 +37,9 @@ _LENGTH_RTOL = 1e-9
 #: Slack on ``surround_share >= min_surround`` so that a share of exactly 3/4 computed in
 #: floating point is not missed by one ulp.
 _SHARE_ATOL = 1e-12
-#: Booleans held at once by the Monte Carlo "already reached" table (draws x areas).
-_SEEN_BUDGET = 1 << 26
+#: Booleans held at once by the Monte Carlo "already reached" table (draws x areas): 128 MiB
+#: holds 999 draws over 130,000 areas in one pass; larger regions are done in chunks.
+_SEEN_BUDGET = 1 << 27
 
 
 @dataclass(frozen=True)
@@ -414,7 +415,7 @@ def footprint_holes(
     area = shapely.area(geoms[area_idx])
     keep = (overlap > 0) & (area > 0)
     hole_idx, area_idx = hole_idx[keep], area_idx[keep]
-    weight = overlap[keep] / area[keep]
+    weight = np.minimum(overlap[keep] / area[keep], 1.0)
     n_holes = hole_geoms.size
     est_pop = np.bincount(hole_idx, pop[area_idx] * weight, n_holes)
     est_groups = {
@@ -749,7 +750,8 @@ def _boundary_budget(
     boundary = outer_c - left_out
     served_total = served_c + look_through
     with np.errstate(divide="ignore", invalid="ignore"):
-        surround = np.where(boundary > 0, served_total / boundary, np.nan)
+        # Rounding in the subtractions can push a whole served boundary a hair past 1.
+        surround = np.where(boundary > 0, np.minimum(served_total / boundary, 1.0), np.nan)
     return _Lengths(
         boundary=boundary, served=served_total, edge=edge, transparent=along_body, surround=surround
     )
@@ -957,14 +959,17 @@ def grow_connected_sets(
             if int(fill.max()) + width > capacity:
                 capacity, frontier = _widen(frontier, m, capacity, n + width)
             # Append the neighbours of the last area added that no earlier step reached.
-            flat = base + table[added]
+            reached = np.take(table, added, axis=0)
+            flat = base + reached
             new = ~seen_flat[flat]
-            seen_flat[flat[new]] = True
-            slot = (rows * capacity + fill)[:, None] + np.cumsum(new, axis=1) - 1
-            frontier[slot[new]] = table[added][new]
-            fill += new.sum(axis=1)
+            seen_flat[flat] = True
+            rank = np.add.accumulate(new, axis=1, dtype=np.int64)
+            slot = (rows * capacity + fill - 1)[:, None] + rank
+            frontier[slot[new]] = reached[new]
+            fill += rank[:, -1]
             # Take a uniformly random frontier entry and fill its slot with the last one.
-            pick = rows * capacity + rng.integers(0, fill)
+            # floor(u * fill) with u in [0, 1) is below fill for every fill < 2**53.
+            pick = rows * capacity + (rng.random(m) * fill).astype(np.int64)
             added = frontier[pick]
             members[:, step] = added
             frontier[pick] = frontier[rows * capacity + fill - 1]
