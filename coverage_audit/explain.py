@@ -546,7 +546,7 @@ def _available(table: pd.DataFrame) -> list[str]:
 
 def _ids(table: pd.DataFrame, id_column: str | None) -> np.ndarray:
     source = table.index if id_column is None else table[id_column]
-    return np.asarray([str(v) for v in source], dtype=object)
+    return np.asarray(source.astype(str), dtype=object)
 
 
 def _numeric(series: pd.Series) -> tuple[np.ndarray, np.ndarray]:
@@ -794,7 +794,11 @@ def _fit(
             fitted = sm.Logit(y, x).fit(method="newton", maxiter=200, disp=0)
             converged = bool(fitted.mle_retvals.get("converged", False))
             cov = np.asarray(fitted.cov_params())
-            pseudo = float(fitted.prsquared)
+            # McFadden's 1 - llf / llnull with the closed-form intercept-only likelihood
+            # (statsmodels refits the null model numerically, slowly on large tables).
+            share = float(y.mean())
+            llnull = n * (share * math.log(share) + (1.0 - share) * math.log(1.0 - share))
+            pseudo = 1.0 - float(fitted.llf) / llnull
             covariance = "model"
         else:
             fitted = sm.GLM(y, x, family=sm.families.Binomial()).fit(cov_type="HC0", maxiter=200)
@@ -878,7 +882,7 @@ def _resolve_weights(weights: Any, ids: np.ndarray) -> tuple[np.ndarray, sp.csr_
         matrix = sp.csr_matrix(weights.stats_adjacency, dtype=float)
     elif hasattr(weights, "sparse") and hasattr(weights, "unique_ids"):
         matrix = sp.csr_matrix(weights.sparse, dtype=float)
-        graph_ids = np.asarray([str(v) for v in weights.unique_ids], dtype=object)
+        graph_ids = np.asarray(pd.Index(weights.unique_ids).astype(str), dtype=object)
         if set(graph_ids) <= set(ids):
             node_ids = graph_ids
         elif graph_ids.size != n:

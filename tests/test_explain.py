@@ -119,6 +119,13 @@ def test_logit_matches_sklearn_and_hand_newton():
     cov = np.linalg.inv(x.T @ (x * (mu * (1 - mu))[:, None]))
     se = np.array([t.std_error for t in result.models["unserved_with_controls"].terms])
     np.testing.assert_allclose(se, np.sqrt(np.diag(cov)), rtol=1e-7)
+    # McFadden's pseudo R-squared against statsmodels' own (numerically refitted) null.
+    import statsmodels.api as sm
+
+    oracle = sm.Logit(y, x).fit(disp=0)
+    assert result.models["unserved_with_controls"].pseudo_r2 == pytest.approx(
+        oracle.prsquared, rel=1e-7
+    )
     # Odds ratios and Wald intervals from the textbook definitions.
     term = result.models["unserved_with_controls"].terms[1]
     z = stats.norm.ppf(0.975)
@@ -783,3 +790,26 @@ def test_more_rule_errors():
         discover_rules(t.drop(columns="served"))
     with pytest.raises(SpecError, match="min_support was True"):
         discover_rules(t, min_support=True)
+
+
+def test_residual_moran_over_kept_rows_only():
+    cells, table = _spatial_table(SEED + 3, clustered=True)
+    table["minority_share"] = table["minority_share"].astype(float)
+    table.loc[[4, 50, 51], "minority_share"] = np.nan
+    graph = Graph.build_contiguity(cells.set_index("geoid"), rook=False).transform("r")
+    with pytest.warns(DroppedRowsWarning):
+        result = exclusion_models(table, id_column="geoid", weights=graph)
+    kept = table.drop(index=[4, 50, 51])
+    x = _design(kept, controls=())
+    y = (~kept["served"]).to_numpy(dtype=float)
+    mu = _logistic(x @ _newton_logit(x, y))
+    pearson = (y - mu) / np.sqrt(mu * (1 - mu))
+    # Oracle: esda on libpysal's subgraph of the kept areas, row-standardised afresh.
+    sub = Graph.build_contiguity(cells.set_index("geoid"), rook=False).subgraph(kept["geoid"])
+    sub = sub.transform("r")
+    assert list(sub.unique_ids) == list(kept["geoid"])
+    mi = esda.Moran(pearson, sub, permutations=0)
+    moran = result.models["unserved_minority_only"].residual_moran
+    assert moran.n == len(kept)
+    assert moran.I == pytest.approx(mi.I, rel=1e-7)
+    assert moran.VI_rand == pytest.approx(mi.VI_rand, rel=1e-7)
