@@ -13,9 +13,10 @@ date metadata is left out, so the same inputs give the same bytes.
 from __future__ import annotations
 
 import io
-from html import escape
+import re
 from collections.abc import Sequence
 from dataclasses import dataclass
+from html import escape
 
 import matplotlib
 import numpy as np
@@ -64,11 +65,20 @@ def figure_to_svg(fig: Figure, *, salt: str, title: str) -> str:
         An ``<svg>`` element without XML declaration or doctype.
     """
     buffer = io.BytesIO()
-    rc = {"svg.hashsalt": salt, "svg.fonttype": "none", "svg.image_inline": True}
-    with matplotlib.rc_context(rc):
+    with matplotlib.rc_context(
+        {"svg.hashsalt": salt, "svg.fonttype": "none", "svg.image_inline": True}
+    ):
         fig.savefig(buffer, format="svg", metadata={"Date": None})
     svg = buffer.getvalue().decode("utf-8")
     svg = svg[svg.index("<svg") :]
+    # The metadata block only names matplotlib (with a URL); the page does not need it.
+    svg = re.sub(r"<metadata>.*?</metadata>\s*", "", svg, flags=re.S)
+    # Element ids (figure_1, axes_1, ...) repeat from figure to figure; prefixed, they stay
+    # unique within the page, as HTML requires, and references follow them.
+    prefix = re.sub(r"[^A-Za-z0-9_-]", "-", salt)
+    svg = re.sub(r'\bid="([^"]+)"', rf'id="{prefix}-\1"', svg)
+    svg = re.sub(r"url\(#([^)]+)\)", rf"url(#{prefix}-\1)", svg)
+    svg = re.sub(r'href="#([^"]+)"', rf'href="#{prefix}-\1"', svg)
     label = escape(title, quote=True)
     return svg.replace("<svg ", f'<svg role="img" aria-label="{label}" ', 1)
 
@@ -374,14 +384,29 @@ def overview_chart(
         bounds = shapely.bounds(layers.region)
         tolerance = max(bounds[2] - bounds[0], bounds[3] - bounds[1], 1.0) / 1500.0
         outline = shapely.simplify(footprint, tolerance, preserve_topology=True)
-        patch_style = {"facecolor": "none", "edgecolor": RING_EDGE, "linewidth": 0.8}
-        _add_path(ax, polygon_path([outline]), **patch_style)
-        handles.append(Rectangle((0, 0), 1, 1, label="footprint", **patch_style))
+        _add_path(ax, polygon_path([outline]), facecolor="none", edgecolor=RING_EDGE, linewidth=0.8)
+        handles.append(
+            Rectangle(
+                (0, 0),
+                1,
+                1,
+                label="footprint",
+                facecolor="none",
+                edgecolor=RING_EDGE,
+                linewidth=0.8,
+            )
+        )
     if points is not None and len(points):
         xy = shapely.get_coordinates(np.asarray(points, dtype=object))
         ax.scatter(xy[:, 0], xy[:, 1], s=5, color=RING_EDGE, linewidths=0, label="service point")
     _frame(ax, shapely.bounds(layers.region))
-    ax.legend(handles=[*handles, *ax.collections], loc="upper left", fontsize=8, framealpha=0.9)
+    ax.legend(
+        handles=[*handles, *ax.collections],
+        loc="upper left",
+        bbox_to_anchor=(1.01, 1.0),
+        fontsize=8,
+        frameon=False,
+    )
     return figure_to_svg(fig, salt=salt, title="Overview of the region and the served areas")
 
 
@@ -433,6 +458,7 @@ def enclave_locator_chart(
             facecolor="none",
             edgecolor=RING_EDGE,
             linewidth=1.0,
+            clip_on=False,
         )
     )
     _frame(overview, shapely.bounds(layers.region))
