@@ -216,7 +216,10 @@ window.coverageAuditDraw = function (map, D) {
 
   // Areas: drawn once on one canvas; a view change only restyles them.
   var shapes = decodeShapes(D.areas);
-  var base = {renderer: areaRenderer, weight: S.edge_weight, color: S.edge, opacity: S.edge_opacity,
+  var timings = api.timings = {decode: performance.now() - t0};
+  edgesOn = edgesWanted();
+  var base = {renderer: areaRenderer, weight: S.edge_weight, stroke: edgesOn, color: S.edge,
+              opacity: S.edge_opacity,
               fillOpacity: S.fill_opacity, fillColor: S.missing};
   var layers = new Array(n);
   var group = L.featureGroup();
@@ -227,6 +230,7 @@ window.coverageAuditDraw = function (map, D) {
     group.addLayer(poly);
   }
   shapes = null;
+  timings.create = performance.now() - t0;
 
   var views = D.views, viewByKey = {};
   views.forEach(function (v) { viewByKey[v.key] = v; });
@@ -244,6 +248,7 @@ window.coverageAuditDraw = function (map, D) {
     return c < 0 ? view.missing_color : view.colors[c];
   }
   api.colourOf = function (key, i) { return colourOf(viewByKey[key], i); };
+  api.indexOf = function (id) { return F.id.indexOf(String(id)); };
   api.classOf = function (key, i) { return classOf(viewByKey[key], i); };
 
   // Legend: the active view, then each visible overlay.
@@ -297,16 +302,42 @@ window.coverageAuditDraw = function (map, D) {
     });
   }
 
+  // Restyling 85,000 layers one setStyle at a time queues 85,000 redraw requests; when
+  // the canvas renderer offers its whole-canvas redraw, set the options and redraw once.
+  function restyle(change) {
+    var bulk = typeof areaRenderer._redraw === "function" && areaRenderer._map;
+    for (var i = 0; i < n; i++) {
+      if (bulk) { change(layers[i].options, i); }
+      else { var o = {}; change(o, i); layers[i].setStyle(o); }
+    }
+    if (bulk) { areaRenderer._redraw(); }
+  }
+
   function applyView(key) {
     var view = viewByKey[key];
     if (!view) { return; }
     api.view = key;
-    for (var i = 0; i < n; i++) {
-      layers[i].setStyle({fillColor: colourOf(view, i)});
-    }
+    restyle(function (o, i) { o.fillColor = colourOf(view, i); });
     container.setAttribute("data-view", key);
     renderLegend();
   }
+
+  // Edges are drawn only when areas are wide enough on screen: at the whole-region view
+  // of a large map they would cover the fill colours.
+  function edgesWanted() {
+    if (!D.typical_size_m) { return true; }
+    var lat = bounds.getCenter().lat * Math.PI / 180;
+    var metresPerPixel = 40075016.686 * Math.cos(lat) / Math.pow(2, map.getZoom() + 8);
+    return D.typical_size_m / metresPerPixel >= S.edge_min_px;
+  }
+  var edgesOn;  // set before the areas are created
+  function updateEdges() {
+    var want = edgesWanted();
+    if (want === edgesOn) { return; }
+    edgesOn = want;
+    restyle(function (o) { o.stroke = want; });
+  }
+  map.on("zoomend", updateEdges);
 
   // Hover panel: every figure goes in with textContent.
   var hover = L.control({position: "bottomleft"});
@@ -364,15 +395,17 @@ window.coverageAuditDraw = function (map, D) {
   group.on("mouseover", function (e) {
     var layer = e.layer;
     if (highlighted && highlighted !== layer) {
-      highlighted.setStyle({weight: S.edge_weight, color: S.edge, opacity: S.edge_opacity});
+      highlighted.setStyle({weight: S.edge_weight, color: S.edge, opacity: S.edge_opacity,
+                            stroke: edgesOn !== false});
     }
     highlighted = layer;
-    layer.setStyle({weight: 2.5, color: S.highlight, opacity: 1});
+    layer.setStyle({weight: 2.5, color: S.highlight, opacity: 1, stroke: true});
     layer.bringToFront();
     showArea(layer._caIndex);
   });
   group.on("mouseout", function (e) {
-    e.layer.setStyle({weight: S.edge_weight, color: S.edge, opacity: S.edge_opacity});
+    e.layer.setStyle({weight: S.edge_weight, color: S.edge, opacity: S.edge_opacity,
+                      stroke: edgesOn !== false});
     if (highlighted === e.layer) { highlighted = null; }
   });
   group.on("click", function (e) { showArea(e.layer._caIndex); });
@@ -404,7 +437,8 @@ window.coverageAuditDraw = function (map, D) {
       for (var j = 0; j < polys.length; j++) {
         var pl = L.polygon(polys[j], {renderer: overlayRenderer, interactive: false,
           color: o.color, weight: o.weight, dashArray: o.dash || null,
-          fill: !!o.fill_color, fillColor: o.fill_color || o.color, fillOpacity: o.fill_opacity || 0});
+          fill: !!o.fill_color, fillColor: o.fill_color || o.color,
+          fillOpacity: o.fill_opacity || 0});
         if (o.labels) {
           var lab = el("span", null, o.labels[j]);
           pl.bindTooltip(lab, {permanent: true, direction: "center", className: "ca-enclave-label",
@@ -413,13 +447,15 @@ window.coverageAuditDraw = function (map, D) {
         lg.addLayer(pl);
       }
     } else if (o.kind === "points") {
+      var dot = o.lat.length > 500 ? 1.5 : 3;
       for (var q = 0; q < o.lat.length; q++) {
         var ll = L.latLng(o.lat[q], o.lon[q]);
         if (o.radius_m) {
-          lg.addLayer(L.circle(ll, {renderer: overlayRenderer, interactive: false, radius: o.radius_m,
+          lg.addLayer(L.circle(ll, {renderer: overlayRenderer, interactive: false,
+            radius: o.radius_m,
             color: o.reach_color, weight: 1, fillColor: o.reach_color, fillOpacity: 0.06}));
         }
-        lg.addLayer(L.circleMarker(ll, {renderer: overlayRenderer, interactive: false, radius: 3,
+        lg.addLayer(L.circleMarker(ll, {renderer: overlayRenderer, interactive: false, radius: dot,
           color: "#ffffff", weight: 1, fillColor: o.color, fillOpacity: 1}));
       }
     }
@@ -435,10 +471,16 @@ window.coverageAuditDraw = function (map, D) {
     visibleOverlays.tiles = true;
   }
   map.on("overlayadd", function (e) {
-    if (e.layer && e.layer._caOverlay) { visibleOverlays[e.layer._caOverlay] = true; renderLegend(); }
+    if (e.layer && e.layer._caOverlay) {
+      visibleOverlays[e.layer._caOverlay] = true;
+      renderLegend();
+    }
   });
   map.on("overlayremove", function (e) {
-    if (e.layer && e.layer._caOverlay) { visibleOverlays[e.layer._caOverlay] = false; renderLegend(); }
+    if (e.layer && e.layer._caOverlay) {
+      visibleOverlays[e.layer._caOverlay] = false;
+      renderLegend();
+    }
   });
 
   // Title panel.
@@ -450,11 +492,18 @@ window.coverageAuditDraw = function (map, D) {
   titleCtl.addTo(map);
 
   group.addTo(map);
+  timings.add = performance.now() - t0;
   D.overlays.forEach(function (o) {
     if (o.visible) { o._layer.addTo(map); visibleOverlays[o.key] = true; }
   });
-  if (views.length) { views[0]._layer.addTo(map); applyView(views[0].key); } else { renderLegend(); }
-  var control = L.control.layers(baseLayers, overlays, {collapsed: D.collapse_control, position: "topright"});
+  if (views.length) {
+    views[0]._layer.addTo(map);
+    applyView(views[0].key);
+  } else {
+    renderLegend();
+  }
+  var control = L.control.layers(baseLayers, overlays, {
+    collapsed: D.collapse_control || window.innerWidth < 700, position: "topright"});
   control.addTo(map);
   control.getContainer().setAttribute("data-role", "layers");
 
@@ -462,6 +511,16 @@ window.coverageAuditDraw = function (map, D) {
   api.buildMs = performance.now() - t0;
   container.setAttribute("data-areas-drawn", String(api.drawn));
   api.ready = true;
+  // Leaflet paints the canvas in an animation frame requested while drawing; a frame
+  // requested now runs after it, so "painted" means the areas are on screen.
+  api.painted = false;
+  L.Util.requestAnimFrame(function () {
+    setTimeout(function () {
+      api.painted = true;
+      api.paintedMs = performance.now();
+      container.setAttribute("data-painted", "true");
+    }, 0);
+  });
 };
 })();
 """

@@ -27,7 +27,7 @@ import geopandas as gpd
 import numpy as np
 import pandas as pd
 import shapely
-from branca.element import Element, MacroElement
+from branca.element import Element, Figure, MacroElement
 from jinja2 import Template
 
 from .._util import clean_number, to_jsonable
@@ -381,8 +381,11 @@ def _nullable(values: np.ndarray, valid: np.ndarray) -> list[Any]:
 
 
 def _scaled_fraction(series: pd.Series, scale: int, name: str) -> list[Any]:
-    """Fractions as integers in ``1/scale``: truncated, but never 0 for a positive value
-    nor ``scale`` for a value below 1, so the page's classes match the exact figures."""
+    """Return fractions as integers in ``1/scale`` (None where missing).
+
+    Values are truncated, but never to 0 for a positive value nor to ``scale`` for a value
+    below 1, so the page's classes (0%, 100%) match the exact figures.
+    """
     values = pd.to_numeric(series, errors="coerce").to_numpy(dtype=float)
     valid = np.isfinite(values)
     if (values[valid] < -1e-9).any() or (values[valid] > 1 + 1e-9).any():
@@ -410,9 +413,10 @@ def _category_codes(
     """Category strings as indices into ``allowed`` (None stays None)."""
     missing = series.isna().to_numpy()
     text = series.astype(object).where(~series.isna(), None).astype("string")
-    codes = pd.Categorical(text, categories=list(allowed)).codes.astype(np.int64)
-    bad = (codes < 0) & ~missing
-    if bad.any():
+    bad = (~text.isin(list(allowed))).to_numpy() & ~missing
+    if not bad.any():
+        codes = pd.Categorical(text, categories=list(allowed)).codes.astype(np.int64)
+    else:
         found = sorted(set(text[bad].tolist()))[:5]
         raise InputError(
             f"column '{column}' holds {found} which the map does not know; allowed values "
@@ -546,8 +550,13 @@ def _views(
                 field="tier",
                 type="codes",
                 colors=INCOME_COLORS,
-                labels=("low (< 50)", "moderate (50-80)", "middle (80-120)", "upper (>= 120)",
-                        "unknown"),
+                labels=(
+                    "low (< 50)",
+                    "moderate (50-80)",
+                    "middle (80-120)",
+                    "upper (>= 120)",
+                    "unknown",
+                ),
                 has_missing=missing["tier"],
             )
         )
@@ -667,8 +676,11 @@ def _enclave_overlay(
     mask = ids.notna().to_numpy()
     if not mask.any():
         return None
-    frame = gpd.GeoDataFrame({"enclave": ids[mask].astype(str).to_numpy()},
-                             geometry=display.values[mask], crs=display.crs)
+    frame = gpd.GeoDataFrame(
+        {"enclave": ids[mask].astype(str).to_numpy()},
+        geometry=display.values[mask],
+        crs=display.crs,
+    )
     dissolved = frame.dissolve(by="enclave", sort=False)
     # Natural order E1, E2, ..., E10 rather than the string order E1, E10, E2.
     keys = sorted(dissolved.index, key=lambda s: (len(s), s))
@@ -703,7 +715,7 @@ def _enclave_info(summary: Mapping[str, Any]) -> dict[str, dict[str, Any]]:
 
 
 def _page_json(data: Mapping[str, Any]) -> str:
-    """JSON for a ``<script type="application/json">`` block.
+    r"""JSON for a ``<script type="application/json">`` block.
 
     ``<`` is written as ``\\u003c`` so no value can close the element, and the two line
     separators that older JavaScript parsers reject are escaped too.
@@ -753,7 +765,11 @@ def _render_page(title: str, bounds: list[list[float]], data_json: str) -> str:
         prefer_canvas=True,
         control_scale=True,
     )
+    # folium names elements with random ids; a fixed one makes the page reproducible.
+    fmap._id = "coverage_audit"
     root = fmap.get_root()
+    if not isinstance(root, Figure):  # pragma: no cover - folium always makes a Figure
+        raise RuntimeError("folium map is not inside a Figure")
     root.title = html.escape(title)
     root.header.add_child(Element('<meta charset="utf-8" />'), name="ca_charset", index=0)
     root.header.add_child(Element(_HEAD_MARK), name="ca_assets")
@@ -874,8 +890,10 @@ def build_map(
     geoms = np.asarray(areas.geometry.values)
     drawable = _has_polygon(geoms)
     frame = areas.loc[drawable]
-    tolerance = display_tolerance(geoms[drawable]) if simplify_tolerance is None else float(
-        simplify_tolerance
+    tolerance = (
+        display_tolerance(geoms[drawable])
+        if simplify_tolerance is None
+        else float(simplify_tolerance)
     )
     display, method = _simplify(geoms[drawable], tolerance)
     metres_per_unit, unit = _unit_metres(areas.crs)
@@ -894,8 +912,9 @@ def build_map(
     overlays = _footprint_overlays(footprint, areas.crs, tolerance, decimals)
     codes: dict[str, list[str]] = {"tier": list(INCOME_TIERS), "lisa": list(LISA_LABELS)}
     if "enclave_id" in frame.columns:
-        enclave = _enclave_overlay(display_series, frame["enclave_id"].reset_index(drop=True),
-                                   decimals)
+        enclave = _enclave_overlay(
+            display_series, frame["enclave_id"].reset_index(drop=True), decimals
+        )
         if enclave is not None:
             overlays.insert(0, enclave)
         enc_ids = sorted({str(v) for v in frame["enclave_id"].dropna()}, key=lambda s: (len(s), s))
@@ -917,11 +936,13 @@ def build_map(
         ],
         "views": [v.to_dict() for v in views],
         "overlays": overlays,
-        "enclave_info": _enclave_info(summary),
+        "enclave_info": to_jsonable(_enclave_info(summary)),
         "texts": _texts(title, summary, n, footprint),
+        "typical_size_m": _typical_size_m(geoms[drawable], metres_per_unit),
         "style": {
             "edge": "#ffffff",
-            "edge_weight": 0.4 if n > 5_000 else 0.8,
+            "edge_weight": 0.8,
+            "edge_min_px": 8,
             "edge_opacity": 0.8,
             "fill_opacity": 0.55 if tiles else 0.9,
             "missing": MISSING_COLOR,
@@ -930,7 +951,9 @@ def build_map(
         "tiles": dict(_TILES) if tiles else None,
         "collapse_control": False,
     }
-    page = _render_page(str(title), bounds, _page_json(to_jsonable(data)))
+    # The per-area arrays are already plain lists of ints, floats, strings and None; only
+    # the small, summary-derived parts went through clean_number / to_jsonable.
+    page = _render_page(str(title), bounds, _page_json(data))
     out = Path(path)
     size = _write_atomic(out, page)
     return MapInfo(
@@ -947,9 +970,26 @@ def build_map(
     )
 
 
+def _typical_size_m(geoms: np.ndarray, metres_per_unit: float) -> float | None:
+    """Return the median square root of the area, in metres.
+
+    The page hides area edges when areas of this size would be only a few pixels wide.
+    """
+    if geoms.size == 0:
+        return None
+    size = float(np.median(np.sqrt(shapely.area(geoms)))) * metres_per_unit
+    return clean_number(size)
+
+
 def _empty_shapes() -> dict[str, Any]:
-    return {"scale": 1, "origin": [0, 0], "xy": [], "ring_len": [], "part_rings": [],
-            "shape_parts": []}
+    return {
+        "scale": 1,
+        "origin": [0, 0],
+        "xy": [],
+        "ring_len": [],
+        "part_rings": [],
+        "shape_parts": [],
+    }
 
 
 def _check_areas(
@@ -998,7 +1038,9 @@ def _fields(
     fields["id"] = ids.astype(object).where(ids.notna(), "").astype(str).tolist()
     if label_column is not None:
         lab = frame[label_column]
-        fields["label"] = np.where(lab.isna(), None, lab.astype(str)).tolist()
+        labels = lab.astype(str).to_numpy(dtype=object, copy=True)
+        labels[lab.isna().to_numpy()] = None
+        fields["label"] = labels.tolist()
     if "population" in frame.columns:
         pop = pd.to_numeric(frame["population"], errors="coerce").to_numpy(dtype=float)
         ok = np.isfinite(pop)
