@@ -254,8 +254,9 @@ def find_enclaves(
     enclosed. ``surround_share = served_boundary_m / boundary_m``.
 
     *Transparent areas (look-through rule).* Transparent areas belong to no component
-    and no ring; touching transparent areas form one body. A stretch of C's boundary
-    along a body B counts as served in proportion to what lies beyond B: the fraction
+    and no ring, whatever their served flag; touching transparent areas form one body.
+    A stretch of C's boundary along a body B counts as served in proportion to what lies
+    beyond B: the fraction
     ``f = served(B) / (outer(B) - shared(B, C))`` of B's own outer boundary, C's stretch
     excluded, that B shares with served areas (B's boundary with other pockets and with
     the study-area edge counts as not served). When B touches nothing but C (a lake
@@ -265,11 +266,11 @@ def find_enclaves(
     set of k non-transparent areas: a seed drawn uniformly among areas whose component
     has at least k areas, then k - 1 times an area drawn uniformly from the set's current
     frontier (neighbours not yet in the set). The p-value is the one-sided Monte Carlo
-    p-value ``(1 + #{share* >= share}) / (draws + 1)`` (Davison and Hinkley 1997,
-    *Bootstrap Methods and their Application*, eq. 4.11) of the population-weighted
-    minority share; a draw with zero population counts as reaching the enclave's share
-    (the conservative choice). Enclaves are tested in rank order, so the same inputs and
-    seed give the same p-values.
+    p-value ``(1 + #{share* >= share}) / (draws + 1)`` (North, Curtis and Sham 2002,
+    *Am. J. Hum. Genet.* 71, 439-441; Davison and Hinkley 1997, ch. 4, from memory) of
+    the population-weighted minority share; a draw with zero population counts as
+    reaching the enclave's share (the conservative choice). Enclaves are tested in rank
+    order, so the same inputs and seed give the same p-values.
     """
     data = _validate(
         geometries,
@@ -392,7 +393,7 @@ def footprint_holes(
     A hole is reported even when it lies inside a single area. Its population is the
     areal-weighted (area-proportional) estimate ``sum_i P_i * |h ∩ a_i| / |a_i|``, the
     simplest areal interpolation, which assumes population is spread evenly within each
-    area (Goodchild and Lam 1980, *Geo-Processing* 1, 297-312).
+    area (Goodchild and Lam 1980, *Geo-Processing* 1, 297-312; from memory).
     """
     geoms = _as_geometries(geometries)
     n = geoms.size
@@ -725,9 +726,9 @@ def _boundary_budget(
     sel = in_comp[x] & is_served[y]
     served_c = np.bincount(comp[x[sel]], both[sel], n_comp)
 
-    look_through = np.zeros(n_comp)
-    along_body = np.zeros(n_comp)
-    left_out = np.zeros(n_comp)
+    look_through: np.ndarray = np.zeros(n_comp)
+    along_body: np.ndarray = np.zeros(n_comp)
+    left_out: np.ndarray = np.zeros(n_comp)
     sel = in_comp[x] & in_body[y]
     if n_body and sel.any():
         perim_b = np.bincount(body[in_body], perimeter[in_body], n_body)
@@ -814,14 +815,15 @@ def _describe(
 ) -> Enclave:
     population, group_counts, shares = _figures(member_idx, data)
     ring_population, ring_counts, ring_shares = _figures(ring_idx, data)
-    difference = {
-        g: (None if s is None or ring_shares[g] is None else s - ring_shares[g])
-        for g, s in shares.items()
-    }
-    ratio = {
-        g: (None if s is None or ring_shares[g] is None else safe_ratio(s, ring_shares[g]))
-        for g, s in shares.items()
-    }
+    difference: dict[str, float | None] = {}
+    ratio: dict[str, float | None] = {}
+    for g, share in shares.items():
+        ring_share = ring_shares[g]
+        if share is None or ring_share is None:
+            difference[g] = ratio[g] = None
+        else:
+            difference[g] = share - ring_share
+            ratio[g] = safe_ratio(share, ring_share)
     return Enclave(
         id=label,
         area_ids=tuple(sorted(data.ids[member_idx].tolist())),
@@ -935,10 +937,12 @@ def grow_connected_sets(
     n, width = neighbours.shape
     if pool.size == 0:
         raise AnalysisError(f"no component of the region has {size} areas to draw sets from")
-    out = np.empty((draws, size), dtype=np.int64)
+    # Members are stored step-major so each step writes one contiguous row; int32 halves
+    # the memory traffic of the gathers, which is what bounds this loop.
+    members_all = np.empty((size, draws), dtype=np.int32)
     # Padding points at a sentinel column n that is always marked reached, so no mask is
     # needed when reading a row of neighbours.
-    table = np.where(neighbours >= 0, neighbours, n)
+    table = np.where(neighbours >= 0, neighbours, n).astype(np.int32)
     stride = n + 1
     chunk = int(max(1, min(draws, _SEEN_BUDGET // stride)))
     seen = np.zeros((chunk, stride), dtype=bool)
@@ -946,14 +950,14 @@ def grow_connected_sets(
     seen_flat = seen.reshape(-1)
     for start in range(0, draws, chunk):
         m = min(chunk, draws - start)
-        rows = np.arange(m)
+        rows = np.arange(m, dtype=np.int64)
         base = (rows * stride)[:, None]
-        members = out[start : start + m]
+        members = members_all[:, start : start + m]
         capacity = min(n, 16 * width)
-        frontier = np.empty(m * capacity, dtype=np.int64)
+        frontier = np.empty(m * capacity, dtype=np.int32)
         fill = np.zeros(m, dtype=np.int64)
         added = pool[rng.integers(0, pool.size, m)]
-        members[:, 0] = added
+        members[0] = added
         seen_flat[base[:, 0] + added] = True
         for step in range(1, size):
             if int(fill.max()) + width > capacity:
@@ -971,19 +975,19 @@ def grow_connected_sets(
             # floor(u * fill) with u in [0, 1) is below fill for every fill < 2**53.
             pick = rows * capacity + (rng.random(m) * fill).astype(np.int64)
             added = frontier[pick]
-            members[:, step] = added
+            members[step] = added
             frontier[pick] = frontier[rows * capacity + fill - 1]
             fill -= 1
         # Reset only what this chunk touched: the members and the live frontier entries.
-        seen_flat[(base + members).ravel()] = False
+        seen_flat[(base + members.T).ravel()] = False
         live = np.arange(capacity)[None, :] < fill[:, None]
         seen_flat[(base + frontier.reshape(m, capacity))[live]] = False
-    return out
+    return members_all.T.astype(np.int64)
 
 
 def _widen(frontier: np.ndarray, m: int, capacity: int, limit: int) -> tuple[int, np.ndarray]:
     """Double the per-draw frontier capacity, keeping each draw's entries in place."""
     wider = min(2 * capacity, limit)
-    grown = np.empty((m, wider), dtype=np.int64)
+    grown = np.empty((m, wider), dtype=frontier.dtype)
     grown[:, :capacity] = frontier.reshape(m, capacity)
     return wider, grown.reshape(-1)

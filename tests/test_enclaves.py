@@ -187,7 +187,7 @@ def test_touching_pockets_merge_into_one_component():
 
 def test_corner_contact_is_one_component_under_queen_two_under_rook():
     # Queen contiguity links areas that share a point, rook only those sharing an edge
-    # (the usual definitions, e.g. Anselin 1988, Spatial Econometrics, ch. 3).
+    # (the usual definitions, e.g. Anselin 1988, Spatial Econometrics, ch. 3; from memory).
     queen = Grid(4, 4, kind="queen")
     queen.unserve((1, 1), (2, 2))
     rook = Grid(4, 4, kind="rook")
