@@ -292,6 +292,36 @@ def test_shares_fall_back_to_counts_over_population(tmp_path):
     assert data["fields"]["s1"][3] is None  # zero population: no share
 
 
+def test_summary_sections_may_be_missing_or_none(tmp_path):
+    areas, footprint, _ = make_inputs(60)
+    sparse = {
+        "areas": {"analysed": None, "excluded": 3.0},
+        "coverage": None,
+        "clustering": {"local_moran": None},
+        "enclaves": [{"id": "E1", "population": None, "p_value": float("nan")}, None],
+    }
+    info = build_map(
+        areas,
+        id_column="geoid",
+        groups=GROUPS,
+        reference=REFERENCE,
+        footprint={**footprint, "name": None},
+        summary=sparse,
+        title="t",
+        path=tmp_path / "m.html",
+    )
+    data = page_data(Path(info.path).read_text(encoding="utf-8"))
+    assert data["texts"]["subtitle"][:2] == [
+        f"{len(areas)} areas analysed",
+        "3 input rows excluded (see exclusions.csv)",
+    ]
+    assert data["enclave_info"] == {
+        "E1": {"population": None, "p_value": None, "surround_share": None}
+    }
+    views = {v["key"]: v for v in data["views"]}
+    assert views["served"]["note"] is None and views["lisa"]["note"].startswith("Local Moran")
+
+
 def test_areas_without_polygons_are_counted_not_drawn(tmp_path):
     areas, _, _ = make_inputs(60)
     areas.loc[7, "geometry"] = None

@@ -124,7 +124,7 @@ MAP_CSS = """
 .ca-hover .ca-hint { color: #555; margin: 0; }
 .ca-enclave-label { background: rgba(255,255,255,0.85); border: 1px solid #111;
   font-weight: 600; padding: 0 4px; box-shadow: none; }
-.ca-enclave-label:before { display: none; }
+.ca-enclave-label:before { border-top-color: #111; }
 @media (max-width: 600px) { .ca-panel { max-width: 200px; font-size: 11px; } }
 """
 
@@ -435,14 +435,20 @@ window.coverageAuditDraw = function (map, D) {
     if (o.kind === "outline") {
       var polys = decodeShapes(o.shapes);
       for (var j = 0; j < polys.length; j++) {
+        if (o.casing) {
+          // A light casing under the dark outline keeps it visible on dark and light fills.
+          lg.addLayer(L.polygon(polys[j], {renderer: overlayRenderer, interactive: false,
+            color: o.casing, weight: o.weight + 3, fill: false}));
+        }
         var pl = L.polygon(polys[j], {renderer: overlayRenderer, interactive: false,
           color: o.color, weight: o.weight, dashArray: o.dash || null,
           fill: !!o.fill_color, fillColor: o.fill_color || o.color,
           fillOpacity: o.fill_opacity || 0});
         if (o.labels) {
           var lab = el("span", null, o.labels[j]);
-          pl.bindTooltip(lab, {permanent: true, direction: "center", className: "ca-enclave-label",
-                               interactive: false, opacity: 1});
+          // Above the centre, not on it: a one-area enclave stays visible under its label.
+          pl.bindTooltip(lab, {permanent: true, direction: "top", offset: [0, -6],
+                               className: "ca-enclave-label", interactive: false, opacity: 1});
         }
         lg.addLayer(pl);
       }

@@ -588,10 +588,11 @@ def _texts(title: str, summary: Mapping[str, Any], n: int, footprint: Mapping | 
     subtitle: list[str] = []
     counts = summary.get("areas") or {}
     analysed = clean_number(counts.get("analysed"))
-    subtitle.append(f"{analysed if analysed is not None else n:,} areas analysed")
+    analysed = int(analysed) if isinstance(analysed, (int, float)) else n
+    subtitle.append(f"{analysed:,} areas analysed")
     excluded = clean_number(counts.get("excluded"))
-    if excluded:
-        subtitle.append(f"{excluded:,} input rows excluded (see exclusions.csv)")
+    if isinstance(excluded, (int, float)) and excluded > 0:
+        subtitle.append(f"{int(excluded):,} input rows excluded (see exclusions.csv)")
     if footprint is not None and footprint.get("name"):
         subtitle.append(f"Footprint: {footprint['name']}")
     return {
@@ -618,7 +619,9 @@ def _footprint_overlays(
         if series.crs is None:
             series = series.set_crs(crs)
         geoms = series.values.to_numpy() if hasattr(series.values, "to_numpy") else series.values
-        geoms = np.asarray(geoms)
+        # Part by part: simplifying one dissolved multipolygon of thousands of circles
+        # with topology preserved across all of it is ten times slower, for the same look.
+        geoms = shapely.get_parts(np.asarray(geoms))
         if tolerance > 0:
             geoms = shapely.simplify(geoms, tolerance, preserve_topology=True)
         lonlat = gpd.GeoSeries(geoms, crs=series.crs).to_crs(4326).values
@@ -694,6 +697,7 @@ def _enclave_overlay(
         "shapes": encode_shapes(geoms[has], decimals),
         "labels": [str(k) for k, h in zip(keys, has, strict=True) if h],
         "color": "#111111",
+        "casing": "#ffffff",
         "weight": 2.5,
         "dash": None,
         "fill_color": None,
