@@ -118,6 +118,11 @@ class AuditResult:
 
         progress = progress or SilentProgress()
         out = Path(out_dir)
+        extra: dict[str, Any] = {}
+
+        def manifest() -> dict[str, Any]:
+            return {**self.manifest, "outputs": extra}
+
         with progress.stage("writing tables"):
             paths = write_all(
                 out,
@@ -126,7 +131,66 @@ class AuditResult:
                 exclusions=self.exclusions,
                 manifest_fn=lambda: self.manifest,
             )
+        if self.spec.output.map or self.spec.output.report:
+            from .report import build_map, build_report
+
+            footprint = self.footprint_for_display()
+            if self.spec.output.map:
+                with progress.stage("drawing the map"):
+                    info = build_map(
+                        self.areas,
+                        id_column=self.id_column,
+                        groups=self.groups,
+                        reference=self.spec.population.reference,
+                        footprint=footprint,
+                        summary=self.summary,
+                        title=self.spec.title,
+                        path=out / "map.html",
+                        tiles=self.spec.output.tiles,
+                    )
+                paths["map"] = out / "map.html"
+                extra["map"] = to_plain(info)
+            if self.spec.output.report:
+                with progress.stage("writing the report"):
+                    build_report(
+                        self.summary,
+                        self.manifest,
+                        self.areas,
+                        exclusions=self.exclusions,
+                        id_column=self.id_column,
+                        groups=self.groups,
+                        reference=self.spec.population.reference,
+                        footprint=footprint,
+                        path=out / "report.html",
+                        **self.extras.get("moran", {}),
+                    )
+                paths["report"] = out / "report.html"
+            from .outputs import write_json
+
+            write_json(paths["manifest"], manifest())
         return paths
+
+    def footprint_for_display(self) -> dict[str, Any]:
+        """The footprint as the map and report take it."""
+        fp = self.footprint
+        shown: dict[str, Any] = {
+            "kind": fp.kind,
+            "name": fp.name,
+            "geometry": gpd.GeoSeries([fp.geometry], crs=fp.crs),
+        }
+        if fp.kind == "points" and fp.points is not None:
+            shown["points"] = fp.points
+            shown["radius_m"] = fp.radius_m if fp.radius_m is not None else float(fp.points["radius_m"].max())
+        return shown
+
+
+def to_plain(value: Any) -> Any:
+    """A dataclass or object as plain data for the manifest."""
+    from ._util import to_jsonable
+
+    if hasattr(value, "__dataclass_fields__"):
+        return to_jsonable(value)
+    return str(value)
 
 
 def _as_spec(spec: AuditSpec | str | Path | dict[str, Any]) -> AuditSpec:
@@ -188,6 +252,9 @@ def run_audit(
     if table_section:
         summary["inputs"] = table_section
     summary["coverage"] = coverage.to_dict()
+    statistics = compute_statistics(spec, inputs, footprint, frame, streams, progress)
+    frame = statistics.pop("_frame")
+    summary.update(statistics)
 
     exclusions = inputs.exclusions
     summary["exclusions"] = {"count": exclusions.count(), "by_reason": exclusions.by_reason()}
@@ -206,6 +273,69 @@ def run_audit(
         groups=inputs.groups,
         extras={"streams": streams, "inputs": inputs, "coverage": coverage},
     )
+
+
+def compute_statistics(
+    spec: AuditSpec,
+    inputs: AreaInputs,
+    footprint: Footprint,
+    frame: gpd.GeoDataFrame,
+    streams: dict[str, np.random.Generator],
+    progress: SilentProgress,
+) -> dict[str, Any]:
+    """Segregation, contiguity, clustering and enclaves over the analysed areas.
+
+    Returns the summary sections keyed as in summary.json, and under ``"_frame"`` the
+    per-area frame with the statistics' columns added.
+    """
+    from .enclaves import find_enclaves, footprint_holes
+    from .segregation import segregation_summary
+    from .weights import ISLAND_REASON, build_area_graph
+
+    an = spec.analysis
+    frame = frame.copy()
+    ids = frame[inputs.id_column].to_numpy(dtype=object)
+    geoms = np.asarray(frame.geometry.array, dtype=object)
+    population = frame["population"].to_numpy(dtype=float)
+    counts = {g: frame[g].to_numpy(dtype=float) for g in inputs.groups}
+    served = frame["served"].to_numpy(dtype=bool)
+    fraction = frame["covered_fraction"].to_numpy(dtype=float)
+    out: dict[str, Any] = {}
+    with progress.stage("segregation indices"):
+        out["segregation"] = segregation_summary(
+            counts, population, inputs.reference, served, fraction,
+            permutations=an.permutations, rng=streams["segregation"],
+        ).to_dict()
+    with progress.stage(f"{an.contiguity} contiguity"):
+        graph = build_area_graph(geoms, ids, kind=an.contiguity, island_policy=an.islands, knn_k=an.knn_k)
+    if graph.islands and an.islands == "exclude":
+        rows = frame.loc[graph.island_mask, "source_row"]
+        inputs.exclusions.add("spatial_statistics", rows, list(graph.islands), ISLAND_REASON)
+    out["weights"] = graph.to_dict()
+    with progress.stage("enclaves"):
+        transparent = (population <= 0) if an.transparent_zero_population else None
+        holes = ()
+        if footprint.kind != "ids":
+            holes = footprint_holes(footprint.geometry, geoms, ids, population, counts)
+        result = find_enclaves(
+            geoms, ids, served, population, counts, graph,
+            min_surround=an.enclave_min_surround,
+            min_population=an.enclave_min_population,
+            transparent=transparent,
+            income_tier=frame["income_tier"].to_numpy(dtype=object) if "income_tier" in frame else None,
+            reference_group=inputs.reference,
+            mc_draws=an.enclave_draws,
+            rng=streams["enclaves"],
+            holes=holes,
+            contrast_group=an.contrast_group,
+        )
+    enclave_dict = result.to_dict()
+    out["enclaves"] = enclave_dict["enclaves"]
+    out["holes"] = enclave_dict["holes"]
+    out["enclave_settings"] = {**enclave_dict["settings"], "unserved_components": enclave_dict["unserved_components"]}
+    frame["enclave_id"] = result.enclave_id
+    out["_frame"] = frame
+    return out
 
 
 def measure_coverage(

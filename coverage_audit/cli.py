@@ -124,7 +124,7 @@ def _add_common(p: argparse.ArgumentParser) -> None:
     g.add_argument("--threshold", type=float, help="an area is served when at least this fraction of it is covered (default 0.5)")
     g.add_argument("--comparison", choices=["reference", "highest"], help="compare each group with the reference group or with the highest-rate group")
     g.add_argument("--contiguity", choices=["queen", "rook"], help="neighbours share a point (queen) or an edge (rook)")
-    g.add_argument("--permutations", type=int, help="random permutations for p-values (0 skips them; default 999)")
+    g.add_argument("--permutations", type=int, help="random permutations for the p-values (at least 1; default 999)")
     g.add_argument("--seed", type=int, help="seed of all random draws; the same seed gives the same results")
     g.add_argument("--no-map", action="store_true", help="do not write map.html")
     g.add_argument("--no-report", action="store_true", help="do not write report.html")

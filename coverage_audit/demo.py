@@ -63,7 +63,7 @@ permutations = 999
 enclave_draws = 999
 transparent_zero_population = true
 seed = {seed}
-"""
+{analysis_extra}"""
 
 SCENARIOS = {
     "delivery": (
@@ -114,12 +114,14 @@ def _minority_share(demo: pd.DataFrame) -> np.ndarray:
 def _delivery_zone(cells: gpd.GeoDataFrame, demo: pd.DataFrame) -> shapely.Polygon:
     x, y = cells["x"].to_numpy(), cells["y"].to_numpy()
     span = float(np.ptp(x))
-    central = np.hypot(x, y) < 0.36 * span
-    share = _minority_share(demo)
-    # The skipped neighbourhood: around the most minority central tract away from the edge.
-    inner = np.hypot(x, y) < 0.2 * span
-    pivot = int(np.argmax(np.where(inner, share, -1)))
-    skipped = np.hypot(x - x[pivot], y - y[pivot]) < 2.2 * _CELL_M
+    central = np.hypot(x, y) < 0.4 * span
+    total = demo["pop_total"].to_numpy(float)
+    black = np.where(total > 0, demo["pop_black_nh"].to_numpy(float) / np.maximum(total, 1), 0.0)
+    # The skipped neighbourhood: around the central tract with the highest Black share.
+    # Far enough inside the zone (radius 0.4 of the span) for the pocket to be enclosed.
+    inner = np.hypot(x, y) < 0.15 * span
+    pivot = int(np.argmax(np.where(inner, black, -1)))
+    skipped = np.hypot(x - x[pivot], y - y[pivot]) < 2.6 * _CELL_M
     zone = shapely.union_all(cells.geometry.values[central])
     zone = shapely.buffer(shapely.buffer(zone, 400.0), -400.0)
     hole = shapely.union_all(cells.geometry.values[skipped])
@@ -180,7 +182,13 @@ def write_demo_region(folder: str | Path, seed: int = DEMO_SEED) -> Path:
     )
     for key, (title, footprint) in SCENARIOS.items():
         (out / f"{key}.toml").write_text(
-            SPEC_TEMPLATE.format(title=title, footprint=footprint, seed=seed), encoding="utf-8"
+            SPEC_TEMPLATE.format(
+            title=title,
+            footprint=footprint,
+            seed=seed,
+            analysis_extra='contrast_group = "black_nh"\n' if key == "delivery" else "",
+        ),
+        encoding="utf-8",
         )
     (out / "README.md").write_text(_readme(len(cells)), encoding="utf-8")
     return out

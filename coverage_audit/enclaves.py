@@ -93,8 +93,8 @@ class Enclave:
             "ring_group_shares": to_jsonable(self.ring_group_shares),
             "share_difference": to_jsonable(self.share_difference),
             "share_ratio": to_jsonable(self.share_ratio),
-            "minority_share": clean_number(self.minority_share),
-            "mc_mean_minority_share": clean_number(self.mc_mean_minority_share),
+            "contrast_share": clean_number(self.minority_share),
+            "mc_mean_contrast_share": clean_number(self.mc_mean_minority_share),
             "p_value": clean_number(self.p_value),
             "mc_draws": int(self.mc_draws),
         }
@@ -199,6 +199,7 @@ def find_enclaves(
     mc_draws: int = 999,
     rng: np.random.Generator | None = None,
     holes: Sequence[FootprintHole] = (),
+    contrast_group: str | None = None,
 ) -> EnclaveResult:
     """Find unserved pockets enclosed by served areas and contrast them with their ring.
 
@@ -234,6 +235,9 @@ def find_enclaves(
         Source of randomness of the Monte Carlo test; required when ``mc_draws > 0``.
     holes : sequence of FootprintHole
         Footprint holes to carry in the result (from :func:`footprint_holes`).
+    contrast_group : str, optional
+        The group whose share the Monte Carlo test contrasts (a key of ``counts``);
+        by default ``"minority"`` when given, else population minus the reference.
 
     Returns
     -------
@@ -282,6 +286,7 @@ def find_enclaves(
         transparent,
         income_tier,
         reference_group,
+        contrast_group,
     )
     min_surround = _check_fraction("min_surround", min_surround)
     if not _is_finite_number(min_population) or float(min_population) < 0:
@@ -342,7 +347,7 @@ def find_enclaves(
         "transparent_area_ids": sorted(data.ids[data.transparent].tolist()),
         "transparent_rule": "look-through",
         "mc_draws": int(mc_draws),
-        "contrast_group": MINORITY if data.minority_given else f"1 - {data.reference_group}",
+        "contrast_group": data.contrast_name,
     }
     return EnclaveResult(
         enclaves=tuple(enclaves),
@@ -503,6 +508,7 @@ class _Inputs:
     groups: dict[str, np.ndarray]
     minority: np.ndarray
     minority_given: bool
+    contrast_name: str
     reference_group: str
     transparent: np.ndarray
     income_tier: np.ndarray | None
@@ -518,6 +524,7 @@ def _validate(
     transparent: Any,
     income_tier: Any,
     reference_group: str,
+    contrast_group: str | None = None,
 ) -> _Inputs:
     geoms = _as_geometries(geometries)
     n = geoms.size
@@ -548,8 +555,14 @@ def _validate(
                 f"counts[{g!r}] exceeds population in {over.size} area(s), e.g. area "
                 f"{ids_arr[over[0]]}; group counts must be parts of the population"
             )
-    minority_given = MINORITY in groups
-    minority = groups[MINORITY] if minority_given else pop - groups[reference_group]
+    if contrast_group is not None and contrast_group not in groups:
+        raise SpecError(
+            f'contrast_group was "{contrast_group}" but is expected to be one of '
+            f"{sorted(groups)} (the keys of counts)"
+        )
+    contrast = contrast_group or (MINORITY if MINORITY in groups else None)
+    minority_given = contrast is not None
+    minority = groups[contrast] if contrast is not None else pop - groups[reference_group]
     if transparent is None:
         transparent_arr = np.zeros(n, dtype=bool)
     else:
@@ -577,6 +590,7 @@ def _validate(
         groups=groups,
         minority=minority,
         minority_given=minority_given,
+        contrast_name=contrast if contrast is not None else f"1 - {reference_group}",
         reference_group=reference_group,
         transparent=transparent_arr,
         income_tier=tiers,

@@ -40,8 +40,10 @@ from .inputs import (
 from .spec import LENGTH_UNITS, FootprintSpec
 
 #: Largest number of vertices of a footprint piece; bigger pieces are cut in quarters so
-#: that each exact intersection with an area stays cheap.
-MAX_PIECE_VERTICES = 256
+#: that each exact intersection with an area stays cheap. Measured on 85,000 areas: one
+#: 200,000-vertex zone took 73 s uncut, 2.3 s in pieces of 5,000 and 1.0 s in pieces of
+#: 1,000; smaller pieces add cut lines that cross more areas and gain nothing.
+MAX_PIECE_VERTICES = 1_000
 #: Densify footprint polygons given in degrees so their edges keep their course when
 #: projected (0.005 degree is about 500 m).
 DENSIFY_DEGREES = 0.005

@@ -33,6 +33,10 @@ def atomic_path(target: Path, suffix: str = "") -> Iterator[Path]:
     fd, tmp = tempfile.mkstemp(prefix=f".{target.name}.", suffix=suffix or target.suffix, dir=target.parent)
     os.close(fd)
     tmp_path = Path(tmp)
+    # mkstemp makes the file private (0600); give outputs the usual permissions.
+    umask = os.umask(0)
+    os.umask(umask)
+    os.chmod(tmp_path, 0o666 & ~umask)
     try:
         yield tmp_path
         os.replace(tmp_path, target)

@@ -122,6 +122,7 @@ class AnalysisSpec:
     enclave_min_surround: float = 0.75
     enclave_min_population: float = 0.0
     enclave_draws: int = 999
+    contrast_group: str | None = None
     transparent_zero_population: bool = False
     circle_vertices: int = 128
     analysis_crs: str | None = None
@@ -317,6 +318,11 @@ def spec_from_dict(
         raise SpecError(f"{where}: footprint names must differ; repeated: {dupes}")
 
     analysis = _analysis_from(_table(data.get("analysis", {}), where, "analysis"), where)
+    if analysis.contrast_group is not None and analysis.contrast_group not in population.group_names:
+        raise SpecError(
+            f'{where}: [analysis] contrast_group was "{analysis.contrast_group}" but must be one of '
+            f"the groups {population.group_names}"
+        )
     out_d = _table(data.get("output", {}), where, "output")
     _check_keys(out_d, _OUTPUT_KEYS, where, "[output]")
     output = OutputSpec(
@@ -506,13 +512,14 @@ def _analysis_from(an_d: Mapping[str, Any], where: str) -> AnalysisSpec:
         contiguity=_choice(an_d, "contiguity", where, t, ("queen", "rook"), "queen"),
         islands=_choice(an_d, "islands", where, t, ("exclude", "knn"), "exclude"),
         knn_k=_int(an_d, "knn_k", where, t, minimum=1) or 1,
-        permutations=_int_default(an_d, "permutations", where, t, 999, minimum=0),
+        permutations=_int_default(an_d, "permutations", where, t, 999, minimum=1),
         seed=_int_default(an_d, "seed", where, t, DEFAULT_SEED, minimum=0),
         fdr=_choice(an_d, "fdr", where, t, FDR_METHODS, "bh"),
         alpha=_float(an_d, "alpha", where, t, 0.05, 0.0, 1.0, open_low=True),
         enclave_min_surround=_float(an_d, "enclave_min_surround", where, t, 0.75, 0.0, 1.0),
         enclave_min_population=_float(an_d, "enclave_min_population", where, t, 0.0, 0.0, None),
         enclave_draws=_int_default(an_d, "enclave_draws", where, t, 999, minimum=0),
+        contrast_group=_str(an_d, "contrast_group", where, t),
         transparent_zero_population=_bool(an_d, "transparent_zero_population", where, t, False),
         circle_vertices=_int_default(an_d, "circle_vertices", where, t, 128, minimum=16),
         analysis_crs=_str(an_d, "analysis_crs", where, t),

@@ -222,6 +222,26 @@ def fmt_bool(value: Any) -> str:
     return NA if value is None else ("yes" if bool(value) else "no")
 
 
+#: Keys of statistics, whose whole-number values still print with decimals.
+_STATISTIC_PREFIXES = ("z_", "p_", "expected", "variance", "mean", "share", "ratio")
+_STATISTIC_KEYS = frozenset({"I", "EI", "z", "p"})
+
+
+def fmt_param(value: Any) -> str:
+    """Format a spec parameter as written: numbers without padding, lists comma-joined."""
+    if value is None:
+        return "not set"
+    if isinstance(value, (bool, np.bool_)):
+        return fmt_bool(value)
+    if isinstance(value, (float, np.floating)):
+        return f"{float(value):.10g}"
+    if isinstance(value, (list, tuple)):
+        return ", ".join(fmt_param(v) for v in value) if value else "none"
+    if isinstance(value, Mapping):
+        return "; ".join(f"{k}: {fmt_param(v)}" for k, v in value.items()) or "none"
+    return str(value)
+
+
 def fmt_auto(key: str, value: Any) -> str:
     """Format a value of a generic key/value table by its type and the shape of its key."""
     if value is None:
@@ -233,6 +253,9 @@ def fmt_auto(key: str, value: Any) -> str:
     if isinstance(value, (float, np.floating)):
         if key.startswith("p_") or key.endswith("_p") or key == "p":
             return fmt_p(value)
+        statistic = key in _STATISTIC_KEYS or key.startswith(_STATISTIC_PREFIXES)
+        if float(value).is_integer() and not statistic:
+            return fmt_count(value)  # a count carried as a float (joins, areas)
         return fmt_fixed(value, 2 if key.startswith("z_") or key == "z" else 4)
     if isinstance(value, Mapping):
         return "; ".join(f"{k}: {fmt_auto(str(k), v)}" for k, v in value.items()) or NA
@@ -296,8 +319,9 @@ _STAT_LABELS = {
     **{k: k for k in ("I", "EI", "z_sim", "p_sim", "z_rand", "p_rand", "z_norm", "p_norm", "n")},
     "expected": "E[I]",
     "variance_rand": "Var[I] (rand.)",
-    "x": "x variable",
-    "y": "y variable (neighbours)",
+    "expected_sim": "mean of the permutation null",
+    "x_variable": "x (in the area)",
+    "y_variable": "y (lagged: in its neighbours)",
 }
 
 
@@ -766,9 +790,7 @@ def _audited_section(page: _Page) -> Html:
     if m.get("seed") is not None and not any(k.endswith("seed") for k, _ in params):
         params.append(("seed", m["seed"]))
     if params:
-        rows: list[tuple[Any, ...]] = [
-            (tag("code", k), fmt_auto(k.rsplit(".", 1)[-1], v)) for k, v in params
-        ]
+        rows: list[tuple[Any, ...]] = [(tag("code", k), fmt_param(v)) for k, v in params]
         parts.append(table(("Parameter", "Value"), rows, caption="Parameters (resolved spec)"))
     parts.append(_exclusions_part(page))
     libraries = m.get("libraries") or {}
@@ -1079,13 +1101,48 @@ _WEIGHT_LABELS = {
     "largest_component_areas": "Areas in the largest component",
     "areas_in_statistics": "Areas in the spatial statistics",
 }
-_JOIN_LABELS = {
-    "served_served": "Served\u2013served joins",
-    "unserved_unserved": "Unserved\u2013unserved joins",
-    "served_unserved": "Served\u2013unserved joins",
-    "joins": "All joins",
-    "p_sim_unserved_unserved": "p_sim, unserved\u2013unserved",
-}
+_JOIN_KINDS = (
+    ("served_served", "Served\u2013served"),
+    ("unserved_unserved", "Unserved\u2013unserved"),
+    ("served_unserved", "Served\u2013unserved"),
+)
+_JOIN_COLUMNS: tuple[tuple[str, str, Callable[[Any], str]], ...] = (
+    ("", "Joins", fmt_count),
+    ("expected_", "Expected", lambda v: fmt_fixed(v, 1)),
+    ("variance_", "Variance", lambda v: fmt_fixed(v, 1)),
+    ("z_", "z", lambda v: fmt_fixed(v, 2)),
+    ("p_sim_", "p_sim", fmt_p),
+)
+
+
+def _join_counts_part(joins: Mapping[str, Any]) -> Html:
+    """One row per kind of join (count, expectation, variance, z, p_sim), then the rest."""
+    used = {prefix + kind for kind, _ in _JOIN_KINDS for prefix, _, _ in _JOIN_COLUMNS}
+    rows = [
+        (label, *(Num(f(joins.get(prefix + kind))) for prefix, _, f in _JOIN_COLUMNS))
+        for kind, label in _JOIN_KINDS
+        if any(prefix + kind in joins for prefix, _, _ in _JOIN_COLUMNS)
+    ]
+    parts = [tag("h3", "Join counts")]
+    if rows:
+        headers = ("Kind of join", *(Num(label) for _, label, _ in _JOIN_COLUMNS))
+        parts.append(
+            table(
+                headers,
+                rows,
+                table_id="join-table",
+                caption="Joins of served and unserved neighbours (binary weights)"
+                + (
+                    "; expected values and variances under non-free sampling"
+                    if any(k.startswith("expected_") for k in joins)
+                    else ""
+                ),
+            )
+        )
+    rest = {k: v for k, v in joins.items() if k not in used}
+    if rest:
+        parts.append(kv_table(rest, caption="Join count settings", labels={"joins": "All joins"}))
+    return join(parts)
 
 
 def _clustering_section(page: _Page) -> Html:
@@ -1132,17 +1189,15 @@ def _clustering_section(page: _Page) -> Html:
             )
         )
     if isinstance(cl.get("join_counts"), Mapping) and cl["join_counts"]:
-        parts.append(tag("h3", "Join counts"))
-        parts.append(
-            kv_table(
-                cl["join_counts"],
-                labels=_JOIN_LABELS,
-                caption="Joins of served and unserved neighbours (binary weights)",
-            )
-        )
+        parts.append(_join_counts_part(cl["join_counts"]))
     if isinstance(cl.get("bivariate_moran"), Mapping) and cl["bivariate_moran"]:
         parts.append(tag("h3", "Bivariate Moran's I"))
-        parts.append(kv_table(cl["bivariate_moran"], caption="Bivariate Moran's I"))
+        parts.append(
+            kv_table(
+                cl["bivariate_moran"],
+                caption="Bivariate Moran's I: x in each area against y in its neighbours",
+            )
+        )
     if isinstance(cl.get("local_moran"), Mapping) and cl["local_moran"]:
         parts.append(_local_moran_part(cl["local_moran"]))
     return _section("clustering", "Spatial clustering", *parts)
@@ -1161,7 +1216,10 @@ def _local_moran_part(local: Mapping[str, Any]) -> Html:
     if settings:
         parts.append(_p("Clusters at " + "; ".join(settings) + "."))
     counts = _mapping(local.get("counts"))
-    cross = _mapping(local.get("crosstab"))
+    raw = _mapping(local.get("crosstab"))
+    # Two shapes are read: {label: {side: {...}}}, and the clustering stage's
+    # {"rows": {label: {side: {...}}}, "areas_without_label": n, ...}.
+    cross = _mapping(raw.get("rows")) if "rows" in raw else raw
     labels = [*LISA_LABELS, *(k for k in [*counts, *cross] if k not in LISA_LABELS)]
     labels = [
         k for i, k in enumerate(labels) if (k in counts or k in cross) and k not in labels[:i]
@@ -1197,6 +1255,14 @@ def _local_moran_part(local: Mapping[str, Any]) -> Html:
             caption="LISA clusters of covered fraction by majority-minority status",
         )
     )
+    if _number(raw.get("areas_without_label")):
+        parts.append(
+            _p(
+                f"{fmt_count(raw['areas_without_label'])} areas (population "
+                f"{fmt_count(raw.get('population_without_label'))}) took no part in the local "
+                "statistics and have no cluster label."
+            )
+        )
     return join(parts)
 
 
@@ -1214,6 +1280,8 @@ def _enclave_order(enclave: Mapping[str, Any]) -> tuple[float, int, str]:
 
 def _enclaves_section(page: _Page) -> Html:
     enclaves = [e for e in page.summary["enclaves"] if isinstance(e, Mapping)]
+    settings = page.summary.get("enclave_settings") or {}
+    contrast = str(settings.get("contrast_group") or "minority")
     parts: list[Any] = []
     if not enclaves:
         parts.append(_p("No enclave of unserved areas enclosed by served areas was found."))
@@ -1223,7 +1291,7 @@ def _enclaves_section(page: _Page) -> Html:
                 "An enclave is a connected set of unserved areas whose outer boundary "
                 "runs mostly along served areas; its ring is the served areas next to "
                 "it. The p-value asks how often random connected sets of the same "
-                "size have a minority share at least as high."
+                f"size have a {contrast} share at least as high."
             )
         )
         rows = [
@@ -1232,8 +1300,8 @@ def _enclaves_section(page: _Page) -> Html:
                 Num(fmt_count(len(e.get("area_ids") or ()))),
                 Num(fmt_count(e.get("population"))),
                 Num(fmt_percent(e.get("surround_share"))),
-                Num(fmt_percent(e.get("minority_share"))),
-                Num(fmt_percent(e.get("mc_mean_minority_share"))),
+                Num(fmt_percent(e.get("contrast_share"))),
+                Num(fmt_percent(e.get("mc_mean_contrast_share"))),
                 Num(fmt_p(e.get("p_value"))),
                 Num(fmt_count(e.get("mc_draws"))),
             )
@@ -1244,7 +1312,7 @@ def _enclaves_section(page: _Page) -> Html:
             Num("Areas"),
             Num("Population"),
             Num("Boundary along served"),
-            Num("Minority share"),
+            Num(f"Share {contrast}"),
             Num("Random-set mean share"),
             Num("p-value"),
             Num("Monte Carlo draws"),
@@ -1490,7 +1558,8 @@ _METHODS: dict[str, tuple[tuple[str, str], ...]] = {
             "counts as not served). For an enclave of k areas, random connected sets of k "
             "areas are grown, each from a seed area drawn at random, adding at every step an "
             "area drawn at random among the set's neighbours; {draws} such sets are drawn. "
-            "p = (1 + number of sets whose minority share is at least the enclave's) / "
+            "p = (1 + number of sets whose share of the contrast group (minority unless the "
+            "spec names another) is at least the enclave's) / "
             "(draws + 1) (a Monte Carlo test in the sense of Hope 1968).",
         ),
     ),
