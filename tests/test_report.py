@@ -349,8 +349,18 @@ def make_inputs(n_areas: int = 150, *, seed: int = SEED, n_enclaves: int = 2) ->
                 "unserved_unserved": 98,
                 "served_unserved": 60,
                 "joins": 278,
+                "expected_served_served": 75.25,
                 "expected_unserved_unserved": 70.2,
+                "expected_served_unserved": 132.55,
+                "variance_served_served": 80.1,
+                "variance_unserved_unserved": 77.7,
+                "variance_served_unserved": 40.04,
+                "z_served_served": 5.0,
+                "z_unserved_unserved": 3.154,
+                "z_served_unserved": -11.466,
+                "p_sim_served_served": 0.01,
                 "p_sim_unserved_unserved": 0.01,
+                "p_sim_served_unserved": None,
             },
             "bivariate_moran": {
                 "x": "minority_share",
@@ -371,14 +381,19 @@ def make_inputs(n_areas: int = 150, *, seed: int = SEED, n_enclaves: int = 2) ->
                     "not significant": 116,
                 },
                 "crosstab": {
-                    "high-high": {
-                        "majority_minority": {"areas": 2, "population": 7_000.0},
-                        "not_majority_minority": {"areas": 13, "population": 51_000.0},
+                    "columns": ["majority_minority", "not_majority_minority"],
+                    "rows": {
+                        "high-high": {
+                            "majority_minority": {"areas": 2, "population": 7_000.0},
+                            "not_majority_minority": {"areas": 13, "population": 51_000.0},
+                        },
+                        "low-low": {
+                            "majority_minority": {"areas": 9, "population": 40_321.4},
+                            "not_majority_minority": {"areas": 3, "population": 10_000.0},
+                        },
                     },
-                    "low-low": {
-                        "majority_minority": {"areas": 9, "population": 40_321.4},
-                        "not_majority_minority": {"areas": 3, "population": 10_000.0},
-                    },
+                    "areas_without_label": 2,
+                    "population_without_label": 812.0,
                 },
             },
         },
@@ -577,6 +592,7 @@ def test_all_sections_present_with_full_data(report_html: str) -> None:
         "enclave-table",
         "hole-table",
         "exclusion-list",
+        "join-table",
     ):
         assert f'id="{table_id}"' in report_html
     methods = element(report_html, "section", "methods")
@@ -713,6 +729,17 @@ def test_other_sections_numbers(report_html: str) -> None:
     lisa = element(report_html, "table", "lisa-crosstab")
     assert cells(row_of_text(lisa, "low-low")) == ["low-low", "12", "9", "40,321", "3", "10,000"]
     assert cells(row_of_text(lisa, "high-low")) == ["high-low", "3", "n/a", "n/a", "n/a", "n/a"]
+    assert "2 areas (population 812) took no part in the local statistics" in report_html
+    joins = element(report_html, "table", "join-table")
+    assert cells(row_of_text(joins, "Unserved\u2013unserved")) == [
+        "Unserved\u2013unserved",
+        "98",
+        "70.2",
+        "77.7",
+        "3.15",
+        "0.010",
+    ]
+    assert cells(row_of_text(joins, "Served\u2013unserved"))[4:] == ["\u221211.47", "n/a"]
     classes = element(report_html, "table", "class-table")
     assert cells(row_of_text(classes, "Income tier: unknown"))[3] == "n/a"
     assert cells(row_of_text(classes, "Majority-minority areas"))[3] == "33.3%"
@@ -725,6 +752,25 @@ def row_of_text(table_html: str, first_cell: str) -> str:
         if cells(row) and cells(row)[0] == first_cell:
             return row
     raise AssertionError(f"no row starting {first_cell!r}")
+
+
+def test_lisa_crosstab_in_the_contract_shape(inputs: dict) -> None:
+    # The flat {label: {side: ...}} form of the output contract reads the same as the
+    # clustering stage's {"rows": ...} form.
+    summary = copy.deepcopy(inputs["summary"])
+    local = summary["clustering"]["local_moran"]
+    local["crosstab"] = local["crosstab"]["rows"]
+    lisa = element(render(inputs, summary=summary), "table", "lisa-crosstab")
+    assert cells(row_of_text(lisa, "low-low")) == ["low-low", "12", "9", "40,321", "3", "10,000"]
+    assert "rows" not in lisa
+
+
+def test_generic_values_and_parameters() -> None:
+    assert page.fmt_auto("joins", 1161.0) == "1,161"
+    assert page.fmt_auto("I", 1.0) == "1.0000"
+    assert page.fmt_auto("z_sim", -8.2099) == "\u22128.21"
+    assert page.fmt_param(2000.0) == "2000" and page.fmt_param(0.05) == "0.05"
+    assert page.fmt_param(None) == "not set" and page.fmt_param(["a", 1]) == "a, 1"
 
 
 def test_four_fifths_note_and_cautions(report_html: str) -> None:

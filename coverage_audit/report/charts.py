@@ -39,6 +39,14 @@ TEXT_TONE = "#222222"
 #: Beyond this many points the Moran scatter markers are rasterised inside the SVG, which
 #: keeps the report small for regions of thousands of areas.
 RASTERISE_SCATTER_ABOVE = 1500
+#: Beyond this many vertices a filled map layer is rasterised inside the SVG (at
+#: :data:`RASTER_DPI`), so that a region of tens of thousands of tracts does not make
+#: every map figure megabytes long; outlines stay vector.
+RASTERISE_VERTICES_ABOVE = 20_000
+RASTER_DPI = 150
+#: Decimals kept in SVG path coordinates (points of 1/72 inch): a tenth of a point is
+#: below what print or screen can show, and it halves the size of map figures.
+PATH_DECIMALS = 1
 
 
 def mpl_text(value: object) -> str:
@@ -68,7 +76,7 @@ def figure_to_svg(fig: Figure, *, salt: str, title: str) -> str:
     with matplotlib.rc_context(
         {"svg.hashsalt": salt, "svg.fonttype": "none", "svg.image_inline": True}
     ):
-        fig.savefig(buffer, format="svg", metadata={"Date": None})
+        fig.savefig(buffer, format="svg", metadata={"Date": None}, dpi=RASTER_DPI)
     svg = buffer.getvalue().decode("utf-8")
     svg = svg[svg.index("<svg") :]
     # The metadata block only names matplotlib (with a URL); the page does not need it.
@@ -79,8 +87,14 @@ def figure_to_svg(fig: Figure, *, salt: str, title: str) -> str:
     svg = re.sub(r'\bid="([^"]+)"', rf'id="{prefix}-\1"', svg)
     svg = re.sub(r"url\(#([^)]+)\)", rf"url(#{prefix}-\1)", svg)
     svg = re.sub(r'href="#([^"]+)"', rf'href="#{prefix}-\1"', svg)
+    svg = re.sub(r' d="([^"]*)"', _round_path_data, svg)
     label = escape(title, quote=True)
     return svg.replace("<svg ", f'<svg role="img" aria-label="{label}" ', 1)
+
+
+def _round_path_data(match: re.Match[str]) -> str:
+    rounded = re.sub(rf"(\d+\.\d{{{PATH_DECIMALS}}})\d+", r"\1", match.group(1))
+    return f' d="{rounded}"'
 
 
 def _new_figure(width_in: float, height_in: float) -> Figure:
@@ -289,6 +303,8 @@ class RegionLayers:
         Union of all areas, simplified for drawing.
     served_union : shapely.Geometry
         Union of the served areas, simplified for drawing.
+    region_small, served_small : shapely.Geometry
+        The same, simplified further for the small overview panels of the locators.
     tree : shapely.STRtree
         Spatial index of ``geometries``.
     """
@@ -297,26 +313,32 @@ class RegionLayers:
     served: np.ndarray
     region: object
     served_union: object
+    region_small: object
+    served_small: object
     tree: shapely.STRtree
 
     @classmethod
     def build(cls, geometries: np.ndarray, served: np.ndarray) -> RegionLayers:
         """Union and simplify the region and its served part.
 
-        Simplification tolerance is 1/1500 of the region's larger side: invisible at report
-        size, but it keeps detailed boundaries (census line files) from bloating the SVG.
+        Simplification tolerance is 1/1500 of the region's larger side (1/400 for the
+        locators' overview panels, about three inches wide): invisible at report size, but
+        it keeps detailed boundaries (census line files) from bloating the SVG.
         """
         geoms = np.asarray(geometries, dtype=object)
         served = np.asarray(served, dtype=bool)
         region = shapely.union_all(geoms)
         xmin, ymin, xmax, ymax = shapely.total_bounds(geoms)
-        tolerance = max(xmax - xmin, ymax - ymin, 1.0) / 1500.0
         served_union = shapely.union_all(geoms[served])
+        side = max(xmax - xmin, ymax - ymin, 1.0)
+        fine, coarse = side / 1500.0, side / 400.0
         return cls(
             geometries=geoms,
             served=served,
-            region=shapely.simplify(region, tolerance, preserve_topology=True),
-            served_union=shapely.simplify(served_union, tolerance, preserve_topology=True),
+            region=shapely.simplify(region, fine, preserve_topology=True),
+            served_union=shapely.simplify(served_union, fine, preserve_topology=True),
+            region_small=shapely.simplify(region, coarse, preserve_topology=True),
+            served_small=shapely.simplify(served_union, coarse, preserve_topology=True),
             tree=shapely.STRtree(geoms),
         )
 
@@ -332,7 +354,9 @@ class RegionLayers:
 
 def _add_path(ax, path: Path | None, **style) -> None:
     if path is not None:
-        ax.add_patch(PathPatch(path, **style))
+        filled = style.get("facecolor", "none") != "none"
+        heavy = filled and len(path.vertices) > RASTERISE_VERTICES_ABOVE
+        ax.add_patch(PathPatch(path, rasterized=heavy, **style))
 
 
 def _frame(ax, bounds: Sequence[float], pad: float = 0.02) -> None:
@@ -440,8 +464,10 @@ def enclave_locator_chart(
     """
     fig = _new_figure(6.4, 2.9)
     overview, close = fig.subplots(1, 2, width_ratios=[1, 1.25])
-    _add_path(overview, polygon_path([layers.region]), facecolor=REGION_GREY, edgecolor="none")
-    served_path = polygon_path([layers.served_union])
+    _add_path(
+        overview, polygon_path([layers.region_small]), facecolor=REGION_GREY, edgecolor="none"
+    )
+    served_path = polygon_path([layers.served_small])
     _add_path(overview, served_path, facecolor=SERVED_TONE, edgecolor="none")
     enclave_path = polygon_path(layers.geometries[members])
     _add_path(overview, enclave_path, facecolor=ENCLAVE_TONE, edgecolor=ENCLAVE_TONE, linewidth=0.8)
@@ -450,14 +476,18 @@ def enclave_locator_chart(
     side = max(xmax - xmin, ymax - ymin, 1.0) * 1.3
     cx, cy = (xmin + xmax) / 2, (ymin + ymax) / 2
     window = (cx - side / 2, cy - side / 2, cx + side / 2, cy + side / 2)
+    # The marker box never shrinks below 6% of the region's side, so that a one-tract
+    # enclave in a large region can still be found on the small overview.
+    rx0, ry0, rx1, ry1 = shapely.bounds(layers.region)
+    marker = max(side, 0.06 * max(rx1 - rx0, ry1 - ry0))
     overview.add_patch(
         Rectangle(
-            (window[0], window[1]),
-            side,
-            side,
+            (cx - marker / 2, cy - marker / 2),
+            marker,
+            marker,
             facecolor="none",
             edgecolor=RING_EDGE,
-            linewidth=1.0,
+            linewidth=1.2,
             clip_on=False,
         )
     )
