@@ -81,7 +81,10 @@ def library_versions() -> dict[str, str | None]:
 def random_streams(seed: int) -> dict[str, np.random.Generator]:
     """One independent Generator per statistic, all from the spec's seed."""
     children = np.random.SeedSequence(seed).spawn(len(RNG_STREAMS))
-    return {name: np.random.default_rng(child) for name, child in zip(RNG_STREAMS, children, strict=True)}
+    return {
+        name: np.random.default_rng(child)
+        for name, child in zip(RNG_STREAMS, children, strict=True)
+    }
 
 
 @dataclass
@@ -112,7 +115,9 @@ class AuditResult:
     groups: list[str]
     extras: dict[str, Any] = field(default_factory=dict)
 
-    def write(self, out_dir: str | Path, *, progress: SilentProgress | None = None) -> dict[str, Path]:
+    def write(
+        self, out_dir: str | Path, *, progress: SilentProgress | None = None
+    ) -> dict[str, Path]:
         """Write the output folder (see DESIGN.md's output contract); return the paths."""
         from .outputs import write_all
 
@@ -171,7 +176,7 @@ class AuditResult:
         return paths
 
     def footprint_for_display(self) -> dict[str, Any]:
-        """The footprint as the map and report take it."""
+        """Return the footprint as the map and report take it."""
         fp = self.footprint
         shown: dict[str, Any] = {
             "kind": fp.kind,
@@ -180,12 +185,14 @@ class AuditResult:
         }
         if fp.kind == "points" and fp.points is not None:
             shown["points"] = fp.points
-            shown["radius_m"] = fp.radius_m if fp.radius_m is not None else float(fp.points["radius_m"].max())
+            shown["radius_m"] = (
+                fp.radius_m if fp.radius_m is not None else float(fp.points["radius_m"].max())
+            )
         return shown
 
 
 def to_plain(value: Any) -> Any:
-    """A dataclass or object as plain data for the manifest."""
+    """Return a dataclass or object as plain data for the manifest."""
     from ._util import to_jsonable
 
     if hasattr(value, "__dataclass_fields__"):
@@ -303,26 +310,40 @@ def compute_statistics(
     out: dict[str, Any] = {}
     with progress.stage("segregation indices"):
         out["segregation"] = segregation_summary(
-            counts, population, inputs.reference, served, fraction,
-            permutations=an.permutations, rng=streams["segregation"],
+            counts,
+            population,
+            inputs.reference,
+            served,
+            fraction,
+            permutations=an.permutations,
+            rng=streams["segregation"],
         ).to_dict()
     with progress.stage(f"{an.contiguity} contiguity"):
-        graph = build_area_graph(geoms, ids, kind=an.contiguity, island_policy=an.islands, knn_k=an.knn_k)
+        graph = build_area_graph(
+            geoms, ids, kind=an.contiguity, island_policy=an.islands, knn_k=an.knn_k
+        )
     if graph.islands and an.islands == "exclude":
         rows = frame.loc[graph.island_mask, "source_row"]
         inputs.exclusions.add("spatial_statistics", rows, list(graph.islands), ISLAND_REASON)
     out["weights"] = graph.to_dict()
     with progress.stage("enclaves"):
         transparent = (population <= 0) if an.transparent_zero_population else None
-        holes = ()
+        holes: tuple[Any, ...] = ()
         if footprint.kind != "ids":
             holes = footprint_holes(footprint.geometry, geoms, ids, population, counts)
         result = find_enclaves(
-            geoms, ids, served, population, counts, graph,
+            geoms,
+            ids,
+            served,
+            population,
+            counts,
+            graph,
             min_surround=an.enclave_min_surround,
             min_population=an.enclave_min_population,
             transparent=transparent,
-            income_tier=frame["income_tier"].to_numpy(dtype=object) if "income_tier" in frame else None,
+            income_tier=frame["income_tier"].to_numpy(dtype=object)
+            if "income_tier" in frame
+            else None,
             reference_group=inputs.reference,
             mc_draws=an.enclave_draws,
             rng=streams["enclaves"],
@@ -332,7 +353,10 @@ def compute_statistics(
     enclave_dict = result.to_dict()
     out["enclaves"] = enclave_dict["enclaves"]
     out["holes"] = enclave_dict["holes"]
-    out["enclave_settings"] = {**enclave_dict["settings"], "unserved_components": enclave_dict["unserved_components"]}
+    out["enclave_settings"] = {
+        **enclave_dict["settings"],
+        "unserved_components": enclave_dict["unserved_components"],
+    }
     frame["enclave_id"] = result.enclave_id
     out["_frame"] = frame
     return out
@@ -349,7 +373,9 @@ def measure_coverage(
     frame["served"] = fraction >= spec.analysis.served_threshold
     distance = None
     if footprint.kind == "points" and footprint.points is not None:
-        distance = nearest_site_distance(geoms, np.asarray(footprint.points.geometry.array), inputs.analysis_crs)
+        distance = nearest_site_distance(
+            geoms, np.asarray(footprint.points.geometry.array), inputs.analysis_crs
+        )
         frame["nearest_site_m"] = distance
     coverage = coverage_by_group(
         frame,
@@ -404,7 +430,9 @@ def _order_columns(frame: gpd.GeoDataFrame, inputs: AreaInputs) -> gpd.GeoDataFr
         )
         if c in frame.columns
     ]
-    rest = [c for c in frame.columns if c not in first and c not in middle and c != frame.geometry.name]
+    rest = [
+        c for c in frame.columns if c not in first and c not in middle and c != frame.geometry.name
+    ]
     return frame[[*first, *middle, *rest, frame.geometry.name]]
 
 

@@ -49,20 +49,48 @@ def _build_parser() -> argparse.ArgumentParser:
             "areas.csv, areas.gpkg, exclusions.csv, manifest.json, map.html, report.html."
         ),
     )
-    run.add_argument("spec", nargs="?", type=Path, help="the audit spec, a TOML file (paths in it are relative to it)")
-    run.add_argument("--out", type=Path, default=None, help="folder for the outputs (default: outputs/<spec name>)")
+    run.add_argument(
+        "spec",
+        nargs="?",
+        type=Path,
+        help="the audit spec, a TOML file (paths in it are relative to it)",
+    )
+    run.add_argument(
+        "--out",
+        type=Path,
+        default=None,
+        help="folder for the outputs (default: outputs/<spec name>)",
+    )
     _add_common(run)
     inline = run.add_argument_group(
         "describing the audit without a spec file",
         "Use these instead of SPEC; --write-spec saves them as a spec for exact reruns.",
     )
-    inline.add_argument("--areas", type=Path, help="areas layer: GeoPackage, GeoJSON, Shapefile or GeoParquet")
-    inline.add_argument("--areas-layer", help="layer name inside the areas file (when it has several)")
-    inline.add_argument("--id", dest="id_column", help="column of the areas holding their id (e.g. GEOID)")
-    inline.add_argument("--id-width", type=int, help="zero-pad numeric ids to this many digits (11 tracts, 12 block groups)")
-    inline.add_argument("--areas-crs", help='CRS of an areas file that declares none, e.g. "EPSG:4326"')
-    inline.add_argument("--table", type=Path, help="demographics table (CSV or Parquet) joined to the areas on the id")
-    inline.add_argument("--table-id", help="id column of the table, when named differently from --id")
+    inline.add_argument(
+        "--areas", type=Path, help="areas layer: GeoPackage, GeoJSON, Shapefile or GeoParquet"
+    )
+    inline.add_argument(
+        "--areas-layer", help="layer name inside the areas file (when it has several)"
+    )
+    inline.add_argument(
+        "--id", dest="id_column", help="column of the areas holding their id (e.g. GEOID)"
+    )
+    inline.add_argument(
+        "--id-width",
+        type=int,
+        help="zero-pad numeric ids to this many digits (11 tracts, 12 block groups)",
+    )
+    inline.add_argument(
+        "--areas-crs", help='CRS of an areas file that declares none, e.g. "EPSG:4326"'
+    )
+    inline.add_argument(
+        "--table",
+        type=Path,
+        help="demographics table (CSV or Parquet) joined to the areas on the id",
+    )
+    inline.add_argument(
+        "--table-id", help="id column of the table, when named differently from --id"
+    )
     inline.add_argument("--total", help="column with each area's total population")
     inline.add_argument(
         "--group",
@@ -77,15 +105,35 @@ def _build_parser() -> argparse.ArgumentParser:
         help="add the group 'minority' = total minus the reference group (census convention "
         "when the reference is non-Hispanic white alone)",
     )
-    inline.add_argument("--income-ratio", help="column with tract median family income as a percent of the area median")
-    inline.add_argument("--footprint", type=Path, help="service footprint file: polygons, or points with --radius")
-    inline.add_argument("--footprint-name", default=None, help="a short name for the footprint (default: the file name)")
+    inline.add_argument(
+        "--income-ratio",
+        help="column with tract median family income as a percent of the area median",
+    )
+    inline.add_argument(
+        "--footprint", type=Path, help="service footprint file: polygons, or points with --radius"
+    )
+    inline.add_argument(
+        "--footprint-name",
+        default=None,
+        help="a short name for the footprint (default: the file name)",
+    )
     inline.add_argument("--footprint-crs", help="CRS of a footprint file that declares none")
-    inline.add_argument("--radius", help='reach of each service point, e.g. "3000", "3 km", "2 mi" (metres by default)')
-    inline.add_argument("--served-ids", type=Path, help="file listing the served area ids (CSV column or one per line)")
+    inline.add_argument(
+        "--radius",
+        help='reach of each service point, e.g. "3000", "3 km", "2 mi" (metres by default)',
+    )
+    inline.add_argument(
+        "--served-ids",
+        type=Path,
+        help="file listing the served area ids (CSV column or one per line)",
+    )
     inline.add_argument("--served-column", help="yes/no column of the areas marking served areas")
     inline.add_argument("--title", help="title of the audit, shown in the report")
-    inline.add_argument("--write-spec", type=Path, help="save the audit described by the options as a TOML spec here")
+    inline.add_argument(
+        "--write-spec",
+        type=Path,
+        help="save the audit described by the options as a TOML spec here",
+    )
 
     demo = sub.add_parser(
         "demo",
@@ -95,7 +143,12 @@ def _build_parser() -> argparse.ArgumentParser:
             "branch network, an assessment area) and write each one's outputs."
         ),
     )
-    demo.add_argument("--out", type=Path, default=Path("outputs/demo"), help="parent folder of the scenario outputs (default: outputs/demo)")
+    demo.add_argument(
+        "--out",
+        type=Path,
+        default=Path("outputs/demo"),
+        help="parent folder of the scenario outputs (default: outputs/demo)",
+    )
     demo.add_argument(
         "--scenario",
         action="append",
@@ -121,11 +174,29 @@ def _build_parser() -> argparse.ArgumentParser:
 
 def _add_common(p: argparse.ArgumentParser) -> None:
     g = p.add_argument_group("analysis settings (override the spec)")
-    g.add_argument("--threshold", type=float, help="an area is served when at least this fraction of it is covered (default 0.5)")
-    g.add_argument("--comparison", choices=["reference", "highest"], help="compare each group with the reference group or with the highest-rate group")
-    g.add_argument("--contiguity", choices=["queen", "rook"], help="neighbours share a point (queen) or an edge (rook)")
-    g.add_argument("--permutations", type=int, help="random permutations for the p-values (at least 1; default 999)")
-    g.add_argument("--seed", type=int, help="seed of all random draws; the same seed gives the same results")
+    g.add_argument(
+        "--threshold",
+        type=float,
+        help="an area is served when at least this fraction of it is covered (default 0.5)",
+    )
+    g.add_argument(
+        "--comparison",
+        choices=["reference", "highest"],
+        help="compare each group with the reference group or with the highest-rate group",
+    )
+    g.add_argument(
+        "--contiguity",
+        choices=["queen", "rook"],
+        help="neighbours share a point (queen) or an edge (rook)",
+    )
+    g.add_argument(
+        "--permutations",
+        type=int,
+        help="random permutations for the p-values (at least 1; default 999)",
+    )
+    g.add_argument(
+        "--seed", type=int, help="seed of all random draws; the same seed gives the same results"
+    )
     g.add_argument("--no-map", action="store_true", help="do not write map.html")
     g.add_argument("--no-report", action="store_true", help="do not write report.html")
     g.add_argument("--quiet", action="store_true", help="print only errors")
@@ -161,20 +232,33 @@ def spec_dict_from_options(args: argparse.Namespace) -> dict[str, Any]:
         if not value
     ]
     if missing:
-        raise SpecError(f"without a spec file, give {', '.join(missing)} (see coverage-audit run --help)")
+        raise SpecError(
+            f"without a spec file, give {', '.join(missing)} (see coverage-audit run --help)"
+        )
     groups: dict[str, str] = {}
     for item in args.group:
         if "=" not in item:
-            raise SpecError(f'--group "{item}" must be NAME=COLUMN, e.g. --group black_nh=B03002_004E')
+            raise SpecError(
+                f'--group "{item}" must be NAME=COLUMN, e.g. --group black_nh=B03002_004E'
+            )
         name, column = item.split("=", 1)
         groups[name.strip()] = column.strip()
     areas: dict[str, Any] = {"path": str(args.areas.resolve()), "id": args.id_column}
-    for key, value in (("layer", args.areas_layer), ("crs", args.areas_crs), ("table_id", args.table_id), ("id_width", args.id_width)):
+    for key, value in (
+        ("layer", args.areas_layer),
+        ("crs", args.areas_crs),
+        ("table_id", args.table_id),
+        ("id_width", args.id_width),
+    ):
         if value is not None:
             areas[key] = value
     if args.table is not None:
         areas["table"] = str(args.table.resolve())
-    population: dict[str, Any] = {"total": args.total, "groups": groups, "reference": args.reference}
+    population: dict[str, Any] = {
+        "total": args.total,
+        "groups": groups,
+        "reference": args.reference,
+    }
     if args.derive_minority:
         population["derive_minority"] = True
     if args.income_ratio:
@@ -189,11 +273,19 @@ def spec_dict_from_options(args: argparse.Namespace) -> dict[str, Any]:
         if args.footprint_crs:
             footprint["crs"] = args.footprint_crs
     elif args.served_ids is not None:
-        footprint = {"name": args.footprint_name or args.served_ids.stem, "served_ids": str(args.served_ids.resolve())}
+        footprint = {
+            "name": args.footprint_name or args.served_ids.stem,
+            "served_ids": str(args.served_ids.resolve()),
+        }
     elif args.served_column:
-        footprint = {"name": args.footprint_name or args.served_column, "served_column": args.served_column}
+        footprint = {
+            "name": args.footprint_name or args.served_column,
+            "served_column": args.served_column,
+        }
     else:
-        raise SpecError("without a spec file, give a footprint: --footprint FILE [--radius R], --served-ids FILE or --served-column COLUMN")
+        raise SpecError(
+            "without a spec file, give a footprint: --footprint FILE [--radius R], --served-ids FILE or --served-column COLUMN"
+        )
     data: dict[str, Any] = {"areas": areas, "population": population, "footprint": footprint}
     if args.title:
         data["title"] = args.title
@@ -234,7 +326,11 @@ def _run_one(spec: Any, out: Path, args: argparse.Namespace, stream: Any) -> dic
 
     progress = progress_for(sys.stderr, args.quiet)
     if args.no_map or args.no_report:
-        spec = replace_output(spec, map=not args.no_map and spec.output.map, report=not args.no_report and spec.output.report)
+        spec = replace_output(
+            spec,
+            map=not args.no_map and spec.output.map,
+            report=not args.no_report and spec.output.report,
+        )
     t0 = time.perf_counter()
     result = run_audit(spec, progress=progress)
     paths = result.write(out, progress=progress)
@@ -283,7 +379,9 @@ def _cmd_demo(args: argparse.Namespace) -> int:
             spec = spec.with_analysis(**overrides)
         _run_one(spec, args.out / name, args, sys.stdout)
     if not args.quiet:
-        print(f"\nDemo region: {region}\nOpen {args.out / scenarios[0] / 'report.html'} in a browser to read the first report.")
+        print(
+            f"\nDemo region: {region}\nOpen {args.out / scenarios[0] / 'report.html'} in a browser to read the first report."
+        )
     return EXIT_OK
 
 
@@ -295,10 +393,18 @@ def _cmd_check(args: argparse.Namespace) -> int:
     spec = load_spec(args.spec)
     inputs = load_areas(spec.areas, spec.population, analysis_crs=spec.analysis.analysis_crs)
     for fp in spec.footprints:
-        build_footprint(fp, inputs, inputs.exclusions, circle_vertices=spec.analysis.circle_vertices, id_width=spec.areas.id_width)
+        build_footprint(
+            fp,
+            inputs,
+            inputs.exclusions,
+            circle_vertices=spec.analysis.circle_vertices,
+            id_width=spec.areas.id_width,
+        )
     ex = inputs.exclusions
     print(f"spec {args.spec}: readable")
-    print(f"areas: {inputs.input_rows} rows, {len(inputs.frame)} would be analysed, {ex.count('areas')} excluded")
+    print(
+        f"areas: {inputs.input_rows} rows, {len(inputs.frame)} would be analysed, {ex.count('areas')} excluded"
+    )
     for reason, n in ex.by_reason().items():
         print(f"  {n:6d}  {reason}")
     print(f"analysis CRS: {inputs.analysis_crs.srs}")
@@ -318,7 +424,7 @@ def main(argv: Sequence[str] | None = None) -> int:
         with warnings.catch_warnings():
             # Our own warnings are shown once each, as one line, not with source lines.
             warnings.simplefilter("default", CoverageAuditWarning)
-            warnings.showwarning = _show_warning  # type: ignore[assignment]
+            warnings.showwarning = _show_warning
             return handlers[args.command](args)
     except CoverageAuditError as exc:
         if debug:
@@ -326,7 +432,10 @@ def main(argv: Sequence[str] | None = None) -> int:
         print(f"error: {exc}", file=sys.stderr)
         return EXIT_USER_ERROR
     except KeyboardInterrupt:
-        print("interrupted; outputs already written are whole, the rest were not written", file=sys.stderr)
+        print(
+            "interrupted; outputs already written are whole, the rest were not written",
+            file=sys.stderr,
+        )
         return 130
     except Exception as exc:  # an internal fault: say so plainly, keep details for --debug
         if debug:
@@ -340,7 +449,9 @@ def main(argv: Sequence[str] | None = None) -> int:
         return EXIT_INTERNAL_ERROR
 
 
-def _show_warning(message: Any, category: Any, filename: str, lineno: int, file: Any = None, line: Any = None) -> None:
+def _show_warning(
+    message: Any, category: Any, filename: str, lineno: int, file: Any = None, line: Any = None
+) -> None:
     name = getattr(category, "__name__", "Warning")
     print(f"warning ({name}): {message}", file=sys.stderr)
 

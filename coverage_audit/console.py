@@ -23,7 +23,9 @@ def print_summary(result: Any, paths: dict[str, Path], *, seconds: float, stream
     s = result.summary
     cov = s["coverage"]
     areas = s["areas"]
-    console.print(f"\n[bold]{s['title']}[/bold]  footprint: {s['footprint']['name']} ({s['footprint']['kind']})")
+    console.print(
+        f"\n[bold]{s['title']}[/bold]  footprint: {s['footprint']['name']} ({s['footprint']['kind']})"
+    )
     console.print(
         f"areas: {areas['input']} in, {areas['analysed']} analysed, {areas['excluded']} excluded; "
         f"served: {cov['served_areas']} of {cov['areas']} (threshold {cov['served_threshold']:g})"
@@ -54,7 +56,9 @@ def print_summary(result: Any, paths: dict[str, Path], *, seconds: float, stream
     clu = s.get("clustering")
     if clu and clu.get("moran"):
         m = clu["moran"]
-        console.print(f"Moran's I of covered fraction: {_num(m.get('I'), 3)} (pseudo p {_num(m.get('p_sim'), 3)}, {m.get('permutations')} permutations)")
+        console.print(
+            f"Moran's I of covered fraction: {_num(m.get('I'), 3)} (pseudo p {_num(m.get('p_sim'), 3)}, {m.get('permutations')} permutations)"
+        )
     enclaves = s.get("enclaves")
     if enclaves is not None:
         top = ", ".join(f"{e['id']} ({e['population']:,.0f} people)" for e in enclaves[:3])
@@ -62,7 +66,9 @@ def print_summary(result: Any, paths: dict[str, Path], *, seconds: float, stream
     ex = s.get("exclusions", {})
     if ex.get("count"):
         console.print(f"excluded rows: {ex['count']} (see exclusions.csv)")
-    console.print("[dim]A disparity is a reason to look closer, not proof of discrimination; see the report's cautions.[/dim]")
+    console.print(
+        "[dim]A disparity is a reason to look closer, not proof of discrimination; see the report's cautions.[/dim]"
+    )
     out_dir = paths["summary"].parent
     names = ", ".join(p.name for p in paths.values())
     console.print(f"wrote {out_dir}/: {names}  ({seconds:.1f} s)")

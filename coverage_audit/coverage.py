@@ -77,7 +77,9 @@ def covered_fraction(areas: np.ndarray, pieces: np.ndarray) -> np.ndarray:
 _CHUNK = 2_048
 
 
-def _intersection_areas(left: np.ndarray, right: np.ndarray, workers: int | None = None) -> np.ndarray:
+def _intersection_areas(
+    left: np.ndarray, right: np.ndarray, workers: int | None = None
+) -> np.ndarray:
     """Area of ``left[k] ∩ right[k]`` for each k, on all cores for large inputs."""
     n = left.size
     workers = workers or os.cpu_count() or 1
@@ -191,7 +193,9 @@ class CoverageResult:
         return out
 
 
-def _class_coverage(mask: np.ndarray, population: np.ndarray, fraction: np.ndarray, served: np.ndarray) -> dict[str, Any]:
+def _class_coverage(
+    mask: np.ndarray, population: np.ndarray, fraction: np.ndarray, served: np.ndarray
+) -> dict[str, Any]:
     pop = float(population[mask].sum())
     n = int(mask.sum())
     return {
@@ -254,7 +258,12 @@ def coverage_by_group(
         x = table[g].to_numpy(dtype=float)
         total = float(x.sum())
         covered = float((x * fraction).sum())
-        rates[g] = (total, covered, safe_ratio(covered, total), safe_ratio(float(x[served].sum()), total))
+        rates[g] = (
+            total,
+            covered,
+            safe_ratio(covered, total),
+            safe_ratio(float(x[served].sum()), total),
+        )
     if comparison == "highest":
         defined = [(r[2], g) for g, r in rates.items() if r[2] is not None]
         comparison_group = max(defined)[1] if defined else reference
@@ -265,7 +274,9 @@ def coverage_by_group(
     results: dict[str, GroupCoverage] = {}
     for g, (total, covered, rate, srate) in rates.items():
         ratio = safe_ratio(rate, ref_rate) if rate is not None and ref_rate is not None else None
-        sratio = safe_ratio(srate, ref_served) if srate is not None and ref_served is not None else None
+        sratio = (
+            safe_ratio(srate, ref_served) if srate is not None and ref_served is not None else None
+        )
         results[g] = GroupCoverage(
             population=total,
             covered_population=covered,
@@ -274,10 +285,14 @@ def coverage_by_group(
             ratio=ratio,
             served_area_ratio=sratio,
             difference=None if rate is None or ref_rate is None else rate - ref_rate,
-            served_area_difference=None if srate is None or ref_served is None else srate - ref_served,
+            served_area_difference=None
+            if srate is None or ref_served is None
+            else srate - ref_served,
             below_four_fifths=bool(ratio is not None and ratio < FOUR_FIFTHS),
         )
-    classes: dict[str, Any] = {"all": _class_coverage(np.ones(len(table), bool), population, fraction, served)}
+    classes: dict[str, Any] = {
+        "all": _class_coverage(np.ones(len(table), bool), population, fraction, served)
+    }
     if "majority_minority" in table.columns:
         mm = table["majority_minority"].to_numpy(dtype=bool)
         classes["majority_minority"] = _class_coverage(mm, population, fraction, served)
@@ -290,14 +305,17 @@ def coverage_by_group(
         }
         lmi = np.isin(tiers, ("low", "moderate"))
         classes["low_or_moderate"] = _class_coverage(lmi, population, fraction, served)
-        classes["middle_or_upper"] = _class_coverage(np.isin(tiers, ("middle", "upper")), population, fraction, served)
+        classes["middle_or_upper"] = _class_coverage(
+            np.isin(tiers, ("middle", "upper")), population, fraction, served
+        )
     distance = None
     if distance_m is not None:
-        distance = {"unit": "m", "measured_from": "representative point of each area", "groups": {}}
+        by_group: dict[str, Any] = {}
+        distance = {"unit": "m", "measured_from": "representative point of each area", "groups": by_group}
         for g in groups:
             x = table[g].to_numpy(dtype=float)
             ok = np.isfinite(distance_m) & (x > 0)
-            distance["groups"][g] = {
+            by_group[g] = {
                 "mean": safe_ratio(float((x[ok] * distance_m[ok]).sum()), float(x[ok].sum())),
                 "median": weighted_median(distance_m, x),
             }

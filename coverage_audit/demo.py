@@ -86,7 +86,9 @@ def build_region(seed: int = DEMO_SEED) -> tuple[gpd.GeoDataFrame, pd.DataFrame]
     cells = tessellation(_REGION_AREAS, seed=seed, cell_size_m=_CELL_M, jitter=0.38)
     width = cells.total_bounds[2]
     height = cells.total_bounds[3]
-    cells = cells.set_geometry(shapely.transform(cells.geometry.values, lambda c: c - [width / 2, height / 2]))
+    cells = cells.set_geometry(
+        shapely.transform(cells.geometry.values, lambda c: c - [width / 2, height / 2])
+    )
     cells["x"] = cells["x"] - width / 2
     cells["y"] = cells["y"] - height / 2
     cells["geoid"] = [f"99017{k:06d}" for k in range(100, 100 + 100 * len(cells), 100)]
@@ -96,9 +98,13 @@ def build_region(seed: int = DEMO_SEED) -> tuple[gpd.GeoDataFrame, pd.DataFrame]
     lake = int(np.argmin(np.hypot(cells["x"] + 0.30 * width, cells["y"] - 0.25 * height)))
     park = int(np.argmin(np.hypot(cells["x"] - 0.05 * width, cells["y"] + 0.08 * height)))
     for k in (lake, park):
-        demo.loc[demo.index[k], [c for c in demo.columns if c.startswith("pop_") or c == "households"]] = 0
+        demo.loc[
+            demo.index[k], [c for c in demo.columns if c.startswith("pop_") or c == "households"]
+        ] = 0
         demo.loc[demo.index[k], "income_ratio"] = np.nan
-    names = np.array([f"Tract {k / 100:.2f}" for k in range(100, 100 + 100 * len(cells), 100)], dtype=object)
+    names = np.array(
+        [f"Tract {k / 100:.2f}" for k in range(100, 100 + 100 * len(cells), 100)], dtype=object
+    )
     names[lake] = "Ostmere Lake"
     names[park] = "Heron Commons Park"
     cells["name"] = names
@@ -130,7 +136,9 @@ def _delivery_zone(cells: gpd.GeoDataFrame, demo: pd.DataFrame) -> shapely.Polyg
     return shapely.simplify(zone, 60.0)
 
 
-def _branch_sites(cells: gpd.GeoDataFrame, demo: pd.DataFrame, rng: np.random.Generator) -> gpd.GeoDataFrame:
+def _branch_sites(
+    cells: gpd.GeoDataFrame, demo: pd.DataFrame, rng: np.random.Generator
+) -> gpd.GeoDataFrame:
     share = _minority_share(demo)
     income = demo["income_ratio"].fillna(0).to_numpy(float)
     weight = (income / 100.0) ** 3 * (1.0 - share) ** 2
@@ -174,7 +182,9 @@ def write_demo_region(folder: str | Path, seed: int = DEMO_SEED) -> Path:
     geo.to_file(path, layer="tracts", driver="GPKG")
     table = pd.concat([cells[["geoid"]], demo], axis=1)
     table.to_csv(out / "demographics.csv", index=False, lineterminator="\n")
-    zone = gpd.GeoDataFrame({"zone": ["same-day"]}, geometry=[_delivery_zone(cells, demo)], crs=FICTIONAL_CRS)
+    zone = gpd.GeoDataFrame(
+        {"zone": ["same-day"]}, geometry=[_delivery_zone(cells, demo)], crs=FICTIONAL_CRS
+    )
     _write_geojson(zone.to_crs("EPSG:4326"), out / "delivery_zone.geojson")
     _write_geojson(_branch_sites(cells, demo, rng).to_crs("EPSG:4326"), out / "branches.geojson")
     pd.DataFrame({"geoid": _assessment_area(cells, demo)}).to_csv(
@@ -183,12 +193,12 @@ def write_demo_region(folder: str | Path, seed: int = DEMO_SEED) -> Path:
     for key, (title, footprint) in SCENARIOS.items():
         (out / f"{key}.toml").write_text(
             SPEC_TEMPLATE.format(
-            title=title,
-            footprint=footprint,
-            seed=seed,
-            analysis_extra='contrast_group = "black_nh"\n' if key == "delivery" else "",
-        ),
-        encoding="utf-8",
+                title=title,
+                footprint=footprint,
+                seed=seed,
+                analysis_extra='contrast_group = "black_nh"\n' if key == "delivery" else "",
+            ),
+            encoding="utf-8",
         )
     (out / "README.md").write_text(_readme(len(cells)), encoding="utf-8")
     return out

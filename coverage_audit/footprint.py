@@ -29,13 +29,14 @@ from .inputs import (
     AreaInputs,
     Exclusions,
     InputRecord,
+    _kept,
+    _crs_text,
     ids_as_text,
     read_layer,
     read_table,
     repair,
     resolve_crs,
     sha256_file,
-    _crs_text,
 )
 from .spec import LENGTH_UNITS, FootprintSpec
 
@@ -90,7 +91,9 @@ class Footprint:
             "name": self.name,
             "kind": self.kind,
             "features": self.features,
-            "area_km2": float(shapely.area(self.geometry)) / 1e6 if self.geometry is not None else 0.0,
+            "area_km2": float(shapely.area(self.geometry)) / 1e6
+            if self.geometry is not None
+            else 0.0,
         }
         if self.kind == "points":
             radii = self.points["radius_m"].to_numpy() if self.points is not None else np.array([])
@@ -102,7 +105,7 @@ class Footprint:
         return out
 
     def manifest(self) -> dict[str, Any]:
-        """Construction details for manifest.json."""
+        """Return construction details for manifest.json."""
         return {
             "name": self.name,
             "kind": self.kind,
@@ -153,7 +156,12 @@ def build_footprint(
         layer, spec.crs, role=f"footprint '{spec.name}'", path=spec.path, key="[footprint] crs"
     )
     record = InputRecord(
-        f"footprint:{spec.name}", str(spec.path), sha256_file(spec.path), len(layer), _crs_text(layer.crs), spec.layer
+        f"footprint:{spec.name}",
+        str(spec.path),
+        sha256_file(spec.path),
+        len(layer),
+        _crs_text(layer.crs),
+        spec.layer,
     )
     geoms = np.asarray(layer.geometry.array, dtype=object)
     rows = np.arange(1, len(layer) + 1)
@@ -163,13 +171,19 @@ def build_footprint(
     type_ids = shapely.get_type_id(geoms)
     if spec.kind == "points":
         wrong = keep & ~np.isin(type_ids, (0, 4))
-        exclusions.add(source, rows[wrong], [None] * int(wrong.sum()), "not a point (points footprint)")
+        exclusions.add(
+            source, rows[wrong], [None] * int(wrong.sum()), "not a point (points footprint)"
+        )
         keep &= ~wrong
-        return _points_footprint(spec, layer, geoms, rows, keep, exclusions, crs, circle_vertices, record)
+        return _points_footprint(
+            spec, layer, geoms, rows, keep, exclusions, crs, circle_vertices, record
+        )
     wrong = keep & ~np.isin(type_ids, (3, 6, 7))
-    exclusions.add(source, rows[wrong], [None] * int(wrong.sum()), "not a polygon (polygons footprint)")
+    exclusions.add(
+        source, rows[wrong], [None] * int(wrong.sum()), "not a polygon (polygons footprint)"
+    )
     keep &= ~wrong
-    fixed, repaired = repair(np.where(keep, geoms, None))
+    fixed, repaired = repair(_kept(geoms, keep))
     if (repaired & keep).any():
         warnings.warn(
             f"repaired {int((repaired & keep).sum())} invalid geometries of footprint '{spec.name}'",
@@ -234,7 +248,9 @@ def _points_footprint(
     pts = layer.loc[keep].copy()
     pts["radius_m"] = radii[keep]
     pts["source_row"] = rows[keep]
-    pts = pts.set_geometry(gpd.GeoSeries(geoms[keep], crs=layer.crs).values).explode(index_parts=False)
+    pts = pts.set_geometry(gpd.GeoSeries(geoms[keep], crs=layer.crs).values).explode(
+        index_parts=False
+    )
     pts = pts.reset_index(drop=True)
     lonlat = pts.to_crs("EPSG:4326")
     lon = lonlat.geometry.x.to_numpy()
@@ -300,7 +316,9 @@ def geodesic_circles(
     vx, vy, _ = geod.fwd(lons, lats, az, dist)
     to_crs = Transformer.from_crs("EPSG:4326", crs, always_xy=True)
     px, py = to_crs.transform(vx, vy)
-    ring = np.stack([np.asarray(px).reshape(n, vertices), np.asarray(py).reshape(n, vertices)], axis=-1)
+    ring = np.stack(
+        [np.asarray(px).reshape(n, vertices), np.asarray(py).reshape(n, vertices)], axis=-1
+    )
     # Azimuths run clockwise; reverse for the counter-clockwise exterior of a valid ring.
     ring = ring[:, ::-1, :]
     closed = np.concatenate([ring, ring[:, :1, :]], axis=1)
@@ -331,7 +349,10 @@ def cut_pieces(geometry: Any, max_vertices: int = MAX_PIECE_VERTICES) -> np.ndar
             xmin, ymin, xmax, ymax = big.bounds
             xm, ym = (xmin + xmax) / 2, (ymin + ymax) / 2
             boxes = shapely.box(
-                [xmin, xm, xmin, xm], [ymin, ymin, ym, ym], [xm, xmax, xm, xmax], [ym, ym, ymax, ymax]
+                [xmin, xm, xmin, xm],
+                [ymin, ymin, ym, ym],
+                [xm, xmax, xm, xmax],
+                [ym, ym, ymax, ymax],
             )
             quarters = shapely.intersection(big, boxes)
             for q in quarters:
@@ -381,7 +402,8 @@ def _ids_footprint(
             rows[unknown],
             listed[unknown],
             [
-                "listed id is an excluded area (see the areas rows)" if v in excluded_ids
+                "listed id is an excluded area (see the areas rows)"
+                if v in excluded_ids
                 else "listed id is not an area of the areas file"
                 for v in listed[unknown]
             ],
@@ -409,7 +431,9 @@ def _ids_footprint(
     )
 
 
-def _read_id_list(spec: FootprintSpec, id_width: int | None) -> tuple[pd.Series, np.ndarray, InputRecord]:
+def _read_id_list(
+    spec: FootprintSpec, id_width: int | None
+) -> tuple[pd.Series, np.ndarray, InputRecord]:
     path = spec.served_ids
     assert path is not None
     role = f"served ids of footprint '{spec.name}'"
@@ -417,7 +441,9 @@ def _read_id_list(spec: FootprintSpec, id_width: int | None) -> tuple[pd.Series,
         probe = read_table(path, id_column=spec.served_ids_column or "__none__", role=role)
         column = spec.served_ids_column or str(probe.columns[0])
         if column not in probe.columns:
-            raise InputError(f"{role} file '{path}' has no column {column!r}; its columns are {list(probe.columns)}")
+            raise InputError(
+                f"{role} file '{path}' has no column {column!r}; its columns are {list(probe.columns)}"
+            )
         table = read_table(path, id_column=column, role=role)
         values = table[column]
     else:
@@ -435,7 +461,11 @@ def _parse_flags(values: pd.Series, column: str) -> tuple[np.ndarray, int]:
     """Read a yes/no column; blanks count as not served and are counted."""
     if pd.api.types.is_bool_dtype(values.dtype):
         return values.fillna(False).to_numpy(dtype=bool), int(values.isna().sum())
-    text = values.map(lambda v: "" if v is None or (isinstance(v, float) and np.isnan(v)) else str(v).strip().lower())
+    text = values.map(
+        lambda v: (
+            "" if v is None or (isinstance(v, float) and np.isnan(v)) else str(v).strip().lower()
+        )
+    )
     text = text.map(lambda v: v[:-2] if v.endswith(".0") else v)
     unknown = ~text.isin(_TRUE | _FALSE)
     if unknown.any():

@@ -64,7 +64,9 @@ class Exclusions:
 
     records: list[dict[str, Any]] = field(default_factory=list)
 
-    def add(self, source: str, rows: Iterable[Any], ids: Iterable[Any], reason: str | Iterable[str]) -> None:
+    def add(
+        self, source: str, rows: Iterable[Any], ids: Iterable[Any], reason: str | Iterable[str]
+    ) -> None:
         """Record rows; ``reason`` is one string for all or one per row."""
         rows_l = list(rows)
         ids_l = list(ids)
@@ -80,7 +82,7 @@ class Exclusions:
             )
 
     def count(self, source: str | None = None) -> int:
-        """Number of records, optionally of one source."""
+        """Return the number of records, optionally of one source."""
         return sum(1 for r in self.records if source is None or r["source"] == source)
 
     def to_frame(self) -> pd.DataFrame:
@@ -90,7 +92,7 @@ class Exclusions:
         return frame
 
     def by_reason(self) -> dict[str, int]:
-        """Counts by a short form of the reason (the text before any colon)."""
+        """Return counts by a short form of the reason (the text before any colon)."""
         out: dict[str, int] = {}
         for r in self.records:
             key = f"{r['source']}: {str(r['reason']).split(':')[0]}"
@@ -190,7 +192,9 @@ def ids_as_text(values: pd.Series, *, width: int | None, where: str) -> pd.Serie
         numbers = pd.to_numeric(series, errors="coerce")
         integral = numbers.dropna()
         if (integral % 1 != 0).any():
-            raise InputError(f"{where}: ids must be whole numbers or text, found {integral[integral % 1 != 0].iloc[0]}")
+            raise InputError(
+                f"{where}: ids must be whole numbers or text, found {integral[integral % 1 != 0].iloc[0]}"
+            )
         text = numbers.map(lambda v: None if pd.isna(v) else str(int(v)))
         if width is None:
             warnings.warn(
@@ -202,7 +206,11 @@ def ids_as_text(values: pd.Series, *, width: int | None, where: str) -> pd.Serie
             )
         series = text
     else:
-        series = series.map(lambda v: None if v is None or (isinstance(v, float) and np.isnan(v)) else str(v).strip())
+        series = series.map(
+            lambda v: (
+                None if v is None or (isinstance(v, float) and np.isnan(v)) else str(v).strip()
+            )
+        )
     if width is not None:
         series = series.map(lambda v: v if v is None else v.zfill(width))
     series = series.where(~missing, None)
@@ -217,7 +225,9 @@ def _crs_text(crs: CRS | None) -> str | None:
     return f"{auth[0]}:{auth[1]}" if auth else crs.to_string()
 
 
-def resolve_crs(layer: gpd.GeoDataFrame, declared: str | None, *, role: str, path: Path, key: str) -> gpd.GeoDataFrame:
+def resolve_crs(
+    layer: gpd.GeoDataFrame, declared: str | None, *, role: str, path: Path, key: str
+) -> gpd.GeoDataFrame:
     """Give ``layer`` its CRS: the file's own, or the one the spec declares.
 
     Raises
@@ -229,7 +239,9 @@ def resolve_crs(layer: gpd.GeoDataFrame, declared: str | None, *, role: str, pat
         try:
             declared_crs = CRS.from_user_input(declared)
         except Exception:
-            raise InputError(f'{role}: crs "{declared}" is not a known CRS; write e.g. "EPSG:4326"') from None
+            raise InputError(
+                f'{role}: crs "{declared}" is not a known CRS; write e.g. "EPSG:4326"'
+            ) from None
         if layer.crs is None:
             layer = layer.set_crs(declared_crs)
             _check_degrees(layer, role=role, path=path)
@@ -237,7 +249,7 @@ def resolve_crs(layer: gpd.GeoDataFrame, declared: str | None, *, role: str, pat
         if not CRS(layer.crs).equals(declared_crs, ignore_axis_order=True):
             raise InputError(
                 f"{role} file '{path}' declares CRS {_crs_text(layer.crs)} but the spec says "
-                f"{key} = \"{declared}\"; remove {key} from the spec (it is only for files without "
+                f'{key} = "{declared}"; remove {key} from the spec (it is only for files without '
                 "a CRS) or fix the file"
             )
         return layer
@@ -317,6 +329,13 @@ def polygonal(geoms: np.ndarray) -> np.ndarray:
     return out
 
 
+def _kept(geoms: np.ndarray, keep: np.ndarray) -> np.ndarray:
+    """Geometries where ``keep``, None elsewhere."""
+    out = np.empty(geoms.size, dtype=object)
+    out[keep] = geoms[keep]
+    return out
+
+
 def repair(geoms: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """Repair invalid geometries with ``make_valid``, keeping polygonal parts.
 
@@ -365,7 +384,9 @@ def _numeric_problem(raw: pd.Series) -> tuple[pd.Series, pd.Series]:
     return numbers.astype(float), problem
 
 
-def load_areas(areas_spec: AreasSpec, pop_spec: PopulationSpec, *, analysis_crs: str | None = None) -> AreaInputs:
+def load_areas(
+    areas_spec: AreasSpec, pop_spec: PopulationSpec, *, analysis_crs: str | None = None
+) -> AreaInputs:
     """Read, join, validate, repair and project the areas.
 
     Parameters
@@ -386,7 +407,14 @@ def load_areas(areas_spec: AreasSpec, pop_spec: PopulationSpec, *, analysis_crs:
     layer = resolve_crs(layer, areas_spec.crs, role="areas", path=path, key="[areas] crs")
     source_crs = CRS(layer.crs)
     records.append(
-        InputRecord("areas", str(path), sha256_file(path), len(layer), _crs_text(layer.crs), areas_spec.layer)
+        InputRecord(
+            "areas",
+            str(path),
+            sha256_file(path),
+            len(layer),
+            _crs_text(layer.crs),
+            areas_spec.layer,
+        )
     )
     n_input = len(layer)
     id_col = areas_spec.id
@@ -397,7 +425,9 @@ def load_areas(areas_spec: AreasSpec, pop_spec: PopulationSpec, *, analysis_crs:
         )
     frame = pd.DataFrame(layer.drop(columns=layer.geometry.name))
     frame["_row"] = np.arange(1, n_input + 1)
-    frame[id_col] = ids_as_text(frame[id_col], width=areas_spec.id_width, where=f"areas file '{path}' column {id_col}")
+    frame[id_col] = ids_as_text(
+        frame[id_col], width=areas_spec.id_width, where=f"areas file '{path}' column {id_col}"
+    )
     geoms = np.asarray(layer.geometry.array, dtype=object)
     keep = np.ones(n_input, dtype=bool)
 
@@ -405,7 +435,9 @@ def load_areas(areas_spec: AreasSpec, pop_spec: PopulationSpec, *, analysis_crs:
         nonlocal keep
         mask = mask & keep
         if mask.any():
-            reasons = reason if isinstance(reason, str) else list(np.asarray(reason, dtype=object)[mask])
+            reasons = (
+                reason if isinstance(reason, str) else list(np.asarray(reason, dtype=object)[mask])
+            )
             exclusions.add(source, frame.loc[mask, "_row"], frame.loc[mask, id_col], reasons)
             keep &= ~mask
 
@@ -413,13 +445,16 @@ def load_areas(areas_spec: AreasSpec, pop_spec: PopulationSpec, *, analysis_crs:
     drop(ids.isna().to_numpy(), "missing id")
     dup_counts = ids[keep].value_counts()
     dup_mask = ids.map(dup_counts).fillna(0).to_numpy() > 1
-    drop(dup_mask, [f"duplicate id: appears {int(dup_counts.get(v, 0))} times in the areas file" for v in ids])
+    drop(
+        dup_mask,
+        [f"duplicate id: appears {int(dup_counts.get(v, 0))} times in the areas file" for v in ids],
+    )
     missing_geom = shapely.is_missing(geoms) | shapely.is_empty(geoms)
     drop(missing_geom, "null or empty geometry")
     type_ids = shapely.get_type_id(geoms)
     wrong_type = ~np.isin(type_ids, (3, 6, 7)) & ~missing_geom
     drop(wrong_type, [f"not a polygon: {'' if g is None else g.geom_type}" for g in geoms])
-    repaired_geoms, repaired_mask = repair(np.where(keep, geoms, None))
+    repaired_geoms, repaired_mask = repair(_kept(geoms, keep))
     collection = keep & (type_ids == 7)
     if collection.any():
         repaired_geoms[collection] = polygonal(repaired_geoms[collection])
@@ -427,7 +462,11 @@ def load_areas(areas_spec: AreasSpec, pop_spec: PopulationSpec, *, analysis_crs:
     drop(still_empty, "geometry has no polygonal part after repair")
     repaired = int((repaired_mask & keep).sum())
     if repaired:
-        warnings.warn(f"repaired {repaired} invalid area geometries with make_valid", RepairWarning, stacklevel=2)
+        warnings.warn(
+            f"repaired {repaired} invalid area geometries with make_valid",
+            RepairWarning,
+            stacklevel=2,
+        )
     geoms = repaired_geoms
 
     if areas_spec.table is not None:
@@ -444,10 +483,14 @@ def load_areas(areas_spec: AreasSpec, pop_spec: PopulationSpec, *, analysis_crs:
         table = table.copy()
         table["_trow"] = np.arange(1, len(table) + 1)
         table[table_id] = ids_as_text(
-            table[table_id], width=areas_spec.id_width, where=f"demographics table column {table_id}"
+            table[table_id],
+            width=areas_spec.id_width,
+            where=f"demographics table column {table_id}",
         )
         tkeep = table[table_id].notna().to_numpy().copy()
-        exclusions.add("table", table.loc[~tkeep, "_trow"], table.loc[~tkeep, table_id], "missing id")
+        exclusions.add(
+            "table", table.loc[~tkeep, "_trow"], table.loc[~tkeep, table_id], "missing id"
+        )
         tcounts = table.loc[tkeep, table_id].value_counts()
         tdup = table[table_id].map(tcounts).fillna(0).to_numpy() > 1
         tdup &= tkeep
@@ -455,7 +498,10 @@ def load_areas(areas_spec: AreasSpec, pop_spec: PopulationSpec, *, analysis_crs:
             "table",
             table.loc[tdup, "_trow"],
             table.loc[tdup, table_id],
-            [f"duplicate id: appears {int(tcounts[v])} times in the table" for v in table.loc[tdup, table_id]],
+            [
+                f"duplicate id: appears {int(tcounts[v])} times in the table"
+                for v in table.loc[tdup, table_id]
+            ],
         )
         tkeep &= ~tdup
         layer_ids = set(ids[keep].dropna())
@@ -479,11 +525,15 @@ def load_areas(areas_spec: AreasSpec, pop_spec: PopulationSpec, *, analysis_crs:
         frame = frame.rename(columns={c: f"{c}_areas" for c in overlap})
         joined = frame.join(good_table, on=id_col)
         no_table_row = keep & joined["_trow"].isna().to_numpy()
-        drop(no_table_row, f"no row with this id in the demographics table '{areas_spec.table.name}'")
+        drop(
+            no_table_row, f"no row with this id in the demographics table '{areas_spec.table.name}'"
+        )
         frame = joined.drop(columns=["_trow"])
 
     # Count columns: the total, each group and the optional income ratio.
-    where_counts = f"'{areas_spec.table}'" if areas_spec.table is not None else f"areas file '{path}'"
+    where_counts = (
+        f"'{areas_spec.table}'" if areas_spec.table is not None else f"areas file '{path}'"
+    )
     needed = [pop_spec.total] + [c for _, c in pop_spec.groups]
     missing_cols = [c for c in needed if c not in frame.columns]
     if missing_cols:
@@ -501,7 +551,10 @@ def load_areas(areas_spec: AreasSpec, pop_spec: PopulationSpec, *, analysis_crs:
         values, problem = _numeric_problem(frame[column])
         numbers[label] = values
         bad = (problem != "").to_numpy()
-        reasons = [f"{p} count in column {column}: {v!r}" for p, v in zip(problem, frame[column], strict=True)]
+        reasons = [
+            f"{p} count in column {column}: {v!r}"
+            for p, v in zip(problem, frame[column], strict=True)
+        ]
         drop(bad, reasons)
     total = numbers["total"]
     for name, column in pop_spec.groups:
@@ -529,7 +582,9 @@ def load_areas(areas_spec: AreasSpec, pop_spec: PopulationSpec, *, analysis_crs:
     pop = out["population"].to_numpy()
     with np.errstate(divide="ignore", invalid="ignore"):
         for name in groups:
-            out[f"{name}_share"] = np.where(pop > 0, out[name].to_numpy() / np.where(pop > 0, pop, 1), np.nan)
+            out[f"{name}_share"] = np.where(
+                pop > 0, out[name].to_numpy() / np.where(pop > 0, pop, 1), np.nan
+            )
     if "minority" in groups:
         share = out["minority_share"].to_numpy()
         cut = pop_spec.majority_minority_share
@@ -550,7 +605,9 @@ def load_areas(areas_spec: AreasSpec, pop_spec: PopulationSpec, *, analysis_crs:
         out[column] = frame[column].to_numpy()[sel]
     out["source_row"] = frame["_row"].to_numpy()[sel]
 
-    analysed = gpd.GeoDataFrame(out, geometry=gpd.GeoSeries(geoms[sel], crs=layer.crs).values, crs=layer.crs)
+    analysed = gpd.GeoDataFrame(
+        out, geometry=gpd.GeoSeries(geoms[sel], crs=layer.crs).values, crs=layer.crs
+    )
     if len(analysed) == 0:
         raise InputError(
             f"no area of '{path}' can be analysed: all {n_input} rows were excluded "
@@ -560,7 +617,9 @@ def load_areas(areas_spec: AreasSpec, pop_spec: PopulationSpec, *, analysis_crs:
     analysed = analysed.to_crs(crs)
     analysed["area_km2"] = analysed.geometry.area.to_numpy() / 1e6
     analysed = analysed.reset_index(drop=True)
-    assert exclusions.count("areas") + len(analysed) == n_input, "area rows lost between input and output"
+    assert exclusions.count("areas") + len(analysed) == n_input, (
+        "area rows lost between input and output"
+    )
     return AreaInputs(
         frame=analysed,
         id_column=id_col,

@@ -30,7 +30,9 @@ from .errors import InputError
 def atomic_path(target: Path, suffix: str = "") -> Iterator[Path]:
     """Yield a temporary path beside ``target``; move it over ``target`` on success."""
     target.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(prefix=f".{target.name}.", suffix=suffix or target.suffix, dir=target.parent)
+    fd, tmp = tempfile.mkstemp(
+        prefix=f".{target.name}.", suffix=suffix or target.suffix, dir=target.parent
+    )
     os.close(fd)
     tmp_path = Path(tmp)
     # mkstemp makes the file private (0600); give outputs the usual permissions.
@@ -84,7 +86,9 @@ def areas_for_output(frame: gpd.GeoDataFrame) -> gpd.GeoDataFrame:
         if pd.api.types.is_bool_dtype(series.dtype):
             out[column] = series.astype(bool)
         elif series.dtype == object:
-            out[column] = series.map(lambda v: None if v is None or (isinstance(v, float) and np.isnan(v)) else v)
+            out[column] = series.map(
+                lambda v: None if v is None or (isinstance(v, float) and np.isnan(v)) else v
+            )
     return out
 
 

@@ -318,7 +318,10 @@ def spec_from_dict(
         raise SpecError(f"{where}: footprint names must differ; repeated: {dupes}")
 
     analysis = _analysis_from(_table(data.get("analysis", {}), where, "analysis"), where)
-    if analysis.contrast_group is not None and analysis.contrast_group not in population.group_names:
+    if (
+        analysis.contrast_group is not None
+        and analysis.contrast_group not in population.group_names
+    ):
         raise SpecError(
             f'{where}: [analysis] contrast_group was "{analysis.contrast_group}" but must be one of '
             f"the groups {population.group_names}"
@@ -347,6 +350,7 @@ def spec_from_dict(
 
 def _population_from(pop_d: Mapping[str, Any], where: str) -> PopulationSpec:
     total = _str(pop_d, "total", where, "population", required=True)
+    assert total is not None  # required=True raised otherwise
     groups_raw = pop_d.get("groups")
     if not isinstance(groups_raw, Mapping) or not groups_raw:
         raise SpecError(
@@ -366,10 +370,13 @@ def _population_from(pop_d: Mapping[str, Any], where: str) -> PopulationSpec:
                 f"choose another (reserved: {sorted(RESERVED_NAMES)} and names ending in _share)"
             )
         if not isinstance(column, str) or not column:
-            raise SpecError(f'{where}: [population] groups.{name} must name a column, got {column!r}')
+            raise SpecError(
+                f"{where}: [population] groups.{name} must name a column, got {column!r}"
+            )
         groups.append((str(name), column))
     names = [n for n, _ in groups]
     reference = _str(pop_d, "reference", where, "population", required=True)
+    assert reference is not None
     if reference not in names:
         raise SpecError(
             f'{where}: [population] reference was "{reference}" but must be one of the groups '
@@ -384,9 +391,9 @@ def _population_from(pop_d: Mapping[str, Any], where: str) -> PopulationSpec:
     share = _float(pop_d, "majority_minority_share", where, "population", 0.5, 0.0, 1.0)
     rule = _choice(pop_d, "majority_minority_rule", where, "population", MAJORITY_RULES, "above")
     return PopulationSpec(
-        total=total,  # type: ignore[arg-type]
+        total=total,
         groups=tuple(groups),
-        reference=reference,  # type: ignore[arg-type]
+        reference=reference,
         derive_minority=derive,
         income_ratio=_str(pop_d, "income_ratio", where, "population"),
         majority_minority_share=share,
@@ -398,7 +405,9 @@ def _footprint_from(
     fp_d: Mapping[str, Any], base: Path, where: str, label: str, index: int
 ) -> FootprintSpec:
     _check_keys(fp_d, _FOOT_KEYS, where, f"[{label}]")
-    name = _str(fp_d, "name", where, label) or ("footprint" if index == 0 else f"footprint_{index + 1}")
+    name = _str(fp_d, "name", where, label) or (
+        "footprint" if index == 0 else f"footprint_{index + 1}"
+    )
     path = _path(fp_d, "path", base, where, label)
     served_ids = _path(fp_d, "served_ids", base, where, label)
     served_column = _str(fp_d, "served_column", where, label)
@@ -430,7 +439,7 @@ def _footprint_from(
     unit = _choice(fp_d, "radius_unit", where, label, tuple(LENGTH_UNITS), "m")
     radius_m: float | None = None
     if kind in ("polygons", "points") and path is None:
-        raise SpecError(f"{where}: [{label}] kind = \"{kind}\" needs path = the footprint file")
+        raise SpecError(f'{where}: [{label}] kind = "{kind}" needs path = the footprint file')
     if kind == "points":
         if radius is None and radius_column is None:
             raise SpecError(
@@ -442,15 +451,20 @@ def _footprint_from(
     elif radius is not None or radius_column is not None:
         raise SpecError(f'{where}: [{label}] radius applies only to kind = "points"')
     if kind == "ids":
-        given = [k for k, v in (("served_ids", served_ids), ("served_column", served_column),
-                                ("ids", ids)) if v is not None]
+        given = [
+            k
+            for k, v in (("served_ids", served_ids), ("served_column", served_column), ("ids", ids))
+            if v is not None
+        ]
         if len(given) != 1:
             raise SpecError(
                 f"{where}: [{label}] a list of served areas needs exactly one of served_ids "
                 f"(a file of ids), served_column (a flag column of the areas) or ids; got {given}"
             )
     elif served_ids is not None or served_column is not None or ids is not None:
-        raise SpecError(f'{where}: [{label}] served_ids/served_column/ids apply only to kind = "ids"')
+        raise SpecError(
+            f'{where}: [{label}] served_ids/served_column/ids apply only to kind = "ids"'
+        )
     return FootprintSpec(
         name=name,
         kind=kind,
@@ -540,7 +554,9 @@ def _table(value: Any, where: str, label: str) -> Mapping[str, Any]:
     return value
 
 
-def _str(d: Mapping[str, Any], key: str, where: str, label: str, required: bool = False) -> str | None:
+def _str(
+    d: Mapping[str, Any], key: str, where: str, label: str, required: bool = False
+) -> str | None:
     value = d.get(key)
     if value is None:
         if required:

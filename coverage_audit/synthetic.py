@@ -56,15 +56,17 @@ def tessellation(
     rng = np.random.default_rng(seed)
     cols = max(1, int(round(math.sqrt(n_areas * 1.25))))
     rows = max(1, int(round(n_areas / cols)))
-    jj, ii = np.meshgrid(np.arange(cols), np.arange(rows))
-    jj = jj.ravel()
-    ii = ii.ravel()
+    grid_j, grid_i = np.meshgrid(np.arange(cols), np.arange(rows))
+    jj = grid_j.ravel()
+    ii = grid_i.ravel()
     x = (jj + 0.5 + rng.uniform(-jitter, jitter, jj.size)) * cell_size_m
     y = (ii + 0.5 + rng.uniform(-jitter, jitter, ii.size)) * cell_size_m
     width, height = cols * cell_size_m, rows * cell_size_m
     frame = shapely.box(0.0, 0.0, width, height)
     points = shapely.points(x, y)
-    cells = shapely.get_parts(shapely.voronoi_polygons(shapely.multipoints(points), extend_to=frame))
+    cells = shapely.get_parts(
+        shapely.voronoi_polygons(shapely.multipoints(points), extend_to=frame)
+    )
     cells = shapely.intersection(cells, frame)
     # Voronoi output order is not the input order: match each cell to the seed inside it.
     tree = shapely.STRtree(cells)

@@ -63,7 +63,9 @@ enclave_draws = 99
 """
 
 
-def spec_text(footprint: str, areas_extra: str = "", population_extra: str = "", analysis_extra: str = "") -> str:
+def spec_text(
+    footprint: str, areas_extra: str = "", population_extra: str = "", analysis_extra: str = ""
+) -> str:
     return BASE_SPEC.format(
         footprint=footprint,
         areas_extra=areas_extra,

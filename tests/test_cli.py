@@ -12,7 +12,7 @@ import shapely
 from coverage_audit.cli import main
 from coverage_audit.outputs import atomic_path, write_text
 
-from .conftest import GRID_CRS, digest, grid, spec_text, write_spec
+from .conftest import GRID_CRS, digest, grid, write_spec
 
 CONTRACT_SUMMARY_KEYS = {"schema_version", "areas", "coverage"}
 CONTRACT_GROUP_KEYS = {
@@ -34,7 +34,9 @@ def _run(argv, capsys):
 
 def test_run_writes_the_output_contract(two_by_two, tmp_path, capsys):
     out = tmp_path / "out"
-    code, stdout, err = _run(["run", two_by_two / "audit.toml", "--out", out, "--no-map", "--no-report"], capsys)
+    code, stdout, err = _run(
+        ["run", two_by_two / "audit.toml", "--out", out, "--no-map", "--no-report"], capsys
+    )
     assert code == 0, err
     for name in ("summary.json", "areas.csv", "areas.gpkg", "exclusions.csv", "manifest.json"):
         assert (out / name).is_file(), name
@@ -47,14 +49,31 @@ def test_run_writes_the_output_contract(two_by_two, tmp_path, capsys):
     for g in ("white", "black", "minority"):
         assert CONTRACT_GROUP_KEYS <= set(cov["groups"][g])
     areas = pd.read_csv(out / "areas.csv", dtype={"geoid": str})
-    assert {"geoid", "covered_fraction", "served", "white", "black", "minority", "minority_share"} <= set(areas.columns)
+    assert {
+        "geoid",
+        "covered_fraction",
+        "served",
+        "white",
+        "black",
+        "minority",
+        "minority_share",
+    } <= set(areas.columns)
     assert areas["geoid"].iloc[0] == "01001000001"
     gpkg = gpd.read_file(out / "areas.gpkg")
     assert len(gpkg) == 4 and gpkg.crs is not None
     exclusions = pd.read_csv(out / "exclusions.csv")
     assert list(exclusions.columns) == ["source", "row", "id", "reason"]
     manifest = json.loads((out / "manifest.json").read_text())
-    for key in ("version", "spec", "inputs", "analysis_crs", "seed", "libraries", "started", "finished"):
+    for key in (
+        "version",
+        "spec",
+        "inputs",
+        "analysis_crs",
+        "seed",
+        "libraries",
+        "started",
+        "finished",
+    ):
         assert key in manifest
     assert all(len(r["sha256"]) == 64 for r in manifest["inputs"])
     assert "white" in stdout and "wrote" in stdout
@@ -63,7 +82,10 @@ def test_run_writes_the_output_contract(two_by_two, tmp_path, capsys):
 def test_summary_is_byte_identical_on_rerun(two_by_two, tmp_path, capsys):
     a, b = tmp_path / "a", tmp_path / "b"
     for out in (a, b):
-        code, _, err = _run(["run", two_by_two / "audit.toml", "--out", out, "--quiet", "--no-map", "--no-report"], capsys)
+        code, _, err = _run(
+            ["run", two_by_two / "audit.toml", "--out", out, "--quiet", "--no-map", "--no-report"],
+            capsys,
+        )
         assert code == 0, err
     assert (a / "summary.json").read_bytes() == (b / "summary.json").read_bytes()
     assert (a / "areas.csv").read_bytes() == (b / "areas.csv").read_bytes()
@@ -79,7 +101,9 @@ def test_summary_is_byte_identical_on_rerun(two_by_two, tmp_path, capsys):
         ("bad_column", "has no column 'blk' named in \\[population\\]"),
     ],
 )
-def test_bad_input_gives_one_clear_message_and_nonzero_exit(two_by_two, tmp_path, capsys, setup, expected):
+def test_bad_input_gives_one_clear_message_and_nonzero_exit(
+    two_by_two, tmp_path, capsys, setup, expected
+):
     import re
 
     spec = two_by_two / "audit.toml"
@@ -89,14 +113,18 @@ def test_bad_input_gives_one_clear_message_and_nonzero_exit(two_by_two, tmp_path
     elif setup == "unknown_key":
         spec = write_spec(tmp_path / "s.toml", 'colour = "red"\n' + text)
     elif setup == "missing_areas":
-        spec = write_spec(two_by_two / "s.toml", text.replace('path = "areas.gpkg"', 'path = "gone.gpkg"'))
+        spec = write_spec(
+            two_by_two / "s.toml", text.replace('path = "areas.gpkg"', 'path = "gone.gpkg"')
+        )
     elif setup == "no_crs_footprint":
         import warnings
 
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", UserWarning)
             gpd.GeoDataFrame(geometry=[shapely.box(0, 0, 1, 1)]).to_file(two_by_two / "nocrs.shp")
-        spec = write_spec(two_by_two / "s.toml", text.replace('path = "zone.gpkg"', 'path = "nocrs.shp"'))
+        spec = write_spec(
+            two_by_two / "s.toml", text.replace('path = "zone.gpkg"', 'path = "nocrs.shp"')
+        )
     elif setup == "bad_column":
         spec = write_spec(two_by_two / "s.toml", text.replace('black = "black"', 'black = "blk"'))
     before = {p.name: digest(p) for p in two_by_two.iterdir() if p.is_file() and p.name != "s.toml"}
@@ -128,14 +156,35 @@ def test_options_instead_of_spec_and_write_spec_roundtrip(two_by_two, tmp_path, 
     out = tmp_path / "o1"
     saved = tmp_path / "saved.toml"
     argv = [
-        "run", "--areas", two_by_two / "areas.gpkg", "--id", "geoid", "--total", "total",
-        "--group", "white=white", "--group", "black=black", "--reference", "white", "--derive-minority",
-        "--footprint", two_by_two / "zone.gpkg", "--out", out, "--write-spec", saved, "--quiet",
-        "--no-map", "--no-report",
+        "run",
+        "--areas",
+        two_by_two / "areas.gpkg",
+        "--id",
+        "geoid",
+        "--total",
+        "total",
+        "--group",
+        "white=white",
+        "--group",
+        "black=black",
+        "--reference",
+        "white",
+        "--derive-minority",
+        "--footprint",
+        two_by_two / "zone.gpkg",
+        "--out",
+        out,
+        "--write-spec",
+        saved,
+        "--quiet",
+        "--no-map",
+        "--no-report",
     ]
     code, _, err = _run(argv, capsys)
     assert code == 0, err
-    code, _, err = _run(["run", saved, "--out", tmp_path / "o2", "--quiet", "--no-map", "--no-report"], capsys)
+    code, _, err = _run(
+        ["run", saved, "--out", tmp_path / "o2", "--quiet", "--no-map", "--no-report"], capsys
+    )
     assert code == 0, err
     s1 = json.loads((out / "summary.json").read_text())
     s2 = json.loads((tmp_path / "o2" / "summary.json").read_text())

@@ -71,7 +71,9 @@ def test_many_small_pieces_equal_whole():
     rng = np.random.default_rng(7)
     circles = shapely.buffer(shapely.points(rng.uniform(0, 10, (60, 2))), 1.3, quad_segs=32)
     union = shapely.union_all(circles)
-    cells = np.array([shapely.box(i, j, i + 1, j + 1) for i in range(10) for j in range(10)], dtype=object)
+    cells = np.array(
+        [shapely.box(i, j, i + 1, j + 1) for i in range(10) for j in range(10)], dtype=object
+    )
     expected = shapely.area(shapely.intersection(cells, union)) / 1.0
     pieces = cut_pieces(union, max_vertices=64)
     assert pieces.size > len(shapely.get_parts(union))
@@ -89,7 +91,11 @@ def test_four_fifths_strictly_less_than():
     assert result.groups["a"].ratio == pytest.approx(0.8, abs=1e-15)
     assert result.groups["a"].below_four_fifths is False
     result = coverage_by_group(
-        table, groups=["ref", "a"], reference="ref", fraction=np.array([0.625, 0.4999]), threshold=0.5
+        table,
+        groups=["ref", "a"],
+        reference="ref",
+        fraction=np.array([0.625, 0.4999]),
+        threshold=0.5,
     )
     assert result.groups["a"].below_four_fifths is True
     assert FOUR_FIFTHS == 0.8
@@ -98,9 +104,18 @@ def test_four_fifths_strictly_less_than():
 def test_comparison_with_highest_rate_group():
     # 29 CFR 1607.4(D) compares with "the group with the highest rate"; offered beside a
     # named reference group.
-    table = pd.DataFrame({"population": [10.0, 10.0, 10.0], "ref": [10, 0, 0], "a": [0, 10, 0], "b": [0, 0, 10]})
+    table = pd.DataFrame(
+        {"population": [10.0, 10.0, 10.0], "ref": [10, 0, 0], "a": [0, 10, 0], "b": [0, 0, 10]}
+    )
     fraction = np.array([0.5, 1.0, 0.3])
-    result = coverage_by_group(table, groups=["ref", "a", "b"], reference="ref", fraction=fraction, threshold=0.5, comparison="highest")
+    result = coverage_by_group(
+        table,
+        groups=["ref", "a", "b"],
+        reference="ref",
+        fraction=fraction,
+        threshold=0.5,
+        comparison="highest",
+    )
     assert result.comparison_group == "a"
     assert result.groups["ref"].ratio == pytest.approx(0.5)
     assert result.groups["b"].ratio == pytest.approx(0.3)
@@ -109,7 +124,9 @@ def test_comparison_with_highest_rate_group():
 
 def test_zero_population_group_gives_none_not_nan():
     table = pd.DataFrame({"population": [10.0], "ref": [10.0], "a": [0.0]})
-    result = coverage_by_group(table, groups=["ref", "a"], reference="ref", fraction=np.array([1.0]), threshold=0.5)
+    result = coverage_by_group(
+        table, groups=["ref", "a"], reference="ref", fraction=np.array([1.0]), threshold=0.5
+    )
     assert result.groups["a"].rate is None and result.groups["a"].ratio is None
     assert result.groups["a"].below_four_fifths is False
     assert result.to_dict()["groups"]["a"]["rate"] is None
@@ -125,7 +142,9 @@ def test_majority_minority_and_income_classes():
         }
     )
     fraction = np.array([1.0, 0.0, 0.5, 0.25])
-    result = coverage_by_group(table, groups=["ref"], reference="ref", fraction=fraction, threshold=0.5)
+    result = coverage_by_group(
+        table, groups=["ref"], reference="ref", fraction=fraction, threshold=0.5
+    )
     classes = result.area_classes
     assert classes["majority_minority"]["rate"] == pytest.approx(0.0)
     assert classes["not_majority_minority"]["rate"] == pytest.approx((100 + 50 + 25) / 300)
@@ -149,7 +168,9 @@ def test_nearest_site_distance_is_geodesic():
     # the projection: compare with Geod.inv directly.
     import geopandas as gpd
 
-    cell = gpd.GeoSeries([shapely.box(-1000, -1000, 1000, 1000)], crs=GRID_CRS)  # centred at the origin
+    cell = gpd.GeoSeries(
+        [shapely.box(-1000, -1000, 1000, 1000)], crs=GRID_CRS
+    )  # centred at the origin
     site = gpd.GeoSeries([shapely.Point(30_000, 40_000)], crs=GRID_CRS)
     d = nearest_site_distance(cell.to_numpy(), site.to_numpy(), GRID_CRS)[0]
     rep = cell.representative_point().to_crs("EPSG:4326").iloc[0]

@@ -23,7 +23,9 @@ def test_reach_circle_area_within_one_thousandth_of_pi_r_squared(radius, lat):
     # geodesic circle's own area differs from pi r^2 by about r^2/(12 R^2) (5e-6 at 100 km,
     # from the spherical cap formula 2 pi R^2 (1 - cos(r/R))).
     crs = f"+proj=laea +lat_0={lat} +lon_0=20 +datum=WGS84 +units=m +no_defs"
-    polygons, error = geodesic_circles(np.array([20.0]), np.array([lat]), np.array([radius]), crs, 128)
+    polygons, error = geodesic_circles(
+        np.array([20.0]), np.array([lat]), np.array([radius]), crs, 128
+    )
     assert abs(polygons[0].area / (np.pi * radius**2) - 1) < 1e-3
     assert error < 1e-4
     assert polygons[0].is_valid
@@ -33,8 +35,13 @@ def test_inscribed_polygon_deficit_formula():
     # A regular N-gon inscribed in a circle of radius r has area (N/2) r^2 sin(2 pi / N)
     # (elementary geometry); with our radius scaling the area equals pi r^2 for every N.
     for n in (16, 64, 128):
-        polys, _ = geodesic_circles(np.array([0.0]), np.array([0.0]), np.array([1000.0]),
-                                    "+proj=laea +lat_0=0 +lon_0=0 +datum=WGS84 +units=m", n)
+        polys, _ = geodesic_circles(
+            np.array([0.0]),
+            np.array([0.0]),
+            np.array([1000.0]),
+            "+proj=laea +lat_0=0 +lon_0=0 +datum=WGS84 +units=m",
+            n,
+        )
         assert polys[0].area == pytest.approx(np.pi * 1000.0**2, rel=2e-5)
         assert len(polys[0].exterior.coords) == n + 1
 
@@ -60,7 +67,9 @@ def _points_region(tmp_path, footprint_lines, points=None, **point_columns):
     areas["white"] = [100, 0, 50]
     areas["black"] = [0, 100, 50]
     areas.to_file(tmp_path / "areas.gpkg", driver="GPKG")
-    pts = points if points is not None else [shapely.Point(5_000, 5_000), shapely.Point(5_000, 5_000)]
+    pts = (
+        points if points is not None else [shapely.Point(5_000, 5_000), shapely.Point(5_000, 5_000)]
+    )
     gdf = gpd.GeoDataFrame(point_columns, geometry=pts, crs=GRID_CRS)
     gdf.to_file(tmp_path / "sites.gpkg", driver="GPKG")
     return write_spec(tmp_path / "audit.toml", spec_text(footprint_lines))
@@ -84,7 +93,12 @@ def test_points_footprint_coverage_and_distance(tmp_path):
 
 
 def test_radius_column_and_bad_point_rows(tmp_path):
-    pts = [shapely.Point(5_000, 5_000), shapely.Point(15_000, 5_000), None, shapely.Point(25_000, 5_000)]
+    pts = [
+        shapely.Point(5_000, 5_000),
+        shapely.Point(15_000, 5_000),
+        None,
+        shapely.Point(25_000, 5_000),
+    ]
     spec = _points_region(
         tmp_path,
         'path = "sites.gpkg"\nradius_column = "reach"\nradius_unit = "km"',
@@ -109,9 +123,14 @@ def test_listed_ids_file_and_inline_ids(tmp_path):
     spec = write_spec(tmp_path / "a.toml", spec_text('served_ids = "aa.txt"'))
     result = run_audit(spec)
     assert result.areas["covered_fraction"].tolist() == [1.0, 0.0, 1.0]
-    assert result.summary["coverage"]["groups"]["black"]["rate"] == pytest.approx(5 / 15)  # by hand: 0 + 5 of 15
+    assert result.summary["coverage"]["groups"]["black"]["rate"] == pytest.approx(
+        5 / 15
+    )  # by hand: 0 + 5 of 15
     ex = result.exclusions
-    assert ex[ex["id"] == "01001999999"]["reason"].iloc[0] == "listed id is not an area of the areas file"
+    assert (
+        ex[ex["id"] == "01001999999"]["reason"].iloc[0]
+        == "listed id is not an area of the areas file"
+    )
     assert ex[(ex["source"] == "served_ids:footprint") & ex["id"].isna()]["row"].tolist() == [4]
     spec = write_spec(tmp_path / "b.toml", spec_text('ids = ["01001000002"]'))
     assert run_audit(spec).areas["served"].tolist() == [False, True, False]
@@ -136,9 +155,15 @@ def test_footprint_spec_errors(tmp_path):
     with pytest.raises(SpecError, match="points need a reach"):
         run_audit(write_spec(tmp_path / "a.toml", spec_text('kind = "points"\npath = "x.gpkg"')))
     with pytest.raises(SpecError, match="exactly one of served_ids"):
-        run_audit(write_spec(tmp_path / "b.toml", spec_text('served_ids = "a.txt"\nserved_column = "x"')))
+        run_audit(
+            write_spec(tmp_path / "b.toml", spec_text('served_ids = "a.txt"\nserved_column = "x"'))
+        )
     with pytest.raises(SpecError, match='radius applies only to kind = "points"'):
-        run_audit(write_spec(tmp_path / "c.toml", spec_text('kind = "polygons"\npath = "x.gpkg"\nradius = 5')))
+        run_audit(
+            write_spec(
+                tmp_path / "c.toml", spec_text('kind = "polygons"\npath = "x.gpkg"\nradius = 5')
+            )
+        )
 
 
 def test_cut_pieces_bounds_vertex_count():

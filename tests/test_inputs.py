@@ -43,7 +43,12 @@ def test_income_tier_boundaries(ratio, tier):
 
 
 def test_income_tier_text_values_are_unknown():
-    assert list(income_tier(pd.Series(["", "-", "n/a", "65"]))) == ["unknown", "unknown", "unknown", "moderate"]
+    assert list(income_tier(pd.Series(["", "-", "n/a", "65"]))) == [
+        "unknown",
+        "unknown",
+        "unknown",
+        "moderate",
+    ]
 
 
 # ---------------------------------------------------------------- projection accuracy
@@ -55,7 +60,9 @@ def _authalic_sin(phi_deg: float, e: float) -> float:
 
     def q(phi: float) -> float:
         s = math.sin(phi)
-        return (1 - e * e) * (s / (1 - e * e * s * s) - (1 / (2 * e)) * math.log((1 - e * s) / (1 + e * s)))
+        return (1 - e * e) * (
+            s / (1 - e * e * s * s) - (1 / (2 * e)) * math.log((1 - e * s) / (1 + e * s))
+        )
 
     return q(math.radians(phi_deg)) / q(math.pi / 2)
 
@@ -78,7 +85,12 @@ def test_lonlat_cell_area_matches_spherical_zone_formula(lon1, lat1):
     sin_q_p = 1.0
     q_p = (1 - e * e) * (1 / (1 - e * e) - (1 / (2 * e)) * math.log((1 - e) / (1 + e)))
     r_q = a * math.sqrt(q_p / 2)
-    zone = r_q**2 * math.radians(lon2 - lon1) * (_authalic_sin(lat2, e) - _authalic_sin(lat1, e)) / sin_q_p
+    zone = (
+        r_q**2
+        * math.radians(lon2 - lon1)
+        * (_authalic_sin(lat2, e) - _authalic_sin(lat1, e))
+        / sin_q_p
+    )
     assert projected_area == pytest.approx(zone, rel=1e-6)
     # Second, independent reference: Karney's geodesic polygon area on the ellipsoid
     # (pyproj.Geod), which follows the parallels when they are densified.
@@ -87,7 +99,11 @@ def test_lonlat_cell_area_matches_spherical_zone_formula(lon1, lat1):
     assert projected_area == pytest.approx(abs(geod_area), rel=1e-6)
     # With geodetic latitudes in the plain spherical formula the difference is the
     # ellipsoid's flattening effect, well under 1% (a stated, looser tolerance).
-    plain = r_q**2 * math.radians(lon2 - lon1) * (math.sin(math.radians(lat2)) - math.sin(math.radians(lat1)))
+    plain = (
+        r_q**2
+        * math.radians(lon2 - lon1)
+        * (math.sin(math.radians(lat2)) - math.sin(math.radians(lat1)))
+    )
     assert projected_area == pytest.approx(plain, rel=1e-2)
 
 
@@ -146,7 +162,9 @@ def test_table_join_keeps_leading_zeros_and_reports_unmatched(tmp_path):
     )
     zone = gpd.GeoDataFrame(geometry=[shapely.box(0, 0, 2000, 2000)], crs=GRID_CRS)
     zone.to_file(tmp_path / "zone.gpkg", driver="GPKG")
-    spec = write_spec(tmp_path / "audit.toml", spec_text('path = "zone.gpkg"', areas_extra='table = "demo.csv"'))
+    spec = write_spec(
+        tmp_path / "audit.toml", spec_text('path = "zone.gpkg"', areas_extra='table = "demo.csv"')
+    )
     result = run_audit(spec)
     assert sorted(result.areas["geoid"]) == ["01001000001", "01001000002", "01001000003"]
     ex = result.exclusions
@@ -154,7 +172,12 @@ def test_table_join_keeps_leading_zeros_and_reports_unmatched(tmp_path):
     assert area_row["id"] == "01001000004" and "no row with this id" in area_row["reason"]
     table_row = ex[ex["source"] == "table"].iloc[0]
     assert table_row["id"] == "01001999999" and table_row["row"] == 4
-    assert result.summary["areas"] == {**result.summary["areas"], "input": 4, "analysed": 3, "excluded": 1}
+    assert result.summary["areas"] == {
+        **result.summary["areas"],
+        "input": 4,
+        "analysed": 3,
+        "excluded": 1,
+    }
     assert result.summary["inputs"]["table"] == {"rows": 4, "matched": 3, "excluded": 1}
 
 
@@ -165,12 +188,16 @@ def test_numeric_ids_warn_and_id_width_restores_zeros(tmp_path):
     areas["white"] = [5, 5]
     areas["black"] = [5, 5]
     areas.to_file(tmp_path / "areas.gpkg", driver="GPKG")
-    gpd.GeoDataFrame(geometry=[shapely.box(0, 0, 1000, 1000)], crs=GRID_CRS).to_file(tmp_path / "zone.gpkg")
+    gpd.GeoDataFrame(geometry=[shapely.box(0, 0, 1000, 1000)], crs=GRID_CRS).to_file(
+        tmp_path / "zone.gpkg"
+    )
     spec = write_spec(tmp_path / "a.toml", spec_text('path = "zone.gpkg"'))
     with pytest.warns(IdWarning, match="id_width"):
         result = run_audit(spec)
     assert result.areas["geoid"].tolist() == ["1001000001", "1001000002"]
-    spec = write_spec(tmp_path / "b.toml", spec_text('path = "zone.gpkg"', areas_extra="id_width = 11"))
+    spec = write_spec(
+        tmp_path / "b.toml", spec_text('path = "zone.gpkg"', areas_extra="id_width = 11")
+    )
     with warnings.catch_warnings():
         warnings.simplefilter("error", IdWarning)
         result = run_audit(spec)
@@ -187,7 +214,9 @@ def _bad_rows_region(tmp_path):
     areas["black"] = [50.0, 50, 50, 50, 50, 50, 50, 50]
     geoms = list(areas.geometry)
     geoms[1] = None  # null geometry
-    geoms[2] = shapely.Polygon([(2000, 0), (3000, 1000), (3000, 0), (2000, 1000)])  # bow-tie: repaired
+    geoms[2] = shapely.Polygon(
+        [(2000, 0), (3000, 1000), (3000, 0), (2000, 1000)]
+    )  # bow-tie: repaired
     areas = areas.set_geometry(gpd.GeoSeries(geoms, crs=GRID_CRS))
     areas.loc[3, "geoid"] = areas.loc[4, "geoid"]  # duplicate id: both rows excluded
     areas.loc[5, "black"] = -1  # negative count
@@ -196,7 +225,9 @@ def _bad_rows_region(tmp_path):
     areas.loc[7, "black"] = "abc"  # not a number
     path = tmp_path / "areas.gpkg"
     areas.to_file(path, driver="GPKG")
-    gpd.GeoDataFrame(geometry=[shapely.box(0, 0, 4000, 2000)], crs=GRID_CRS).to_file(tmp_path / "zone.gpkg")
+    gpd.GeoDataFrame(geometry=[shapely.box(0, 0, 4000, 2000)], crs=GRID_CRS).to_file(
+        tmp_path / "zone.gpkg"
+    )
     return write_spec(tmp_path / "audit.toml", spec_text('path = "zone.gpkg"'))
 
 
@@ -237,7 +268,9 @@ def test_all_rows_excluded_is_a_clear_error(tmp_path):
     areas["white"] = [20, 20]  # above total everywhere
     areas["black"] = [0, 0]
     areas.to_file(tmp_path / "areas.gpkg", driver="GPKG")
-    gpd.GeoDataFrame(geometry=[shapely.box(0, 0, 1000, 1000)], crs=GRID_CRS).to_file(tmp_path / "zone.gpkg")
+    gpd.GeoDataFrame(geometry=[shapely.box(0, 0, 1000, 1000)], crs=GRID_CRS).to_file(
+        tmp_path / "zone.gpkg"
+    )
     spec = write_spec(tmp_path / "a.toml", spec_text('path = "zone.gpkg"'))
     with pytest.raises(InputError, match="no area of .* can be analysed: all 2 rows were excluded"):
         run_audit(spec)
@@ -253,14 +286,23 @@ def test_layer_without_crs_is_an_error_and_declared_crs_fixes_it(tmp_path):
     areas["black"] = [5, 5]
     areas = areas.set_crs(None, allow_override=True)
     with warnings.catch_warnings():
-        warnings.simplefilter("ignore", UserWarning)  # pyogrio: "'crs' was not provided", as intended
+        warnings.simplefilter(
+            "ignore", UserWarning
+        )  # pyogrio: "'crs' was not provided", as intended
         areas.to_file(tmp_path / "areas.shp")
-    gpd.GeoDataFrame(geometry=[shapely.box(0, 0, 1000, 1000)], crs=GRID_CRS).to_file(tmp_path / "zone.gpkg")
+    gpd.GeoDataFrame(geometry=[shapely.box(0, 0, 1000, 1000)], crs=GRID_CRS).to_file(
+        tmp_path / "zone.gpkg"
+    )
     text = spec_text('path = "zone.gpkg"').replace('path = "areas.gpkg"', 'path = "areas.shp"')
     spec = write_spec(tmp_path / "a.toml", text)
-    with pytest.raises(InputError, match=r"has no coordinate reference system; name it in the spec with \[areas\] crs"):
+    with pytest.raises(
+        InputError,
+        match=r"has no coordinate reference system; name it in the spec with \[areas\] crs",
+    ):
         run_audit(spec)
-    spec = write_spec(tmp_path / "b.toml", text.replace('id = "geoid"', f'id = "geoid"\ncrs = "{GRID_CRS}"'))
+    spec = write_spec(
+        tmp_path / "b.toml", text.replace('id = "geoid"', f'id = "geoid"\ncrs = "{GRID_CRS}"')
+    )
     result = run_audit(spec)
     assert result.areas["covered_fraction"].tolist() == pytest.approx([1.0, 0.0])
 
@@ -271,7 +313,9 @@ def test_layers_in_different_crs_are_reprojected(tmp_path):
     areas["white"] = [5, 5]
     areas["black"] = [5, 5]
     areas.to_crs("EPSG:4326").to_file(tmp_path / "areas.gpkg", driver="GPKG")
-    zone = gpd.GeoDataFrame(geometry=[shapely.box(0, 0, 1000, 1000)], crs=GRID_CRS).to_crs("EPSG:3857")
+    zone = gpd.GeoDataFrame(geometry=[shapely.box(0, 0, 1000, 1000)], crs=GRID_CRS).to_crs(
+        "EPSG:3857"
+    )
     zone.to_file(tmp_path / "zone.gpkg")
     spec = write_spec(tmp_path / "a.toml", spec_text('path = "zone.gpkg"'))
     result = run_audit(spec)
@@ -299,9 +343,16 @@ def test_missing_columns_are_named(tmp_path):
     areas["white"] = [5, 5]
     areas.to_file(tmp_path / "areas.gpkg", driver="GPKG")
     spec = load_spec(write_spec(tmp_path / "a.toml", spec_text('path = "zone.gpkg"')))
-    with pytest.raises(InputError, match="has no column 'black' named in \\[population\\]; its columns are"):
+    with pytest.raises(
+        InputError, match="has no column 'black' named in \\[population\\]; its columns are"
+    ):
         load_areas(spec.areas, spec.population)
-    spec2 = load_spec(write_spec(tmp_path / "b.toml", spec_text('path = "z.gpkg"').replace('id = "geoid"', 'id = "GEOID10"')))
+    spec2 = load_spec(
+        write_spec(
+            tmp_path / "b.toml",
+            spec_text('path = "z.gpkg"').replace('id = "geoid"', 'id = "GEOID10"'),
+        )
+    )
     with pytest.raises(InputError, match='no id column "GEOID10"'):
         load_areas(spec2.areas, spec2.population)
 
@@ -312,7 +363,9 @@ def test_crs_conflict_is_an_error(tmp_path):
     areas["white"] = [5, 5]
     areas["black"] = [5, 5]
     areas.to_file(tmp_path / "areas.gpkg", driver="GPKG")
-    text = spec_text('path = "zone.gpkg"').replace('id = "geoid"', 'id = "geoid"\ncrs = "EPSG:3857"')
+    text = spec_text('path = "zone.gpkg"').replace(
+        'id = "geoid"', 'id = "geoid"\ncrs = "EPSG:3857"'
+    )
     spec = load_spec(write_spec(tmp_path / "a.toml", text))
     with pytest.raises(InputError, match="remove \\[areas\\] crs from the spec"):
         load_areas(spec.areas, spec.population)

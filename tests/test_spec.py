@@ -36,7 +36,10 @@ def test_defaults_and_relative_paths(tmp_path):
 
 
 def test_unknown_key_names_it_and_lists_allowed():
-    with pytest.raises(SpecError, match=r'unknown key "treshold" in \[analysis\]; allowed keys are \[.*served_threshold'):
+    with pytest.raises(
+        SpecError,
+        match=r'unknown key "treshold" in \[analysis\]; allowed keys are \[.*served_threshold',
+    ):
         spec_from_dict(_with(analysis={"treshold": 0.5}))
     with pytest.raises(SpecError, match='unknown key "colour" in top level'):
         spec_from_dict(_with(colour="red"))
@@ -46,12 +49,21 @@ def test_unknown_key_names_it_and_lists_allowed():
     ("parts", "message"),
     [
         ({"areas": None}, r"the \[areas\] table is missing"),
-        ({"analysis": {"served_threshold": 1.5}}, "served_threshold was 1.5 but must be above 0.0 and at most 1.0"),
+        (
+            {"analysis": {"served_threshold": 1.5}},
+            "served_threshold was 1.5 but must be above 0.0 and at most 1.0",
+        ),
         ({"analysis": {"served_threshold": 0}}, "served_threshold was 0.0 but must be above 0.0"),
-        ({"analysis": {"contiguity": "bishop"}}, r'contiguity was "bishop" but is expected to be one of \[.queen., .rook.\]'),
+        (
+            {"analysis": {"contiguity": "bishop"}},
+            r'contiguity was "bishop" but is expected to be one of \[.queen., .rook.\]',
+        ),
         ({"analysis": {"permutations": 9.5}}, "permutations must be a whole number"),
         ({"analysis": {"seed": -1}}, "seed was -1 but must be at least 0"),
-        ({"population": {"reference": "asian"}}, 'reference was "asian" but must be one of the groups'),
+        (
+            {"population": {"reference": "asian"}},
+            'reference was "asian" but must be one of the groups',
+        ),
         ({"population": {"groups": {"population": "p"}, "reference": "population"}}, "is reserved"),
         ({"population": {"groups": {"9lives": "p"}}}, "must start with a letter"),
         ({"population": {"derive_minority": "yes"}}, "derive_minority must be true or false"),
@@ -69,7 +81,9 @@ def test_several_footprints_need_distinct_names():
     data = _with(footprint=[{"path": "a.gpkg", "name": "x"}, {"path": "b.gpkg", "name": "x"}])
     with pytest.raises(SpecError, match="footprint names must differ"):
         spec_from_dict(data)
-    spec = spec_from_dict(_with(footprint=[{"path": "a.gpkg", "name": "x"}, {"path": "b.gpkg", "name": "y"}]))
+    spec = spec_from_dict(
+        _with(footprint=[{"path": "a.gpkg", "name": "x"}, {"path": "b.gpkg", "name": "y"}])
+    )
     assert [f.name for f in spec.footprints] == ["x", "y"]
 
 
@@ -91,4 +105,6 @@ def test_with_analysis_revalidates():
 
 def test_derive_minority_conflicts_with_named_minority_group():
     with pytest.raises(SpecError, match='group named "minority" and derive_minority'):
-        spec_from_dict(_with(population={"groups": {"white": "w", "minority": "m"}, "derive_minority": True}))
+        spec_from_dict(
+            _with(population={"groups": {"white": "w", "minority": "m"}, "derive_minority": True})
+        )
