@@ -138,8 +138,9 @@ def make_inputs(n_areas: int = 150, *, seed: int = SEED, n_enclaves: int = 2) ->
                 "ring_group_shares": ring_shares,
                 "share_difference": {g: shares[g] - ring_shares[g] for g in GROUPS},
                 "share_ratio": {g: shares[g] / ring_shares[g] for g in GROUPS},
-                "minority_share": shares["minority"],
-                "mc_mean_minority_share": 0.31,
+                "contrast_share": shares["minority"],
+                "mc_mean_contrast_share": 0.31,
+                "income_tiers": {"upper": 1} if k else {"moderate": 1},
                 "p_value": 0.004 + k / 100,
                 "mc_draws": 999,
             }
@@ -410,6 +411,14 @@ def make_inputs(n_areas: int = 150, *, seed: int = SEED, n_enclaves: int = 2) ->
                 "representative_point": [1.0, 2.0],
             }
         ],
+        "enclave_settings": {
+            "min_surround": 0.75,
+            "min_population": 0.0,
+            "contiguity": "queen",
+            "transparent_area_ids": [],
+            "mc_draws": 999,
+            "contrast_group": "minority",
+        },
         "exclusions": {
             "count": 3,
             "by_reason": {"empty geometry": 1, "duplicate id": 1, "no matching area": 1},
@@ -840,6 +849,34 @@ def test_figures_are_inline_svg_with_unique_ids(report_html: str) -> None:
     ids = re.findall(r'\bid="([^"]+)"', report_html)
     assert len(ids) == len(set(ids)), "duplicate element ids across inline SVGs"
     assert report_html.count('aria-label="Locator of enclave') == 2
+
+
+def test_enclave_table_and_settings(inputs: dict, report_html: str) -> None:
+    table = element(report_html, "table", "enclave-table")
+    e1 = inputs["summary"]["enclaves"][0]
+    row = cells(row_of_text(table, "E1"))
+    assert row[:4] == ["E1", "1", f"{round(e1['population']):,}", "100.0%"]
+    assert row[4] == f"{100 * e1['contrast_share']:.1f}%" and row[5] == "31.0%"
+    assert row[6:] == ["0.004", "999", "moderate 1"]
+    assert "Share minority" in table
+    assert "Group whose share is tested" in report_html
+    # An older summary naming the tested share after the minority reads the same.
+    summary = copy.deepcopy(inputs["summary"])
+    for e in summary["enclaves"]:
+        e["minority_share"] = e.pop("contrast_share")
+        e["mc_mean_minority_share"] = e.pop("mc_mean_contrast_share")
+    older = cells(
+        row_of_text(element(render(inputs, summary=summary), "table", "enclave-table"), "E1")
+    )
+    assert older == row
+
+
+def test_contrast_group_named_in_table_and_methods(inputs: dict) -> None:
+    summary = copy.deepcopy(inputs["summary"])
+    summary["enclave_settings"]["contrast_group"] = "black_nh"
+    text = render(inputs, summary=summary)
+    assert "Share black_nh" in element(text, "table", "enclave-table")
+    assert "whose black_nh share is at least" in element(text, "section", "methods")
 
 
 def test_locators_drawn_for_the_six_most_populous(inputs: dict) -> None:

@@ -1148,8 +1148,9 @@ def _join_counts_part(joins: Mapping[str, Any]) -> Html:
 def _clustering_section(page: _Page) -> Html:
     cl = page.summary["clustering"]
     parts: list[Any] = []
-    if isinstance(cl.get("weights"), Mapping) and cl["weights"]:
-        parts.append(kv_table(cl["weights"], caption="Spatial weights", labels=_WEIGHT_LABELS))
+    weights = _mapping(cl.get("weights")) or _mapping(page.summary.get("weights"))
+    if weights:
+        parts.append(kv_table(weights, caption="Spatial weights", labels=_WEIGHT_LABELS))
     rows = [
         (
             cl[key].get("variable") or variable,
@@ -1280,9 +1281,15 @@ def _enclave_order(enclave: Mapping[str, Any]) -> tuple[float, int, str]:
 
 def _enclaves_section(page: _Page) -> Html:
     enclaves = [e for e in page.summary["enclaves"] if isinstance(e, Mapping)]
-    settings = page.summary.get("enclave_settings") or {}
-    contrast = str(settings.get("contrast_group") or "minority")
+    settings = _mapping(page.summary.get("enclave_settings"))
+    contrast = _contrast_group(page)
     parts: list[Any] = []
+    if "clustering" not in page.summary and isinstance(page.summary.get("weights"), Mapping):
+        parts.append(
+            kv_table(
+                page.summary["weights"], caption="Contiguity between areas", labels=_WEIGHT_LABELS
+            )
+        )
     if not enclaves:
         parts.append(_p("No enclave of unserved areas enclosed by served areas was found."))
     else:
@@ -1300,10 +1307,12 @@ def _enclaves_section(page: _Page) -> Html:
                 Num(fmt_count(len(e.get("area_ids") or ()))),
                 Num(fmt_count(e.get("population"))),
                 Num(fmt_percent(e.get("surround_share"))),
-                Num(fmt_percent(e.get("contrast_share"))),
-                Num(fmt_percent(e.get("mc_mean_contrast_share"))),
+                # Earlier summaries named the tested share after the minority.
+                Num(fmt_percent(_first(e, "contrast_share", "minority_share"))),
+                Num(fmt_percent(_first(e, "mc_mean_contrast_share", "mc_mean_minority_share"))),
                 Num(fmt_p(e.get("p_value"))),
                 Num(fmt_count(e.get("mc_draws"))),
+                _tiers_text(e.get("income_tiers")),
             )
             for e in enclaves
         ]
@@ -1316,16 +1325,62 @@ def _enclaves_section(page: _Page) -> Html:
             Num("Random-set mean share"),
             Num("p-value"),
             Num("Monte Carlo draws"),
+            "Income tiers (areas)",
         )
         parts.append(
             table(headers, rows, caption="Enclaves of unserved areas", table_id="enclave-table")
         )
         parts.append(_enclave_shares_part(enclaves, page))
         parts.append(_enclave_figures(enclaves, page))
+    if settings:
+        parts.append(
+            _settings_table(settings, caption="Enclave settings", labels=_ENCLAVE_SETTING_LABELS)
+        )
     holes = [h for h in page.summary.get("holes") or [] if isinstance(h, Mapping)]
     if holes:
         parts.append(_holes_part(holes, page))
     return _section("enclaves", "Enclaves", *parts)
+
+
+_ENCLAVE_SETTING_LABELS = {
+    "min_surround": "Least share of the boundary along served areas",
+    "min_population": "Population an enclave must exceed",
+    "contiguity": "Contiguity",
+    "transparent_area_ids": "Areas looked through (no population)",
+    "transparent_rule": "Rule for looked-through areas",
+    "mc_draws": "Monte Carlo draws per enclave",
+    "contrast_group": "Group whose share is tested",
+    "unserved_components": "Connected groups of unserved areas",
+}
+
+
+def _first(mapping: Mapping[str, Any], *keys: str) -> Any:
+    """Return the value of the first key present (``None`` if none is)."""
+    return next((mapping[k] for k in keys if k in mapping), None)
+
+
+def _contrast_group(page: _Page) -> str:
+    group = _get(page.summary, "enclave_settings", "contrast_group")
+    return str(group) if group else "minority"
+
+
+def _tiers_text(tiers: Any) -> str:
+    if not isinstance(tiers, Mapping) or not tiers:
+        return NA
+    order = [*INCOME_TIERS, *(t for t in tiers if t not in INCOME_TIERS)]
+    return ", ".join(f"{t} {fmt_count(tiers[t])}" for t in order if t in tiers)
+
+
+def _settings_table(mapping: Mapping[str, Any], *, caption: str, labels: Mapping[str, str]) -> Html:
+    """Render settings as written (lists shortened to their first ten entries)."""
+    rows = [
+        (
+            labels.get(k, k.replace("_", " ")),
+            Num(fmt_auto(k, v) if isinstance(v, (list, tuple)) else fmt_param(v)),
+        )
+        for k, v in mapping.items()
+    ]
+    return table(("Setting", Num("Value")), rows, caption=caption)
 
 
 def _share_groups(records: Sequence[Mapping[str, Any]], page: _Page, *keys: str) -> list[str]:
@@ -1558,8 +1613,7 @@ _METHODS: dict[str, tuple[tuple[str, str], ...]] = {
             "counts as not served). For an enclave of k areas, random connected sets of k "
             "areas are grown, each from a seed area drawn at random, adding at every step an "
             "area drawn at random among the set's neighbours; {draws} such sets are drawn. "
-            "p = (1 + number of sets whose share of the contrast group (minority unless the "
-            "spec names another) is at least the enclave's) / "
+            "p = (1 + number of sets whose {contrast} share is at least the enclave's) / "
             "(draws + 1) (a Monte Carlo test in the sense of Hope 1968).",
         ),
     ),
@@ -1605,8 +1659,13 @@ def _methods_section(page: _Page, present: set[str]) -> Html:
         "permutations": fmt_count(_get(s, "segregation", "permutations")),
         "draws": ", ".join(f"{d:,}" for d in draws) or NA,
         "majority_rule": _majority_rule(page),
-        "min_surround": _spec_percent(page, "analysis", "enclave_min_surround")
-        or "the enclave threshold set in the parameters",
+        "min_surround": (
+            fmt_percent(_get(s, "enclave_settings", "min_surround"))
+            if _number(_get(s, "enclave_settings", "min_surround")) is not None
+            else _spec_percent(page, "analysis", "enclave_min_surround")
+            or "the enclave threshold set in the parameters"
+        ),
+        "contrast": _contrast_group(page),
     }
     items = [
         tag("dt", title) + tag("dd", fill(text, **values))
