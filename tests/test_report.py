@@ -871,6 +871,13 @@ def test_enclave_table_and_settings(inputs: dict, report_html: str) -> None:
     assert older == row
 
 
+def test_top_level_weights_shown_with_enclaves_when_no_clustering(inputs: dict) -> None:
+    summary = copy.deepcopy(inputs["summary"])
+    summary["weights"] = summary.pop("clustering")["weights"]
+    enclaves = element(render(inputs, summary=summary, moran_weights=None), "section", "enclaves")
+    assert "Contiguity between areas" in enclaves and "Links (neighbour pairs)" in enclaves
+
+
 def test_contrast_group_named_in_table_and_methods(inputs: dict) -> None:
     summary = copy.deepcopy(inputs["summary"])
     summary["enclave_settings"]["contrast_group"] = "black_nh"

@@ -1284,12 +1284,6 @@ def _enclaves_section(page: _Page) -> Html:
     settings = _mapping(page.summary.get("enclave_settings"))
     contrast = _contrast_group(page)
     parts: list[Any] = []
-    if "clustering" not in page.summary and isinstance(page.summary.get("weights"), Mapping):
-        parts.append(
-            kv_table(
-                page.summary["weights"], caption="Contiguity between areas", labels=_WEIGHT_LABELS
-            )
-        )
     if not enclaves:
         parts.append(_p("No enclave of unserved areas enclosed by served areas was found."))
     else:
@@ -1332,6 +1326,12 @@ def _enclaves_section(page: _Page) -> Html:
         )
         parts.append(_enclave_shares_part(enclaves, page))
         parts.append(_enclave_figures(enclaves, page))
+    if "clustering" not in page.summary and isinstance(page.summary.get("weights"), Mapping):
+        parts.append(
+            kv_table(
+                page.summary["weights"], caption="Contiguity between areas", labels=_WEIGHT_LABELS
+            )
+        )
     if settings:
         parts.append(
             _settings_table(settings, caption="Enclave settings", labels=_ENCLAVE_SETTING_LABELS)
