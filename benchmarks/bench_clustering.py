@@ -1,7 +1,7 @@
 """Benchmark: contiguity, global Moran and local Moran on an 85,000-area tessellation.
 
-Prints, for each stage, our wall time and peak traced memory beside a baseline measured in
-the same run on the same data, and their ratio:
+Prints, for each stage, our wall and CPU time and peak traced memory beside a baseline
+measured in the same run on the same data, and their ratios:
 
 - weights: ``build_area_graph`` against libpysal's strict ``Graph.build_contiguity`` (the
   method used before the vertex path);
@@ -10,9 +10,14 @@ the same run on the same data, and their ratio:
   ``esda.Moran_Local`` with ``n_jobs=1`` (numba; its one-off compilation is timed apart,
   on a tiny input). Its parallel path compiles separately and is not measured.
 
+CPU time counts every thread of this process; on a shared machine it is steadier than wall
+time, which also counts other people's work. Peak memory is traced (tracemalloc, which
+numpy reports to) in a second run of each stage.
+
 Run: ``.venv/bin/python benchmarks/bench_clustering.py [--areas 85000] [--permutations 999]
 [--baseline-areas N]``. ``--baseline-areas`` runs the esda baselines on the first N areas
-only (ratios are then per area), for machines where the full-size baseline is too slow.
+only (their times are then scaled by n / N), for machines where the full-size baseline is
+too slow.
 """
 
 from __future__ import annotations
@@ -24,6 +29,7 @@ import time
 import tracemalloc
 import warnings
 from collections.abc import Callable
+from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
@@ -32,36 +38,44 @@ import scipy.sparse as sp
 SEED = 20240611
 
 
-def measure(fn: Callable[[], Any], *, memory: bool = True) -> tuple[Any, float, float | None]:
-    """Return (result, wall seconds, peak traced MiB); memory is traced in a second run."""
-    start = time.perf_counter()
+@dataclass(frozen=True)
+class Timing:
+    wall: float
+    cpu: float
+    peak_mib: float | None
+
+    def scaled(self, factor: float) -> Timing:
+        return Timing(self.wall * factor, self.cpu * factor, self.peak_mib)
+
+
+def measure(fn: Callable[[], Any], *, memory: bool = True) -> tuple[Any, Timing]:
+    start, cpu = time.perf_counter(), time.process_time()
     result = fn()
-    seconds = time.perf_counter() - start
+    wall, cpu = time.perf_counter() - start, time.process_time() - cpu
     peak = None
     if memory:
         tracemalloc.start()
         fn()
         peak = tracemalloc.get_traced_memory()[1] / 2**20
         tracemalloc.stop()
-    return result, seconds, peak
+    return result, Timing(wall, cpu, peak)
 
 
-def row(
-    stage: str,
-    ours: tuple[float, float | None],
-    base: tuple[float, float | None],
-    base_name: str,
-    scale: float = 1.0,
-) -> None:
-    t_ours, m_ours = ours
-    t_base, m_base = base
-    t_base_full = t_base * scale
-    mem = f"{m_ours:8.1f} MiB" if m_ours is not None else "       n/a"
-    bmem = f"{m_base:8.1f} MiB" if m_base is not None else "       n/a"
+def show(stage: str, ours: Timing, base: Timing, base_name: str) -> None:
+    def cell(t: Timing) -> str:
+        mem = f"{t.peak_mib:7.1f} MiB" if t.peak_mib is not None else "      n/a"
+        return f"wall {t.wall:7.2f} s  cpu {t.cpu:7.2f} s  peak {mem}"
+
+    print(f"{stage:<16} ours      {cell(ours)}")
+    print(f"{'':<16} {base_name:<9} {cell(base)}")
     print(
-        f"{stage:<22} ours {t_ours:7.2f} s {mem} | {base_name:<34} {t_base:7.2f} s {bmem}"
-        + (f" (x{scale:.1f} -> {t_base_full:.2f} s)" if scale != 1.0 else "")
-        + f" | speed-up x{t_base_full / t_ours:5.1f}"
+        f"{'':<16} ratio baseline/ours: wall x{base.wall / ours.wall:.1f}, "
+        f"cpu x{base.cpu / ours.cpu:.1f}"
+        + (
+            f", memory x{base.peak_mib / ours.peak_mib:.1f}"
+            if base.peak_mib and ours.peak_mib
+            else ""
+        )
     )
 
 
@@ -82,12 +96,12 @@ def main() -> None:
     try:
         from threadpoolctl import threadpool_info
 
-        blas = [(i.get("internal_api"), i.get("num_threads")) for i in threadpool_info()]
+        blas: Any = [(i.get("internal_api"), i.get("num_threads")) for i in threadpool_info()]
     except ImportError:
         blas = "threadpoolctl not installed"
     print(
-        f"cores: {os.cpu_count()}; BLAS: {blas}; OPENBLAS_CORETYPE="
-        f"{os.environ.get('OPENBLAS_CORETYPE')}"
+        f"cores: {os.cpu_count()}; thread pools: {blas}; OPENBLAS_CORETYPE="
+        f"{os.environ.get('OPENBLAS_CORETYPE')}; load average {os.getloadavg()[0]:.1f}"
     )
 
     start = time.perf_counter()
@@ -98,55 +112,58 @@ def main() -> None:
     noise = np.random.default_rng(SEED + 2).normal(0, 0.15, n)
     covered = np.clip(1.3 - 1.2 * share + noise, 0.0, 1.0)
     geoms = np.asarray(cells.geometry.array)
+    p = args.permutations
     print(
         f"fictional tessellation: {n} areas, made in {time.perf_counter() - start:.1f} s; "
-        f"{args.permutations} permutations\n"
+        f"{p} permutations\n"
     )
 
-    graph, t_graph, m_graph = measure(lambda: build_area_graph(geoms, cells["geoid"]))
-    _, t_strict, m_strict = measure(lambda: _strict_contiguity(geoms, rook=False))
-    row("weights (queen)", (t_graph, m_graph), (t_strict, m_strict), "libpysal strict contiguity")
+    graph, t_graph = measure(lambda: build_area_graph(geoms, cells["geoid"]))
+    _, t_strict = measure(lambda: _strict_contiguity(geoms, rook=False))
+    show("weights (queen)", t_graph, t_strict, "libpysal")
 
-    p = args.permutations
-    ours_moran, t_moran, m_moran = measure(
+    ours_moran, t_moran = measure(
         lambda: moran(covered, graph, permutations=p, rng=np.random.default_rng(SEED))
     )
-    ours_local, t_local, m_local = measure(
+    ours_local, t_local = measure(
         lambda: local_moran(covered, graph, permutations=p, rng=np.random.default_rng(SEED))
     )
 
-    m_base = args.baseline_areas or n
+    m_base = min(args.baseline_areas or n, n)
     scale = n / m_base
-    keep = np.arange(m_base)
-    adjacency = graph.stats_adjacency[keep][:, keep].tocsr()
-    lonely = np.diff(adjacency.indptr) == 0
-    if lonely.any():
+    adjacency = graph.stats_adjacency[:m_base][:, :m_base].tocsr()
+    if (np.diff(adjacency.indptr) == 0).any():
         raise SystemExit("the baseline subset leaves areas without neighbours; choose another")
     weights = Graph.from_sparse(adjacency)
-    y_base = covered[keep]
+    y_base = covered[:m_base]
     with warnings.catch_warnings():
         # esda's own deprecation notices are not what is measured here.
         warnings.simplefilter("ignore", DeprecationWarning)
-        esda_moran, t_emoran, m_emoran = measure(
-            lambda: esda.Moran(y_base, weights, permutations=p)
-        )
+        esda_moran, t_emoran = measure(lambda: esda.Moran(y_base, weights, permutations=p))
         tiny = Graph.from_sparse(sp.csr_matrix(np.eye(5, k=1) + np.eye(5, k=-1)))
-        _, t_compile, _ = measure(
+        _, t_compile = measure(
             lambda: esda.Moran_Local(np.arange(5.0), tiny, permutations=9, seed=SEED),
             memory=False,
         )
-        esda_local, t_elocal, m_elocal = measure(
+        esda_local, t_elocal = measure(
             lambda: esda.Moran_Local(y_base, weights, permutations=p, seed=SEED, n_jobs=1)
         )
-    row("global Moran", (t_moran, m_moran), (t_emoran, m_emoran), "esda.Moran", scale)
-    row("local Moran", (t_local, m_local), (t_elocal, m_elocal), "esda.Moran_Local n_jobs=1", scale)
-    total = t_graph + t_moran + t_local
-    print(f"\nours, weights + global + local Moran: {total:.2f} s (target < 30 s)")
-    print(f"esda.Moran_Local numba compilation (one-off, not in the ratios): {t_compile:.1f} s")
+    if scale != 1.0:
+        print(f"esda baselines ran on the first {m_base} areas; times scaled by {scale:.2f}")
+    show("global Moran", t_moran, t_emoran.scaled(scale), "esda")
+    show("local Moran", t_local, t_elocal.scaled(scale), "esda")
+    total = t_graph.wall + t_moran.wall + t_local.wall
+    print(
+        f"\nours, weights + global + local Moran: wall {total:.2f} s, cpu "
+        f"{t_graph.cpu + t_moran.cpu + t_local.cpu:.2f} s (target < 30 s)"
+    )
+    print(
+        f"esda.Moran_Local numba compilation (one-off, not in the ratios): "
+        f"wall {t_compile.wall:.1f} s"
+    )
     print(f"process peak RSS: {resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 2**10:.0f} MiB")
 
-    # Agreement on the same data (the baseline subset only when one is used).
-    if m_base == n:
+    if m_base == n:  # agreement on the same data
         print(
             f"\nI ours {ours_moran.I:.12f} esda {esda_moran.I:.12f}; "
             f"p_sim ours {ours_moran.p_sim:.4f} esda {esda_moran.p_sim:.4f}"
