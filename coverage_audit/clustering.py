@@ -1285,7 +1285,8 @@ def _bivariate_moran(
         name or "a variable" for name, v in ((x_variable, x), (y_variable, y)) if _is_constant(v)
     ]
     if constant:
-        _warn(f"{' and '.join(constant)} constant, so the bivariate Moran's I is undefined")
+        verb = "is" if len(constant) == 1 else "are"
+        _warn(f"{' and '.join(constant)} {verb} constant, so the bivariate Moran's I is undefined")
         return _empty_bivariate(x_variable, y_variable, n, permutations)
     zx, zy = _standardise(x), _standardise(y)
     # Anselin, Syabri and Smirnov (2002): I_B = zx' W zy / n (S0 = n when row-standardised).
