@@ -249,6 +249,17 @@ def test_map_info_describes_the_file(built):
     assert built["ids"][0].overlays == ("enclaves", "footprint")
 
 
+def test_map_file_is_readable_like_any_output(tmp_path):
+    import os
+    import stat
+
+    info, _ = build(tmp_path, 60)
+    umask = os.umask(0)
+    os.umask(umask)
+    assert stat.S_IMODE(os.stat(info.path).st_mode) == 0o666 & ~umask
+    assert [p.name for p in tmp_path.iterdir()] == ["map.html"]  # no temporary file left
+
+
 def test_same_inputs_give_the_same_bytes(tmp_path):
     a, _ = build(tmp_path, 60, path=tmp_path / "a.html")
     b, _ = build(tmp_path, 60, path=tmp_path / "b.html")

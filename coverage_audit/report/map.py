@@ -802,6 +802,11 @@ def _write_atomic(path: Path, text: str) -> int:
     try:
         with os.fdopen(fd, "wb") as fh:
             fh.write(payload)
+        # mkstemp makes the file private (0600); a map is for sharing, so give it the
+        # permissions an ordinary open() would.
+        umask = os.umask(0)
+        os.umask(umask)
+        os.chmod(tmp, 0o666 & ~umask)
         os.replace(tmp, path)
     except BaseException:
         Path(tmp).unlink(missing_ok=True)
