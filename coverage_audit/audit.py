@@ -248,6 +248,9 @@ def run_audit(
         )
     with progress.stage("measuring coverage"):
         coverage, frame = measure_coverage(spec, inputs, footprint, frame)
+    from .analyses import add_derived_columns
+
+    frame = add_derived_columns(frame, spec, inputs.analysis_crs)
 
     summary: dict[str, Any] = {
         "schema_version": SCHEMA_VERSION,
@@ -259,8 +262,11 @@ def run_audit(
     if table_section:
         summary["inputs"] = table_section
     summary["coverage"] = coverage.to_dict()
-    statistics = compute_statistics(spec, inputs, footprint, frame, streams, progress)
+    statistics = compute_statistics(
+        spec, inputs, footprint, frame, streams, progress, summary["coverage"]
+    )
     frame = statistics.pop("_frame")
+    statistics_extras = statistics.pop("_report")
     summary.update(statistics)
 
     exclusions = inputs.exclusions
@@ -278,7 +284,12 @@ def run_audit(
         footprint=footprint,
         id_column=inputs.id_column,
         groups=inputs.groups,
-        extras={"streams": streams, "inputs": inputs, "coverage": coverage},
+        extras={
+            "streams": streams,
+            "inputs": inputs,
+            "coverage": coverage,
+            "moran": statistics_extras,
+        },
     )
 
 
@@ -289,6 +300,7 @@ def compute_statistics(
     frame: gpd.GeoDataFrame,
     streams: dict[str, np.random.Generator],
     progress: SilentProgress,
+    coverage_section: dict[str, Any],
 ) -> dict[str, Any]:
     """Segregation, contiguity, clustering and enclaves over the analysed areas.
 
@@ -326,6 +338,8 @@ def compute_statistics(
         rows = frame.loc[graph.island_mask, "source_row"]
         inputs.exclusions.add("spatial_statistics", rows, list(graph.islands), ISLAND_REASON)
     out["weights"] = graph.to_dict()
+    with progress.stage("clustering"):
+        out["clustering"] = _clustering(frame, graph, an, streams["clustering"])
     with progress.stage("enclaves"):
         transparent = (population <= 0) if an.transparent_zero_population else None
         holes: tuple[Any, ...] = ()
@@ -358,7 +372,109 @@ def compute_statistics(
         "unserved_components": enclave_dict["unserved_components"],
     }
     frame["enclave_id"] = result.enclave_id
+    sections = {**out, "coverage": coverage_section}
+    out.update(_further_analyses(spec, inputs, footprint, frame, graph, sections, progress))
     out["_frame"] = frame
+    out["_report"] = (
+        {"moran_weights": graph.stats_graph("r"), "moran_mask": graph.stats_mask}
+        if "skipped" not in out["clustering"] and graph.stats_mask.sum() >= 3
+        else {}
+    )
+    return out
+
+
+def _clustering(
+    frame: gpd.GeoDataFrame, graph: Any, an: Any, rng: np.random.Generator
+) -> dict[str, Any]:
+    """Moran, join counts, bivariate and local Moran; LISA columns added to ``frame``."""
+    import warnings
+
+    from .clustering import clustering_summary
+    from .errors import AnalysisError, DegenerateStatisticWarning
+
+    n = len(frame)
+    minority = (
+        frame["minority_share"].to_numpy(dtype=float)
+        if "minority_share" in frame.columns
+        else np.full(n, np.nan)
+    )
+    majority = (
+        frame["majority_minority"].to_numpy(dtype=bool)
+        if "majority_minority" in frame.columns
+        else np.zeros(n, dtype=bool)
+    )
+    try:
+        result = clustering_summary(
+            frame["covered_fraction"].to_numpy(dtype=float),
+            minority,
+            frame["served"].to_numpy(dtype=bool),
+            majority,
+            frame["population"].to_numpy(dtype=float),
+            graph,
+            permutations=an.permutations,
+            rng=rng,
+            fdr=an.fdr,
+            alpha=an.alpha,
+        )
+    except AnalysisError as exc:
+        warnings.warn(
+            f"spatial clustering statistics not computed: {exc}",
+            DegenerateStatisticWarning,
+            stacklevel=3,
+        )
+        return {"weights": graph.to_dict(), "skipped": str(exc)}
+    lisa = result.area_frame()
+    for column in lisa.columns:
+        frame[column] = lisa[column].to_numpy()
+    return result.to_dict()
+
+
+def _further_analyses(
+    spec: AuditSpec,
+    inputs: AreaInputs,
+    footprint: Footprint,
+    frame: gpd.GeoDataFrame,
+    graph: Any,
+    sections: dict[str, Any],
+    progress: SilentProgress,
+) -> dict[str, Any]:
+    """Comparisons, change, peers, controls and sensitivity, as the spec asks.
+
+    Adds per-area columns to ``frame`` in place (other footprints' covered fractions).
+    """
+    from . import analyses
+
+    out: dict[str, Any] = {}
+    if len(spec.footprints) > 1:
+        with progress.stage("other footprints"):
+            others, fractions, built = analyses.other_footprints(spec, inputs, frame, graph)
+        for name, cf in fractions.items():
+            if name != spec.footprint.name:
+                frame[f"covered_fraction_{name}"] = cf
+        primary = {
+            spec.footprint.name: {
+                "coverage": sections["coverage"],
+                "enclave_count": len(sections["enclaves"]),
+            }
+        }
+        out["comparison"] = analyses.comparison_section(primary, others)
+        out["footprints_compared"] = {
+            spec.footprint.name: footprint.to_dict(),
+            **{f.name: f.to_dict() for f in built},
+        }
+        inputs.inputs.extend(r for f in built for r in f.records)
+        if spec.change is not None:
+            out["change"] = analyses.change_section(spec, inputs, frame, fractions)
+    if spec.activity is not None:
+        with progress.stage("peer comparison"):
+            out["peers"], record = analyses.peers_section(spec, inputs, frame)
+        inputs.inputs.append(record)
+    if spec.explain is not None:
+        with progress.stage("exclusion models and rules"):
+            out["explain"] = analyses.explain_section(frame, spec, inputs.id_column, graph)
+    if spec.analysis.sensitivity:
+        with progress.stage("sensitivity"):
+            out["sensitivity"] = analyses.sensitivity_section(frame, spec, inputs, footprint, graph)
     return out
 
 

@@ -53,7 +53,6 @@ black_nh = "pop_black_nh"
 hispanic = "pop_hispanic"
 asian_nh = "pop_asian_nh"
 
-[footprint]
 {footprint}
 
 [analysis]
@@ -68,17 +67,53 @@ seed = {seed}
 SCENARIOS = {
     "delivery": (
         "Same-day delivery zone, Ostmere",
-        'name = "same_day_zone"\npath = "delivery_zone.geojson"',
+        '[footprint]\nname = "same_day_zone"\npath = "delivery_zone.geojson"',
     ),
     "branches": (
-        "Branch network reach, Ostmere",
-        'name = "branches"\npath = "branches.geojson"\nradius = 2\nradius_unit = "km"',
+        "Branch network reach, Ostmere Savings",
+        """[[footprint]]
+name = "branches_2026"
+path = "branches.geojson"
+radius = 2
+radius_unit = "km"
+
+[[footprint]]
+name = "branches_2024"
+path = "branches_2024.geojson"
+radius = 2
+radius_unit = "km"
+
+[change]
+before = "branches_2024"
+after = "branches_2026"
+
+[activity]
+path = "applications.csv"
+id = "geoid"
+lender_column = "lender"
+count_column = "applications"
+
+[explain]
+controls = ["income_ratio", "population_density", "distance_to_downtown_km"]
+hub = [-135.0, -32.0]
+hub_name = "downtown"
+""",
     ),
     "assessment_area": (
-        "Assessment area, Ostmere",
-        'name = "assessment_area"\nserved_ids = "assessment_area.csv"\nserved_ids_column = "geoid"',
+        "Assessment area, Ostmere Savings",
+        '[footprint]\nname = "assessment_area"\nserved_ids = "assessment_area.csv"\n'
+        'served_ids_column = "geoid"',
     ),
 }
+#: Fictional lenders of the activity table; the first is the audited bank.
+LENDERS = (
+    "Ostmere Savings",
+    "Harbor Mutual",
+    "Tidewater Credit Union",
+    "Copperline Bank",
+    "Saltmarsh Federal",
+    "Lanternfish Lending",
+)
 
 
 def build_region(seed: int = DEMO_SEED) -> tuple[gpd.GeoDataFrame, pd.DataFrame]:
@@ -153,6 +188,49 @@ def _branch_sites(
     )
 
 
+def _closed_branches(
+    cells: gpd.GeoDataFrame, demo: pd.DataFrame, rng: np.random.Generator
+) -> gpd.GeoDataFrame:
+    """Five branches that were open in 2024 and have since closed, in minority tracts."""
+    share = _minority_share(demo)
+    weight = share**4
+    weight[demo["pop_total"].to_numpy() == 0] = 0
+    chosen = rng.choice(len(cells), size=5, replace=False, p=weight / weight.sum())
+    points = shapely.point_on_surface(cells.geometry.values[chosen])
+    return gpd.GeoDataFrame(
+        {
+            "site_id": [f"C{k:02d}" for k in range(1, 6)],
+            "name": [f"Ostmere Savings branch {k:02d} (closed 2025)" for k in range(17, 22)],
+        },
+        geometry=points,
+        crs=cells.crs,
+    )
+
+
+def _applications(
+    cells: gpd.GeoDataFrame, demo: pd.DataFrame, rng: np.random.Generator
+) -> pd.DataFrame:
+    """Mortgage applications per tract and lender (a long table).
+
+    Every lender's volume follows households; the audited bank (the first lender) draws
+    less than half as much from majority-minority tracts as its peers do.
+    """
+    share = _minority_share(demo)
+    households = demo["households"].to_numpy(float)
+    rows = []
+    for k, lender in enumerate(LENDERS):
+        scale = rng.uniform(0.004, 0.012)
+        tilt = np.where(share > 0.5, 0.45, 1.0) if k == 0 else rng.uniform(0.9, 1.1, share.size)
+        counts = rng.poisson(households * scale * tilt)
+        rows.append(
+            pd.DataFrame(
+                {"geoid": cells["geoid"].to_numpy(), "lender": lender, "applications": counts}
+            )
+        )
+    table = pd.concat(rows, ignore_index=True)
+    return table[table["applications"] > 0].reset_index(drop=True)
+
+
 def _assessment_area(cells: gpd.GeoDataFrame, demo: pd.DataFrame) -> list[str]:
     x, y = cells["x"].to_numpy(), cells["y"].to_numpy()
     span = float(np.ptp(x))
@@ -186,7 +264,15 @@ def write_demo_region(folder: str | Path, seed: int = DEMO_SEED) -> Path:
         {"zone": ["same-day"]}, geometry=[_delivery_zone(cells, demo)], crs=FICTIONAL_CRS
     )
     _write_geojson(zone.to_crs("EPSG:4326"), out / "delivery_zone.geojson")
-    _write_geojson(_branch_sites(cells, demo, rng).to_crs("EPSG:4326"), out / "branches.geojson")
+    branches = _branch_sites(cells, demo, rng)
+    _write_geojson(branches.to_crs("EPSG:4326"), out / "branches.geojson")
+    before = pd.concat([branches, _closed_branches(cells, demo, rng)], ignore_index=True)
+    _write_geojson(
+        gpd.GeoDataFrame(before, crs=cells.crs).to_crs("EPSG:4326"), out / "branches_2024.geojson"
+    )
+    _applications(cells, demo, rng).to_csv(
+        out / "applications.csv", index=False, lineterminator="\n"
+    )
     pd.DataFrame({"geoid": _assessment_area(cells, demo)}).to_csv(
         out / "assessment_area.csv", index=False, lineterminator="\n"
     )
@@ -237,8 +323,12 @@ Two areas have no residents: Ostmere Lake and Heron Commons Park.
 - `delivery.toml`: a same-day delivery zone (`delivery_zone.geojson`) drawn around the
   central city. The zone goes around one neighbourhood, a pocket surrounded by served
   streets. Is it the sort of gap a reporter should ask about?
-- `branches.toml`: the branch network of a fictional bank (`branches.geojson`, 16 branches,
-  reach 2 km). Branches sit mostly in higher-income, mostly-white tracts.
+- `branches.toml`: the branch network of a fictional bank, Ostmere Savings
+  (`branches.geojson`, 16 branches, reach 2 km). Branches sit mostly in higher-income,
+  mostly-white tracts. The spec also compares the 2024 network (`branches_2024.geojson`,
+  with five branches in minority neighbourhoods since closed), checks the bank's mortgage
+  applications by tract against five fictional peer lenders (`applications.csv`), and
+  asks whether income, density and distance downtown explain the gap.
 - `assessment_area.toml`: the bank's assessment area as a list of whole tracts
   (`assessment_area.csv`). It leaves out a run of low- and moderate-income tracts on its
   eastern edge.

@@ -1,0 +1,334 @@
+"""Further analyses a spec may ask for: controls, rules, sensitivity, comparisons, peers.
+
+Takes the audited areas (with coverage and statistics), the spec and the footprint, and
+gives the summary sections ``explain``, ``sensitivity``, ``comparison``, ``change`` and
+``peers``. Each section calls the pure functions of :mod:`coverage_audit.explain` and
+:mod:`coverage_audit.compare`; this module only prepares their inputs (derived control
+variables, other footprints' coverage, the activity table) and records why a section
+could not be computed instead of failing the whole audit.
+"""
+
+from __future__ import annotations
+
+import warnings
+from typing import Any
+
+import geopandas as gpd
+import numpy as np
+import pandas as pd
+import shapely
+from pyproj import Geod, Transformer
+
+from .coverage import coverage_by_group, footprint_fractions
+from .errors import AnalysisError, DegenerateStatisticWarning, InputError
+from .footprint import Footprint, build_footprint, cut_pieces, geodesic_circles
+from .inputs import AreaInputs, InputRecord, ids_as_text, read_table, sha256_file
+from .spec import AuditSpec
+from .weights import AreaGraph
+
+#: Served thresholds of the sensitivity sweep (the issue asks for 0.25 to 0.75).
+SWEEP_THRESHOLDS = tuple(np.round(np.linspace(0.25, 0.75, 11), 4))
+#: Reach multipliers of the radius sweep for point footprints (half to double).
+SWEEP_RADII = (0.5, 0.75, 1.0, 1.25, 1.5, 2.0)
+
+
+def add_derived_columns(frame: gpd.GeoDataFrame, spec: AuditSpec, crs: Any) -> gpd.GeoDataFrame:
+    """Add the control variables the tool derives: density, distances in km."""
+    frame = frame.copy()
+    with np.errstate(divide="ignore", invalid="ignore"):
+        area = frame["area_km2"].to_numpy(dtype=float)
+        frame["population_density"] = np.where(
+            area > 0, frame["population"] / np.where(area > 0, area, 1), np.nan
+        )
+    if "nearest_site_m" in frame.columns:
+        frame["nearest_site_km"] = frame["nearest_site_m"] / 1000.0
+    explain = spec.explain
+    if explain is not None and explain.hub is not None:
+        reps = shapely.point_on_surface(np.asarray(frame.geometry.array, dtype=object))
+        to_geo = Transformer.from_crs(crs, "EPSG:4326", always_xy=True)
+        lon, lat = to_geo.transform(shapely.get_x(reps), shapely.get_y(reps))
+        hub_lon = np.full(len(frame), explain.hub[0])
+        hub_lat = np.full(len(frame), explain.hub[1])
+        _, _, dist = Geod(ellps="WGS84").inv(lon, lat, hub_lon, hub_lat)
+        frame[f"distance_to_{explain.hub_name}_km"] = np.asarray(dist) / 1000.0
+    return frame
+
+
+def explain_section(
+    frame: gpd.GeoDataFrame, spec: AuditSpec, id_column: str, graph: AreaGraph
+) -> dict[str, Any]:
+    """Exclusion models and rule discovery, as the ``[explain]`` table asks."""
+    from .explain import discover_rules, exclusion_models
+
+    explain = spec.explain
+    assert explain is not None
+    out: dict[str, Any] = {}
+    table = pd.DataFrame(frame.drop(columns=frame.geometry.name))
+    missing = [c for c in (*explain.controls, *explain.rule_conditions) if c not in table.columns]
+    if missing:
+        raise InputError(
+            f"[explain] names column {missing[0]!r}, which the areas do not have; available "
+            f"columns are {[c for c in table.columns if not c.endswith('_share')]}"
+        )
+    if "minority_share" not in table.columns:
+        reason = "needs the minority share: set derive_minority = true or name a group minority"
+        return {"models": {"skipped": reason}, "rules": {"skipped": reason}}
+    if explain.models:
+        try:
+            out["models"] = exclusion_models(
+                table,
+                controls=explain.controls,
+                id_column=id_column,
+                categorical=explain.categorical,
+                weights=graph,
+            ).to_dict()
+        except AnalysisError as exc:
+            warnings.warn(
+                f"exclusion models not estimated: {exc}", DegenerateStatisticWarning, stacklevel=2
+            )
+            out["models"] = {"skipped": str(exc)}
+    if explain.rules:
+        try:
+            out["rules"] = discover_rules(
+                table,
+                conditions=explain.rule_conditions,
+                max_length=explain.rule_max_length,
+                min_support=explain.rule_min_support,
+            ).to_dict()
+        except AnalysisError as exc:
+            out["rules"] = {"skipped": str(exc)}
+    return out
+
+
+def _enclave_count(
+    geoms: np.ndarray,
+    ids: np.ndarray,
+    served: np.ndarray,
+    frame: gpd.GeoDataFrame,
+    groups: list[str],
+    reference: str,
+    graph: AreaGraph,
+    spec: AuditSpec,
+) -> int:
+    from .enclaves import find_enclaves
+
+    an = spec.analysis
+    population = frame["population"].to_numpy(dtype=float)
+    result = find_enclaves(
+        geoms,
+        ids,
+        served,
+        population,
+        {g: frame[g].to_numpy(dtype=float) for g in groups},
+        graph,
+        min_surround=an.enclave_min_surround,
+        min_population=an.enclave_min_population,
+        transparent=(population <= 0) if an.transparent_zero_population else None,
+        reference_group=reference,
+        mc_draws=0,
+    )
+    return len(result.enclaves)
+
+
+def sensitivity_section(
+    frame: gpd.GeoDataFrame,
+    spec: AuditSpec,
+    inputs: AreaInputs,
+    footprint: Footprint,
+    graph: AreaGraph,
+) -> dict[str, Any]:
+    """Recompute the disparity and enclave count over served thresholds and reaches."""
+    from .explain import sensitivity_thresholds
+
+    groups, reference = inputs.groups, inputs.reference
+    fraction = frame["covered_fraction"].to_numpy(dtype=float)
+    counts = {g: frame[g].to_numpy(dtype=float) for g in groups}
+    geoms = np.asarray(frame.geometry.array, dtype=object)
+    ids = frame[inputs.id_column].to_numpy(dtype=object)
+    rows = sensitivity_thresholds(
+        fraction, counts, reference, SWEEP_THRESHOLDS, against=spec.analysis.comparison
+    )
+    threshold_rows = []
+    for t, row in zip(SWEEP_THRESHOLDS, rows, strict=True):
+        entry = row.to_dict()
+        entry["enclaves"] = _enclave_count(
+            geoms, ids, fraction >= t, frame, groups, reference, graph, spec
+        )
+        threshold_rows.append(entry)
+    out: dict[str, Any] = {"thresholds": threshold_rows}
+    if footprint.kind == "points" and footprint.points is not None:
+        points = footprint.points.to_crs("EPSG:4326")
+        lon = points.geometry.x.to_numpy()
+        lat = points.geometry.y.to_numpy()
+        base = footprint.points["radius_m"].to_numpy(dtype=float)
+        radius_rows = []
+        for factor in SWEEP_RADII:
+            circles, _ = geodesic_circles(
+                lon, lat, base * factor, footprint.crs, spec.analysis.circle_vertices
+            )
+            pieces = cut_pieces(shapely.union_all(circles))
+            cf = footprint_fractions(
+                Footprint(
+                    name=footprint.name,
+                    kind="polygons",
+                    geometry=None,
+                    pieces=pieces,
+                    crs=footprint.crs,
+                ),
+                geoms,
+                ids.tolist(),
+            )
+            cov = coverage_by_group(
+                frame,
+                groups=groups,
+                reference=reference,
+                fraction=cf,
+                threshold=spec.analysis.served_threshold,
+                comparison=spec.analysis.comparison,
+            )
+            radius_rows.append(
+                {
+                    "factor": factor,
+                    "radius_m": float(np.median(base) * factor),
+                    "served_area_share": float(np.mean(cf >= spec.analysis.served_threshold)),
+                    "groups": {
+                        g: {
+                            "rate": c.rate,
+                            "ratio": c.ratio,
+                            "served_area_ratio": c.served_area_ratio,
+                            "below_four_fifths": c.below_four_fifths,
+                        }
+                        for g, c in cov.groups.items()
+                    },
+                    "enclaves": _enclave_count(
+                        geoms,
+                        ids,
+                        cf >= spec.analysis.served_threshold,
+                        frame,
+                        groups,
+                        reference,
+                        graph,
+                        spec,
+                    ),
+                }
+            )
+        out["radius"] = radius_rows
+    return out
+
+
+def other_footprints(
+    spec: AuditSpec,
+    inputs: AreaInputs,
+    frame: gpd.GeoDataFrame,
+    graph: AreaGraph,
+) -> tuple[dict[str, Any], dict[str, np.ndarray], list[Footprint]]:
+    """Coverage and enclave counts of every footprint after the first.
+
+    Returns the comparison section, each footprint's covered fractions by name (the
+    first included) and the other Footprint objects.
+    """
+    geoms = np.asarray(frame.geometry.array, dtype=object)
+    ids = frame[inputs.id_column].to_numpy(dtype=object)
+    threshold = spec.analysis.served_threshold
+    fractions = {spec.footprint.name: frame["covered_fraction"].to_numpy(dtype=float)}
+    results: dict[str, Any] = {}
+    built: list[Footprint] = []
+    for fp_spec in spec.footprints[1:]:
+        fp = build_footprint(
+            fp_spec,
+            inputs,
+            inputs.exclusions,
+            circle_vertices=spec.analysis.circle_vertices,
+            id_width=spec.areas.id_width,
+        )
+        built.append(fp)
+        cf = footprint_fractions(fp, geoms, ids.tolist())
+        fractions[fp.name] = cf
+        cov = coverage_by_group(
+            frame,
+            groups=inputs.groups,
+            reference=inputs.reference,
+            fraction=cf,
+            threshold=threshold,
+            comparison=spec.analysis.comparison,
+        ).to_dict()
+        results[fp.name] = {
+            "coverage": cov,
+            "enclave_count": _enclave_count(
+                geoms, ids, cf >= threshold, frame, inputs.groups, inputs.reference, graph, spec
+            ),
+        }
+    return results, fractions, built
+
+
+def comparison_section(primary: dict[str, Any], others: dict[str, Any]) -> dict[str, Any]:
+    """Side-by-side coverage of every footprint, ranked."""
+    from .compare import compare_footprints
+
+    return compare_footprints({**primary, **others}).to_dict()
+
+
+def change_section(
+    spec: AuditSpec, inputs: AreaInputs, frame: gpd.GeoDataFrame, fractions: dict[str, np.ndarray]
+) -> dict[str, Any]:
+    """Areas that lost or gained service between two footprints, and the rate changes."""
+    from .compare import change_between
+
+    assert spec.change is not None
+    table = pd.DataFrame(frame.drop(columns=frame.geometry.name))
+    threshold = spec.analysis.served_threshold
+
+    def side(name: str) -> pd.DataFrame:
+        cf = fractions[name]
+        return table.assign(covered_fraction=cf, served=cf >= threshold)
+
+    return change_between(
+        side(spec.change.before),
+        side(spec.change.after),
+        id_column=inputs.id_column,
+        groups=inputs.groups,
+        reference=inputs.reference,
+        threshold=threshold,
+    ).to_dict()
+
+
+def peers_section(
+    spec: AuditSpec, inputs: AreaInputs, frame: gpd.GeoDataFrame
+) -> tuple[dict[str, Any], InputRecord]:
+    """Each lender's share of activity in majority-minority areas against its peers."""
+    from .compare import peer_comparison
+
+    activity = spec.activity
+    assert activity is not None
+    if "majority_minority" not in frame.columns:
+        raise InputError(
+            "[activity] needs majority-minority areas: set derive_minority = true or name a "
+            "group minority in [population]"
+        )
+    table = read_table(activity.path, id_column=activity.id, role="activity table")
+    record = InputRecord("activity", str(activity.path), sha256_file(activity.path), len(table))
+    if activity.id not in table.columns:
+        raise InputError(
+            f"activity table '{activity.path}' has no id column {activity.id!r}; its columns are "
+            f"{list(table.columns)}"
+        )
+    table = table.copy()
+    table[activity.id] = ids_as_text(
+        table[activity.id],
+        width=activity.id_width or spec.areas.id_width,
+        where=f"activity table '{activity.path}'",
+    )
+    flags = pd.Series(
+        frame["majority_minority"].to_numpy(dtype=bool),
+        index=frame[inputs.id_column].to_numpy(dtype=object),
+    )
+    result = peer_comparison(
+        table,
+        id_column=activity.id,
+        majority_minority=flags,
+        lender_column=activity.lender_column,
+        count_column=activity.count_column,
+        lender_columns=list(activity.lender_columns) if activity.lender_columns else None,
+        alpha=activity.alpha,
+    )
+    return result.to_dict(), record
