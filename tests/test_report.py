@@ -10,6 +10,8 @@ import importlib
 import importlib.util
 import io
 import re
+import subprocess
+import sys
 from pathlib import Path
 
 import esda
@@ -964,6 +966,35 @@ def test_constant_covered_fraction_gives_no_scatter(inputs: dict) -> None:
     areas["covered_fraction"] = 1.0
     assert page.moran_points(areas, moran_weights=inputs["moran_weights"]) is None
     assert "Moran scatterplot of covered" not in render(inputs, areas=areas)
+
+
+def test_charts_leave_matplotlib_global_state_alone() -> None:
+    # In a fresh interpreter: drawing never imports pyplot nor changes rcParams/backend.
+    # rcParams are read with dict.__getitem__: going through RcParams would resolve the
+    # "auto" backend, which itself imports pyplot.
+    script = (
+        "import sys, numpy as np, matplotlib\n"
+        "rc = matplotlib.rcParams\n"
+        "raw = lambda: {k: dict.__getitem__(rc, k) for k in list(dict.keys(rc))}\n"
+        "before = raw()\n"
+        "from coverage_audit.report import charts\n"
+        "charts.coverage_bar_chart(['a', 'b'], [0.5, 0.2], comparison_rate=0.5,\n"
+        "    comparison_label='a', flagged=[False, True])\n"
+        "z = np.linspace(-1, 1, 9)\n"
+        "charts.moran_scatter_chart(z, z / 2, moran_i=0.5, variable='v')\n"
+        "print('pyplot' if 'matplotlib.pyplot' in sys.modules else 'no pyplot',\n"
+        "      'same' if before == raw() else 'changed')\n"
+    )
+    done = subprocess.run(
+        [sys.executable, "-c", script], capture_output=True, text=True, check=True, timeout=120
+    )
+    assert done.stdout.split() == ["no", "pyplot", "same"], done.stdout + done.stderr
+
+
+def test_empty_region_renders(inputs: dict) -> None:
+    text = render(inputs, areas=inputs["areas"].iloc[:0], moran_weights=None)
+    assert "<svg" in text  # the coverage bar chart still stands
+    assert "Locator of enclave" not in text and "Overview of the region" not in text
 
 
 def test_polygon_path_keeps_holes_empty() -> None:

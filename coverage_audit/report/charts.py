@@ -355,7 +355,7 @@ class RegionLayers:
 def _add_path(ax, path: Path | None, **style) -> None:
     if path is not None:
         filled = style.get("facecolor", "none") != "none"
-        heavy = filled and len(path.vertices) > RASTERISE_VERTICES_ABOVE
+        heavy = filled and np.shape(path.vertices)[0] > RASTERISE_VERTICES_ABOVE
         ax.add_patch(PathPatch(path, rasterized=heavy, **style))
 
 
