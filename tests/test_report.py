@@ -991,6 +991,17 @@ def test_charts_leave_matplotlib_global_state_alone() -> None:
     assert done.stdout.split() == ["no", "pyplot", "same"], done.stdout + done.stderr
 
 
+def test_bar_chart_keeps_a_comparison_named_with_underscore() -> None:
+    svg = charts.coverage_bar_chart(
+        ["_hidden", "b"],
+        [0.5, 0.2],
+        comparison_rate=0.5,
+        comparison_label="_hidden (reference)",
+        flagged=[False, True],
+    )
+    assert "_hidden (reference)" in svg and "four-fifths" in svg
+
+
 def test_empty_region_renders(inputs: dict) -> None:
     text = render(inputs, areas=inputs["areas"].iloc[:0], moran_weights=None)
     assert "<svg" in text  # the coverage bar chart still stands

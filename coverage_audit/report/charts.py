@@ -158,7 +158,11 @@ def coverage_bar_chart(
         )
     if comparison_rate is not None and np.isfinite(comparison_rate):
         ref = 100.0 * comparison_rate
-        ax.axvline(ref, color=TEXT_TONE, linewidth=1.4, label=mpl_text(comparison_label))
+        # matplotlib leaves out legend entries whose label starts with "_" (a group name
+        # may); a leading space keeps them.
+        legend_label = mpl_text(comparison_label)
+        legend_label = " " + legend_label if legend_label.startswith("_") else legend_label
+        ax.axvline(ref, color=TEXT_TONE, linewidth=1.4, label=legend_label)
         ax.axvline(0.8 * ref, color=TEXT_TONE, linewidth=1.0, linestyle=":", label="four-fifths")
         ax.legend(loc="lower right", fontsize=8, frameon=True, framealpha=0.9)
     ax.set_yticks(y, [mpl_text(label) for label in labels])
