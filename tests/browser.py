@@ -220,6 +220,9 @@ def chromium_driver() -> Iterator[Any]:
     """One headless Chromium per test module, network blocked; skipped when unavailable."""
     reason = chromium_missing()
     if reason:
+        if os.environ.get("COVERAGE_AUDIT_REQUIRE_BROWSER"):
+            # CI installs Chromium (.ci/run sets this): there a missing browser is a fault.
+            pytest.fail(f"COVERAGE_AUDIT_REQUIRE_BROWSER is set but {reason}")
         pytest.skip(f"browser tests need headless Chromium: {reason}")
     profile = tempfile.mkdtemp(prefix="ca-chromium-")
     driver = start_chromium(profile)
