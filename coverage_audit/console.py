@@ -63,6 +63,35 @@ def print_summary(result: Any, paths: dict[str, Path], *, seconds: float, stream
     if enclaves is not None:
         top = ", ".join(f"{e['id']} ({e['population']:,.0f} people)" for e in enclaves[:3])
         console.print(f"enclaves: {len(enclaves)}" + (f"; largest {top}" if top else ""))
+    comparison = s.get("comparison")
+    if comparison:
+        ranked = ", ".join(
+            f"{f['rank']}. {f['name']} (worst ratio {_num(f.get('worst_ratio'))})"
+            for f in comparison.get("footprints", [])
+        )
+        console.print(f"footprints ranked: {ranked}")
+    change = s.get("change")
+    if change:
+        lost, gained = change.get("lost_service", {}), change.get("gained_service", {})
+        console.print(
+            f"change: {lost.get('count', 0)} areas lost service ({lost.get('population', 0):,.0f} "
+            f"people), {gained.get('count', 0)} gained"
+        )
+    peers = s.get("peers")
+    if peers:
+        flagged = [row["lender"] for row in peers.get("lenders", []) if row.get("below_peers")]
+        console.print(
+            f"lenders below peers in majority-minority tracts: {', '.join(flagged) or 'none'}"
+        )
+    models = (s.get("explain") or {}).get("models") or {}
+    for row in models.get("minority_change", []):
+        if row.get("kind") == "logit":
+            console.print(
+                f"odds of not being served per +10 pp minority share: {_num(row.get('odds_ratio_alone'))} "
+                f"alone, {_num(row.get('odds_ratio_with_controls'))} with controls"
+            )
+    if models.get("skipped"):
+        console.print(f"exclusion models not estimated: {models['skipped']}")
     ex = s.get("exclusions", {})
     if ex.get("count"):
         console.print(f"excluded rows: {ex['count']} (see exclusions.csv)")
