@@ -61,6 +61,11 @@ def _build_parser() -> argparse.ArgumentParser:
         default=None,
         help="folder for the outputs (default: outputs/<spec name>)",
     )
+    run.add_argument(
+        "--open",
+        action="store_true",
+        help="open report.html and map.html in the web browser afterwards",
+    )
     _add_common(run)
     inline = run.add_argument_group(
         "describing the audit without a spec file",
@@ -154,6 +159,11 @@ def _build_parser() -> argparse.ArgumentParser:
         action="append",
         choices=["delivery", "branches", "assessment_area"],
         help="run only this scenario (repeatable; default: all)",
+    )
+    demo.add_argument(
+        "--open",
+        action="store_true",
+        help="open each scenario's report.html and map.html in the web browser afterwards",
     )
     demo.add_argument(
         "--regenerate",
@@ -338,6 +348,12 @@ def _run_one(spec: Any, out: Path, args: argparse.Namespace, stream: Any) -> dic
         from .console import print_summary
 
         print_summary(result, paths, seconds=time.perf_counter() - t0, stream=stream)
+    if getattr(args, "open", False):
+        import webbrowser
+
+        for key in ("report", "map"):
+            if key in paths:
+                webbrowser.open(paths[key].resolve().as_uri())
     return result.summary
 
 

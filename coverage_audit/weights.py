@@ -140,6 +140,9 @@ class AreaGraph:
             "knn_k": self.knn_k if self.island_policy == "knn" else None,
             "components": int(self.n_components),
             "largest_component_areas": int(sizes.max()) if sizes.size else 0,
+            # Every component but the largest, by id (islands are one-area components),
+            # so that no disconnected part of the region goes unreported.
+            "other_components": [list(c) for c in self.components()[1:]],
             "areas_in_statistics": int(self.stats_mask.sum()),
         }
 
