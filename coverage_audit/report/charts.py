@@ -2,8 +2,8 @@
 
 Takes plain numbers (rates, standardised values and their spatial lags) and shapely
 geometries in the projected analysis CRS, and gives SVG strings ready to be placed inline
-in report.html: a coverage bar chart, a Moran scatterplot, an overview map of the region
-and a locator figure for each enclave. Figures are built on
+in report.html: a coverage bar chart, a Moran scatterplot, an overview map of the region,
+a locator figure for each enclave and the sensitivity chart of ratios across a sweep. Figures are built on
 :class:`matplotlib.figure.Figure` directly, never through pyplot, so no backend or global
 figure state is touched; rc settings are applied only inside ``rc_context`` while a figure
 is saved. Output is deterministic: the SVG ids are salted with a per-figure string and the
@@ -14,7 +14,7 @@ from __future__ import annotations
 
 import io
 import re
-from collections.abc import Sequence
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from html import escape
 
@@ -35,6 +35,22 @@ FLAG_TONE = "#c0612b"
 ENCLAVE_TONE = "#d1495b"
 RING_EDGE = "#1f2a44"
 TEXT_TONE = "#222222"
+FLAG_BAND = "#fbeee6"
+#: Series of the sweep chart: colour, marker and dash pattern all change from one group to
+#: the next, so the lines can be told apart in grey print and by readers who do not see
+#: the colours.
+SERIES_STYLES: tuple[tuple[str, str, str], ...] = (
+    ("#4f7396", "o", "-"),
+    ("#8a5a9e", "s", "--"),
+    ("#5b8c5a", "^", "-."),
+    ("#a3742c", "D", ":"),
+    ("#2e7f8c", "v", "-"),
+    ("#7a4b3a", "P", "--"),
+    ("#555555", "X", "-."),
+    ("#9c4f74", "*", ":"),
+)
+#: Ratio of the four-fifths screen (29 CFR 1607.4(D)).
+FOUR_FIFTHS = 0.8
 
 #: Beyond this many points the Moran scatter markers are rasterised inside the SVG, which
 #: keeps the report small for regions of thousands of areas.
@@ -529,3 +545,104 @@ def enclave_locator_chart(
     ]
     close.legend(handles=handles, loc="upper left", bbox_to_anchor=(1.0, 1.0), fontsize=7)
     return figure_to_svg(fig, salt=salt, title=f"Locator of enclave {label}")
+
+
+@dataclass(frozen=True)
+class SweepPanel:
+    """One panel of :func:`sweep_chart`: each group's ratio as one setting is varied.
+
+    Attributes
+    ----------
+    x : sequence of float
+        The settings tried, in order.
+    ratios : mapping of str to sequence of float or None
+        Each group's ratio at each setting; ``None`` leaves a gap in the line.
+    tick_labels : sequence of str
+        Text of the x ticks, one per setting.
+    x_label, y_label, title : str
+        Axis labels and panel title.
+    marked : float or None
+        The audit's own setting, drawn as a vertical line.
+    marked_label : str
+        Legend text of that line.
+    """
+
+    x: Sequence[float]
+    ratios: Mapping[str, Sequence[float | None]]
+    tick_labels: Sequence[str]
+    x_label: str
+    y_label: str
+    title: str
+    marked: float | None = None
+    marked_label: str = "this audit"
+
+
+def sweep_chart(panels: Sequence[SweepPanel], *, salt: str = "sweep") -> str:
+    """Draw each group's ratio against a swept setting, with the four-fifths line at 0.8.
+
+    Parameters
+    ----------
+    panels : sequence of SweepPanel
+        One panel per sweep (served threshold, reach of the service points), stacked.
+    salt : str
+        SVG id salt (see :func:`figure_to_svg`).
+
+    Returns
+    -------
+    str
+        Inline SVG markup.
+
+    Notes
+    -----
+    The band below 0.8 is shaded: a point there is a ratio strictly below four-fifths
+    of the comparison rate, the screen of 29 CFR 1607.4(D) used as a rule of thumb.
+    """
+    n = max(len(panels), 1)
+    fig = _new_figure(7.2, 0.5 + 2.9 * n)
+    axes = fig.subplots(n, 1, squeeze=False)[:, 0]
+    for ax, panel in zip(axes, panels, strict=False):
+        x = np.asarray(panel.x, dtype=float)
+        finite_max = 1.0
+        for k, (group, values) in enumerate(panel.ratios.items()):
+            y = np.array([np.nan if v is None else float(v) for v in values], dtype=float)
+            if np.isfinite(y).any():
+                finite_max = max(finite_max, float(np.nanmax(y)))
+            colour, marker, dash = SERIES_STYLES[k % len(SERIES_STYLES)]
+            label = mpl_text(group)
+            ax.plot(
+                x,
+                y,
+                color=colour,
+                marker=marker,
+                linestyle=dash,
+                linewidth=1.4,
+                markersize=4.5,
+                # matplotlib leaves out legend entries whose label starts with "_".
+                label=" " + label if label.startswith("_") else label,
+            )
+        top = max(1.2, finite_max * 1.08)
+        ax.axhspan(0.0, FOUR_FIFTHS, color=FLAG_BAND, zorder=0, linewidth=0)
+        ax.axhline(
+            FOUR_FIFTHS, color=TEXT_TONE, linewidth=1.0, linestyle=(0, (4, 2)), label="four-fifths"
+        )
+        ax.axhline(1.0, color="#999999", linewidth=0.7)
+        if panel.marked is not None and np.isfinite(panel.marked):
+            ax.axvline(
+                panel.marked,
+                color=RING_EDGE,
+                linewidth=1.0,
+                linestyle=":",
+                label=mpl_text(panel.marked_label),
+            )
+        ax.set_ylim(0.0, top)
+        if x.size:
+            pad = 0.03 * ((x.max() - x.min()) or 1.0)
+            ax.set_xlim(x.min() - pad, x.max() + pad)
+        ax.set_xticks(x, [mpl_text(t) for t in panel.tick_labels], fontsize=8)
+        ax.set_xlabel(mpl_text(panel.x_label), fontsize=9)
+        ax.set_ylabel(mpl_text(panel.y_label), fontsize=9)
+        ax.set_title(mpl_text(panel.title), fontsize=10)
+        ax.spines[["top", "right"]].set_visible(False)
+        ax.legend(loc="upper left", bbox_to_anchor=(1.01, 1.0), fontsize=8, frameon=False)
+    title = "; ".join(p.title for p in panels) or "Sensitivity"
+    return figure_to_svg(fig, salt=salt, title=title)

@@ -1,0 +1,298 @@
+"""Markup, number formats and tables of the report page.
+
+Takes plain values (numbers, text, mappings read from summary.json) and gives escaped
+HTML fragments: :class:`Html` marks markup that is already safe, :func:`tag` builds
+elements escaping every piece of content and every attribute, the ``fmt_*`` functions
+give the page's one way of writing percentages, percentage points, ratios, p-values and
+counts (``None`` and non-finite values as "n/a"), and :func:`table` renders the
+report's tables with right-aligned numeric cells. Every section module builds its
+markup from these pieces only, so nothing from the inputs reaches the page unescaped.
+"""
+
+from __future__ import annotations
+
+import html
+import math
+from collections.abc import Iterable, Mapping, Sequence
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+NA = "n/a"
+
+
+# --- markup ----------------------------------------------------------------------------
+
+
+class Html(str):
+    """Markup already safe to place in the page (authored here, or escaped)."""
+
+    __slots__ = ()
+
+    def __add__(self, other: object) -> Html:
+        # Concatenation keeps the type, escaping plain text, so markup built piecewise is
+        # never escaped twice nor left unescaped.
+        return Html(str.__add__(self, esc(other)))
+
+
+def esc(value: Any) -> Html:
+    """Return ``value`` as escaped text; :class:`Html` passes through unchanged."""
+    if isinstance(value, Html):
+        return value
+    return Html(html.escape(str(value), quote=True))
+
+
+def join(parts: Iterable[Any], sep: str = "") -> Html:
+    """Concatenate parts, escaping each."""
+    return Html(sep.join(esc(p) for p in parts))
+
+
+def tag(name: str, *content: Any, **attrs: Any) -> Html:
+    """Return an element; a trailing ``_`` is dropped from names, ``_`` becomes ``-``."""
+    rendered = "".join(
+        f' {key.rstrip("_").replace("_", "-")}="{esc(value)}"'
+        for key, value in attrs.items()
+        if value is not None and value is not False
+    )
+    return Html(f"<{name}{rendered}>{join(content)}</{name}>")
+
+
+def fill(template: str, **values: Any) -> Html:
+    """Fill an authored HTML ``template`` with escaped values."""
+    return Html(template.format(**{k: esc(v) for k, v in values.items()}))
+
+
+def para(*content: Any, **attrs: Any) -> Html:
+    """Return a paragraph of escaped content."""
+    return tag("p", *content, **attrs)
+
+
+def section(section_id: str, title: str, *content: Any) -> Html:
+    """Return a major section (its own page in print) with its heading."""
+    return tag("section", tag("h2", title), *content, id=section_id, class_="major")
+
+
+def figure(svg: str, caption: str) -> Html:
+    """Return a figure of inline SVG markup (drawn by :mod:`.charts`) with its caption."""
+    return tag("figure", Html(svg), tag("figcaption", caption))
+
+
+# --- numbers ---------------------------------------------------------------------------
+
+
+def as_number(value: Any) -> float | None:
+    """Return a finite float, or ``None`` for missing, NaN, inf, booleans and non-numbers."""
+    if value is None or isinstance(value, (bool, np.bool_)):
+        return None
+    try:
+        f = float(value)
+    except (TypeError, ValueError):
+        return None
+    return f if math.isfinite(f) else None
+
+
+def _minus(text: str) -> str:
+    # A typographic minus is read as "minus" by screen readers and never breaks a line;
+    # a value that rounds to zero loses its sign.
+    if text.startswith("-"):
+        return text[1:] if float(text[1:]) == 0 else "\u2212" + text[1:]
+    return text
+
+
+def fmt_percent(value: Any, digits: int = 1) -> str:
+    """Format a fraction as a percentage: ``0.6234 -> "62.3%"``."""
+    f = as_number(value)
+    return NA if f is None else _minus(f"{100.0 * f:.{digits}f}") + "%"
+
+
+def fmt_points(value: Any, digits: int = 1) -> str:
+    """Format a difference of fractions in percentage points: ``-0.123 -> "−12.3 pp"``."""
+    f = as_number(value)
+    if f is None:
+        return NA
+    text = _minus(f"{100.0 * f:.{digits}f}")
+    return ("+" if f > 0 and float(text) != 0 else "") + text + " pp"
+
+
+def fmt_fixed(value: Any, digits: int = 3) -> str:
+    """Format a statistic with a fixed number of decimals (ratios, indices, I, z)."""
+    f = as_number(value)
+    return NA if f is None else _minus(f"{f:.{digits}f}")
+
+
+def fmt_p(value: Any) -> str:
+    """Format a p-value: three decimals, and ``< 0.001`` below that (usual reporting)."""
+    f = as_number(value)
+    if f is None:
+        return NA
+    return "< 0.001" if f < 0.001 else f"{f:.3f}"
+
+
+def fmt_count(value: Any) -> str:
+    """Format a count or a population with thousands separators (whole people)."""
+    f = as_number(value)
+    return NA if f is None else f"{round(f):,}"
+
+
+def fmt_distance(value: Any, unit: str) -> str:
+    """Format a distance, rounded to whole units."""
+    f = as_number(value)
+    return NA if f is None else f"{round(f):,} {unit}"
+
+
+def fmt_bool(value: Any) -> str:
+    """Format a flag as yes/no."""
+    return NA if value is None else ("yes" if bool(value) else "no")
+
+
+#: Keys of statistics, whose whole-number values still print with decimals.
+_STATISTIC_PREFIXES = ("z_", "p_", "expected", "variance", "mean", "share", "ratio")
+_STATISTIC_KEYS = frozenset({"I", "EI", "z", "p"})
+
+
+def fmt_param(value: Any) -> str:
+    """Format a spec parameter as written: numbers without padding, lists comma-joined."""
+    if value is None:
+        return "not set"
+    if isinstance(value, (bool, np.bool_)):
+        return fmt_bool(value)
+    if isinstance(value, (float, np.floating)):
+        return f"{float(value):.10g}"
+    if isinstance(value, (list, tuple)):
+        return ", ".join(fmt_param(v) for v in value) if value else "none"
+    if isinstance(value, Mapping):
+        return "; ".join(f"{k}: {fmt_param(v)}" for k, v in value.items()) or "none"
+    return str(value)
+
+
+def fmt_auto(key: str, value: Any) -> str:
+    """Format a value of a generic key/value table by its type and the shape of its key."""
+    if value is None:
+        return NA
+    if isinstance(value, (bool, np.bool_)):
+        return fmt_bool(value)
+    if isinstance(value, (int, np.integer)):
+        return fmt_count(value)
+    if isinstance(value, (float, np.floating)):
+        if key.startswith("p_") or key.endswith("_p") or key == "p":
+            return fmt_p(value)
+        statistic = key in _STATISTIC_KEYS or key.startswith(_STATISTIC_PREFIXES)
+        if float(value).is_integer() and not statistic:
+            return fmt_count(value)  # a count carried as a float (joins, areas)
+        return fmt_fixed(value, 2 if key.startswith("z_") or key == "z" else 4)
+    if isinstance(value, Mapping):
+        return "; ".join(f"{k}: {fmt_auto(str(k), v)}" for k, v in value.items()) or NA
+    if isinstance(value, (list, tuple)):
+        if not value:
+            return "none"
+        shown = ", ".join(fmt_auto(key, v) for v in value[:10])
+        return shown + (f" … ({len(value):,} in all)" if len(value) > 10 else "")
+    return str(value)
+
+
+def cell_text(value: Any) -> str:
+    """Return a table cell's text, "n/a" for missing values of any kind."""
+    if value is None or value is pd.NA or (isinstance(value, float) and math.isnan(value)):
+        return NA
+    return str(value)
+
+
+# --- tables ----------------------------------------------------------------------------
+
+
+class Num(str):
+    """Text of a right-aligned numeric cell."""
+
+    __slots__ = ()
+
+
+class NumHtml(Html):
+    """Markup of a right-aligned numeric cell (a number with a flag's emphasis)."""
+
+    __slots__ = ()
+
+
+def _cell(content: Any, *, header: bool) -> Html:
+    numeric = isinstance(content, (Num, NumHtml))
+    classes = " ".join(c for c, on in (("num", numeric), ("na", content == NA)) if on)
+    if header:
+        return tag("th", content, scope="row", class_=classes or None)
+    return tag("td", content, class_=classes or None)
+
+
+def table(
+    headers: Sequence[Any],
+    rows: Iterable[Sequence[Any]],
+    *,
+    caption: str,
+    row_attrs: Sequence[Mapping[str, Any]] | None = None,
+    table_id: str | None = None,
+) -> Html:
+    """Render a table whose first column holds row headers; :class:`Num` cells align right."""
+    head = join(
+        tag("th", h, scope="col", class_="num" if isinstance(h, Num) else None) for h in headers
+    )
+    body = [
+        tag(
+            "tr",
+            *(_cell(c, header=j == 0) for j, c in enumerate(row)),
+            **(row_attrs[k] if row_attrs is not None else {}),
+        )
+        for k, row in enumerate(rows)
+    ]
+    inner = tag("caption", caption) + tag("thead", tag("tr", head)) + tag("tbody", *body)
+    return tag("div", tag("table", inner, id=table_id), class_="table-wrap")
+
+
+#: Statistics keep their textbook names in generic tables (esda's I, EI, z_sim, p_sim).
+_STAT_LABELS = {
+    **{k: k for k in ("I", "EI", "z_sim", "p_sim", "z_rand", "p_rand", "z_norm", "p_norm", "n")},
+    "expected": "E[I]",
+    "variance_rand": "Var[I] (rand.)",
+    "expected_sim": "mean of the permutation null",
+    "x_variable": "x (in the area)",
+    "y_variable": "y (lagged: in its neighbours)",
+}
+
+
+def kv_table(
+    mapping: Mapping[str, Any],
+    *,
+    caption: str,
+    labels: Mapping[str, str] | None = None,
+) -> Html:
+    """Render a mapping as a two-column table with labelled keys."""
+    labels = {**_STAT_LABELS, **(labels or {})}
+    rows = [(labels.get(k, k.replace("_", " ")), Num(fmt_auto(k, v))) for k, v in mapping.items()]
+    return table(("Item", Num("Value")), rows, caption=caption)
+
+
+def as_mapping(value: Any) -> Mapping[str, Any]:
+    """Return ``value`` if it is a mapping, else an empty one (absent or malformed data)."""
+    return value if isinstance(value, Mapping) else {}
+
+
+def get_in(mapping: Any, *keys: str) -> Any:
+    """Walk nested mappings; ``None`` once a key is missing or a value is not a mapping."""
+    for key in keys:
+        if not isinstance(mapping, Mapping):
+            return None
+        mapping = mapping.get(key)
+    return mapping
+
+
+def ordered(groups: Sequence[str], present: Iterable[str]) -> list[str]:
+    """Return the groups in the order given, then any other group the data have."""
+    present = list(present)
+    return [g for g in groups if g in present] + [g for g in present if g not in groups]
+
+
+def first_of(mapping: Mapping[str, Any], *keys: str) -> Any:
+    """Return the value of the first key present (``None`` if none is)."""
+    return next((mapping[k] for k in keys if k in mapping), None)
+
+
+def plural(count: int, noun: str) -> str:
+    """Return ``"1 area"``, ``"2 areas"``: the count with thousands separators and noun."""
+    return f"{count:,} {noun}" + ("" if count == 1 else "s")
