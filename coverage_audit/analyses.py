@@ -145,6 +145,8 @@ def sensitivity_section(
     counts = {g: frame[g].to_numpy(dtype=float) for g in groups}
     geoms = np.asarray(frame.geometry.array, dtype=object)
     ids = frame[inputs.id_column].to_numpy(dtype=object)
+    # Seventeen enclave passes over the same areas: measure every shared edge once.
+    graph.shared_lengths()
     rows = sensitivity_thresholds(
         fraction, counts, reference, SWEEP_THRESHOLDS, against=spec.analysis.comparison
     )

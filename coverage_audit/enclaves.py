@@ -25,7 +25,7 @@ from scipy.sparse.csgraph import connected_components
 
 from ._util import clean_number, safe_ratio, to_jsonable
 from .errors import AnalysisError, SpecError
-from .weights import AreaGraph, shared_boundary_lengths
+from .weights import AreaGraph, SharedBoundaries, shared_boundary_lengths
 
 #: Name of the group whose share the Monte Carlo contrast tests; derived as population minus
 #: the reference group when the counts do not include it.
@@ -298,7 +298,16 @@ def find_enclaves(
     unserved = ~data.served & ~data.transparent
     comp, n_comp = _masked_components(adjacency, unserved)
     body, n_body = _masked_components(adjacency, data.transparent)
-    lengths = _boundary_budget(data.geometries, adjacency, comp, body, data.served, n_comp, n_body)
+    lengths = _boundary_budget(
+        data.geometries,
+        adjacency,
+        comp,
+        body,
+        data.served,
+        n_comp,
+        n_body,
+        cache=graph.cached_shared_lengths(),
+    )
 
     flagged = np.flatnonzero(
         (lengths.surround >= min_surround - _SHARE_ATOL)
@@ -708,26 +717,39 @@ def _boundary_budget(
     served: np.ndarray,
     n_comp: int,
     n_body: int,
+    cache: SharedBoundaries | None = None,
 ) -> _Lengths:
-    """Split each component's outer boundary into served, transparent and edge lengths."""
+    """Split each component's outer boundary into served, transparent and edge lengths.
+
+    With ``cache`` (every pair's length, from :meth:`AreaGraph.shared_lengths`) nothing is
+    measured again; without it only the pairs touching unserved areas are measured.
+    """
     if n_comp == 0:
         empty = np.zeros(0)
         return _Lengths(empty, empty, empty, empty, empty)
     in_comp = comp >= 0
     in_body = body >= 0
     relevant = in_comp | in_body
-    upper = sp.triu(adjacency, k=1).tocoo()
-    keep = relevant[upper.row] | relevant[upper.col]
-    a_all, b_all = upper.row[keep].astype(np.int64), upper.col[keep].astype(np.int64)
-    # Measure only the areas involved, so the cost follows the unserved part of the region.
-    nodes = np.union1d(np.union1d(a_all, b_all), np.flatnonzero(relevant))
-    local = np.column_stack([np.searchsorted(nodes, a_all), np.searchsorted(nodes, b_all)])
-    shared = shared_boundary_lengths(geoms[nodes], local)
-    perimeter = np.zeros(comp.size)
-    perimeter[nodes] = shared.perimeter
-    a = nodes[shared.pairs["i"].to_numpy(dtype=np.int64)]
-    b = nodes[shared.pairs["j"].to_numpy(dtype=np.int64)]
-    length = shared.pairs["length"].to_numpy(dtype=np.float64)
+    if cache is not None:
+        ci = cache.pairs["i"].to_numpy(dtype=np.int64)
+        cj = cache.pairs["j"].to_numpy(dtype=np.int64)
+        keep = relevant[ci] | relevant[cj]
+        a, b = ci[keep], cj[keep]
+        length = cache.pairs["length"].to_numpy(dtype=np.float64)[keep]
+        perimeter = np.asarray(cache.perimeter, dtype=np.float64)
+    else:
+        upper = sp.triu(adjacency, k=1).tocoo()
+        keep = relevant[upper.row] | relevant[upper.col]
+        a_all, b_all = upper.row[keep].astype(np.int64), upper.col[keep].astype(np.int64)
+        # Measure only the areas involved, so the cost follows the unserved part of the region.
+        nodes = np.union1d(np.union1d(a_all, b_all), np.flatnonzero(relevant))
+        local = np.column_stack([np.searchsorted(nodes, a_all), np.searchsorted(nodes, b_all)])
+        shared = shared_boundary_lengths(geoms[nodes], local)
+        perimeter = np.zeros(comp.size)
+        perimeter[nodes] = shared.perimeter
+        a = nodes[shared.pairs["i"].to_numpy(dtype=np.int64)]
+        b = nodes[shared.pairs["j"].to_numpy(dtype=np.int64)]
+        length = shared.pairs["length"].to_numpy(dtype=np.float64)
     # Both orientations, so each rule below reads "x is in C, y is on the other side".
     x = np.concatenate([a, b])
     y = np.concatenate([b, a])

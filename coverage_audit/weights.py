@@ -72,6 +72,7 @@ class AreaGraph:
     island_policy: str
     knn_k: int
     _knn_links: sp.csr_matrix = field(repr=False)
+    _geometries: np.ndarray | None = field(repr=False, default=None)
 
     @property
     def n(self) -> int:
@@ -120,6 +121,27 @@ class AreaGraph:
         """
         graph = Graph.from_sparse(self.stats_adjacency)
         return graph.transform(transform)
+
+    def shared_lengths(self) -> SharedBoundaries:
+        """Return the exact shared-edge length of every contiguous pair, computed once.
+
+        Callers that measure boundaries many times over the same areas (the sensitivity
+        sweeps) call this first; :func:`coverage_audit.enclaves.find_enclaves` then reads
+        lengths from it instead of measuring again.
+        """
+        cached = self.__dict__.get("_shared_lengths")
+        if cached is None:
+            if self._geometries is None:
+                raise AnalysisError("this AreaGraph was built without its geometries")
+            upper = sp.triu(self.adjacency, k=1).tocoo()
+            pairs = np.column_stack([upper.row, upper.col]).astype(np.int64)
+            cached = shared_boundary_lengths(self._geometries, pairs)
+            self.__dict__["_shared_lengths"] = cached
+        return cached
+
+    def cached_shared_lengths(self) -> SharedBoundaries | None:
+        """Return the shared lengths if :meth:`shared_lengths` has run, else None."""
+        return self.__dict__.get("_shared_lengths")
 
     def components(self) -> list[tuple[str, ...]]:
         """Return the ids of each connected component, largest first, then by first id."""
@@ -220,6 +242,7 @@ def build_area_graph(
         island_policy=island_policy,
         knn_k=int(knn_k),
         _knn_links=knn_links,
+        _geometries=geoms,
     )
     if islands or graph.n_components > 1:
         shown = ", ".join(islands[:10]) + (" ..." if len(islands) > 10 else "")

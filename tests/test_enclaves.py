@@ -796,3 +796,42 @@ def test_no_global_warning_filters_left_behind():
     grid.unserve((1, 1))
     grid.run(mc_draws=9, rng=np.random.default_rng(SEED))
     assert warnings.filters == before
+
+
+def test_cached_shared_lengths_give_identical_results():
+    # The sensitivity sweeps measure every shared edge once (AreaGraph.shared_lengths) and
+    # reuse it; the enclaves must be exactly those found by measuring afresh.
+    import shapely as _shapely
+
+    from coverage_audit.weights import build_area_graph as _build
+
+    cells = [_shapely.box(i, j, i + 1, j + 1) for j in range(6) for i in range(6)]
+    ids = [f"c{k:02d}" for k in range(36)]
+    served = np.ones(36, dtype=bool)
+    served[[14, 15, 20, 21, 0, 1]] = False  # an interior pocket and an edge pocket
+    population = np.full(36, 100.0)
+    counts = {"white": np.full(36, 60.0), "minority": np.full(36, 40.0)}
+    fresh = find_enclaves(
+        np.array(cells, dtype=object),
+        ids,
+        served,
+        population,
+        counts,
+        _build(np.array(cells, dtype=object), ids),
+        reference_group="white",
+        mc_draws=0,
+    )
+    graph = _build(np.array(cells, dtype=object), ids)
+    graph.shared_lengths()
+    cached = find_enclaves(
+        np.array(cells, dtype=object),
+        ids,
+        served,
+        population,
+        counts,
+        graph,
+        reference_group="white",
+        mc_draws=0,
+    )
+    assert cached.to_dict() == fresh.to_dict()
+    assert [e.area_ids for e in cached.enclaves] == [("c14", "c15", "c20", "c21")]
