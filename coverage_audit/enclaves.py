@@ -307,6 +307,7 @@ def find_enclaves(
         n_comp,
         n_body,
         cache=graph.cached_shared_lengths(),
+        min_surround=min_surround,
     )
 
     flagged = np.flatnonzero(
@@ -718,11 +719,19 @@ def _boundary_budget(
     n_comp: int,
     n_body: int,
     cache: SharedBoundaries | None = None,
+    min_surround: float | None = None,
 ) -> _Lengths:
     """Split each component's outer boundary into served, transparent and edge lengths.
 
     With ``cache`` (every pair's length, from :meth:`AreaGraph.shared_lengths`) nothing is
     measured again; without it only the pairs touching unserved areas are measured.
+
+    The outer boundary is the exterior of the component's union: where a component
+    surrounds something (a served island, a park, an area left out of the analysis), that
+    ring is its inner boundary and counts neither way, so a large unserved background
+    around scattered served sites is never taken for an enclave. Components that could
+    reach ``min_surround`` are measured with their holes left out (a hole's boundary is
+    almost always served, so the first, hole-inclusive share is an upper bound).
     """
     if n_comp == 0:
         empty = np.zeros(0)
@@ -750,48 +759,118 @@ def _boundary_budget(
         a = nodes[shared.pairs["i"].to_numpy(dtype=np.int64)]
         b = nodes[shared.pairs["j"].to_numpy(dtype=np.int64)]
         length = shared.pairs["length"].to_numpy(dtype=np.float64)
-    # Both orientations, so each rule below reads "x is in C, y is on the other side".
-    x = np.concatenate([a, b])
-    y = np.concatenate([b, a])
-    both = np.concatenate([length, length])
     is_served = served & ~in_body
 
     perim_c = np.bincount(comp[in_comp], perimeter[in_comp], n_comp)
     same_c = in_comp[a] & (comp[a] == comp[b])
     outer_c = perim_c - 2.0 * np.bincount(comp[a[same_c]], length[same_c], n_comp)
-    sel = in_comp[x] & is_served[y]
-    served_c = np.bincount(comp[x[sel]], both[sel], n_comp)
 
-    look_through: np.ndarray = np.zeros(n_comp)
-    along_body: np.ndarray = np.zeros(n_comp)
-    left_out: np.ndarray = np.zeros(n_comp)
-    sel = in_comp[x] & in_body[y]
-    if n_body and sel.any():
+    # Transparent bodies: how much of each one's own outer boundary is served.
+    outer_b = served_b = np.zeros(0)
+    if n_body:
         perim_b = np.bincount(body[in_body], perimeter[in_body], n_body)
         same_b = in_body[a] & (body[a] == body[b])
         outer_b = perim_b - 2.0 * np.bincount(body[a[same_b]], length[same_b], n_body)
-        sel_b = in_body[x] & is_served[y]
-        served_b = np.bincount(body[x[sel_b]], both[sel_b], n_body)
-        key = comp[x[sel]] * n_body + body[y[sel]]
-        pair_key, inverse = np.unique(key, return_inverse=True)
-        shared_cb = np.bincount(inverse, both[sel], pair_key.size)
-        c_of, b_of = pair_key // n_body, pair_key % n_body
-        beyond = outer_b[b_of] - shared_cb
-        alone = beyond <= _LENGTH_RTOL * np.maximum(outer_b[b_of], 1.0)
-        fraction = np.where(alone, 0.0, served_b[b_of] / np.where(alone, 1.0, beyond))
-        look_through = np.bincount(c_of, shared_cb * fraction, n_comp)
-        along_body = np.bincount(c_of[~alone], shared_cb[~alone], n_comp)
-        left_out = np.bincount(c_of[alone], shared_cb[alone], n_comp)
-    edge = outer_c - served_c - along_body - left_out
-    edge = np.where(edge <= _LENGTH_RTOL * np.maximum(outer_c, 1.0), 0.0, edge)
-    boundary = outer_c - left_out
-    served_total = served_c + look_through
-    with np.errstate(divide="ignore", invalid="ignore"):
-        # Rounding in the subtractions can push a whole served boundary a hair past 1.
-        surround = np.where(boundary > 0, np.minimum(served_total / boundary, 1.0), np.nan)
-    return _Lengths(
-        boundary=boundary, served=served_total, edge=edge, transparent=along_body, surround=surround
-    )
+        xb = np.concatenate([a, b])
+        yb = np.concatenate([b, a])
+        lb = np.concatenate([length, length])
+        sel_b = in_body[xb] & is_served[yb]
+        served_b = np.bincount(body[xb[sel_b]], lb[sel_b], n_body)
+
+    def budget(drop: np.ndarray, outer: np.ndarray) -> _Lengths:
+        # ``drop``: oriented pairs (x in a component, y outside) on a hole's boundary.
+        x = np.concatenate([a, b])
+        y = np.concatenate([b, a])
+        both = np.concatenate([length, length])
+        use = ~drop
+        sel = use & in_comp[x] & is_served[y]
+        served_c = np.bincount(comp[x[sel]], both[sel], n_comp)
+        look_through = np.zeros(n_comp)
+        along_body = np.zeros(n_comp)
+        left_out = np.zeros(n_comp)
+        sel = use & in_comp[x] & in_body[y]
+        if n_body and sel.any():
+            key = comp[x[sel]] * n_body + body[y[sel]]
+            pair_key, inverse = np.unique(key, return_inverse=True)
+            shared_cb = np.bincount(inverse, both[sel], pair_key.size)
+            c_of, b_of = pair_key // n_body, pair_key % n_body
+            beyond = outer_b[b_of] - shared_cb
+            alone = beyond <= _LENGTH_RTOL * np.maximum(outer_b[b_of], 1.0)
+            fraction = np.where(alone, 0.0, served_b[b_of] / np.where(alone, 1.0, beyond))
+            look_through = np.bincount(c_of, shared_cb * fraction, n_comp)
+            along_body = np.bincount(c_of[~alone], shared_cb[~alone], n_comp)
+            left_out = np.bincount(c_of[alone], shared_cb[alone], n_comp)
+        edge = outer - served_c - along_body - left_out
+        edge = np.where(edge <= _LENGTH_RTOL * np.maximum(outer, 1.0), 0.0, edge)
+        boundary = outer - left_out
+        served_total = served_c + look_through
+        with np.errstate(divide="ignore", invalid="ignore"):
+            # Rounding in the subtractions can push a whole served boundary a hair past 1.
+            surround = np.where(
+                boundary > 0,
+                np.minimum(served_total / np.where(boundary > 0, boundary, 1.0), 1.0),
+                np.nan,
+            )
+        return _Lengths(
+            boundary=boundary,
+            served=served_total,
+            edge=edge,
+            transparent=along_body,
+            surround=surround,
+        )
+
+    no_drop = np.zeros(2 * a.size, dtype=bool)
+    first = budget(no_drop, outer_c)
+    threshold = 0.0 if min_surround is None else min_surround - _SHARE_ATOL
+    candidates = np.flatnonzero(np.nan_to_num(first.surround, nan=0.0) >= threshold)
+    drop, outer = _hole_boundaries(geoms, comp, candidates, a, b, outer_c)
+    if not drop.any() and np.array_equal(outer, outer_c):
+        return first
+    return budget(drop, outer)
+
+
+def _hole_boundaries(
+    geoms: np.ndarray,
+    comp: np.ndarray,
+    candidates: np.ndarray,
+    a: np.ndarray,
+    b: np.ndarray,
+    outer_c: np.ndarray,
+) -> tuple[np.ndarray, np.ndarray]:
+    """Find the oriented pairs that lie on a component's holes, and its exterior length.
+
+    A neighbour y of component C lies in a hole of C when y's representative point is
+    inside C's union with its holes filled. Returns the mask over ``concat(a, b) ->
+    concat(b, a)`` pairs and each component's outer length (the exterior rings of its
+    union; unchanged for components that are not candidates or have no hole).
+    """
+    x = np.concatenate([a, b])
+    y = np.concatenate([b, a])
+    drop = np.zeros(x.size, dtype=bool)
+    outer = outer_c.copy()
+    if candidates.size == 0:
+        return drop, outer
+    comp_x = np.where(x >= 0, comp[x], -1)
+    comp_y = comp[y]
+    for c in candidates:
+        members = np.flatnonzero(comp == c)
+        try:
+            union = shapely.coverage_union_all(geoms[members])
+        except shapely.errors.GEOSException:
+            union = shapely.union_all(geoms[members])
+        parts = shapely.get_parts(union)
+        parts = parts[shapely.get_type_id(parts) == 3]
+        if parts.size == 0 or not shapely.get_num_interior_rings(parts).any():
+            continue
+        exteriors = shapely.get_exterior_ring(parts)
+        outer[c] = float(shapely.length(exteriors).sum())
+        filled = shapely.union_all(shapely.polygons(exteriors))
+        shapely.prepare(filled)
+        across = (comp_x == c) & (comp_y != c)
+        others = np.unique(y[across])
+        inside = others[shapely.contains(filled, shapely.point_on_surface(geoms[others]))]
+        drop |= across & np.isin(y, inside)
+    return drop, outer
 
 
 def _id_ranks(ids: np.ndarray) -> np.ndarray:

@@ -835,3 +835,66 @@ def test_cached_shared_lengths_give_identical_results():
     )
     assert cached.to_dict() == fresh.to_dict()
     assert [e.area_ids for e in cached.enclaves] == [("c14", "c15", "c20", "c21")]
+
+
+def _unit_grid(n):
+    import shapely as _shapely
+
+    cells = np.array(
+        [_shapely.box(i, j, i + 1, j + 1) for j in range(n) for i in range(n)], dtype=object
+    )
+    ids = [f"g{k:03d}" for k in range(n * n)]
+    return cells, ids
+
+
+def test_background_around_served_islands_is_not_an_enclave():
+    # 9 x 9 unit cells, served only at the 16 cells with both coordinates odd. Counting the
+    # islands' perimeters (64 served edges) against the region's outline (36 edge units)
+    # would give 64/100 = 0.64; the background's outer boundary is the outline alone, all
+    # on the study-area edge: surround share 0 (computed by hand).
+    from coverage_audit.weights import build_area_graph as _build
+
+    cells, ids = _unit_grid(9)
+    served = np.array([(k % 9) % 2 == 1 and (k // 9) % 2 == 1 for k in range(81)])
+    counts = {"white": np.full(81, 60.0), "minority": np.full(81, 40.0)}
+    graph = _build(cells, ids, kind="rook")
+    result = find_enclaves(
+        cells,
+        ids,
+        served,
+        np.full(81, 100.0),
+        counts,
+        graph,
+        min_surround=0.6,
+        reference_group="white",
+        mc_draws=0,
+    )
+    assert result.enclaves == ()
+
+
+def test_donut_pocket_is_measured_on_its_exterior():
+    # 7 x 7 unit cells served except the 8 cells around the centre; the centre itself is
+    # served (an island inside the pocket). Exterior: a 3 x 3 square, 12 unit edges, all
+    # served; the centre's 4 edges are a hole's boundary and count neither way (by hand).
+    from coverage_audit.weights import build_area_graph as _build
+
+    cells, ids = _unit_grid(7)
+    ring = [k for k in range(49) if max(abs(k % 7 - 3), abs(k // 7 - 3)) == 1]
+    served = np.ones(49, dtype=bool)
+    served[ring] = False
+    counts = {"white": np.full(49, 60.0), "minority": np.full(49, 40.0)}
+    result = find_enclaves(
+        cells,
+        ids,
+        served,
+        np.full(49, 100.0),
+        counts,
+        _build(cells, ids),
+        reference_group="white",
+        mc_draws=0,
+    )
+    (e,) = result.enclaves
+    assert sorted(e.area_ids) == sorted(ids[k] for k in ring)
+    assert e.boundary_m == pytest.approx(12.0, abs=1e-9)
+    assert e.served_boundary_m == pytest.approx(12.0, abs=1e-9)
+    assert e.surround_share == pytest.approx(1.0)
