@@ -597,6 +597,22 @@ def sweep_chart(panels: Sequence[SweepPanel], *, salt: str = "sweep") -> str:
     The band below 0.8 is shaded: a point there is a ratio strictly below four-fifths
     of the comparison rate, the screen of 29 CFR 1607.4(D) used as a rule of thumb.
     """
+    title = "; ".join(p.title for p in panels) or "Sensitivity"
+    return figure_to_svg(sweep_figure(panels), salt=salt, title=title)
+
+
+def sweep_figure(panels: Sequence[SweepPanel]) -> Figure:
+    """Return the figure of :func:`sweep_chart` before it is rendered (tests read its axes).
+
+    Parameters
+    ----------
+    panels : sequence of SweepPanel
+        One panel per sweep, stacked top to bottom.
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+    """
     n = max(len(panels), 1)
     fig = _new_figure(7.2, 0.5 + 2.9 * n)
     axes = fig.subplots(n, 1, squeeze=False)[:, 0]
@@ -623,7 +639,11 @@ def sweep_chart(panels: Sequence[SweepPanel], *, salt: str = "sweep") -> str:
         top = max(1.2, finite_max * 1.08)
         ax.axhspan(0.0, FOUR_FIFTHS, color=FLAG_BAND, zorder=0, linewidth=0)
         ax.axhline(
-            FOUR_FIFTHS, color=TEXT_TONE, linewidth=1.0, linestyle=(0, (4, 2)), label="four-fifths"
+            FOUR_FIFTHS,
+            color=TEXT_TONE,
+            linewidth=1.2,
+            linestyle=(0, (4, 2)),
+            label="four-fifths (0.8)",
         )
         ax.axhline(1.0, color="#999999", linewidth=0.7)
         if panel.marked is not None and np.isfinite(panel.marked):
@@ -644,5 +664,4 @@ def sweep_chart(panels: Sequence[SweepPanel], *, salt: str = "sweep") -> str:
         ax.set_title(mpl_text(panel.title), fontsize=10)
         ax.spines[["top", "right"]].set_visible(False)
         ax.legend(loc="upper left", bbox_to_anchor=(1.01, 1.0), fontsize=8, frameon=False)
-    title = "; ".join(p.title for p in panels) or "Sensitivity"
-    return figure_to_svg(fig, salt=salt, title=title)
+    return fig

@@ -191,7 +191,8 @@ def comparison_section(page: Page) -> Html:
             [
                 tag("strong", name) if name == primary else name,
                 " (this audit)" if name == primary else "",
-                tag("span", about, class_="cell-note") if about else "",
+                # The space keeps the words apart when the cell is read as text.
+                join([" ", tag("span", about, class_="cell-note")]) if about else "",
             ]
         )
         below = f.get("below_four_fifths")
@@ -894,7 +895,7 @@ def _sweep_table(
     for r, label, mine in zip(rows, labels, marked, strict=True):
         first = list(first_cells(r, label))
         if mine:
-            marked_cell = join([first[0], tag("span", "this audit", class_="cell-note")])
+            marked_cell = join([first[0], " ", tag("span", "this audit", class_="cell-note")])
             first[0] = NumHtml(marked_cell) if isinstance(first[0], Num) else marked_cell
         body.append(
             (
