@@ -56,7 +56,11 @@ def rss_peak_mib() -> float:
 
 
 def baseline_detection(geoms, served, adjacency, min_surround):
-    """networkx components + per-component union, boundary intersected with served union."""
+    """networkx components + per-component union; exterior rings intersected with served union.
+
+    Only the exterior of each component's union counts (holes are what it surrounds), as in
+    coverage_audit.enclaves; the baseline measures it with plain geometry operations.
+    """
     unserved = np.flatnonzero(~served)
     rows, cols = adjacency.nonzero()
     graph = nx.Graph()
@@ -67,7 +71,8 @@ def baseline_detection(geoms, served, adjacency, min_surround):
     found = {}
     for component in nx.connected_components(graph):
         members = np.fromiter(component, dtype=np.int64)
-        outline = shapely.union_all(geoms[members]).boundary
+        parts = shapely.get_parts(shapely.union_all(geoms[members]))
+        outline = shapely.union_all(shapely.get_exterior_ring(parts))
         share = shapely.intersection(outline, served_union).length / outline.length
         if share >= min_surround:
             found[frozenset(members.tolist())] = share
