@@ -148,7 +148,11 @@ def sensitivity_section(
     # Seventeen enclave passes over the same areas: measure every shared edge once.
     graph.shared_lengths()
     rows = sensitivity_thresholds(
-        fraction, counts, reference, SWEEP_THRESHOLDS, against=spec.analysis.comparison
+        fraction,
+        counts,
+        reference,
+        SWEEP_THRESHOLDS,
+        against="highest" if spec.analysis.comparison == "highest" else "reference",
     )
     threshold_rows = []
     for t, row in zip(SWEEP_THRESHOLDS, rows, strict=True):

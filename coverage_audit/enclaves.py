@@ -766,7 +766,8 @@ def _boundary_budget(
     outer_c = perim_c - 2.0 * np.bincount(comp[a[same_c]], length[same_c], n_comp)
 
     # Transparent bodies: how much of each one's own outer boundary is served.
-    outer_b = served_b = np.zeros(0)
+    outer_b: np.ndarray = np.zeros(0)
+    served_b: np.ndarray = np.zeros(0)
     if n_body:
         perim_b = np.bincount(body[in_body], perimeter[in_body], n_body)
         same_b = in_body[a] & (body[a] == body[b])
@@ -785,9 +786,9 @@ def _boundary_budget(
         use = ~drop
         sel = use & in_comp[x] & is_served[y]
         served_c = np.bincount(comp[x[sel]], both[sel], n_comp)
-        look_through = np.zeros(n_comp)
-        along_body = np.zeros(n_comp)
-        left_out = np.zeros(n_comp)
+        look_through: np.ndarray = np.zeros(n_comp)
+        along_body: np.ndarray = np.zeros(n_comp)
+        left_out: np.ndarray = np.zeros(n_comp)
         sel = use & in_comp[x] & in_body[y]
         if n_body and sel.any():
             key = comp[x[sel]] * n_body + body[y[sel]]
