@@ -948,6 +948,10 @@ def test_flag_sentence_when_nothing_moves() -> None:
         "The four-fifths flags do not change across the sweep: at every setting tried, from "
         "1 to 3, a is below four-fifths; b and c are not."
     )
+    clear = [{"groups": {"b": {"below_four_fifths": False}}}] * 2
+    assert further.flag_sentence(clear, ["b"], ["1", "2"], what="setting").endswith(
+        "from 1 to 2, b is not below four-fifths."
+    )
     assert further.flag_sentence([], ["a"], [], what="setting") == ""
 
 
@@ -1247,3 +1251,21 @@ def test_real_report_in_headless_chromium(branches: dict, browser_page) -> None:
     # Every major section starts a new page, after the title page.
     assert len(re.findall(rb"/Type\s*/Page[^s]", pdf)) >= majors + 1
     assert browser_page.console_errors() == []
+
+
+def test_sweep_against_the_highest_rate_group_draws_every_group(base: dict) -> None:
+    # With the comparison against the highest-rate group (as 29 CFR 1607.4(D) words it),
+    # that group can change along the sweep, so no group is left out of the figure.
+    summary = copy.deepcopy(base["summary"])
+    summary["sensitivity"] = sensitivity_block(radius=False)
+    summary["sensitivity"]["thresholds"][2]["comparison_group"] = "black_nh"
+    section = element(render(base, summary), "section", "sensitivity")
+    caption = re.search(r"<caption>(.*?)</caption>", section).group(1)
+    assert caption.startswith("Served-area rate (ratio to white_nh and black_nh)")
+    svg = re.search(r"<svg.*</svg>", section, re.S).group(0)
+    # Group names reach the SVG only through the legend.
+    assert all(g in svg for g in GROUPS)
+    one_reference = render(base, {**summary, "sensitivity": sensitivity_block(radius=False)})
+    assert "white_nh" not in re.search(
+        r"<svg.*?</svg>", element(one_reference, "section", "sensitivity"), re.S
+    ).group(0)

@@ -848,7 +848,10 @@ def flag_sentence(
         if steady_flagged:
             said.append(f"{_series(steady_flagged)} {_are(steady_flagged)} below four-fifths")
         if steady_clear:
-            said.append(f"{_series(steady_clear)} {_are(steady_clear)} not")
+            said.append(
+                f"{_series(steady_clear)} {_are(steady_clear)} not"
+                + ("" if steady_flagged else " below four-fifths")
+            )
         return (
             f"The four-fifths flags do not change across the sweep: at {span}, "
             + "; ".join(said)
@@ -922,6 +925,18 @@ def _sweep_table(
     return table(headers, body, row_attrs=attrs, table_id=table_id, caption=caption)
 
 
+def _verdict(
+    rows: Sequence[Mapping[str, Any]],
+    groups: Sequence[str],
+    labels: Sequence[str],
+    what: str,
+    element_id: str,
+) -> Html:
+    return para(
+        flag_sentence(rows, groups, labels, what=what), class_="sweep-verdict", id=element_id
+    )
+
+
 def sensitivity_section(page: Page) -> Html:
     """Return "Does the finding hold?": the sweeps' tables, chart and flag sentences."""
     sens = page.summary["sensitivity"]
@@ -963,13 +978,7 @@ def sensitivity_section(page: Page) -> Html:
                 f"{comparison}) of each group at each served threshold; {STAR_NOTE}",
             )
         )
-        parts.append(
-            para(
-                flag_sentence(thresholds, drawn, labels, what="served threshold"),
-                class_="sweep-verdict",
-                id="threshold-verdict",
-            )
-        )
+        parts.append(_verdict(thresholds, drawn, labels, "served threshold", "threshold-verdict"))
         panels.append(
             charts.SweepPanel(
                 x=[as_number(r.get("threshold")) or math.nan for r in thresholds],
@@ -1027,11 +1036,7 @@ def _radius_part(
             caption="Coverage rate (ratio) of each group as every radius is scaled; areas "
             f"served at the audit's threshold of {fmt_percent(threshold)}; {STAR_NOTE}",
         ),
-        para(
-            flag_sentence(radius, drawn, labels, what="radius"),
-            class_="sweep-verdict",
-            id="radius-verdict",
-        ),
+        _verdict(radius, drawn, labels, "radius", "radius-verdict"),
     ]
     panels.append(
         charts.SweepPanel(
