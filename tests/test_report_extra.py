@@ -1,4 +1,4 @@
-"""Tests of the report sections of the further analyses (coverage_audit.report.further).
+"""Tests of the report sections of the further analyses (report.further and its sections).
 
 Fabricated summaries in the shapes that coverage_audit.compare and coverage_audit.explain
 write (comparison, change, peers, explain, sensitivity) test presence, absence, escaping
@@ -30,7 +30,7 @@ from statsmodels.stats.proportion import confint_proportions_2indep, proportions
 
 from coverage_audit import demo, run_audit, synthetic
 from coverage_audit.explain import DroppedRowsWarning
-from coverage_audit.report import charts, further
+from coverage_audit.report import charts, compare_sections, explain_sections, markup
 from coverage_audit.report.page import build_report, render_report
 
 
@@ -754,7 +754,7 @@ def test_change_tables_and_listed_ids(base: dict, full_html: str) -> None:
 
 def test_long_change_points_to_areas_csv_columns(base: dict) -> None:
     summary = full_summary(base)
-    many = [f"99001{k:06d}" for k in range(further.MAX_LISTED_CHANGE_IDS + 1)]
+    many = [f"99001{k:06d}" for k in range(compare_sections.MAX_LISTED_CHANGE_IDS + 1)]
     summary["change"]["lost_service"].update(ids=many, count=len(many))
     section = element(render(base, summary), "section", "change")
     assert "<code>99001000000</code>" not in section
@@ -856,13 +856,13 @@ def test_models_without_clustered_residuals(base: dict) -> None:
 
 
 def test_odds_ratio_decimals() -> None:
-    assert further.fmt_odds(2.07569, 1.67818, 2.56736) == ("2.076", "1.678 to 2.567")
-    assert further.fmt_odds(1.0000066, 0.99970214, 1.00031119) == ("1.0000", "0.9997 to 1.0003")
+    assert markup.fmt_odds(2.07569, 1.67818, 2.56736) == ("2.076", "1.678 to 2.567")
+    assert markup.fmt_odds(1.0000066, 0.99970214, 1.00031119) == ("1.0000", "0.9997 to 1.0003")
     # Decimals stop at six, so an interval of zero width still prints.
-    assert further.fmt_odds(1.0, 1.0, 1.0) == ("1.000000", "1.000000 to 1.000000")
-    assert further.fmt_odds(None, None, None) == ("n/a", "n/a")
-    assert further.fmt_pp_value(-6.036738) == "\u22126.0 pp" and further.fmt_pp_value(None) == "n/a"
-    assert further.fmt_interval(0.1, None, str) == "n/a"
+    assert markup.fmt_odds(1.0, 1.0, 1.0) == ("1.000000", "1.000000 to 1.000000")
+    assert markup.fmt_odds(None, None, None) == ("n/a", "n/a")
+    assert markup.fmt_pp_value(-6.036738) == "\u22126.0 pp" and markup.fmt_pp_value(None) == "n/a"
+    assert markup.fmt_interval(0.1, None, str) == "n/a"
 
 
 def test_rules_table(full_html: str) -> None:
@@ -943,16 +943,18 @@ def test_flag_sentence_when_nothing_moves() -> None:
             }
         }
     ] * 3
-    sentence = further.flag_sentence(rows, ["a", "b", "c"], ["1", "2", "3"], what="setting")
+    sentence = explain_sections.flag_sentence(
+        rows, ["a", "b", "c"], ["1", "2", "3"], what="setting"
+    )
     assert sentence == (
         "The four-fifths flags do not change across the sweep: at every setting tried, from "
         "1 to 3, a is below four-fifths; b and c are not."
     )
     clear = [{"groups": {"b": {"below_four_fifths": False}}}] * 2
-    assert further.flag_sentence(clear, ["b"], ["1", "2"], what="setting").endswith(
+    assert explain_sections.flag_sentence(clear, ["b"], ["1", "2"], what="setting").endswith(
         "from 1 to 2, b is not below four-fifths."
     )
-    assert further.flag_sentence([], ["a"], [], what="setting") == ""
+    assert explain_sections.flag_sentence([], ["a"], [], what="setting") == ""
 
 
 def test_sweep_figure_draws_ratios_four_fifths_and_the_audit_setting() -> None:
@@ -1173,7 +1175,7 @@ def test_real_run_odds_ratios_match_statsmodels(branches: dict) -> None:
 def test_real_run_rules_follow_the_extended_lift_definition(branches: dict) -> None:
     rules = branches["result"].summary["explain"]["rules"]["rules"]
     rows = body_rows(element(branches["html"], "table", "rule-table"))
-    assert len(rows) == min(len(rules), further.MAX_RULES) > 0
+    assert len(rows) == min(len(rules), explain_sections.MAX_RULES) > 0
     for rule, row in zip(rules, rows, strict=False):
         # Pedreschi, Ruggieri and Turini 2008: elift = conf(A,B -> C) / conf(B -> C).
         elift = (rule["premise_outcome_areas"] / rule["premise_areas"]) / (

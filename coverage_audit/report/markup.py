@@ -5,15 +5,17 @@ HTML fragments: :class:`Html` marks markup that is already safe, :func:`tag` bui
 elements escaping every piece of content and every attribute, the ``fmt_*`` functions
 give the page's one way of writing percentages, percentage points, ratios, p-values and
 counts (``None`` and non-finite values as "n/a"), and :func:`table` renders the
-report's tables with right-aligned numeric cells. Every section module builds its
-markup from these pieces only, so nothing from the inputs reaches the page unescaped.
+report's tables with right-aligned numeric cells; the last part holds the pieces the
+further sections share (odds ratios, intervals, flagged cells, skipped stages). Every
+section module builds its markup from these pieces only, so nothing from the inputs
+reaches the page unescaped.
 """
 
 from __future__ import annotations
 
 import html
 import math
-from collections.abc import Iterable, Mapping, Sequence
+from collections.abc import Callable, Iterable, Mapping, Sequence
 from typing import Any
 
 import numpy as np
@@ -296,3 +298,91 @@ def first_of(mapping: Mapping[str, Any], *keys: str) -> Any:
 def plural(count: int, noun: str) -> str:
     """Return ``"1 area"``, ``"2 areas"``: the count with thousands separators and noun."""
     return f"{count:,} {noun}" + ("" if count == 1 else "s")
+
+
+# --- the further sections' shared pieces --------------------------------------------------
+
+#: Ratio of the four-fifths screen (29 CFR 1607.4(D)): a ratio strictly below it is flagged.
+FOUR_FIFTHS = 0.8
+#: Caption note of the tables that mark flagged cells with an asterisk.
+STAR_NOTE = "* below four-fifths"
+#: Most decimals an odds ratio is given (see :func:`fmt_odds`).
+MAX_ODDS_DECIMALS = 6
+
+
+def skipped_reason(value: Any) -> str | None:
+    """Return the reason a stage recorded for not computing a section, if it did."""
+    if isinstance(value, Mapping) and "skipped" in value:
+        return str(value.get("skipped") or "no reason recorded")
+    return None
+
+
+def not_computed(reason: str) -> Html:
+    """Return the note of a section a stage did not compute, with its reason."""
+    return para(f"Not computed: {reason}.", class_="note")
+
+
+def fmt_pp_value(value: Any) -> str:
+    """Format a value already in percentage points (``-6.04 -> "−6.0 pp"``)."""
+    f = as_number(value)
+    return fmt_points(None if f is None else f / 100.0)
+
+
+def fmt_interval(low: Any, high: Any, formatter: Callable[[Any], str]) -> str:
+    """Format an interval as "low to high"; "n/a" when either end is missing.
+
+    A unit the formatter appends ("−20.6 pp") is written once, after the upper end.
+    """
+    if as_number(low) is None or as_number(high) is None:
+        return NA
+    first, second = formatter(low), formatter(high)
+    unit = second.rpartition(" ")[2] if " " in second else ""
+    if unit and first.endswith(" " + unit):
+        first = first[: -len(unit) - 1]
+    return f"{first} to {second}"
+
+
+def fmt_odds(value: Any, low: Any = None, high: Any = None) -> tuple[str, str]:
+    """Format an odds ratio and its interval with enough decimals to tell the ends apart.
+
+    Three decimals, as the report's ratios; more (up to :data:`MAX_ODDS_DECIMALS`) when
+    the interval's ends would otherwise print alike, as they do for a control measured
+    in small units (an odds ratio per person per km² of 1.0000066 is not "1.000").
+
+    Returns
+    -------
+    tuple of str
+        The odds ratio and the interval ("n/a" where missing).
+    """
+    digits = 3
+    lo, hi = as_number(low), as_number(high)
+    if lo is not None and hi is not None:
+        while digits < MAX_ODDS_DECIMALS and fmt_fixed(lo, digits) == fmt_fixed(hi, digits):
+            digits += 1
+    return fmt_fixed(value, digits), fmt_interval(low, high, lambda v: fmt_fixed(v, digits))
+
+
+def flagged_number(text: str, flagged: bool) -> Num | NumHtml:
+    """Return a numeric cell, marked with an asterisk and the flag's tone when flagged.
+
+    The asterisk carries the flag in print and for readers who do not see the colour.
+    """
+    return NumHtml(tag("span", text + "*", class_="flag")) if flagged else Num(text)
+
+
+def records(value: Any) -> list[Mapping[str, Any]]:
+    """Return the mappings of a list (absent or malformed entries dropped)."""
+    return [r for r in value if isinstance(r, Mapping)] if isinstance(value, list) else []
+
+
+def series(items: Sequence[str]) -> str:
+    """Return items as an English list: "a", "a and b", "a, b and c"."""
+    items = list(items)
+    if len(items) <= 2:
+        return " and ".join(items)
+    return ", ".join(items[:-1]) + " and " + items[-1]
+
+
+def are(items: Sequence[str]) -> str:
+    """Return the verb that agrees with the count of ``items``."""
+    return "is" if len(items) == 1 else "are"
