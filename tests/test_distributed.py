@@ -22,10 +22,11 @@ from coverage_audit.distributed import (
     PARTITIONINGS,
     DistributedCoverage,
     MissingExtraError,
+    _assemble,
     covered_fraction_distributed,
     distributed_coverage,
 )
-from coverage_audit.errors import InputError, SpecError
+from coverage_audit.errors import AnalysisError, InputError, SpecError
 from coverage_audit.footprint import Footprint, cut_pieces, geodesic_circles
 from coverage_audit.synthetic import FICTIONAL_CRS, service_points, tessellation
 
@@ -437,3 +438,13 @@ def test_bad_footprints(cells, point_pieces):
 def test_areas_of_wrong_type(point_pieces):
     with pytest.raises(InputError, match="areas must be a GeoDataFrame.*not list"):
         covered_fraction_distributed([shapely.box(0, 0, 1, 1)], point_pieces)
+
+
+def test_results_must_cover_each_area_once():
+    # Two partitions that both claim row 0 of input partition 0: the assembly refuses.
+    one = (np.array([0.5]), np.array([0]), np.array([0]), None)
+    with pytest.raises(AnalysisError, match="do not cover each of the areas once"):
+        _assemble([one, one], None)
+    gap = (np.array([0.5, 0.25]), np.array([0, 0]), np.array([0, 2]), None)
+    with pytest.raises(AnalysisError, match="do not cover each of the areas once"):
+        _assemble([gap], None)
