@@ -483,7 +483,10 @@ def measure_coverage(
 ) -> tuple[CoverageResult, gpd.GeoDataFrame]:
     """Covered fraction, served flag and (points) nearest-site distance of each area."""
     geoms = np.asarray(frame.geometry.array, dtype=object)
-    fraction = footprint_fractions(footprint, geoms, frame[inputs.id_column].tolist())
+    if spec.analysis.engine == "dask" and footprint.kind != "ids":
+        fraction = _dask_fractions(spec, frame, footprint)
+    else:
+        fraction = footprint_fractions(footprint, geoms, frame[inputs.id_column].tolist())
     frame = frame.copy()
     frame["covered_fraction"] = fraction
     frame["served"] = fraction >= spec.analysis.served_threshold
@@ -503,6 +506,23 @@ def measure_coverage(
         distance_m=distance,
     )
     return coverage, frame
+
+
+def _dask_fractions(spec: AuditSpec, frame: gpd.GeoDataFrame, footprint: Footprint) -> np.ndarray:
+    """Covered fractions on dask: local threads, or the cluster at ``dask_scheduler``."""
+    from .distributed import covered_fraction_distributed
+
+    an = spec.analysis
+    if an.dask_scheduler is None:
+        return covered_fraction_distributed(
+            frame[["geometry"]], footprint.pieces, npartitions=an.partitions
+        )
+    from distributed import Client
+
+    with Client(an.dask_scheduler) as client:
+        return covered_fraction_distributed(
+            frame[["geometry"]], footprint.pieces, npartitions=an.partitions, client=client
+        )
 
 
 def _areas_section(inputs: AreaInputs, frame: gpd.GeoDataFrame) -> dict[str, Any]:

@@ -311,7 +311,11 @@ def coverage_by_group(
     distance = None
     if distance_m is not None:
         by_group: dict[str, Any] = {}
-        distance = {"unit": "m", "measured_from": "representative point of each area", "groups": by_group}
+        distance = {
+            "unit": "m",
+            "measured_from": "representative point of each area",
+            "groups": by_group,
+        }
         for g in groups:
             x = table[g].to_numpy(dtype=float)
             ok = np.isfinite(distance_m) & (x > 0)

@@ -29,9 +29,9 @@ from .inputs import (
     AreaInputs,
     Exclusions,
     InputRecord,
-    _kept,
-    _crs_text,
+    crs_text,
     ids_as_text,
+    kept_geometries,
     read_layer,
     read_table,
     repair,
@@ -160,7 +160,7 @@ def build_footprint(
         str(spec.path),
         sha256_file(spec.path),
         len(layer),
-        _crs_text(layer.crs),
+        crs_text(layer.crs),
         spec.layer,
     )
     geoms = np.asarray(layer.geometry.array, dtype=object)
@@ -183,7 +183,7 @@ def build_footprint(
         source, rows[wrong], [None] * int(wrong.sum()), "not a polygon (polygons footprint)"
     )
     keep &= ~wrong
-    fixed, repaired = repair(_kept(geoms, keep))
+    fixed, repaired = repair(kept_geometries(geoms, keep))
     if (repaired & keep).any():
         warnings.warn(
             f"repaired {int((repaired & keep).sum())} invalid geometries of footprint '{spec.name}'",

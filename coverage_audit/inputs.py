@@ -218,7 +218,8 @@ def ids_as_text(values: pd.Series, *, width: int | None, where: str) -> pd.Serie
     return series.astype(object)
 
 
-def _crs_text(crs: CRS | None) -> str | None:
+def crs_text(crs: CRS | None) -> str | None:
+    """Return a short name of a CRS (``EPSG:4326``), or its full text without an authority."""
     if crs is None:
         return None
     auth = crs.to_authority()
@@ -248,7 +249,7 @@ def resolve_crs(
             return layer
         if not CRS(layer.crs).equals(declared_crs, ignore_axis_order=True):
             raise InputError(
-                f"{role} file '{path}' declares CRS {_crs_text(layer.crs)} but the spec says "
+                f"{role} file '{path}' declares CRS {crs_text(layer.crs)} but the spec says "
                 f'{key} = "{declared}"; remove {key} from the spec (it is only for files without '
                 "a CRS) or fix the file"
             )
@@ -275,7 +276,7 @@ def _check_degrees(layer: gpd.GeoDataFrame, *, role: str, path: Path) -> None:
         return
     if xmin < -360 or xmax > 360 or ymin < -90 or ymax > 90:
         raise InputError(
-            f"{role} file '{path}' is read as {_crs_text(layer.crs)} (longitude/latitude) but its "
+            f"{role} file '{path}' is read as {crs_text(layer.crs)} (longitude/latitude) but its "
             f"coordinates reach ({xmin:g}, {ymin:g}) to ({xmax:g}, {ymax:g}), outside the range of "
             "degrees; the file's coordinates are in another CRS. Save it with its CRS (GeoPackage "
             "keeps any CRS; GeoJSON holds only WGS 84 longitude/latitude)"
@@ -329,7 +330,7 @@ def polygonal(geoms: np.ndarray) -> np.ndarray:
     return out
 
 
-def _kept(geoms: np.ndarray, keep: np.ndarray) -> np.ndarray:
+def kept_geometries(geoms: np.ndarray, keep: np.ndarray) -> np.ndarray:
     """Geometries where ``keep``, None elsewhere."""
     out = np.empty(geoms.size, dtype=object)
     out[keep] = geoms[keep]
@@ -412,7 +413,7 @@ def load_areas(
             str(path),
             sha256_file(path),
             len(layer),
-            _crs_text(layer.crs),
+            crs_text(layer.crs),
             areas_spec.layer,
         )
     )
@@ -454,7 +455,7 @@ def load_areas(
     type_ids = shapely.get_type_id(geoms)
     wrong_type = ~np.isin(type_ids, (3, 6, 7)) & ~missing_geom
     drop(wrong_type, [f"not a polygon: {'' if g is None else g.geom_type}" for g in geoms])
-    repaired_geoms, repaired_mask = repair(_kept(geoms, keep))
+    repaired_geoms, repaired_mask = repair(kept_geometries(geoms, keep))
     collection = keep & (type_ids == 7)
     if collection.any():
         repaired_geoms[collection] = polygonal(repaired_geoms[collection])

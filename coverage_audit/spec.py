@@ -29,6 +29,9 @@ DEFAULT_SEED = 20_261_201
 FOOTPRINT_KINDS = ("polygons", "points", "ids")
 COMPARISONS = ("reference", "highest")
 FDR_METHODS = ("bh", "none")
+#: Where covered fractions are computed: in this process, or on dask (threads, or the
+#: cluster at ``dask_scheduler``), for regions past one machine.
+ENGINES = ("local", "dask")
 MAJORITY_RULES = ("above", "at_or_above")
 #: Length units accepted for a reach radius, in metres.
 LENGTH_UNITS = {"m": 1.0, "km": 1000.0, "mi": 1609.344, "ft": 0.3048}
@@ -127,6 +130,9 @@ class AnalysisSpec:
     circle_vertices: int = 128
     analysis_crs: str | None = None
     sensitivity: bool = True
+    engine: str = "local"
+    dask_scheduler: str | None = None
+    partitions: int | None = None
 
 
 @dataclass(frozen=True)
@@ -207,7 +213,9 @@ class AuditSpec:
 
     def with_analysis(self, **changes: Any) -> AuditSpec:
         """Return a copy with some analysis settings changed (validated again)."""
-        merged = {**_dataclass_dict(self.analysis), **changes}
+        merged = {
+            k: v for k, v in {**_dataclass_dict(self.analysis), **changes}.items() if v is not None
+        }
         analysis = _analysis_from(merged, self._where())
         return replace(self, analysis=analysis)
 
@@ -689,6 +697,9 @@ def _analysis_from(an_d: Mapping[str, Any], where: str) -> AnalysisSpec:
         circle_vertices=_int_default(an_d, "circle_vertices", where, t, 128, minimum=16),
         analysis_crs=_str(an_d, "analysis_crs", where, t),
         sensitivity=_bool(an_d, "sensitivity", where, t, True),
+        engine=_choice(an_d, "engine", where, t, ENGINES, "local"),
+        dask_scheduler=_str(an_d, "dask_scheduler", where, t),
+        partitions=_int(an_d, "partitions", where, t, minimum=1),
     )
 
 

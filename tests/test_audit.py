@@ -180,3 +180,16 @@ def test_write_produces_map_and_report(tmp_path):
     assert "not by itself proof of discrimination" in text or "not proof of discrimination" in text
     manifest = json.loads(paths["manifest"].read_text())
     assert manifest["outputs"]["map"]["n_features"] == 25
+
+
+def test_dask_engine_gives_the_same_findings(tmp_path):
+    # The distributed engine must change where fractions are computed, never their values.
+    pytest.importorskip("dask_geopandas")
+    from coverage_audit import load_spec
+
+    zone = shapely.box(0, 0, 3500, 6000).union(shapely.box(4200, 1000, 6000, 2500))
+    spec = load_spec(_region(tmp_path, 6, 6, zone))
+    local = run_audit(spec.with_analysis(sensitivity=False)).summary
+    dask = run_audit(spec.with_analysis(sensitivity=False, engine="dask", partitions=3)).summary
+    assert json_text(local["coverage"]) == json_text(dask["coverage"])
+    assert json_text(local["enclaves"]) == json_text(dask["enclaves"])
