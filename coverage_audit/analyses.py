@@ -19,7 +19,7 @@ import pandas as pd
 import shapely
 from pyproj import Geod, Transformer
 
-from .coverage import coverage_by_group, footprint_fractions
+from .coverage import coverage_by_group, covered_fraction, footprint_fractions
 from .errors import AnalysisError, DegenerateStatisticWarning, InputError
 from .footprint import Footprint, build_footprint, cut_pieces, geodesic_circles
 from .inputs import AreaInputs, InputRecord, ids_as_text, read_table, sha256_file
@@ -110,6 +110,7 @@ def _enclave_count(
     graph: AreaGraph,
     spec: AuditSpec,
 ) -> int:
+    from .audit import enclave_options
     from .enclaves import find_enclaves
 
     an = spec.analysis
@@ -121,9 +122,7 @@ def _enclave_count(
         population,
         {g: frame[g].to_numpy(dtype=float) for g in groups},
         graph,
-        min_surround=an.enclave_min_surround,
-        min_population=an.enclave_min_population,
-        transparent=(population <= 0) if an.transparent_zero_population else None,
+        **enclave_options(an, population),
         reference_group=reference,
         mc_draws=0,
     )
@@ -173,17 +172,7 @@ def sensitivity_section(
                 lon, lat, base * factor, footprint.crs, spec.analysis.circle_vertices
             )
             pieces = cut_pieces(shapely.union_all(circles))
-            cf = footprint_fractions(
-                Footprint(
-                    name=footprint.name,
-                    kind="polygons",
-                    geometry=None,
-                    pieces=pieces,
-                    crs=footprint.crs,
-                ),
-                geoms,
-                ids.tolist(),
-            )
+            cf = covered_fraction(geoms, pieces)
             cov = coverage_by_group(
                 frame,
                 groups=groups,

@@ -119,22 +119,14 @@ class AuditResult:
         self, out_dir: str | Path, *, progress: SilentProgress | None = None
     ) -> dict[str, Path]:
         """Write the output folder (see DESIGN.md's output contract); return the paths."""
-        from .outputs import write_all
+        from .outputs import write_all, write_json
 
         progress = progress or SilentProgress()
         out = Path(out_dir)
         extra: dict[str, Any] = {}
-
-        def manifest() -> dict[str, Any]:
-            return {**self.manifest, "outputs": extra}
-
         with progress.stage("writing tables"):
             paths = write_all(
-                out,
-                summary=self.summary,
-                areas=self.areas,
-                exclusions=self.exclusions,
-                manifest_fn=lambda: self.manifest,
+                out, summary=self.summary, areas=self.areas, exclusions=self.exclusions
             )
         if self.spec.output.map or self.spec.output.report:
             from .report import build_map, build_report
@@ -170,9 +162,8 @@ class AuditResult:
                         **self.extras.get("moran", {}),
                     )
                 paths["report"] = out / "report.html"
-            from .outputs import write_json
-
-            write_json(paths["manifest"], manifest())
+        # Written last and once, so it can say what the map and report hold.
+        write_json(paths["manifest"], {**self.manifest, "outputs": extra})
         return paths
 
     def footprint_for_display(self) -> dict[str, Any]:
@@ -341,7 +332,6 @@ def compute_statistics(
     with progress.stage("clustering"):
         out["clustering"] = _clustering(frame, graph, an, streams["clustering"])
     with progress.stage("enclaves"):
-        transparent = (population <= 0) if an.transparent_zero_population else None
         holes: tuple[Any, ...] = ()
         if footprint.kind != "ids":
             holes = footprint_holes(footprint.geometry, geoms, ids, population, counts)
@@ -352,9 +342,7 @@ def compute_statistics(
             population,
             counts,
             graph,
-            min_surround=an.enclave_min_surround,
-            min_population=an.enclave_min_population,
-            transparent=transparent,
+            **enclave_options(an, population),
             income_tier=frame["income_tier"].to_numpy(dtype=object)
             if "income_tier" in frame
             else None,
@@ -506,6 +494,15 @@ def measure_coverage(
         distance_m=distance,
     )
     return coverage, frame
+
+
+def enclave_options(an: Any, population: np.ndarray) -> dict[str, Any]:
+    """Return the enclave settings of the spec, as :func:`~coverage_audit.enclaves.find_enclaves` takes them."""
+    return {
+        "min_surround": an.enclave_min_surround,
+        "min_population": an.enclave_min_population,
+        "transparent": (population <= 0) if an.transparent_zero_population else None,
+    }
 
 
 def _dask_fractions(spec: AuditSpec, frame: gpd.GeoDataFrame, footprint: Footprint) -> np.ndarray:

@@ -107,9 +107,13 @@ def write_all(
     summary: dict[str, Any],
     areas: gpd.GeoDataFrame,
     exclusions: pd.DataFrame,
-    manifest_fn: Callable[[], dict[str, Any]],
+    manifest_fn: Callable[[], dict[str, Any]] | None = None,
 ) -> dict[str, Path]:
-    """Write the data outputs; the manifest last, so it can list what was written."""
+    """Write the data outputs; the manifest last, so it can list what was written.
+
+    With ``manifest_fn=None`` the manifest is left to the caller, who writes it once
+    everything else (map, report) is written.
+    """
     out_dir = prepare_output_dir(out_dir)
     paths = {
         "summary": out_dir / "summary.json",
@@ -123,5 +127,6 @@ def write_all(
     write_csv(paths["areas_csv"], pd.DataFrame(table.drop(columns=table.geometry.name)))
     write_gpkg(paths["areas_gpkg"], table, layer="areas")
     write_csv(paths["exclusions"], exclusions)
-    write_json(paths["manifest"], manifest_fn())
+    if manifest_fn is not None:
+        write_json(paths["manifest"], manifest_fn())
     return paths
