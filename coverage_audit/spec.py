@@ -78,11 +78,30 @@ class PopulationSpec:
     income_ratio: str | None = None
     majority_minority_share: float = 0.5
     majority_minority_rule: str = "above"
+    #: Display labels by group name (a group without one shows its name).
+    labels: tuple[tuple[str, str], ...] = ()
+    #: Margin-of-error columns (90% level) by group name, for groups that name one.
+    moes: tuple[tuple[str, str], ...] = ()
+    #: Margin-of-error column of the total, when given.
+    total_moe: str | None = None
+    #: What is counted ("people", "households", "births", "loans" ...), used in sentences.
+    unit: str = "people"
 
     @property
     def group_columns(self) -> dict[str, str]:
         """Group name -> input column, in the order given."""
         return dict(self.groups)
+
+    @property
+    def group_labels(self) -> dict[str, str]:
+        """Group name -> display label, for every analysed group (the name when none)."""
+        given = dict(self.labels)
+        return {name: given.get(name, name) for name in self.group_names}
+
+    @property
+    def group_moes(self) -> dict[str, str]:
+        """Group name -> margin-of-error column, for the groups that name one."""
+        return dict(self.moes)
 
     @property
     def group_names(self) -> list[str]:
@@ -227,7 +246,21 @@ class AuditSpec:
         out: dict[str, Any] = {"title": self.title}
         out["areas"] = _dataclass_dict(self.areas)
         pop = _dataclass_dict(self.population)
-        pop["groups"] = dict(self.population.groups)
+        labels, moes = dict(self.population.labels), dict(self.population.moes)
+        pop["groups"] = {
+            name: (
+                {"column": column}
+                | ({"label": labels[name]} if name in labels else {})
+                | ({"moe": moes[name]} if name in moes else {})
+                if name in labels or name in moes
+                else column
+            )
+            for name, column in self.population.groups
+        }
+        for key in ("labels", "moes"):
+            pop.pop(key)
+        if pop["total_moe"] is None:
+            pop.pop("total_moe")
         out["population"] = pop
         out["footprint"] = [_dataclass_dict(f) for f in self.footprints]
         out["analysis"] = _dataclass_dict(self.analysis)
@@ -303,7 +336,11 @@ _POP_KEYS = (
     "income_ratio",
     "majority_minority_share",
     "majority_minority_rule",
+    "total_moe",
+    "unit",
 )
+#: Keys of a group given as a table: { column = "...", label = "...", moe = "..." }.
+_GROUP_KEYS = ("column", "label", "moe")
 _FOOT_KEYS = (
     "name",
     "kind",
@@ -442,7 +479,9 @@ def _population_from(pop_d: Mapping[str, Any], where: str) -> PopulationSpec:
             f'for example groups = {{ white_nh = "B03002_003E", black_nh = "B03002_004E" }}'
         )
     groups: list[tuple[str, str]] = []
-    for name, column in groups_raw.items():
+    labels: list[tuple[str, str]] = []
+    moes: list[tuple[str, str]] = []
+    for name, value in groups_raw.items():
         if not _NAME_RE.match(str(name)):
             raise SpecError(
                 f'{where}: [population] group name "{name}" must start with a letter or _ and '
@@ -453,9 +492,21 @@ def _population_from(pop_d: Mapping[str, Any], where: str) -> PopulationSpec:
                 f'{where}: [population] group name "{name}" is reserved for outputs; '
                 f"choose another (reserved: {sorted(RESERVED_NAMES)} and names ending in _share)"
             )
+        column: Any = value
+        if isinstance(value, Mapping):
+            gwhere = f"population.groups.{name}"
+            _check_keys(value, _GROUP_KEYS, where, f"[{gwhere}]")
+            column = _str(value, "column", where, gwhere, required=True)
+            label = _str(value, "label", where, gwhere)
+            moe = _str(value, "moe", where, gwhere)
+            if label is not None:
+                labels.append((str(name), label))
+            if moe is not None:
+                moes.append((str(name), moe))
         if not isinstance(column, str) or not column:
             raise SpecError(
-                f"{where}: [population] groups.{name} must name a column, got {column!r}"
+                f"{where}: [population] groups.{name} must name a column, got {column!r} "
+                '(give "COLUMN" or { column = "COLUMN", label = "Label", moe = "MOE_COLUMN" })'
             )
         groups.append((str(name), column))
     names = [n for n, _ in groups]
@@ -482,6 +533,10 @@ def _population_from(pop_d: Mapping[str, Any], where: str) -> PopulationSpec:
         income_ratio=_str(pop_d, "income_ratio", where, "population"),
         majority_minority_share=share,
         majority_minority_rule=rule,
+        labels=tuple(labels),
+        moes=tuple(moes),
+        total_moe=_str(pop_d, "total_moe", where, "population"),
+        unit=_str(pop_d, "unit", where, "population") or "people",
     )
 
 
