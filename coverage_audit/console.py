@@ -14,6 +14,10 @@ def _num(value: float | None, digits: int = 2) -> str:
     return "n/a" if value is None else f"{value:.{digits}f}"
 
 
+def _interval(ci: Any, fmt: Any) -> str:
+    return "n/a" if not ci else f"{fmt(ci[0])}-{fmt(ci[1])}"
+
+
 def print_summary(result: Any, paths: dict[str, Path], *, seconds: float, stream: IO[str]) -> None:
     """Print the coverage table, key statistics and output paths with rich."""
     from rich.console import Console
@@ -35,11 +39,21 @@ def print_summary(result: Any, paths: dict[str, Path], *, seconds: float, stream
         f"[dim]coverage = areal-weighted rate; served = share living in served areas; ratio and "
         f"diff (percentage points) against {cov['comparison_group']}; <4/5 = ratio below 0.8[/dim]"
     )
-    for col in ("group", "people", "coverage", "served", "ratio", "diff pp", "<4/5"):
+    margins = cov.get("uncertainty") in ("delta", "replicates")
+    columns = ["group", "people", "coverage", "served", "ratio", "diff pp", "<4/5"]
+    if margins:
+        console.print(
+            "[dim]90% intervals from the survey margins; 4/5 sure? = below / not_below / "
+            "uncertain (ratio interval vs 0.8)[/dim]"
+        )
+        columns[3:3] = ["coverage 90%"]
+        columns[6:6] = ["ratio 90%"]
+        columns.append("4/5 sure?")
+    for col in columns:
         table.add_column(col, justify="left" if col == "group" else "right")
     for g, row in cov["groups"].items():
         diff = row["difference"]
-        table.add_row(
+        cells = [
             g,
             f"{row['population']:,.0f}",
             _pct(row["rate"]),
@@ -47,7 +61,12 @@ def print_summary(result: Any, paths: dict[str, Path], *, seconds: float, stream
             _num(row["ratio"]),
             "n/a" if diff is None else f"{100 * diff:+.1f}",
             "yes" if row["below_four_fifths"] else "",
-        )
+        ]
+        if margins:
+            cells[3:3] = [_interval(row.get("rate_ci90"), _pct)]
+            cells[6:6] = [_interval(row.get("ratio_ci90"), _num)]
+            cells.append(row.get("four_fifths_confidence") or "")
+        table.add_row(*cells)
     console.print(table)
     seg = s.get("segregation")
     if seg:
