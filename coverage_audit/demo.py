@@ -361,7 +361,7 @@ def demo_margins(demo: pd.DataFrame, seed: int = DEMO_SEED) -> pd.DataFrame:
 
 
 def _outreach_area(cells: gpd.GeoDataFrame, demo: pd.DataFrame, margins: pd.DataFrame) -> list[str]:
-    """The tracts a home-repair outreach program visited: a run of 30 neighbouring tracts.
+    """Return the tracts a home-repair outreach program visited: 30 neighbouring tracts.
 
     Chosen, deterministically, as the first neighbourhood (the 30 tracts nearest a tract,
     tracts taken in id order) where the Asian residents' coverage ratio to the white
@@ -390,7 +390,9 @@ def _outreach_area(cells: gpd.GeoDataFrame, demo: pd.DataFrame, margins: pd.Data
     raise AssertionError("no neighbourhood fits the outreach scenario")  # pragma: no cover
 
 
-def write_margin_scenario(folder: Path, cells: gpd.GeoDataFrame, demo: pd.DataFrame, seed: int) -> None:
+def write_margin_scenario(
+    folder: Path, cells: gpd.GeoDataFrame, demo: pd.DataFrame, seed: int
+) -> None:
     """Write the counts with margins, the outreach area and its spec into ``folder``."""
     margins = demo_margins(demo, seed)
     table = pd.concat([cells[["geoid"]], demo, margins], axis=1)

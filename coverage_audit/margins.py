@@ -34,7 +34,7 @@ SURVEY_CAUTION_START = "Counts from surveys such as the American Community Surve
 def count_errors(
     frame: pd.DataFrame, inputs: AreaInputs, spec: AuditSpec
 ) -> tuple[CountErrors | None, np.ndarray | None]:
-    """The sampling error of the counts: standard errors from margins, or replicates.
+    """Return the sampling error of the counts: SEs from margins, or replicates.
 
     Returns the errors (None when neither margins nor replicates were given) and the
     total's replicates when there are any.
@@ -124,7 +124,7 @@ def survey_error(
 
 
 def cautions(base: Sequence[str], summary: dict[str, Any]) -> list[str]:
-    """The cautions, with the survey-error one saying what was done with the margins."""
+    """Return the cautions, the survey-error one saying what was done with the margins."""
     method = summary["coverage"].get("uncertainty", "none")
     if method == "none":
         return list(base)

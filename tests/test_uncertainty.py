@@ -212,15 +212,19 @@ def test_read_published_replicate_layout(tmp_path):
     _replicate_table(path, ["01001000100", "01001000200", "01001999999"], {4: [5, 6, 7]}, 1.0)
     exclusions = Exclusions()
     reps = read_replicates(
-        path, {"black": "B03002_004E"}, ["01001000100", "01001000200"], id_width=None,
+        path,
+        {"black": "B03002_004E"},
+        ["01001000100", "01001000200"],
+        id_width=None,
         exclusions=exclusions,
     )
     assert reps["black"].shape == (80, 2)
     assert reps["black"][0].tolist() == [6.0, 7.0]
     assert exclusions.count("replicates") == 1
     with pytest.raises(Exception, match="no row for area 01001000300"):
-        read_replicates(path, {"black": "B03002_004E"}, ["01001000300"], id_width=None,
-                        exclusions=Exclusions())
+        read_replicates(
+            path, {"black": "B03002_004E"}, ["01001000300"], id_width=None, exclusions=Exclusions()
+        )
 
 
 # ------------------------------------------------------------------------------ inputs
@@ -228,7 +232,9 @@ def test_read_published_replicate_layout(tmp_path):
 
 def test_margin_annotations():
     # Census annotations: ***** controlled (0), ** and the like have no margin.
-    values, missing = margin_numbers(pd.Series(["120", "*****", "**", None, "1,234", "-555555555", "-222222222"]))
+    values, missing = margin_numbers(
+        pd.Series(["120", "*****", "**", None, "1,234", "-555555555", "-222222222"])
+    )
     assert values.tolist() == [120.0, 0.0, 0.0, 0.0, 1234.0, 0.0, 0.0]
     assert missing.tolist() == [False, False, True, True, False, False, True]
 
@@ -269,7 +275,14 @@ def test_outreach_demo_flag_is_uncertain():
     assert asian["below_four_fifths"] and asian["ratio"] < 0.8
     assert asian["four_fifths_confidence"] == "uncertain"
     assert asian["ratio_ci90"][0] < 0.8 <= asian["ratio_ci90"][1]
-    for key in ("population_moe90", "rate_moe90", "rate_ci90", "difference_se", "difference_z", "cv"):
+    for key in (
+        "population_moe90",
+        "rate_moe90",
+        "rate_ci90",
+        "difference_se",
+        "difference_z",
+        "cv",
+    ):
         assert asian[key] is not None, key
     assert any(c.startswith(SURVEY_CAUTION_START) and "delta method" in c for c in s["cautions"])
     assert "dissimilarity_ci90" in s["segregation"]["uncertainty"]
@@ -279,8 +292,15 @@ def test_audit_without_margins_only_gains_the_method_key():
     s = _quick(BUNDLED / "delivery.toml").summary
     assert s["coverage"]["uncertainty"] == "none"
     keys = {
-        "population", "covered_population", "rate", "served_area_rate", "ratio",
-        "served_area_ratio", "difference", "served_area_difference", "below_four_fifths",
+        "population",
+        "covered_population",
+        "rate",
+        "served_area_rate",
+        "ratio",
+        "served_area_ratio",
+        "difference",
+        "served_area_difference",
+        "below_four_fifths",
     }
     for row in s["coverage"]["groups"].values():
         assert set(row) == keys
@@ -304,10 +324,14 @@ def test_margins_in_a_tiny_audit_with_replicates(two_by_two):
     areas["black_moe"] = [8, 40, 50, 60]
     areas.to_file(two_by_two / "areas.gpkg", layer="areas", driver="GPKG")
     spec_path = two_by_two / "audit.toml"
-    text = spec_path.read_text().replace(
-        'white = "white"\nblack = "black"',
-        'white = { column = "white", moe = "white_moe" }\nblack = { column = "black", moe = "black_moe" }',
-    ).replace('reference = "white"', 'reference = "white"\ntotal_moe = "total_moe"')
+    text = (
+        spec_path.read_text()
+        .replace(
+            'white = "white"\nblack = "black"',
+            'white = { column = "white", moe = "white_moe" }\nblack = { column = "black", moe = "black_moe" }',
+        )
+        .replace('reference = "white"', 'reference = "white"\ntotal_moe = "total_moe"')
+    )
     write_spec(spec_path, text)
     delta = _quick(spec_path).summary["coverage"]
     assert delta["uncertainty"] == "delta"
@@ -324,9 +348,13 @@ def test_margins_in_a_tiny_audit_with_replicates(two_by_two):
         2.0,
     )
     text = text.replace('total = "total"', 'total = "total"\nreplicates = "reps.csv"')
-    text = text.replace('"total"', '"B03002_001E"', 1).replace('column = "white"', 'column = "B03002_003E"')
+    text = text.replace('"total"', '"B03002_001E"', 1).replace(
+        'column = "white"', 'column = "B03002_003E"'
+    )
     text = text.replace('column = "black"', 'column = "B03002_004E"')
-    areas = areas.rename(columns={"total": "B03002_001E", "white": "B03002_003E", "black": "B03002_004E"})
+    areas = areas.rename(
+        columns={"total": "B03002_001E", "white": "B03002_003E", "black": "B03002_004E"}
+    )
     areas.to_file(two_by_two / "areas.gpkg", layer="areas", driver="GPKG")
     write_spec(spec_path, text)
     reps = _quick(spec_path).summary["coverage"]

@@ -106,7 +106,9 @@ def read_replicates(
     bad = values.isna().any(axis=1).to_numpy()
     if bad.any():
         row = int(np.flatnonzero(used.to_numpy())[np.flatnonzero(bad)[0]]) + 1
-        raise InputError(f"replicate table '{path}' row {row}: a replicate estimate is not a number")
+        raise InputError(
+            f"replicate table '{path}' row {row}: a replicate estimate is not a number"
+        )
     out: dict[str, np.ndarray] = {}
     for key in columns:
         rows = (keys == key) & pos.notna()

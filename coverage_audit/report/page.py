@@ -544,7 +544,11 @@ def render_report(
         for anchor, title, render in (
             ("audited", "What was audited", audited_section),
             ("coverage", "Coverage by group", coverage_section),
-            (uncertainty_section.ANCHOR, uncertainty_section.TITLE, uncertainty_section.survey_error_section),
+            (
+                uncertainty_section.ANCHOR,
+                uncertainty_section.TITLE,
+                uncertainty_section.survey_error_section,
+            ),
             ("segregation", "Segregation", segregation_section),
             ("clustering", "Spatial clustering", clustering_section),
             ("enclaves", "Enclaves", enclaves_section),

@@ -44,7 +44,7 @@ def has_margins(summary: Mapping[str, Any]) -> bool:
 
 
 def interval_text(ci: Any, formatter: Any = fmt_fixed) -> str:
-    """An interval as "low to high" (n/a when missing)."""
+    """Format an interval as "low to high" (n/a when missing)."""
     if not isinstance(ci, Sequence) or len(ci) != 2:
         return fmt_interval(None, None, formatter)
     return fmt_interval(ci[0], ci[1], formatter)
@@ -68,8 +68,7 @@ def survey_error_section(page: Page) -> Html:
     data = as_mapping(cov.get("groups"))
     method = cov.get("uncertainty")
     how = (
-        "the Census Bureau's 80 variance replicates (Var = 4/80 × sum of squared "
-        "differences)"
+        "the Census Bureau's 80 variance replicates (Var = 4/80 × sum of squared differences)"
         if method == "replicates"
         else "the delta method (first-order linearisation), with SE = MOE / 1.645 for each "
         "area's count; the minority count's margin follows the Census Bureau's difference "

@@ -1,2 +1,3 @@
 """Statistics families, one per module: pure functions on arrays (and one area graph and
-seeded streams where needed) returning frozen results with ``to_dict()``."""
+seeded streams where needed) returning frozen results with ``to_dict()``.
+"""

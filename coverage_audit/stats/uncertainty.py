@@ -140,7 +140,7 @@ def z_difference(x1: float, se1: float, x2: float, se2: float) -> float | None:
 
 
 def distinguishable(z: float | None) -> bool | None:
-    """The Census Bureau's test: two estimates differ at the 90% level when |z| > 1.645."""
+    """Apply the Census Bureau's test: estimates differ at 90% when |z| > 1.645."""
     return None if z is None else bool(abs(z) > Z90)
 
 
@@ -197,8 +197,10 @@ def interval90(
 
 
 def four_fifths_confidence(ratio_ci: Sequence[float] | None) -> str | None:
-    """Return "below" (whole interval under 0.8), "not_below" (whole interval at or above
-    0.8) or "uncertain" (it straddles 0.8); None when the ratio is undefined.
+    """Return "below", "not_below" or "uncertain" for a ratio's 90% interval.
+
+    "below": the whole interval is under 0.8; "not_below": the whole interval is at or
+    above 0.8; "uncertain": it straddles 0.8; None when the ratio is undefined.
 
     The screen is strict (29 CFR 1607.4(D): "less than four-fifths"), so an upper end of
     exactly 0.8 is not "below", and a lower end of exactly 0.8 is "not_below".
@@ -315,7 +317,7 @@ def coverage_uncertainty(
     served: np.ndarray,
     comparison_group: str,
 ) -> CoverageUncertainty:
-    """Standard errors, 90% intervals, z and four-fifths confidence of every group.
+    """Compute SEs, 90% intervals, z and four-fifths confidence of every group.
 
     Parameters
     ----------
@@ -344,7 +346,7 @@ def coverage_uncertainty(
     out: dict[str, GroupUncertainty] = {}
     for g, x in counts.items():
         if not errors.known(g):
-            out[g] = GroupUncertainty(*([None] * 14))  # type: ignore[arg-type]
+            out[g] = GroupUncertainty(*([None] * 14))
             continue
         population = float(x.sum())
         p, grad = rates[g]
@@ -369,7 +371,8 @@ def coverage_uncertainty(
                 var_diff = _gradient_variance(errors, {g: grad, c: -cgrad})
                 if ratio is not None:
                     var_ratio = _gradient_variance(
-                        errors, {g: grad / pc, c: -cgrad * p / pc**2}  # type: ignore[operator]
+                        errors,
+                        {g: grad / pc, c: -cgrad * p / pc**2},  # type: ignore[operator]
                     )
         pop_se = _sd(var_pop)
         rate_se = _sd(var_rate)
@@ -406,7 +409,7 @@ def _rep_var(estimate: float | None, replicates: np.ndarray) -> float | None:
 def _replicate_rates(
     counts: Mapping[str, np.ndarray], errors: CountErrors, f: np.ndarray, s: np.ndarray
 ) -> dict[tuple[str, str], np.ndarray]:
-    """Population, rate and served-area rate of each group on each replicate."""
+    """Compute population, rate and served-area rate of each group on each replicate."""
     assert errors.replicates is not None
     out: dict[tuple[str, str], np.ndarray] = {}
     for g in counts:
@@ -572,7 +575,11 @@ def index_intervals(
     frac = np.asarray(fraction, dtype=float)
     names = list(estimates)
     full = _block_indices(
-        {g: v[None, :] for g, v in estimates.items()}, total[None, :], reference, served_w, frac,
+        {g: v[None, :] for g, v in estimates.items()},
+        total[None, :],
+        reference,
+        served_w,
+        frac,
         enclaves,
     )
     samples: dict[tuple[str, str], list[np.ndarray]] = {k: [] for k in full}
@@ -580,7 +587,11 @@ def index_intervals(
         reps = errors.replicates
         n_rep = next(iter(reps.values())).shape[0]
         groups = {g: reps.get(g, np.broadcast_to(estimates[g], (n_rep, total.size))) for g in names}
-        t = total_replicates if total_replicates is not None else np.broadcast_to(total, (n_rep, total.size))
+        t = (
+            total_replicates
+            if total_replicates is not None
+            else np.broadcast_to(total, (n_rep, total.size))
+        )
         for k, v in _block_indices(groups, t, reference, served_w, frac, enclaves).items():
             samples[k].append(v)
         method, count = "replicates", n_rep
@@ -611,12 +622,12 @@ def index_intervals(
     shares: list[dict[str, list[float] | None]] = [{} for _ in enclaves]
     for (name, g), ci in intervals.items():
         if name.startswith("enclave"):
-            shares[int(name[len("enclave"):])][g] = ci
+            shares[int(name[len("enclave") :])][g] = ci
         else:
             indices.setdefault(name, {})[g] = ci
     return IndexIntervals(method, count, indices, tuple(shares))
 
 
 def clean_interval(ci: Sequence[float] | None) -> list[Any] | None:
-    """An interval as JSON-safe numbers."""
+    """Return an interval as JSON-safe numbers."""
     return None if ci is None else [clean_number(v) for v in ci]
