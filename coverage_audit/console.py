@@ -43,16 +43,19 @@ def print_summary(result: Any, paths: dict[str, Path], *, seconds: float, stream
     columns = ["group", "people", "coverage", "served", "ratio", "diff pp", "<4/5"]
     if margins:
         console.print(
-            "[dim]90% intervals from the survey margins; 4/5 sure? = below / not_below / "
-            "uncertain (ratio interval vs 0.8)[/dim]"
+            "[dim]ratio 90% = interval from the survey margins; <4/5 with ? = the interval "
+            "straddles 0.8 (four-fifths flag uncertain)[/dim]"
         )
-        columns[3:3] = ["coverage 90%"]
-        columns[6:6] = ["ratio 90%"]
-        columns.append("4/5 sure?")
+        columns[5:5] = ["ratio 90%"]
     for col in columns:
-        table.add_column(col, justify="left" if col == "group" else "right")
+        table.add_column(
+            col, justify="left" if col == "group" else "right", no_wrap=col == "ratio 90%"
+        )
     for g, row in cov["groups"].items():
         diff = row["difference"]
+        flag = "yes" if row["below_four_fifths"] else ""
+        if margins and row.get("four_fifths_confidence") == "uncertain":
+            flag = "yes?" if flag else "?"
         cells = [
             g,
             f"{row['population']:,.0f}",
@@ -60,12 +63,10 @@ def print_summary(result: Any, paths: dict[str, Path], *, seconds: float, stream
             _pct(row["served_area_rate"]),
             _num(row["ratio"]),
             "n/a" if diff is None else f"{100 * diff:+.1f}",
-            "yes" if row["below_four_fifths"] else "",
+            flag,
         ]
         if margins:
-            cells[3:3] = [_interval(row.get("rate_ci90"), _pct)]
-            cells[6:6] = [_interval(row.get("ratio_ci90"), _num)]
-            cells.append(row.get("four_fifths_confidence") or "")
+            cells[5:5] = [_interval(row.get("ratio_ci90"), _num)]
         table.add_row(*cells)
     console.print(table)
     seg = s.get("segregation")

@@ -361,3 +361,31 @@ def test_margins_in_a_tiny_audit_with_replicates(two_by_two):
     assert reps["uncertainty"] == "replicates"
     # Every area's black count moves by +-2 together: population SE = 4/80 * 80 * 8^2 -> 16.
     assert reps["groups"]["black"]["population_moe90"] == pytest.approx(1.645 * 16.0, rel=1e-9)
+
+
+def test_report_map_and_console_show_intervals(tmp_path):
+    import io
+
+    from coverage_audit.console import print_summary
+
+    result = _quick(BUNDLED / "outreach.toml")
+    paths = result.write(tmp_path / "out")
+    page = (tmp_path / "out" / "report.html").read_text(encoding="utf-8")
+    assert 'id="survey_error"' in page and 'id="uncertainty-table"' in page
+    # The uncertain flag explained in plain words, with its interval.
+    ci = result.summary["coverage"]["groups"]["asian_nh"]["ratio_ci90"]
+    assert 'id="uncertain-flags"' in page
+    assert f"anywhere from {ci[0]:.2f} to {ci[1]:.2f}" in page
+    assert "within the noise of the survey" in page
+    assert "Coverage with 90% intervals" in (tmp_path / "out" / "map.html").read_text("utf-8")
+    stream = io.StringIO()
+    print_summary(result, paths, seconds=1.0, stream=stream)
+    assert "yes?" in stream.getvalue() and "ratio 90%" in stream.getvalue()
+
+
+def test_no_margin_report_has_no_survey_section(tmp_path):
+    result = _quick(BUNDLED / "assessment_area.toml")
+    result.write(tmp_path / "out")
+    page = (tmp_path / "out" / "report.html").read_text(encoding="utf-8")
+    assert 'id="survey_error"' not in page
+    assert "Coverage with 90% intervals" not in (tmp_path / "out" / "map.html").read_text("utf-8")

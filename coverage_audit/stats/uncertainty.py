@@ -77,7 +77,7 @@ CV_CUTOFFS = (0.30, 0.40)
 #: The four-fifths threshold, 29 CFR 1607.4(D) (also coverage.FOUR_FIFTHS).
 _FOUR_FIFTHS = 0.8
 #: Bootstrap draws held in memory at once (rows of a draws x areas block).
-_CHUNK_CELLS = 1 << 21
+_CHUNK_CELLS = 1 << 20
 
 
 # --------------------------------------------------------------------- handbook formulas
@@ -469,31 +469,36 @@ def _block_indices(
     """Every index for a block of draws: arrays of shape (draws, areas) in, (draws,) out."""
     out: dict[tuple[str, str], np.ndarray] = {}
     y = groups[reference]
-    Y = y.sum(axis=1, keepdims=True)
+    Y = y.sum(axis=1)
     with np.errstate(divide="ignore", invalid="ignore"):
-        t_safe = np.where(total > 0, total, 1.0)
+        # 0/0 taken as 0 in the isolation terms, as in segregation.py.
+        inv_t = np.divide(1.0, total, out=np.zeros(total.shape), where=total > 0)
+        y_share = y / Y[:, None]
+        y_in = {name: y @ w / Y for name, w in _BINS(served, fraction)}
+        enclave_pop = [total[:, idx].sum(axis=1) for idx in enclaves]
         for g, x in groups.items():
-            X = x.sum(axis=1, keepdims=True)
-            # Isolation xPx* (Massey and Denton 1988), 0/0 taken as 0 as in segregation.py.
-            share = np.where(total > 0, x / t_safe, 0.0)
-            out["isolation", g] = np.where(X[:, 0] > 0, np.sum(x / X * share, axis=1), np.nan)
+            X = x.sum(axis=1)
+            # Isolation xPx* = sum_i (x_i/X)(x_i/t_i) (Massey and Denton 1988).
+            out["isolation", g] = np.where(X > 0, np.einsum("ij,ij->i", x * inv_t, x) / X, np.nan)
             for k, idx in enumerate(enclaves):
-                pop = total[:, idx].sum(axis=1)
+                pop = enclave_pop[k]
                 out[f"enclave{k}", g] = np.where(pop > 0, x[:, idx].sum(axis=1) / pop, np.nan)
             if g == reference:
                 continue
-            ok = (X[:, 0] > 0) & (Y[:, 0] > 0)
+            ok = (X > 0) & (Y > 0)
             # Duncan and Duncan (1955): D = 1/2 sum |x_i/X - y_i/Y|.
-            d = 0.5 * np.abs(x / X - y / Y).sum(axis=1)
-            out["dissimilarity", g] = np.where(ok, d, np.nan)
+            diff = x / X[:, None]
+            diff -= y_share
+            np.abs(diff, out=diff)
+            out["dissimilarity", g] = np.where(ok, 0.5 * diff.sum(axis=1), np.nan)
             # Two bins (in, out): D = |a - b|, a and b the groups' shares in the first bin.
-            for name, w in (
-                ("coverage_dissimilarity", served),
-                ("areal_coverage_dissimilarity", fraction),
-            ):
-                split = np.abs(x @ w / X[:, 0] - y @ w / Y[:, 0])
-                out[name, g] = np.where(ok, split, np.nan)
+            for name, w in _BINS(served, fraction):
+                out[name, g] = np.where(ok, np.abs(x @ w / X - y_in[name]), np.nan)
     return out
+
+
+def _BINS(served: np.ndarray, fraction: np.ndarray) -> tuple[tuple[str, np.ndarray], ...]:
+    return (("coverage_dissimilarity", served), ("areal_coverage_dissimilarity", fraction))
 
 
 def _draw_block(
@@ -513,20 +518,25 @@ def _draw_block(
     bases: dict[str, np.ndarray] = {}
     for base, se in errors.se.items():
         est = total if base == "population" else estimates[base]
-        bases[base] = np.clip(est + rng.standard_normal((rows, est.size)) * se, 0.0, None)
+        draw = rng.standard_normal((rows, est.size))
+        draw *= se
+        draw += est
+        bases[base] = np.maximum(draw, 0.0, out=draw)
     drawn: dict[str, np.ndarray] = {}
     for g in groups:
         comp = errors.composition.get(g)
         if comp is None:
             drawn[g] = np.broadcast_to(estimates[g], (rows, total.size))
-            continue
-        acc = np.zeros((rows, total.size))
-        for base, coef in comp.items():
-            acc += coef * bases[base]
-        drawn[g] = np.clip(acc, 0.0, None)
-    t = bases.get("population", np.broadcast_to(total, (rows, total.size)))
+        elif dict(comp) == {g: 1.0}:
+            drawn[g] = bases[g]
+        else:
+            acc = np.zeros((rows, total.size))
+            for base, coef in comp.items():
+                acc += coef * bases[base]
+            drawn[g] = np.maximum(acc, 0.0, out=acc)
+    t = bases["population"] if "population" in bases else np.tile(total, (rows, 1))
     for x in drawn.values():
-        t = np.maximum(t, x)
+        np.maximum(t, x, out=t)
     return drawn, t
 
 
