@@ -22,6 +22,7 @@ from .stats.uncertainty import (
     CV_CUTOFFS,
     Z90,
     CountErrors,
+    class_rate_intervals,
     coverage_uncertainty,
     index_intervals,
     standard_error,
@@ -90,6 +91,7 @@ def survey_error(
     result = coverage_uncertainty(counts, errors, fraction, served, coverage["comparison_group"])
     for g, figures in result.to_dict()["groups"].items():
         coverage["groups"][g].update(figures)
+    _class_intervals(coverage, frame, errors, total_reps)
     coverage["uncertainty"] = errors.method
     coverage["uncertainty_settings"] = {
         "confidence": 0.9,
@@ -121,6 +123,43 @@ def survey_error(
         summary["segregation"]["uncertainty"] = intervals.to_dict()
     for e, shares in zip(enclaves, intervals.enclave_shares, strict=True):
         e["group_shares_ci90"] = {g: shares.get(g) for g in e["group_shares"]}
+
+
+def _class_intervals(
+    coverage: dict[str, Any],
+    frame: pd.DataFrame,
+    errors: CountErrors,
+    total_reps: np.ndarray | None,
+) -> None:
+    """Add ``rate_ci90`` to each class of area (majority-minority, income tiers, all)."""
+    se_total = errors.se.get("population")
+    if se_total is None and total_reps is None:
+        return
+    classes = coverage.get("area_classes") or {}
+    n = len(frame)
+    masks: dict[str, np.ndarray] = {"all": np.ones(n, dtype=bool)}
+    if "majority_minority" in frame.columns:
+        mm = frame["majority_minority"].to_numpy(dtype=bool)
+        masks |= {"majority_minority": mm, "not_majority_minority": ~mm}
+    if "income_tier" in frame.columns:
+        tiers = frame["income_tier"].to_numpy(dtype=object)
+        masks |= {f"tier:{t}": tiers == t for t in classes.get("income_tiers", {})}
+        masks["low_or_moderate"] = np.isin(tiers, ("low", "moderate"))
+        masks["middle_or_upper"] = np.isin(tiers, ("middle", "upper"))
+    intervals = class_rate_intervals(
+        frame["covered_fraction"].to_numpy(dtype=float),
+        frame["population"].to_numpy(dtype=float),
+        masks,
+        se_total=se_total,
+        total_replicates=total_reps,
+    )
+    for name, ci in intervals.items():
+        if name.startswith("tier:"):
+            target = classes.get("income_tiers", {}).get(name[5:])
+        else:
+            target = classes.get(name)
+        if isinstance(target, dict):
+            target["rate_ci90"] = ci
 
 
 def cautions(base: Sequence[str], summary: dict[str, Any]) -> list[str]:

@@ -23,6 +23,7 @@ from coverage_audit.io.replicates import REPLICATE_COLUMNS, read_replicates
 from coverage_audit.margins import SURVEY_CAUTION_START
 from coverage_audit.stats.uncertainty import (
     CountErrors,
+    class_rate_intervals,
     coverage_uncertainty,
     distinguishable,
     four_fifths_confidence,
@@ -167,6 +168,25 @@ def test_delta_method_matches_monte_carlo_spread():
     ) * (rate(minority[None, :])[0] / rate(white[None, :])[0])
     assert abs(independent - mc_ratio) / mc_ratio > 0.05  # ignoring it would fail the check
     assert result["minority"].population_se == pytest.approx((t - w).sum(axis=1).std(), rel=0.05)
+    # Served-area ratio: the same with the served flag in place of the covered fraction.
+    s = (f >= 0.5).astype(float)
+    mc_served = ((b @ s / b.sum(axis=1)) / (w @ s / w.sum(axis=1))).std()
+    low, high = result["black"].served_area_ratio_ci90
+    assert (high - low) / (2 * 1.645) == pytest.approx(mc_served, rel=0.05)
+
+
+def test_class_rate_interval_by_hand():
+    # Whole-population rate in a class of areas {1, 2}: t = (100, 300), f = (1, 0):
+    # p = 0.25; gradients (0.75, -0.25)/400; the third area is outside the class.
+    # Var = (0.001875^2)(10^2) + (0.000625^2)(20^2) = 0.0005078125.
+    ci = class_rate_intervals(
+        np.array([1.0, 0.0, 1.0]),
+        np.array([100.0, 300.0, 500.0]),
+        {"class": np.array([True, True, False])},
+        se_total=np.array([10.0, 20.0, 30.0]),
+    )["class"]
+    half = 1.645 * math.sqrt(0.0005078125)
+    assert ci == pytest.approx([0.25 - half, 0.25 + half], rel=1e-12)
 
 
 # ------------------------------------------------------------------------- replicates

@@ -50,6 +50,7 @@ __all__ = [
     "CoverageUncertainty",
     "GroupUncertainty",
     "IndexIntervals",
+    "class_rate_intervals",
     "coefficient_of_variation",
     "coverage_uncertainty",
     "distinguishable",
@@ -261,12 +262,18 @@ class GroupUncertainty:
     rate_ci90: list[float] | None
     served_area_rate_se: float | None
     served_area_rate_ci90: list[float] | None
+    served_area_ratio_ci90: list[float] | None
     ratio_se: float | None
     ratio_ci90: list[float] | None
     difference_se: float | None
     difference_z: float | None
     difference_distinguishable: bool | None
     four_fifths_confidence: str | None
+
+    @classmethod
+    def unknown(cls) -> GroupUncertainty:
+        """Return figures for a group whose sampling error is not known (all None)."""
+        return cls(**dict.fromkeys(cls.__dataclass_fields__))
 
     def to_dict(self) -> dict[str, Any]:
         """Plain data; the keys are added to ``coverage.groups.<g>`` of summary.json."""
@@ -346,25 +353,35 @@ def coverage_uncertainty(
     out: dict[str, GroupUncertainty] = {}
     for g, x in counts.items():
         if not errors.known(g):
-            out[g] = GroupUncertainty(*([None] * 14))
+            out[g] = GroupUncertainty.unknown()
             continue
         population = float(x.sum())
         p, grad = rates[g]
         sp, sgrad = srates[g]
         pc, cgrad = rates[c]
+        spc, scgrad = srates[c]
         pair = errors.known(c) and p is not None and pc is not None
         ratio = p / pc if pair and pc else None  # type: ignore[operator]
+        sratio = sp / spc if errors.known(c) and sp is not None and spc else None
         if rep is not None:
             var_pop = float(replicate_variance(population, rep["population", g]))
             var_rate = _rep_var(p, rep["rate", g])
             var_srate = _rep_var(sp, rep["served", g])
             var_ratio = _rep_var(ratio, rep["rate", g] / rep["rate", c]) if ratio else None
             var_diff = _rep_var(p - pc, rep["rate", g] - rep["rate", c]) if pair else None  # type: ignore[operator]
+            var_sratio = _rep_var(sratio, rep["served", g] / rep["served", c]) if sratio else None
         else:
             var_pop = _gradient_variance(errors, {g: np.ones_like(x)})
             var_rate = _gradient_variance(errors, {g: grad}) if p is not None else None
             var_srate = _gradient_variance(errors, {g: sgrad}) if sp is not None else None
-            var_ratio = var_diff = None
+            var_ratio = var_diff = var_sratio = None
+            if sratio is not None and g == c:
+                var_sratio = 0.0
+            elif sratio is not None:
+                var_sratio = _gradient_variance(
+                    errors,
+                    {g: sgrad / spc, c: -scgrad * sp / spc**2},  # type: ignore[operator]
+                )
             if pair and g == c:
                 var_ratio = var_diff = 0.0
             elif pair:
@@ -390,6 +407,7 @@ def coverage_uncertainty(
             rate_ci90=interval90(p, rate_se, 0.0, 1.0),
             served_area_rate_se=_sd(var_srate),
             served_area_rate_ci90=interval90(sp, _sd(var_srate), 0.0, 1.0),
+            served_area_ratio_ci90=interval90(sratio, _sd(var_sratio), low=0.0),
             ratio_se=ratio_se,
             ratio_ci90=ratio_ci,
             difference_se=diff_se,
@@ -398,6 +416,42 @@ def coverage_uncertainty(
             four_fifths_confidence=four_fifths_confidence(ratio_ci),
         )
     return CoverageUncertainty(errors.method, c, out)
+
+
+def class_rate_intervals(
+    fraction: np.ndarray,
+    total: np.ndarray,
+    masks: Mapping[str, np.ndarray],
+    *,
+    se_total: np.ndarray | None = None,
+    total_replicates: np.ndarray | None = None,
+) -> dict[str, list[float] | None]:
+    """90% intervals of the coverage rate of the whole population in classes of area.
+
+    The rate of class m is sum_{i in m} f_i t_i / sum_{i in m} t_i, a ratio estimator in
+    the total counts: its delta-method variance is sum_{i in m} ((f_i - p_m)/T_m)^2 SE_i^2,
+    or the replicate variance when replicates are given. Class membership (for example
+    majority-minority) is taken as fixed, although it rests on estimates too.
+    """
+    f = np.asarray(fraction, dtype=float)
+    out: dict[str, list[float] | None] = {}
+    for name, mask in masks.items():
+        m = np.asarray(mask, dtype=bool)
+        t = np.where(m, total, 0.0)
+        p, grad = _rate_and_gradient(f, t)
+        if p is None:
+            out[name] = None
+        elif total_replicates is not None:
+            reps = np.where(m, total_replicates, 0.0)
+            rates = reps @ f / reps.sum(axis=1)
+            out[name] = interval90(p, _sd(_rep_var(p, rates)), 0.0, 1.0)
+        elif se_total is not None:
+            # Areas outside the class do not enter its rate: no gradient there.
+            inside = grad * m
+            out[name] = interval90(p, _sd(float(np.sum(inside**2 * se_total**2))), 0.0, 1.0)
+        else:
+            out[name] = None
+    return out
 
 
 def _rep_var(estimate: float | None, replicates: np.ndarray) -> float | None:
