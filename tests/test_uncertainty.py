@@ -409,3 +409,28 @@ def test_no_margin_report_has_no_survey_section(tmp_path):
     page = (tmp_path / "out" / "report.html").read_text(encoding="utf-8")
     assert 'id="survey_error"' not in page
     assert "Coverage with 90% intervals" not in (tmp_path / "out" / "map.html").read_text("utf-8")
+
+
+def test_spec_keys_of_margins(tmp_path):
+    from coverage_audit.errors import SpecError
+    from coverage_audit.spec import spec_from_dict
+
+    data = {
+        "areas": {"path": "a.gpkg", "id": "geoid"},
+        "population": {
+            "total": "t",
+            "total_moe": "t_m",
+            "reference": "w",
+            "groups": {"w": {"column": "w", "moe": "w_m"}},
+            "replicates": "reps.csv",
+            "margin_draws": 99,
+        },
+        "footprint": {"name": "f", "path": "f.gpkg"},
+    }
+    spec = spec_from_dict(data, base_dir=tmp_path)
+    assert spec.population.replicates == tmp_path / "reps.csv"
+    assert spec.population.margin_draws == 99
+    assert spec.to_dict()["population"]["replicates"] == str(tmp_path / "reps.csv")
+    data["population"]["margin_draws"] = 5
+    with pytest.raises(SpecError, match="margin_draws"):
+        spec_from_dict(data, base_dir=tmp_path)

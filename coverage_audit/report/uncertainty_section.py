@@ -162,4 +162,31 @@ def survey_error_section(page: Page) -> Html:
                 + "."
             )
         )
+    shares = [
+        e
+        for e in page.summary.get("enclaves") or []
+        if isinstance(e, Mapping) and "group_shares_ci90" in e
+    ]
+    if shares:
+        parts.append(
+            tag(
+                "ul",
+                *(tag("li", _enclave_line(e)) for e in shares),
+                id="enclave-share-intervals",
+            )
+        )
     return section(ANCHOR, TITLE, *parts)
+
+
+def _enclave_line(enclave: Mapping[str, Any]) -> str:
+    """One enclave's group shares with their 90% intervals."""
+    cis = as_mapping(enclave.get("group_shares_ci90"))
+    values = as_mapping(enclave.get("group_shares"))
+    return (
+        f"Enclave {enclave.get('id')}: "
+        + "; ".join(
+            f"{g} {fmt_percent(values.get(g))} ({interval_text(ci, fmt_percent)})"
+            for g, ci in cis.items()
+        )
+        + " of its residents (90% intervals)."
+    )
