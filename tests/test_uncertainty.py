@@ -434,3 +434,25 @@ def test_spec_keys_of_margins(tmp_path):
     data["population"]["margin_draws"] = 5
     with pytest.raises(SpecError, match="margin_draws"):
         spec_from_dict(data, base_dir=tmp_path)
+
+
+def test_enclave_shares_get_intervals_with_margins():
+    # The delivery demo with the margin table: its enclave's group shares get bootstrap
+    # intervals that contain the shares, and reruns with the same seed are identical.
+    import tomllib
+
+    from coverage_audit.spec import spec_from_dict
+
+    data = tomllib.loads((BUNDLED / "delivery.toml").read_text(encoding="utf-8"))
+    margins = tomllib.loads((BUNDLED / "outreach.toml").read_text(encoding="utf-8"))
+    data["areas"] = margins["areas"]
+    data["population"] = margins["population"]
+    data["analysis"].update(permutations=19, enclave_draws=19, sensitivity=False)
+    data["population"]["margin_draws"] = 99
+    runs = [run_audit(spec_from_dict(data, base_dir=BUNDLED)).summary for _ in range(2)]
+    assert json.dumps(runs[0]) == json.dumps(runs[1])
+    (enclave,) = runs[0]["enclaves"]
+    for g, share in enclave["group_shares"].items():
+        low, high = enclave["group_shares_ci90"][g]
+        assert low <= share <= high, g
+        assert high - low < 0.2
