@@ -99,9 +99,12 @@ def survey_error(
         "groups_with_margins": [g for g in inputs.groups if errors.known(g)],
         "margins_missing": dict(inputs.margins_missing),
         "cv_cutoffs": list(CV_CUTOFFS),
-        "minority_margin": "sqrt(MOE_total^2 + MOE_reference^2), the Census Bureau's "
-        "approximation for a difference; the minority-reference covariance is carried",
     }
+    if "minority" in errors.composition and errors.replicates is None:
+        coverage["uncertainty_settings"]["minority_margin"] = (
+            "sqrt(MOE_total^2 + MOE_reference^2), the Census Bureau's approximation for a "
+            "difference; the minority-reference covariance is carried"
+        )
     enclaves = summary.get("enclaves", [])
     position = {str(i): k for k, i in enumerate(frame[inputs.id_column].astype(str))}
     members: Sequence[np.ndarray] = [

@@ -367,9 +367,12 @@ def coverage_uncertainty(
             var_pop = float(replicate_variance(population, rep["population", g]))
             var_rate = _rep_var(p, rep["rate", g])
             var_srate = _rep_var(sp, rep["served", g])
-            var_ratio = _rep_var(ratio, rep["rate", g] / rep["rate", c]) if ratio else None
+            with np.errstate(divide="ignore", invalid="ignore"):
+                rep_ratio = rep["rate", g] / rep["rate", c] if ratio else None
+                rep_sratio = rep["served", g] / rep["served", c] if sratio else None
+            var_ratio = _rep_var(ratio, rep_ratio) if rep_ratio is not None else None
             var_diff = _rep_var(p - pc, rep["rate", g] - rep["rate", c]) if pair else None  # type: ignore[operator]
-            var_sratio = _rep_var(sratio, rep["served", g] / rep["served", c]) if sratio else None
+            var_sratio = _rep_var(sratio, rep_sratio) if rep_sratio is not None else None
         else:
             var_pop = _gradient_variance(errors, {g: np.ones_like(x)})
             var_rate = _gradient_variance(errors, {g: grad}) if p is not None else None
