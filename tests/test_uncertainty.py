@@ -456,3 +456,38 @@ def test_enclave_shares_get_intervals_with_margins():
         low, high = enclave["group_shares_ci90"][g]
         assert low <= share <= high, g
         assert high - low < 0.2
+
+
+def _with_margins(folder: Path, white_moe, spec_moe: str = "white_moe"):
+    import geopandas as gpd
+
+    areas = gpd.read_file(folder / "areas.gpkg")
+    areas["total_moe"] = [30, 40, 50, 60]
+    areas["white_moe"] = white_moe
+    areas.to_file(folder / "areas.gpkg", layer="areas", driver="GPKG")
+    text = (folder / "audit.toml").read_text()
+    text = text.replace('white = "white"', f'white = {{ column = "white", moe = "{spec_moe}" }}')
+    text = text.replace('reference = "white"', 'reference = "white"\ntotal_moe = "total_moe"')
+    return write_spec(folder / "audit.toml", text)
+
+
+def test_annotated_margins_are_counted_and_warned(two_by_two):
+    from coverage_audit.errors import MarginWarning
+    from coverage_audit.inputs import load_areas
+
+    spec = load_spec(_with_margins(two_by_two, ["20", "**", "(X)", "15"]))
+    with pytest.warns(MarginWarning, match="white_moe"):
+        inputs = load_areas(spec.areas, spec.population)
+    assert inputs.margins_missing == {"white_moe": 2}
+    assert inputs.frame["white_moe"].tolist() == [20.0, 0.0, 0.0, 15.0]
+    # Minority margin by the difference rule: sqrt(30^2 + 20^2) for the first area.
+    assert inputs.frame["minority_moe"][0] == pytest.approx(math.sqrt(1300), rel=1e-12)
+
+
+def test_missing_margin_column_is_an_input_error(two_by_two):
+    from coverage_audit.errors import InputError
+    from coverage_audit.inputs import load_areas
+
+    spec = load_spec(_with_margins(two_by_two, [1, 2, 3, 4], spec_moe="white_margin"))
+    with pytest.raises(InputError, match="no margin-of-error column 'white_margin'"):
+        load_areas(spec.areas, spec.population)
