@@ -396,7 +396,7 @@ def test_report_map_and_console_show_intervals(tmp_path):
     ci = result.summary["coverage"]["groups"]["asian_nh"]["ratio_ci90"]
     assert 'id="uncertain-flags"' in page
     assert f"anywhere from {ci[0]:.2f} to {ci[1]:.2f}" in page
-    assert "within the noise of the survey" in page
+    assert "within the noise of the survey" in page and "not as cleared" in page
     assert "Coverage with 90% intervals" in (tmp_path / "out" / "map.html").read_text("utf-8")
     stream = io.StringIO()
     print_summary(result, paths, seconds=1.0, stream=stream)

@@ -53,12 +53,23 @@ def interval_text(ci: Any, formatter: Any = fmt_fixed) -> str:
 def uncertain_sentence(group: str, item: Mapping[str, Any], comparison: str) -> str:
     """Plain words for a ratio under 0.8 whose interval reaches 0.8 or more."""
     ci = item.get("ratio_ci90") or [None, None]
+    z = item.get("difference_z")
+    if item.get("difference_distinguishable"):
+        gap = (
+            f"The gap itself is larger than the survey's error (z = {fmt_fixed(z, 2)}), but "
+            "whether it is wide enough to put the ratio under 0.8 is within the noise of the "
+            "survey"
+        )
+    else:
+        gap = (
+            f"Even the gap itself is within the survey's error (z = {fmt_fixed(z, 2)}), and "
+            "so is whether the ratio is under 0.8"
+        )
     return (
         f"{group}: the coverage rate is {fmt_fixed(item.get('ratio'), 2)} times that of "
         f"{comparison}, under the four-fifths line, but with the survey's margins of error the "
         f"ratio could be anywhere from {fmt_fixed(ci[0], 2)} to {fmt_fixed(ci[1], 2)} (90% "
-        "interval). The data cannot say whether the true ratio is under 0.8: the gap is "
-        "within the noise of the survey, so treat the flag as unconfirmed, not as cleared."
+        f"interval). {gap}: treat the four-fifths flag as unconfirmed, not as cleared."
     )
 
 
