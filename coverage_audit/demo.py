@@ -294,42 +294,6 @@ def write_demo_region(folder: str | Path, seed: int = DEMO_SEED) -> Path:
 #: The scenario whose demographics carry margins of error (a table of its own, so the
 #: other scenarios' files stay as they are).
 MARGIN_SCENARIO = "outreach"
-MARGIN_SPEC = """# Ostmere demo audit: {title}. A fictional region; see README.md beside this file.
-# The counts carry margins of error (90%), as American Community Survey tables do.
-title = "{title}"
-
-[areas]
-path = "areas.gpkg"
-layer = "tracts"
-id = "geoid"
-table = "demographics_margins.csv"
-
-[population]
-total = "pop_total"
-total_moe = "moe_total"
-reference = "white_nh"
-derive_minority = true
-income_ratio = "income_ratio"
-
-[population.groups]
-white_nh = {{ column = "pop_white_nh", moe = "moe_white_nh" }}
-black_nh = {{ column = "pop_black_nh", moe = "moe_black_nh" }}
-hispanic = {{ column = "pop_hispanic", moe = "moe_hispanic" }}
-asian_nh = {{ column = "pop_asian_nh", moe = "moe_asian_nh" }}
-
-[footprint]
-name = "outreach_2026"
-served_ids = "outreach_area.csv"
-served_ids_column = "geoid"
-
-[analysis]
-served_threshold = 0.5
-contiguity = "queen"
-permutations = 999
-enclave_draws = 999
-transparent_zero_population = true
-seed = {seed}
-"""
 #: Count columns of the demo and their margin columns.
 _MARGIN_COLUMNS = {
     "pop_total": "moe_total",
@@ -400,8 +364,30 @@ def write_margin_scenario(
     pd.DataFrame({"geoid": _outreach_area(cells, demo, margins)}).to_csv(
         folder / "outreach_area.csv", index=False, lineterminator="\n"
     )
-    (folder / f"{MARGIN_SCENARIO}.toml").write_text(
-        MARGIN_SPEC.format(title="Home-repair outreach, Ostmere", seed=seed), encoding="utf-8"
+    (folder / f"{MARGIN_SCENARIO}.toml").write_text(_margin_spec(seed), encoding="utf-8")
+
+
+def _margin_spec(seed: int) -> str:
+    """Return the outreach spec: the scenarios' template with the margin table and columns."""
+    text = SPEC_TEMPLATE.format(
+        title="Home-repair outreach, Ostmere",
+        footprint='[footprint]\nname = "outreach_2026"\nserved_ids = "outreach_area.csv"\n'
+        'served_ids_column = "geoid"',
+        seed=seed,
+        analysis_extra="",
+    )
+    text = text.replace('table = "demographics.csv"', 'table = "demographics_margins.csv"')
+    text = text.replace(
+        'total = "pop_total"', f'total = "pop_total"\ntotal_moe = "{_MARGIN_COLUMNS["pop_total"]}"'
+    )
+    for column, moe in _MARGIN_COLUMNS.items():
+        if column != "pop_total":
+            text = text.replace(f'= "{column}"', f'= {{ column = "{column}", moe = "{moe}" }}')
+    return text.replace(
+        "see README.md beside this file.\n",
+        "see README.md beside this file.\n# The counts carry margins of error (90%), as "
+        "American Community Survey tables do.\n",
+        1,
     )
 
 
