@@ -92,6 +92,7 @@ def survey_error(
     for g, figures in result.to_dict()["groups"].items():
         coverage["groups"][g].update(figures)
     _class_intervals(coverage, frame, errors, total_reps)
+    _footprint_intervals(summary, frame, errors, counts)
     coverage["uncertainty"] = errors.method
     coverage["uncertainty_settings"] = {
         "confidence": 0.9,
@@ -126,6 +127,34 @@ def survey_error(
         summary["segregation"]["uncertainty"] = intervals.to_dict()
     for e, shares in zip(enclaves, intervals.enclave_shares, strict=True):
         e["group_shares_ci90"] = {g: shares.get(g) for g in e["group_shares"]}
+
+
+def _footprint_intervals(
+    summary: dict[str, Any],
+    frame: pd.DataFrame,
+    errors: CountErrors,
+    counts: dict[str, np.ndarray],
+) -> None:
+    """Add rate and ratio intervals and four-fifths confidence to each footprint compared."""
+    comparison = summary.get("comparison")
+    if not isinstance(comparison, dict):
+        return
+    reference = comparison.get("reference_group")
+    threshold = summary["coverage"]["served_threshold"]
+    primary = summary["footprint"].get("name")
+    for entry in comparison.get("footprints") or []:
+        name = entry.get("name")
+        column = "covered_fraction" if name == primary else f"covered_fraction_{name}"
+        if column not in frame.columns or reference not in counts:
+            continue
+        fraction = frame[column].to_numpy(dtype=float)
+        result = coverage_uncertainty(counts, errors, fraction, fraction >= threshold, reference)
+        for g, row in (entry.get("groups") or {}).items():
+            if g in result.groups:
+                u = result.groups[g]
+                row["rate_ci90"] = u.rate_ci90
+                row["ratio_ci90"] = u.ratio_ci90
+                row["four_fifths_confidence"] = u.four_fifths_confidence
 
 
 def _class_intervals(

@@ -491,3 +491,27 @@ def test_missing_margin_column_is_an_input_error(two_by_two):
     spec = load_spec(_with_margins(two_by_two, [1, 2, 3, 4], spec_moe="white_margin"))
     with pytest.raises(InputError, match="no margin-of-error column 'white_margin'"):
         load_areas(spec.areas, spec.population)
+
+
+def test_compared_footprints_get_intervals():
+    # The branches demo (two footprints compared) with the margin table: each footprint's
+    # groups get their ratio intervals; the primary's match coverage.groups.
+    import tomllib
+
+    from coverage_audit.spec import spec_from_dict
+
+    data = tomllib.loads((BUNDLED / "branches.toml").read_text(encoding="utf-8"))
+    margins = tomllib.loads((BUNDLED / "outreach.toml").read_text(encoding="utf-8"))
+    data["areas"] = margins["areas"]
+    data["population"] = margins["population"]
+    for key in ("explain", "activity"):
+        data.pop(key)
+    data["analysis"].update(permutations=19, enclave_draws=19, sensitivity=False)
+    s = run_audit(spec_from_dict(data, base_dir=BUNDLED)).summary
+    by_name = {f["name"]: f for f in s["comparison"]["footprints"]}
+    primary = by_name[s["footprint"]["name"]]["groups"]["black_nh"]
+    assert primary["ratio_ci90"] == s["coverage"]["groups"]["black_nh"]["ratio_ci90"]
+    for entry in by_name.values():
+        for g, row in entry["groups"].items():
+            low, high = row["ratio_ci90"]
+            assert low <= row["ratio"] <= high, (entry["name"], g)
