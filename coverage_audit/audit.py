@@ -11,7 +11,7 @@ from __future__ import annotations
 
 import datetime as _dt
 import platform
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from importlib import metadata
 from pathlib import Path
 from typing import Any
@@ -481,6 +481,13 @@ def measure_coverage(
     frame = frame.copy()
     frame["covered_fraction"] = fraction
     frame["served"] = fraction >= spec.analysis.served_threshold
+    blocks = None
+    if spec.blocks is not None:  # counts and covered people summed from census blocks
+        from .apportion import apportion_blocks
+
+        blocks = apportion_blocks(spec, inputs, footprint, frame)
+        frame, fraction = blocks.frame, blocks.share
+        geoms = np.asarray(frame.geometry.array, dtype=object)
     distance = None
     if footprint.kind == "points" and footprint.points is not None:
         distance = nearest_site_distance(
@@ -495,7 +502,10 @@ def measure_coverage(
         threshold=spec.analysis.served_threshold,
         comparison=spec.analysis.comparison,
         distance_m=distance,
+        covered=None if blocks is None else blocks.covered,
     )
+    if blocks is not None:
+        coverage = replace(coverage, blocks=blocks.section)
     return coverage, frame
 
 

@@ -171,6 +171,10 @@ class CoverageResult:
     areas: int
     population: float
     covered_population: float
+    #: "areal" (people spread evenly within each area) or "blocks" (counted by block).
+    apportionment: str = "areal"
+    #: Block apportionment details (blocks read and used, areal rates beside), if any.
+    blocks: Mapping[str, Any] | None = None
 
     def to_dict(self) -> dict[str, Any]:
         """Plain data for summary.json's ``coverage`` section."""
@@ -187,9 +191,12 @@ class CoverageResult:
             "rate": safe_ratio(self.covered_population, self.population),
             "groups": {g: c.to_dict() for g, c in self.groups.items()},
             "area_classes": self.area_classes,
+            "apportionment": self.apportionment,
         }
         if self.distance is not None:
             out["distance"] = self.distance
+        if self.blocks is not None:
+            out["blocks"] = dict(self.blocks)
         return out
 
 
@@ -216,6 +223,7 @@ def coverage_by_group(
     threshold: float,
     comparison: str = "reference",
     distance_m: np.ndarray | None = None,
+    covered: Mapping[str, np.ndarray] | None = None,
 ) -> CoverageResult:
     """Compute coverage rates by group and by class of area.
 
@@ -237,6 +245,11 @@ def coverage_by_group(
         coverage rate (the four-fifths rule's own comparison, 29 CFR 1607.4(D)).
     distance_m : numpy.ndarray, optional
         Distance of each area to the nearest service point.
+    covered : mapping of str to numpy.ndarray, optional
+        Covered count of each group in each area, when counted by block
+        (:mod:`~coverage_audit.apportion`); then rate_g = sum_i covered_gi / sum_i x_gi,
+        ``fraction`` is each area's covered population share and the result says
+        ``apportionment = "blocks"``.
 
     Returns
     -------
@@ -257,11 +270,11 @@ def coverage_by_group(
     for g in groups:
         x = table[g].to_numpy(dtype=float)
         total = float(x.sum())
-        covered = float((x * fraction).sum())
+        covered_g = float((x * fraction).sum() if covered is None else covered[g].sum())
         rates[g] = (
             total,
-            covered,
-            safe_ratio(covered, total),
+            covered_g,
+            safe_ratio(covered_g, total),
             safe_ratio(float(x[served].sum()), total),
         )
     if comparison == "highest":
@@ -272,14 +285,14 @@ def coverage_by_group(
     ref_rate = rates[comparison_group][2]
     ref_served = rates[comparison_group][3]
     results: dict[str, GroupCoverage] = {}
-    for g, (total, covered, rate, srate) in rates.items():
+    for g, (total, covered_total, rate, srate) in rates.items():
         ratio = safe_ratio(rate, ref_rate) if rate is not None and ref_rate is not None else None
         sratio = (
             safe_ratio(srate, ref_served) if srate is not None and ref_served is not None else None
         )
         results[g] = GroupCoverage(
             population=total,
-            covered_population=covered,
+            covered_population=covered_total,
             rate=rate,
             served_area_rate=srate,
             ratio=ratio,
@@ -335,4 +348,5 @@ def coverage_by_group(
         areas=int(len(table)),
         population=float(population.sum()),
         covered_population=float((population * fraction).sum()),
+        apportionment="areal" if covered is None else "blocks",
     )

@@ -413,6 +413,25 @@ def margin_numbers(raw: pd.Series) -> tuple[np.ndarray, np.ndarray]:
     return values, ~usable & ~controlled
 
 
+def add_shares(out: pd.DataFrame, pop_spec: PopulationSpec) -> pd.DataFrame:
+    """Set each group's ``<group>_share`` of the population and ``majority_minority``."""
+    pop = out["population"].to_numpy()
+    with np.errstate(divide="ignore", invalid="ignore"):
+        for name in pop_spec.group_names:
+            out[f"{name}_share"] = np.where(
+                pop > 0, out[name].to_numpy() / np.where(pop > 0, pop, 1), np.nan
+            )
+    if "minority" in pop_spec.group_names:
+        share = out["minority_share"].to_numpy()
+        cut = pop_spec.majority_minority_share
+        if pop_spec.majority_minority_rule == "above":
+            out["majority_minority"] = share > cut
+        else:
+            out["majority_minority"] = share >= cut
+        out.loc[~np.isfinite(share), "majority_minority"] = False
+    return out
+
+
 def load_areas(
     areas_spec: AreasSpec, pop_spec: PopulationSpec, *, analysis_crs: str | None = None
 ) -> AreaInputs:
@@ -609,20 +628,7 @@ def load_areas(
     if pop_spec.derive_minority:
         out["minority"] = np.clip(out["population"] - out[pop_spec.reference], 0.0, None)
     margin_columns, margins_missing = _add_margins(out, frame, sel, pop_spec, where_counts)
-    pop = out["population"].to_numpy()
-    with np.errstate(divide="ignore", invalid="ignore"):
-        for name in groups:
-            out[f"{name}_share"] = np.where(
-                pop > 0, out[name].to_numpy() / np.where(pop > 0, pop, 1), np.nan
-            )
-    if "minority" in groups:
-        share = out["minority_share"].to_numpy()
-        cut = pop_spec.majority_minority_share
-        if pop_spec.majority_minority_rule == "above":
-            out["majority_minority"] = share > cut
-        else:
-            out["majority_minority"] = share >= cut
-        out.loc[~np.isfinite(share), "majority_minority"] = False
+    out = add_shares(out, pop_spec)
     if pop_spec.income_ratio is not None:
         ratio = pd.to_numeric(frame[pop_spec.income_ratio], errors="coerce").to_numpy()[sel]
         out["income_ratio"] = ratio

@@ -204,6 +204,27 @@ class OutputSpec:
 
 
 @dataclass(frozen=True)
+class BlocksSpec:
+    """Census blocks whose counts apportion coverage to the areas (``[blocks]``).
+
+    ``groups`` maps each analysed group name (as in ``[population]``) to a block column;
+    a preset fills ``total`` and the groups it knows by name (``pl_p2``: the 2020
+    redistricting data's table P2).
+    """
+
+    path: Path
+    id: str = "GEOID20"
+    total: str = ""
+    groups: tuple[tuple[str, str], ...] = ()
+    preset: str | None = None
+
+    @property
+    def group_columns(self) -> dict[str, str]:
+        """Group name -> block column, in the order given."""
+        return dict(self.groups)
+
+
+@dataclass(frozen=True)
 class AuditSpec:
     """A whole audit, as resolved from a spec file or options.
 
@@ -228,6 +249,7 @@ class AuditSpec:
     activity: ActivitySpec | None = None
     base_dir: Path = field(default_factory=Path.cwd)
     source: Path | None = None
+    blocks: BlocksSpec | None = None
 
     @property
     def footprint(self) -> FootprintSpec:
@@ -273,7 +295,7 @@ class AuditSpec:
         out["footprint"] = [_dataclass_dict(f) for f in self.footprints]
         out["analysis"] = _dataclass_dict(self.analysis)
         out["output"] = _dataclass_dict(self.output)
-        for key in ("explain", "change", "activity"):
+        for key in ("explain", "change", "activity", "blocks"):
             value = getattr(self, key)
             if value is not None:
                 out[key] = _dataclass_dict(value)
@@ -331,7 +353,9 @@ _TOP_KEYS = (
     "explain",
     "change",
     "activity",
+    "blocks",
 )
+_BLOCKS_KEYS = ("path", "id", "total", "groups", "preset")
 _EXPLAIN_KEYS = tuple(f.name for f in fields(ExplainSpec))
 _CHANGE_KEYS = ("before", "after")
 _ACTIVITY_KEYS = tuple(f.name for f in fields(ActivitySpec))
@@ -480,6 +504,59 @@ def spec_from_dict(
         activity=activity,
         base_dir=base,
         source=Path(source) if source else None,
+        blocks=_blocks_from(data.get("blocks"), base, where, population),
+    )
+
+
+def _blocks_from(
+    value: Any, base: Path, where: str, population: PopulationSpec
+) -> BlocksSpec | None:
+    """Parse ``[blocks]``; every analysed group must get a block column."""
+    if value is None:
+        return None
+    from .io.blocks import PRESETS
+
+    d = _table(value, where, "blocks")
+    _check_keys(d, _BLOCKS_KEYS, where, "[blocks]")
+    preset = _str(d, "preset", where, "blocks")
+    known: dict[str, str] = {}
+    total = None
+    if preset is not None:
+        if preset not in PRESETS:
+            raise SpecError(
+                f'{where}: [blocks] preset was "{preset}" but is expected to be one of '
+                f"{sorted(PRESETS)}"
+            )
+        total, known = PRESETS[preset]
+    total = _str(d, "total", where, "blocks", required=preset is None) or total
+    raw = d.get("groups", {})
+    if not isinstance(raw, Mapping) or not all(isinstance(v, str) and v for v in raw.values()):
+        raise SpecError(
+            f'{where}: [blocks] groups must be a table of name = "column" with the names of '
+            f"[population] groups, for example groups = {{ white_nh = \"P2_005N\" }}"
+        )
+    given = [name for name, _ in population.groups]
+    unknown = [str(n) for n in raw if n not in given]
+    if unknown:
+        raise SpecError(
+            f'{where}: [blocks] groups names "{unknown[0]}", which is not a [population] group; '
+            f"the groups are {given}"
+        )
+    columns = {**known, **{str(k): str(v) for k, v in raw.items()}}
+    missing = [n for n in given if n not in columns]
+    if missing:
+        hint = f" (preset {preset} knows {sorted(known)})" if preset else ""
+        raise SpecError(
+            f'{where}: [blocks] has no column for the group "{missing[0]}"{hint}; add '
+            f'{missing[0]} = "COLUMN" to [blocks.groups]'
+        )
+    assert total is not None
+    return BlocksSpec(
+        path=_path(d, "path", base, where, "blocks", required=True),  # type: ignore[arg-type]
+        id=_str(d, "id", where, "blocks") or "GEOID20",
+        total=total,
+        groups=tuple((n, columns[n]) for n in given),
+        preset=preset,
     )
 
 

@@ -1,0 +1,389 @@
+"""Block apportionment: covered people counted where they live, from census blocks up.
+
+Takes the analysed areas (tracts or block groups, GEOIDs of 11 or 12 digits), the
+footprint and the spec's ``[blocks]``, and gives each area its counts summed from its
+blocks (the block GEOID's first 11 or 12 digits name the area), the people of each group
+the footprint covers (sum over the area's blocks of f_b x_gb, with f_b the block's exact
+covered fraction) and ``covered_population_share`` = covered people / people. The work
+runs partition by partition (a county's file of a prepared dataset, or a chunk of an
+in-memory layer), in this process or on dask (local processes, or the cluster at
+``dask_scheduler``); each partition is sent only the footprint pieces that meet its
+envelope and returns per-area sums, which are added up. Sums are kept in fixed point
+(integers of 2**-30 person), so they are the same bit for bit whatever the partitioning.
+"""
+
+from __future__ import annotations
+
+import os
+from collections.abc import Sequence
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+import geopandas as gpd
+import numpy as np
+import pandas as pd
+import shapely
+from pyproj import CRS
+
+from ._util import safe_ratio
+from .coverage import covered_fraction
+from .errors import AnalysisError, InputError
+from .io.blocks import (
+    BlockColumns,
+    CleanBlocks,
+    check_columns,
+    clean_blocks,
+    dataset_files,
+    default_chunks,
+    file_bounds,
+    is_partitioned,
+    read_blocks,
+)
+
+#: Fixed-point unit of the sums: integer sums do not depend on the order of addition.
+SCALE = float(2**30)
+#: Area GEOID lengths whose blocks are found by prefix: tract 11, block group 12.
+PREFIX_WIDTHS = (11, 12)
+#: Margin (metres) added round a partition's projected bounding box when picking pieces.
+ENVELOPE_PAD_M = 1_000.0
+NO_BLOCK_REASON = "no census block of the blocks file has this area's GEOID as its prefix"
+
+
+@dataclass(frozen=True)
+class Task:
+    """What every partition needs besides its blocks (picklable, sent once per task)."""
+
+    columns: BlockColumns
+    area_ids: np.ndarray  # sorted
+    width: int
+    crs_wkt: str
+    minority_of: int | None  # column of the reference group when minority is derived
+    served: frozenset[str] | None  # served area ids of an "ids" footprint
+
+
+@dataclass(frozen=True, eq=False)
+class PartitionSums:
+    """Per-area sums of one partition (fixed point), and the blocks it left out."""
+
+    area_ids: np.ndarray
+    blocks: np.ndarray
+    counts: np.ndarray
+    covered: np.ndarray
+    excluded: list[tuple[int, str | None, str]]
+    rows: int
+
+
+def block_sums(clean: CleanBlocks, fraction: np.ndarray, task: Task) -> PartitionSums:
+    """Sum blocks' counts and covered counts to the areas their GEOID prefixes name.
+
+    Blocks whose prefix is no analysed area are returned as exclusions.
+    """
+    counts = clean.counts
+    if task.minority_of is not None:
+        minority = np.clip(counts[:, 0] - counts[:, task.minority_of], 0.0, None)
+        counts = np.column_stack([counts, minority])
+    prefix = np.array([v[: task.width] for v in clean.ids], dtype=object)
+    where = np.searchsorted(task.area_ids, prefix.astype(str)) if prefix.size else prefix
+    known = np.zeros(prefix.size, dtype=bool)
+    if prefix.size:
+        inside = where < task.area_ids.size
+        known[inside] = task.area_ids[where[inside]] == prefix[inside]
+    excluded = list(clean.excluded)
+    excluded += [
+        (int(r), str(i), f"no analysed area has GEOID {p} (the block's first {task.width} digits)")
+        for r, i, p in zip(clean.rows[~known], clean.ids[~known], prefix[~known], strict=True)
+    ]
+    slot = np.asarray(where, dtype=np.int64)[known]
+    fixed = np.rint(counts[known] * SCALE).astype(np.int64)
+    covered = np.rint(counts[known] * fraction[known, None] * SCALE).astype(np.int64)
+    order = np.argsort(slot, kind="stable")
+    slot, fixed, covered = slot[order], fixed[order], covered[order]
+    areas, start, n_blocks = np.unique(slot, return_index=True, return_counts=True)
+    width = counts.shape[1]
+    sums = np.add.reduceat(fixed, start, axis=0) if areas.size else np.zeros((0, width), np.int64)
+    csum = np.add.reduceat(covered, start, axis=0) if areas.size else np.zeros((0, width), np.int64)
+    return PartitionSums(
+        area_ids=task.area_ids[areas],
+        blocks=n_blocks.astype(np.int64),
+        counts=sums,
+        covered=csum,
+        excluded=excluded,
+        rows=len(clean.ids) + len(clean.excluded),
+    )
+
+
+def _fractions(clean: CleanBlocks, geoms: np.ndarray, pieces: np.ndarray, task: Task) -> np.ndarray:
+    if task.served is not None:
+        return np.array([1.0 if v[: task.width] in task.served else 0.0 for v in clean.ids])
+    return covered_fraction(geoms, pieces)
+
+
+def memory_task(chunk: tuple[Any, ...], pieces_wkb: np.ndarray, task: Task) -> PartitionSums:
+    """One in-memory chunk: blocks already checked and projected (geometry as WKB)."""
+    ids, counts, wkb, rows, excluded = chunk
+    geoms = shapely.from_wkb(wkb)
+    clean = CleanBlocks(ids=ids, counts=counts, geometry=geoms, rows=rows, excluded=excluded)
+    return block_sums(clean, _fractions(clean, geoms, shapely.from_wkb(pieces_wkb), task), task)
+
+
+def file_task(
+    path: str, pieces_wkb: np.ndarray, envelope: np.ndarray, task: Task
+) -> PartitionSums:
+    """One partition file of a prepared dataset: read, check, project, measure, sum."""
+    frame = gpd.read_parquet(path)
+    check_columns(frame, task.columns, path)
+    clean = clean_blocks(frame, task.columns)
+    geoms = _project(clean.geometry, frame.crs, task.crs_wkt, path)
+    if geoms.size and task.served is None:
+        low = shapely.bounds(geoms)
+        lo, hi = np.fmin.reduce(low[:, :2], axis=0), np.fmax.reduce(low[:, 2:], axis=0)
+        if np.any(lo < envelope[:2]) or np.any(hi > envelope[2:]):
+            raise AnalysisError(
+                f"blocks of '{path}' reach beyond the envelope their footprint pieces were "
+                "chosen for; prepare the dataset again with coverage-audit prepare-blocks"
+            )
+    return block_sums(clean, _fractions(clean, geoms, shapely.from_wkb(pieces_wkb), task), task)
+
+
+def _project(geoms: np.ndarray, crs: Any, target_wkt: str, path: str) -> np.ndarray:
+    if crs is None:
+        raise InputError(f"blocks file '{path}' has no CRS; save it with its CRS (EPSG:4269)")
+    series = gpd.GeoSeries(geoms, crs=crs)
+    return np.asarray(series.to_crs(CRS.from_wkt(target_wkt)).array, dtype=object)
+
+
+def combine(parts: Sequence[PartitionSums], width: int) -> pd.DataFrame:
+    """Add the partitions' sums area by area (integer sums: any order gives the same)."""
+    ids = np.concatenate([p.area_ids for p in parts]) if parts else np.array([], dtype=str)
+    frame = pd.DataFrame({"id": ids.astype(str)})
+    frame["blocks"] = np.concatenate([p.blocks for p in parts]) if parts else []
+    counts = np.vstack([p.counts for p in parts]) if parts else np.zeros((0, width), np.int64)
+    covered = np.vstack([p.covered for p in parts]) if parts else np.zeros((0, width), np.int64)
+    for k in range(width):
+        frame[f"n{k}"] = counts[:, k]
+        frame[f"c{k}"] = covered[:, k]
+    return frame.groupby("id", sort=True).sum()
+
+
+@dataclass(frozen=True, eq=False)
+class Apportioned:
+    """Areas with counts summed from blocks and their block-based covered counts."""
+
+    frame: gpd.GeoDataFrame
+    covered: dict[str, np.ndarray]
+    share: np.ndarray
+    section: dict[str, Any]
+    partitions: str = ""
+
+
+def apportion_blocks(
+    spec: Any, inputs: Any, footprint: Any, frame: gpd.GeoDataFrame
+) -> Apportioned:
+    """Replace the areas' counts by their blocks' sums and count covered people by block.
+
+    Parameters
+    ----------
+    spec : AuditSpec
+        With ``blocks`` set; ``analysis.engine``, ``dask_scheduler`` and ``partitions``
+        choose where the partitions run.
+    inputs : AreaInputs
+        Its exclusions receive the blocks left out and the areas without blocks.
+    footprint : Footprint
+    frame : geopandas.GeoDataFrame
+        The analysed areas with their areal ``covered_fraction``.
+
+    Returns
+    -------
+    Apportioned
+        ``frame`` without the areas that have no block, with ``population`` and group
+        counts summed from blocks, shares recomputed, ``covered_population_share`` and
+        ``served`` (share at or above the threshold; the areal fraction where an area
+        has no people); ``covered``: covered people of each group in each area.
+    """
+    from .inputs import add_shares
+
+    bspec = spec.blocks
+    id_col = inputs.id_column
+    ids = frame[id_col].astype(str).to_numpy()
+    widths = {len(v) for v in ids}
+    if len(widths) != 1 or next(iter(widths)) not in PREFIX_WIDTHS or not all(
+        v.isdigit() for v in ids
+    ):
+        raise InputError(
+            f"[blocks] needs areas whose ids are GEOIDs of one length, 11 digits (tracts) or "
+            f"12 (block groups); the areas' {id_col} values have lengths {sorted(widths)[:5]}"
+        )
+    groups = [n for n, _ in spec.population.groups]
+    names = ["population", *groups]
+    reference_at = names.index(spec.population.reference)
+    task = Task(
+        columns=BlockColumns(bspec.id, bspec.total, bspec.groups),
+        area_ids=np.array(sorted(ids), dtype=str),
+        width=next(iter(widths)),
+        crs_wkt=CRS(inputs.analysis_crs).to_wkt(),
+        minority_of=reference_at if spec.population.derive_minority else None,
+        served=footprint.served_ids if footprint.kind == "ids" else None,
+    )
+    if spec.population.derive_minority:
+        names.append("minority")
+    pieces = np.asarray(footprint.pieces, dtype=object) if footprint.kind != "ids" else None
+    parts, how = run_partitions(bspec.path, task, pieces, spec.analysis)
+    sums = combine(parts, len(names))
+    excluded = sorted(
+        (e for p in parts for e in p.excluded), key=lambda e: (e[0], e[1] or "", e[2])
+    )
+    inputs.exclusions.add(
+        "blocks", [e[0] for e in excluded], [e[1] for e in excluded], [e[2] for e in excluded]
+    )
+    has = np.isin(ids, sums.index.to_numpy())
+    if not has.any():
+        raise InputError(
+            f"no block of '{bspec.path}' falls in an analysed area (by GEOID prefix); check "
+            "that the blocks and the areas are of the same state and county"
+        )
+    inputs.exclusions.add(
+        "areas", frame.loc[~has, "source_row"], frame.loc[~has, id_col], NO_BLOCK_REASON
+    )
+    out = frame.loc[has].reset_index(drop=True)
+    row = sums.loc[out[id_col].astype(str).to_numpy()]
+    covered: dict[str, np.ndarray] = {}
+    for k, name in enumerate(names):
+        out[name] = row[f"n{k}"].to_numpy() / SCALE
+        covered[name] = row[f"c{k}"].to_numpy() / SCALE
+    out["blocks"] = row["blocks"].to_numpy()
+    pop = out["population"].to_numpy(dtype=float)
+    areal = out["covered_fraction"].to_numpy(dtype=float)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        share = np.where(pop > 0, covered["population"] / np.where(pop > 0, pop, 1.0), areal)
+    share = np.clip(share, 0.0, 1.0)
+    out["covered_population_share"] = share
+    out["served"] = share >= spec.analysis.served_threshold
+    out = add_shares(out, spec.population)
+    # Block counts are full counts, not survey estimates: no sampling margins apply.
+    inputs.margin_columns = {}
+    block_groups = [g for g in inputs.groups if g in covered]
+    section = {
+        "blocks_read": int(sum(p.rows for p in parts)),
+        "blocks_used": int(out["blocks"].sum()),
+        "blocks_excluded": len(excluded),
+        "areas_without_blocks": int((~has).sum()),
+        "prefix_digits": task.width,
+        "areal_rates": {
+            g: safe_ratio(
+                float((out[g].to_numpy() * areal).sum()), float(out[g].to_numpy().sum())
+            )
+            for g in block_groups
+        },
+    }
+    return Apportioned(
+        frame=gpd.GeoDataFrame(out, geometry=frame.geometry.name, crs=frame.crs),
+        covered={g: covered[g] for g in block_groups},
+        share=share,
+        section=section,
+        partitions=how,
+    )
+
+
+# --- running the partitions ------------------------------------------------------------------
+
+
+def run_partitions(
+    path: Path, task: Task, pieces: np.ndarray | None, analysis: Any
+) -> tuple[list[PartitionSums], str]:
+    """Run every partition of the blocks: local in order, or on dask; say how."""
+    pieces_all = pieces if pieces is not None else np.array([], dtype=object)
+    if is_partitioned(path):
+        files = dataset_files(path)
+        envelopes = [_envelope(f, task.crs_wkt) for f in files]
+        chosen = _pieces_for(pieces_all, envelopes)
+        args = [
+            (str(f), shapely.to_wkb(pieces_all[s]), e, task)
+            for f, e, s in zip(files, envelopes, chosen, strict=True)
+        ]
+        parts = _run(file_task, args, analysis)
+        return parts, f"{len(files)} files of a prepared dataset"
+    frame = read_blocks(path, task.columns)
+    clean = clean_blocks(frame, task.columns)
+    geoms = _project(clean.geometry, frame.crs, task.crs_wkt, str(path))
+    k = 1
+    if analysis.engine == "dask":
+        k = analysis.partitions or default_chunks(len(clean.ids))
+    order = np.argsort(clean.ids, kind="stable")
+    chunks = [c for c in np.array_split(order, max(1, min(k, max(order.size, 1))))]
+    bounds = shapely.bounds(geoms) if geoms.size else np.zeros((0, 4))
+    envelopes = [
+        np.concatenate([bounds[c, :2].min(axis=0), bounds[c, 2:].max(axis=0)])
+        if c.size
+        else np.full(4, np.nan)
+        for c in chunks
+    ]
+    chosen = _pieces_for(pieces_all, envelopes)
+    args = []
+    for j, (c, s) in enumerate(zip(chunks, chosen, strict=True)):
+        excluded = clean.excluded if j == 0 else []
+        chunk = (clean.ids[c], clean.counts[c], shapely.to_wkb(geoms[c]), clean.rows[c], excluded)
+        args.append((chunk, shapely.to_wkb(pieces_all[s]), task))
+    return _run(memory_task, args, analysis), f"{len(chunks)} chunks of one file"
+
+
+def _envelope(path: Path, crs_wkt: str) -> np.ndarray:
+    """A partition's bounding box in the analysis CRS, padded (see ENVELOPE_PAD_M)."""
+    import pyarrow.parquet as pq
+    from pyproj import Transformer
+
+    box = file_bounds(path)
+    meta = pq.read_schema(path).metadata or {}
+    crs = gpd.read_parquet(path, columns=["geometry"]).crs if b"geo" in meta else None
+    if crs is None:
+        raise InputError(f"blocks file '{path}' has no CRS; prepare it with its CRS")
+    to = Transformer.from_crs(crs, CRS.from_wkt(crs_wkt), always_xy=True)
+    x0, y0, x1, y1 = to.transform_bounds(*box, densify_pts=21)
+    pad = ENVELOPE_PAD_M + 1e-3 * max(x1 - x0, y1 - y0)
+    return np.array([x0 - pad, y0 - pad, x1 + pad, y1 + pad], dtype=float)
+
+
+def _pieces_for(pieces: np.ndarray, envelopes: list[np.ndarray]) -> list[np.ndarray]:
+    """Indices (ascending) of the pieces meeting each envelope."""
+    if pieces.size == 0:
+        return [np.array([], dtype=np.int64) for _ in envelopes]
+    tree = shapely.STRtree(pieces)
+    out = []
+    for e in envelopes:
+        if not np.all(np.isfinite(e)):
+            out.append(np.array([], dtype=np.int64))
+            continue
+        out.append(np.sort(tree.query(shapely.box(*e), predicate="intersects")))
+    return out
+
+
+def _run(func: Any, args: list[tuple[Any, ...]], analysis: Any) -> list[PartitionSums]:
+    """Run ``func`` on each argument tuple: here, on local processes, or on a cluster."""
+    if analysis.engine != "dask":
+        return [func(*a) for a in args]
+    from .distributed import _import_dask
+
+    dask, _ = _import_dask()
+    if analysis.dask_scheduler is None:
+        tasks = [dask.delayed(func, pure=False)(*a) for a in args]
+        workers = max(1, min(len(tasks), os.cpu_count() or 1))
+        return list(dask.compute(*tasks, scheduler="processes", num_workers=workers))
+    from distributed import Client
+
+    with Client(analysis.dask_scheduler) as client:
+        return run_on_client(client, func, args)
+
+
+def run_on_client(client: Any, func: Any, args: list[tuple[Any, ...]]) -> list[PartitionSums]:
+    """Run the partitions on a ``dask.distributed.Client``'s cluster, in order."""
+    futures = [client.submit(func, *a, pure=False) for a in args]
+    return list(client.gather(futures))
+
+
+def group_rates(apportioned: Apportioned, groups: Sequence[str]) -> dict[str, float | None]:
+    """Block-based rate of each group: sum of covered people over sum of people."""
+    frame = apportioned.frame
+    return {
+        g: safe_ratio(float(apportioned.covered[g].sum()), float(frame[g].to_numpy().sum()))
+        for g in groups
+    }

@@ -1,0 +1,295 @@
+"""Block apportionment: covered people counted by census block, summed to tracts by GEOID.
+
+Reference checks are hand-computed on hand-built blocks (areas of boxes and triangles);
+the partition checks are consistency checks (the same audit, partitioned differently).
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import geopandas as gpd
+import numpy as np
+import pandas as pd
+import pytest
+import shapely
+
+from coverage_audit import run_audit
+from coverage_audit.errors import InputError, SpecError
+from coverage_audit.io.blocks import prepare_blocks
+from coverage_audit.spec import load_spec
+
+from .conftest import GRID_CRS, grid, spec_text, write_spec
+
+BLOCKS_TABLE = """
+[blocks]
+path = "{path}"
+total = "P2_001N"
+groups = {{ white = "P2_005N", black = "P2_006N" }}
+"""
+QUICK = "sensitivity = false\n"
+
+
+def _blocks(rows: list[tuple[str, shapely.Geometry, float, float, float]]) -> gpd.GeoDataFrame:
+    return gpd.GeoDataFrame(
+        {
+            "GEOID20": [r[0] for r in rows],
+            "P2_001N": [r[2] for r in rows],
+            "P2_005N": [r[3] for r in rows],
+            "P2_006N": [r[4] for r in rows],
+        },
+        geometry=[r[1] for r in rows],
+        crs=GRID_CRS,
+    )
+
+
+def _spec(folder: Path, blocks: str | None, extra: str = QUICK, footprint: str = "zone.gpkg"):
+    text = spec_text(f'path = "{footprint}"', analysis_extra=extra)
+    text = text.replace('id = "geoid"', 'id = "geoid"\nlayer = "areas"')
+    if blocks is not None:
+        text += BLOCKS_TABLE.format(path=blocks)
+    return load_spec(write_spec(folder / "audit.toml", text.replace("[output]", "")))
+
+
+@pytest.fixture
+def people_in_uncovered_half(two_by_two: Path) -> Path:
+    """Cell 1's people all live in its right half; the footprint covers its left half."""
+    box = shapely.box
+    _blocks(
+        [
+            ("010010000011001", box(0, 0, 500, 1000), 0, 0, 0),
+            ("010010000011002", box(500, 0, 1000, 1000), 100, 80, 10),
+            ("010010000021001", box(1000, 0, 2000, 1000), 200, 50, 150),
+            ("010010000031001", box(0, 1000, 1000, 2000), 300, 30, 250),
+            ("010010000041001", box(1000, 1000, 2000, 2000), 400, 100, 300),
+            ("010010000091001", box(5000, 5000, 5100, 5100), 7, 7, 0),  # no such tract
+        ]
+    ).to_file(two_by_two / "blocks.gpkg", driver="GPKG")
+    return two_by_two
+
+
+def test_people_in_the_uncovered_half_are_not_covered(people_in_uncovered_half):
+    folder = people_in_uncovered_half
+    result = run_audit(_spec(folder, "blocks.gpkg"))
+    areas = result.areas.set_index("geoid")
+    # Hand-built: cell 1 is half covered by area but its 100 people live in the other half.
+    assert areas.loc["01001000001", "covered_fraction"] == pytest.approx(0.5, abs=1e-12)
+    assert areas.loc["01001000001", "covered_population_share"] == 0.0
+    assert not areas.loc["01001000001", "served"]
+    assert areas.loc["01001000003", "covered_population_share"] == 1.0
+    cov = result.summary["coverage"]
+    assert cov["apportionment"] == "blocks"
+    groups = cov["groups"]
+    # Hand-computed: white 30 covered of 260; black 250 of 710; minority 270 of 740.
+    assert groups["white"]["covered_population"] == 30.0
+    assert groups["white"]["rate"] == pytest.approx(30 / 260, abs=1e-12)
+    assert groups["black"]["rate"] == pytest.approx(250 / 710, abs=1e-12)
+    assert groups["minority"]["rate"] == pytest.approx(270 / 740, abs=1e-12)
+    # Areal weighting beside it, hand-computed: white (40 + 30) / 260, black 255 / 710.
+    areal = cov["blocks"]["areal_rates"]
+    assert areal["white"] == pytest.approx(70 / 260, abs=1e-12)
+    assert areal["black"] == pytest.approx(255 / 710, abs=1e-12)
+    assert cov["blocks"]["blocks_read"] == 6
+    assert cov["blocks"]["blocks_used"] == 5
+    ex = result.exclusions
+    row = ex[ex["source"] == "blocks"]
+    assert row["id"].tolist() == ["010010000091001"]
+    assert row["row"].tolist() == [6]
+    assert "01001000009" in row["reason"].iloc[0]
+
+
+def test_areal_audit_says_so(two_by_two):
+    result = run_audit(_spec(two_by_two, None))
+    assert result.summary["coverage"]["apportionment"] == "areal"
+    assert "blocks" not in result.summary["coverage"]
+
+
+def test_uniform_density_blocks_reproduce_areal_weighting(tmp_path):
+    """Blocks of one density: f_b x_b summed equals the tract's areal-weighted count."""
+    areas = grid(2, 1)
+    areas["total"] = [160, 90]
+    areas["white"] = [96, 90]
+    areas["black"] = [64, 0]
+    areas.to_file(tmp_path / "areas.gpkg", layer="areas", driver="GPKG")
+    # A triangle over exactly half of cell 1 (its diagonal), cutting the diagonal blocks.
+    tri = shapely.Polygon([(0, 0), (1000, 0), (0, 1000)])
+    gpd.GeoDataFrame({"z": [1]}, geometry=[tri], crs=GRID_CRS).to_file(tmp_path / "zone.gpkg")
+    rows = []
+    for j in range(4):
+        for i in range(4):
+            cell = shapely.box(i * 250, j * 250, (i + 1) * 250, (j + 1) * 250)
+            rows.append((f"01001000001{1000 + 4 * j + i}", cell, 10, 6, 4))
+    rows.append(("010010000021000", shapely.box(1000, 0, 2000, 1000), 90, 90, 0))
+    _blocks(rows).to_file(tmp_path / "blocks.gpkg", driver="GPKG")
+    blocks = run_audit(_spec(tmp_path, "blocks.gpkg")).summary["coverage"]["groups"]
+    areal = run_audit(_spec(tmp_path, None)).summary["coverage"]["groups"]
+    # Hand-computed: the triangle is half of cell 1, so 80 of its 160 people (48 white,
+    # 32 black) are covered both ways; cell 2 is untouched.
+    for g, covered in (("white", 48.0), ("black", 32.0)):
+        assert blocks[g]["covered_population"] == pytest.approx(covered, abs=1e-6)
+        assert areal[g]["covered_population"] == pytest.approx(covered, abs=1e-6)
+        assert blocks[g]["rate"] == pytest.approx(areal[g]["rate"], rel=1e-9)
+
+
+def test_tract_statistics_use_the_block_sums(people_in_uncovered_half):
+    """The tract counts are the blocks' sums, so both levels agree exactly."""
+    folder = people_in_uncovered_half
+    areas = gpd.read_file(folder / "areas.gpkg")
+    areas["total"] = [1, 2, 3, 4]  # the table says otherwise; the blocks win
+    areas["white"] = [1, 1, 1, 1]
+    areas["black"] = [0, 1, 1, 1]
+    areas.to_file(folder / "areas.gpkg", layer="areas", driver="GPKG")
+    result = run_audit(_spec(folder, "blocks.gpkg"))
+    blocks = gpd.read_file(folder / "blocks.gpkg")
+    blocks["tract"] = blocks["GEOID20"].str[:11]
+    sums = blocks.groupby("tract")[["P2_001N", "P2_005N", "P2_006N"]].sum()
+    frame = result.areas.set_index("geoid")
+    for column, block_column in (("population", "P2_001N"), ("white", "P2_005N")):
+        expect = sums.loc[frame.index, block_column].to_numpy(dtype=float)
+        assert np.array_equal(frame[column].to_numpy(dtype=float), expect)
+    # Dissimilarity of black against the reference group white (Duncan and Duncan 1955),
+    # by hand from the block sums: black (10, 150, 250, 300) of 710, white (80, 50, 30,
+    # 100) of 260.
+    x = np.array([10, 150, 250, 300]) / 710
+    y = np.array([80, 50, 30, 100]) / 260
+    d = 0.5 * np.abs(x - y).sum()
+    assert d == pytest.approx(0.2936078, abs=1e-7)  # written out by hand
+    assert result.summary["segregation"]["dissimilarity"]["black"] == pytest.approx(d, abs=1e-12)
+
+
+def test_area_without_blocks_is_excluded(people_in_uncovered_half):
+    folder = people_in_uncovered_half
+    blocks = gpd.read_file(folder / "blocks.gpkg")
+    blocks = blocks[~blocks["GEOID20"].str.startswith("01001000002")]
+    blocks.to_file(folder / "blocks.gpkg", driver="GPKG")
+    result = run_audit(_spec(folder, "blocks.gpkg"))
+    assert "01001000002" not in set(result.areas["geoid"])
+    ex = result.exclusions
+    hit = ex[(ex["source"] == "areas") & (ex["id"] == "01001000002")]
+    assert len(hit) == 1 and "no census block" in hit["reason"].iloc[0]
+    assert result.summary["areas"]["excluded"] == 1
+    assert result.summary["coverage"]["blocks"]["areas_without_blocks"] == 1
+
+
+def test_bad_blocks_are_listed(people_in_uncovered_half):
+    folder = people_in_uncovered_half
+    blocks = gpd.read_file(folder / "blocks.gpkg")
+    blocks.loc[0, "GEOID20"] = "0100100000110"  # 13 digits
+    blocks.loc[2, "P2_006N"] = 999  # above the total
+    blocks.to_file(folder / "blocks.gpkg", driver="GPKG")
+    result = run_audit(_spec(folder, "blocks.gpkg"))
+    ex = result.exclusions[result.exclusions["source"] == "blocks"]
+    reasons = dict(zip(ex["row"].tolist(), ex["reason"].tolist(), strict=True))
+    assert "15-digit" in reasons[1]
+    assert "exceeds the total" in reasons[3]
+
+
+def test_spec_errors(people_in_uncovered_half):
+    folder = people_in_uncovered_half
+    with pytest.raises(SpecError, match='unknown key "table"'):
+        _spec(folder, 'blocks.gpkg"\ntable = "x')
+    text = spec_text('path = "zone.gpkg"') + '[blocks]\npath = "blocks.gpkg"\npreset = "pl_p2"\n'
+    with pytest.raises(SpecError, match='no column for the group "white"'):
+        load_spec(write_spec(folder / "a.toml", text))
+    with pytest.raises(SpecError, match="preset was"):
+        load_spec(write_spec(folder / "a.toml", text.replace("pl_p2", "pl_p9")))
+    spec = _spec(folder, "blocks.gpkg").blocks
+    assert spec is not None and spec.id == "GEOID20"
+
+
+def test_pl_p2_preset_codes(people_in_uncovered_half):
+    """The preset fills P2 codes (2020 redistricting data table P2; from memory)."""
+    folder = people_in_uncovered_half
+    text = spec_text('path = "zone.gpkg"').replace('white = "white"', 'white_nh = "white"')
+    text = text.replace('reference = "white"', 'reference = "white_nh"')
+    text = text.replace('black = "black"', 'black_nh = "black"')
+    text += '[blocks]\npath = "blocks.gpkg"\npreset = "pl_p2"\n'
+    spec = load_spec(write_spec(folder / "p2.toml", text))
+    assert spec.blocks is not None
+    assert spec.blocks.total == "P2_001N"
+    assert spec.blocks.group_columns == {"white_nh": "P2_005N", "black_nh": "P2_006N"}
+
+
+def test_missing_column_and_file(people_in_uncovered_half):
+    folder = people_in_uncovered_half
+    with pytest.raises(InputError, match="was not found"):
+        run_audit(_spec(folder, "nope.gpkg"))
+    blocks = gpd.read_file(folder / "blocks.gpkg").drop(columns=["P2_006N"])
+    blocks.to_file(folder / "b2.gpkg", driver="GPKG")
+    with pytest.raises(InputError, match='no column "P2_006N"'):
+        run_audit(_spec(folder, "b2.gpkg"))
+
+
+# --- partitions and dask ----------------------------------------------------------------------
+
+
+@pytest.fixture(scope="module")
+def random_region(tmp_path_factory) -> Path:
+    """A 4 x 4 tract grid in two counties, 5 x 5 blocks each with random counts."""
+    folder = tmp_path_factory.mktemp("region")
+    rng = np.random.default_rng(7)
+    areas = grid(4, 4)
+    areas["geoid"] = [("01001" if k < 8 else "01003") + g[5:] for k, g in enumerate(areas["geoid"])]
+    rows = []
+    for geoid, cell in zip(areas["geoid"], areas.geometry, strict=True):
+        x0, y0 = cell.bounds[:2]
+        for j in range(5):
+            for i in range(5):
+                box = shapely.box(x0 + i * 200, y0 + j * 200, x0 + (i + 1) * 200, y0 + (j + 1) * 200)
+                white, black = (int(v) for v in rng.integers(0, 40, 2))
+                rows.append((f"{geoid}{1000 + 5 * j + i}", box, white + black + 3, white, black))
+    blocks = _blocks(rows)
+    sums = blocks.assign(t=blocks["GEOID20"].str[:11]).groupby("t")[["P2_001N", "P2_005N", "P2_006N"]]
+    table = sums.sum().loc[areas["geoid"]]
+    areas["total"], areas["white"], areas["black"] = (table[c].to_numpy() for c in table.columns)
+    areas.to_file(folder / "areas.gpkg", layer="areas", driver="GPKG")
+    blocks.to_file(folder / "blocks.gpkg", driver="GPKG")
+    zone = shapely.Point(1700, 1900).buffer(1300).union(shapely.box(3100, 0, 3900, 4000))
+    gpd.GeoDataFrame({"z": [1]}, geometry=[zone], crs=GRID_CRS).to_file(folder / "zone.gpkg")
+    prepare_blocks([folder / "blocks.gpkg"], folder / "prepared")
+    return folder
+
+
+def _coverage(folder: Path, blocks: str, extra: str = "") -> dict:
+    result = run_audit(_spec(folder, blocks, QUICK + extra))
+    frame = pd.DataFrame(result.areas.drop(columns="geometry"))
+    return {"coverage": result.summary["coverage"], "frame": frame.to_dict("list")}
+
+
+def test_prepared_dataset_has_county_partitions(random_region):
+    files = sorted(p.relative_to(random_region / "prepared") for p in (random_region / "prepared").rglob("*.parquet"))
+    assert [str(f) for f in files] == [
+        "state=01/county=001/blocks.parquet",
+        "state=01/county=003/blocks.parquet",
+    ]
+    import pyarrow.parquet as pq
+
+    assert "bbox" in pq.read_schema(random_region / "prepared" / files[0]).names
+
+
+def test_same_results_whatever_the_partitioning(random_region):
+    local = _coverage(random_region, "blocks.gpkg")
+    assert local["coverage"]["apportionment"] == "blocks"
+    for k in (1, 4, 16):
+        dask = _coverage(random_region, "blocks.gpkg", f'engine = "dask"\npartitions = {k}\n')
+        assert dask == local, k
+    assert _coverage(random_region, "prepared") == local
+    assert _coverage(random_region, "prepared", 'engine = "dask"\n') == local
+
+
+def test_local_cluster_equals_local(random_region):
+    pytest.importorskip("distributed")
+    from distributed import LocalCluster
+
+    local = _coverage(random_region, "prepared")
+    with LocalCluster(
+        n_workers=2,
+        threads_per_worker=1,
+        processes=True,
+        dashboard_address=None,
+        host="127.0.0.1",
+        scheduler_kwargs={"dashboard_address": "127.0.0.1:0"},
+    ) as cluster:
+        extra = f'engine = "dask"\ndask_scheduler = "{cluster.scheduler_address}"\n'
+        assert _coverage(random_region, "prepared", extra) == local
+        assert _coverage(random_region, "blocks.gpkg", extra + "partitions = 4\n") == local
