@@ -47,6 +47,8 @@ SCALE = float(2**30)
 PREFIX_WIDTHS = (11, 12)
 #: Margin (metres) added round a partition's projected bounding box when picking pieces.
 ENVELOPE_PAD_M = 1_000.0
+#: dask scheduler of ``engine = "dask"`` without ``dask_scheduler``: local processes.
+LOCAL_SCHEDULER = "processes"
 NO_BLOCK_REASON = "no census block of the blocks file has this area's GEOID as its prefix"
 
 
@@ -127,9 +129,7 @@ def memory_task(chunk: tuple[Any, ...], pieces_wkb: np.ndarray, task: Task) -> P
     return block_sums(clean, _fractions(clean, geoms, shapely.from_wkb(pieces_wkb), task), task)
 
 
-def file_task(
-    path: str, pieces_wkb: np.ndarray, envelope: np.ndarray, task: Task
-) -> PartitionSums:
+def file_task(path: str, pieces_wkb: np.ndarray, envelope: np.ndarray, task: Task) -> PartitionSums:
     """One partition file of a prepared dataset: read, check, project, measure, sum."""
     frame = gpd.read_parquet(path)
     check_columns(frame, task.columns, path)
@@ -207,8 +207,10 @@ def apportion_blocks(
     id_col = inputs.id_column
     ids = frame[id_col].astype(str).to_numpy()
     widths = {len(v) for v in ids}
-    if len(widths) != 1 or next(iter(widths)) not in PREFIX_WIDTHS or not all(
-        v.isdigit() for v in ids
+    if (
+        len(widths) != 1
+        or next(iter(widths)) not in PREFIX_WIDTHS
+        or not all(v.isdigit() for v in ids)
     ):
         raise InputError(
             f"[blocks] needs areas whose ids are GEOIDs of one length, 11 digits (tracts) or "
@@ -270,9 +272,7 @@ def apportion_blocks(
         "areas_without_blocks": int((~has).sum()),
         "prefix_digits": task.width,
         "areal_rates": {
-            g: safe_ratio(
-                float((out[g].to_numpy() * areal).sum()), float(out[g].to_numpy().sum())
-            )
+            g: safe_ratio(float((out[g].to_numpy() * areal).sum()), float(out[g].to_numpy().sum()))
             for g in block_groups
         },
     }
@@ -297,7 +297,7 @@ def run_partitions(
         files = dataset_files(path)
         envelopes = [_envelope(f, task.crs_wkt) for f in files]
         chosen = _pieces_for(pieces_all, envelopes)
-        args = [
+        args: list[tuple[Any, ...]] = [
             (str(f), shapely.to_wkb(pieces_all[s]), e, task)
             for f, e, s in zip(files, envelopes, chosen, strict=True)
         ]
@@ -319,7 +319,7 @@ def run_partitions(
         for c in chunks
     ]
     chosen = _pieces_for(pieces_all, envelopes)
-    args = []
+    args = []  # (chunk, pieces, task) per chunk
     for j, (c, s) in enumerate(zip(chunks, chosen, strict=True)):
         excluded = clean.excluded if j == 0 else []
         chunk = (clean.ids[c], clean.counts[c], shapely.to_wkb(geoms[c]), clean.rows[c], excluded)
@@ -328,7 +328,7 @@ def run_partitions(
 
 
 def _envelope(path: Path, crs_wkt: str) -> np.ndarray:
-    """A partition's bounding box in the analysis CRS, padded (see ENVELOPE_PAD_M)."""
+    """Return a partition's bounding box in the analysis CRS, padded (ENVELOPE_PAD_M)."""
     import pyarrow.parquet as pq
     from pyproj import Transformer
 
@@ -338,13 +338,13 @@ def _envelope(path: Path, crs_wkt: str) -> np.ndarray:
     if crs is None:
         raise InputError(f"blocks file '{path}' has no CRS; prepare it with its CRS")
     to = Transformer.from_crs(crs, CRS.from_wkt(crs_wkt), always_xy=True)
-    x0, y0, x1, y1 = to.transform_bounds(*box, densify_pts=21)
+    x0, y0, x1, y1 = to.transform_bounds(box[0], box[1], box[2], box[3], densify_pts=21)
     pad = ENVELOPE_PAD_M + 1e-3 * max(x1 - x0, y1 - y0)
     return np.array([x0 - pad, y0 - pad, x1 + pad, y1 + pad], dtype=float)
 
 
 def _pieces_for(pieces: np.ndarray, envelopes: list[np.ndarray]) -> list[np.ndarray]:
-    """Indices (ascending) of the pieces meeting each envelope."""
+    """Return the indices (ascending) of the pieces meeting each envelope."""
     if pieces.size == 0:
         return [np.array([], dtype=np.int64) for _ in envelopes]
     tree = shapely.STRtree(pieces)
@@ -367,7 +367,7 @@ def _run(func: Any, args: list[tuple[Any, ...]], analysis: Any) -> list[Partitio
     if analysis.dask_scheduler is None:
         tasks = [dask.delayed(func, pure=False)(*a) for a in args]
         workers = max(1, min(len(tasks), os.cpu_count() or 1))
-        return list(dask.compute(*tasks, scheduler="processes", num_workers=workers))
+        return list(dask.compute(*tasks, scheduler=LOCAL_SCHEDULER, num_workers=workers))
     from distributed import Client
 
     with Client(analysis.dask_scheduler) as client:

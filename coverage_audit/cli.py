@@ -180,7 +180,31 @@ def _build_parser() -> argparse.ArgumentParser:
     )
     check.add_argument("spec", type=Path, help="the audit spec, a TOML file")
     check.add_argument("--debug", action="store_true", help="show a traceback on errors")
+
+    blocks = sub.add_parser(
+        "prepare-blocks",
+        help="convert census block files into GeoParquet partitioned by state and county",
+        description=(
+            "Read block layers (zipped TIGER/Line Shapefiles, Shapefiles, GeoPackages or "
+            "GeoParquet) once and write them as GeoParquet partitioned by state and county, "
+            'with bounding-box columns, for [blocks] path and engine = "dask".'
+        ),
+    )
+    blocks.add_argument("sources", type=Path, nargs="+", help="block files, all in one CRS")
+    blocks.add_argument("--out", type=Path, required=True, help="new output folder")
+    blocks.add_argument(
+        "--id", default="GEOID20", help="15-digit block GEOID column (default: GEOID20)"
+    )
+    blocks.add_argument("--debug", action="store_true", help="show a traceback on errors")
     return parser
+
+
+def _cmd_prepare_blocks(args: argparse.Namespace) -> int:
+    from .io.blocks import prepare_blocks
+
+    done = prepare_blocks(args.sources, args.out, id_column=args.id)
+    print(f"wrote {done['blocks']} blocks in {done['partitions']} county partitions to {args.out}")
+    return EXIT_OK
 
 
 def _add_common(p: argparse.ArgumentParser) -> None:
@@ -435,7 +459,12 @@ def main(argv: Sequence[str] | None = None) -> int:
     if args.command is None:
         parser.print_help()
         return EXIT_USER_ERROR
-    handlers = {"run": _cmd_run, "demo": _cmd_demo, "check": _cmd_check}
+    handlers = {
+        "run": _cmd_run,
+        "demo": _cmd_demo,
+        "check": _cmd_check,
+        "prepare-blocks": _cmd_prepare_blocks,
+    }
     debug = getattr(args, "debug", False)
     try:
         with warnings.catch_warnings():

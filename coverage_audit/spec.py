@@ -533,7 +533,7 @@ def _blocks_from(
     if not isinstance(raw, Mapping) or not all(isinstance(v, str) and v for v in raw.values()):
         raise SpecError(
             f'{where}: [blocks] groups must be a table of name = "column" with the names of '
-            f"[population] groups, for example groups = {{ white_nh = \"P2_005N\" }}"
+            f'[population] groups, for example groups = {{ white_nh = "P2_005N" }}'
         )
     given = [name for name, _ in population.groups]
     unknown = [str(n) for n in raw if n not in given]

@@ -235,11 +235,15 @@ def random_region(tmp_path_factory) -> Path:
         x0, y0 = cell.bounds[:2]
         for j in range(5):
             for i in range(5):
-                box = shapely.box(x0 + i * 200, y0 + j * 200, x0 + (i + 1) * 200, y0 + (j + 1) * 200)
+                box = shapely.box(
+                    x0 + i * 200, y0 + j * 200, x0 + (i + 1) * 200, y0 + (j + 1) * 200
+                )
                 white, black = (int(v) for v in rng.integers(0, 40, 2))
                 rows.append((f"{geoid}{1000 + 5 * j + i}", box, white + black + 3, white, black))
     blocks = _blocks(rows)
-    sums = blocks.assign(t=blocks["GEOID20"].str[:11]).groupby("t")[["P2_001N", "P2_005N", "P2_006N"]]
+    sums = blocks.assign(t=blocks["GEOID20"].str[:11]).groupby("t")[
+        ["P2_001N", "P2_005N", "P2_006N"]
+    ]
     table = sums.sum().loc[areas["geoid"]]
     areas["total"], areas["white"], areas["black"] = (table[c].to_numpy() for c in table.columns)
     areas.to_file(folder / "areas.gpkg", layer="areas", driver="GPKG")
@@ -257,7 +261,10 @@ def _coverage(folder: Path, blocks: str, extra: str = "") -> dict:
 
 
 def test_prepared_dataset_has_county_partitions(random_region):
-    files = sorted(p.relative_to(random_region / "prepared") for p in (random_region / "prepared").rglob("*.parquet"))
+    files = sorted(
+        p.relative_to(random_region / "prepared")
+        for p in (random_region / "prepared").rglob("*.parquet")
+    )
     assert [str(f) for f in files] == [
         "state=01/county=001/blocks.parquet",
         "state=01/county=003/blocks.parquet",
@@ -267,13 +274,54 @@ def test_prepared_dataset_has_county_partitions(random_region):
     assert "bbox" in pq.read_schema(random_region / "prepared" / files[0]).names
 
 
-def test_same_results_whatever_the_partitioning(random_region):
+def _sums(folder: Path, blocks: str, **analysis: object) -> pd.DataFrame:
+    """Per-tract sums of the partitions, as the audit adds them up."""
+    from types import SimpleNamespace
+
+    from pyproj import CRS
+
+    from coverage_audit.apportion import Task, combine, run_partitions
+    from coverage_audit.footprint import cut_pieces
+    from coverage_audit.io.blocks import BlockColumns
+
+    areas = gpd.read_file(folder / "areas.gpkg")
+    task = Task(
+        columns=BlockColumns("GEOID20", "P2_001N", (("white", "P2_005N"), ("black", "P2_006N"))),
+        area_ids=np.array(sorted(areas["geoid"]), dtype=str),
+        width=11,
+        crs_wkt=CRS(GRID_CRS).to_wkt(),
+        minority_of=1,
+        served=None,
+    )
+    zone = gpd.read_file(folder / "zone.gpkg").geometry.union_all()
+    options = {"engine": "local", "partitions": None, "dask_scheduler": None, **analysis}
+    parts, _ = run_partitions(
+        folder / blocks, task, cut_pieces(zone, 16), SimpleNamespace(**options)
+    )
+    return combine(parts, 4)
+
+
+def test_same_sums_whatever_the_partitioning(random_region, monkeypatch):
+    """Consistency check: 1, 4 and 16 partitions give the same sums (16 on processes)."""
+    import coverage_audit.apportion as apportion
+
+    local = _sums(random_region, "blocks.gpkg")
+    assert len(local) == 16 and local["blocks"].sum() == 400
+    assert local["c0"].sum() > 0
+    pd.testing.assert_frame_equal(
+        _sums(random_region, "blocks.gpkg", engine="dask", partitions=16), local
+    )
+    monkeypatch.setattr(apportion, "LOCAL_SCHEDULER", "threads")  # spawning processes is slow
+    for k in (1, 4):
+        pd.testing.assert_frame_equal(
+            _sums(random_region, "blocks.gpkg", engine="dask", partitions=k), local
+        )
+    pd.testing.assert_frame_equal(_sums(random_region, "prepared", engine="dask"), local)
+
+
+def test_dask_audit_equals_local(random_region):
     local = _coverage(random_region, "blocks.gpkg")
     assert local["coverage"]["apportionment"] == "blocks"
-    for k in (1, 4, 16):
-        dask = _coverage(random_region, "blocks.gpkg", f'engine = "dask"\npartitions = {k}\n')
-        assert dask == local, k
-    assert _coverage(random_region, "prepared") == local
     assert _coverage(random_region, "prepared", 'engine = "dask"\n') == local
 
 
@@ -292,4 +340,20 @@ def test_local_cluster_equals_local(random_region):
     ) as cluster:
         extra = f'engine = "dask"\ndask_scheduler = "{cluster.scheduler_address}"\n'
         assert _coverage(random_region, "prepared", extra) == local
-        assert _coverage(random_region, "blocks.gpkg", extra + "partitions = 4\n") == local
+
+
+def test_prepare_blocks_command(people_in_uncovered_half, capsys):
+    from coverage_audit.cli import main
+
+    folder = people_in_uncovered_half
+    out = folder / "prepared"
+    assert main(["prepare-blocks", str(folder / "blocks.gpkg"), "--out", str(out)]) == 0
+    assert "wrote 6 blocks in 1 county partitions" in capsys.readouterr().out
+    assert main(["prepare-blocks", str(folder / "blocks.gpkg"), "--out", str(out)]) == 2
+    assert "is not empty" in capsys.readouterr().err
+    frame = gpd.read_parquet(out / "state=01" / "county=001" / "blocks.parquet")
+    assert frame["block_row"].tolist() == [1, 2, 3, 4, 5, 6]
+    result = run_audit(_spec(folder, "prepared"))
+    assert result.summary["coverage"]["groups"]["white"]["covered_population"] == 30.0
+    ex = result.exclusions
+    assert ex[ex["source"] == "blocks"]["row"].tolist() == [6]

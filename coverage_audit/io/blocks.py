@@ -165,7 +165,7 @@ def clean_blocks(frame: gpd.GeoDataFrame, columns: BlockColumns) -> CleanBlocks:
     ).to_numpy(dtype=object)
     reason = np.full(n, "", dtype=object)
 
-    def flag(mask: np.ndarray, why: str | np.ndarray) -> None:
+    def flag(mask: Any, why: str | np.ndarray) -> None:
         mask = np.asarray(mask, dtype=bool) & (reason == "")
         reason[mask] = why if isinstance(why, str) else why[mask]
 
