@@ -158,7 +158,7 @@ def _build_parser() -> argparse.ArgumentParser:
     demo.add_argument(
         "--scenario",
         action="append",
-        choices=["delivery", "branches", "assessment_area", "outreach"],
+        choices=["delivery", "branches", "assessment_area", "outreach", "delivery_blocks"],
         help="run only this scenario (repeatable; default: all)",
     )
     demo.add_argument(
@@ -404,7 +404,7 @@ def _cmd_run(args: argparse.Namespace) -> int:
 
 
 def _cmd_demo(args: argparse.Namespace) -> int:
-    from .demo import DEMO_NAME, MARGIN_SCENARIO, SCENARIOS, write_demo_region
+    from .demo import BLOCK_SCENARIO, DEMO_NAME, MARGIN_SCENARIO, SCENARIOS, write_demo_region
     from .spec import load_spec
 
     bundled = Path(__file__).resolve().parent.parent / "demo_regions" / DEMO_NAME
@@ -412,7 +412,7 @@ def _cmd_demo(args: argparse.Namespace) -> int:
         region = write_demo_region(args.out / "region")
     else:
         region = bundled
-    scenarios = args.scenario or [*SCENARIOS, MARGIN_SCENARIO]
+    scenarios = args.scenario or [*SCENARIOS, MARGIN_SCENARIO, BLOCK_SCENARIO]
     for name in scenarios:
         spec = load_spec(region / f"{name}.toml")
         overrides = _overrides(args)

@@ -25,7 +25,7 @@ import numpy as np
 import pandas as pd
 import shapely
 
-from .synthetic import FICTIONAL_CRS, demographics, tessellation
+from .synthetic import FICTIONAL_CRS, demographics, nested_blocks, tessellation
 
 DEMO_SEED = 20_261_201
 DEMO_NAME = "ostmere"
@@ -287,6 +287,7 @@ def write_demo_region(folder: str | Path, seed: int = DEMO_SEED) -> Path:
             encoding="utf-8",
         )
     write_margin_scenario(out, cells, demo, seed)
+    write_block_scenario(out, cells, demo, seed)
     (out / "README.md").write_text(_readme(len(cells)), encoding="utf-8")
     return out
 
@@ -389,6 +390,52 @@ def _margin_spec(seed: int) -> str:
         "American Community Survey tables do.\n",
         1,
     )
+
+
+#: The scenario whose people are counted by census block: the delivery zone again.
+BLOCK_SCENARIO = "delivery_blocks"
+#: Demo count columns and the 2020 redistricting table P2 codes their blocks carry
+#: (coverage_audit.io.blocks.PRESETS["pl_p2"]); "other" goes to some other race alone.
+_P2_COLUMNS = {
+    "pop_hispanic": "P2_002N",
+    "pop_white_nh": "P2_005N",
+    "pop_black_nh": "P2_006N",
+    "pop_asian_nh": "P2_008N",
+    "pop_other_nh": "P2_010N",
+}
+
+
+def demo_blocks(cells: gpd.GeoDataFrame, demo: pd.DataFrame, seed: int) -> gpd.GeoDataFrame:
+    """Return fictional census blocks nested in the tracts, 8 a tract, with P2 counts.
+
+    People live more densely towards the city centre, so tracts on the delivery zone's
+    edge hold more of their people on the inner side. Block sums equal the tract counts.
+    """
+    counts = demo[list(_P2_COLUMNS)].rename(columns=_P2_COLUMNS)
+    blocks = nested_blocks(cells, counts, seed=seed + 3, per_tract=8, decay_m=3 * _CELL_M)
+    blocks.insert(2, "P2_001N", blocks[list(_P2_COLUMNS.values())].sum(axis=1))
+    blocks = blocks.drop(columns="tract").to_crs("EPSG:4326")
+    return blocks.set_geometry(shapely.set_precision(blocks.geometry.values, 1e-7))
+
+
+def write_block_scenario(
+    folder: Path, cells: gpd.GeoDataFrame, demo: pd.DataFrame, seed: int
+) -> None:
+    """Write blocks.parquet (GeoParquet) and the delivery spec that counts people by block."""
+    demo_blocks(cells, demo, seed).to_parquet(folder / "blocks.parquet", index=False)
+    title, footprint = SCENARIOS["delivery"]
+    text = SPEC_TEMPLATE.format(
+        title=f"{title}, people counted by census block",
+        footprint=footprint,
+        seed=seed,
+        analysis_extra='contrast_group = "black_nh"\n',
+    )
+    text += (
+        "\n# People counted where they live: fictional census blocks with the 2020 "
+        "redistricting\n# table P2's codes; the tract counts are the blocks' sums.\n"
+        '[blocks]\npath = "blocks.parquet"\npreset = "pl_p2"\n'
+    )
+    (folder / f"{BLOCK_SCENARIO}.toml").write_text(text, encoding="utf-8")
 
 
 def _write_geojson(frame: gpd.GeoDataFrame, path: Path) -> None:

@@ -170,3 +170,80 @@ def service_points(
         geometry=shapely.points(x, y),
         crs=cells.crs,
     )
+
+
+def nested_blocks(
+    tracts: gpd.GeoDataFrame,
+    counts: pd.DataFrame,
+    *,
+    seed: int,
+    per_tract: int = 8,
+    centre: tuple[float, float] = (0.0, 0.0),
+    decay_m: float = 4_000.0,
+    segment_m: float | None = None,
+    id_column: str = "geoid",
+) -> gpd.GeoDataFrame:
+    """Return census-block-like polygons nested in each tract, with the tract's counts split.
+
+    Parameters
+    ----------
+    tracts : geopandas.GeoDataFrame
+        Tract polygons (metres) with 11-digit ids in ``id_column``.
+    counts : pandas.DataFrame
+        One row per tract (same order), one column per count to split among its blocks.
+    seed : int
+        Seed of the block seed points and of the splits.
+    per_tract : int
+        Blocks per tract (Voronoi cells of random points, clipped to the tract).
+    centre, decay_m : tuple of float, float
+        People live more densely near ``centre``: a block's expected share of its tract's
+        people is proportional to its area times exp(-distance / decay_m), with noise.
+    segment_m : float, optional
+        Add vertices along edges at this spacing (blocks of realistic vertex counts).
+    id_column : str
+        Tract id column; block ids are the tract id + a 4-digit block number.
+
+    Returns
+    -------
+    geopandas.GeoDataFrame
+        ``GEOID20``, ``tract``, the count columns (each block's share; tract sums equal
+        ``counts`` exactly) and ``geometry``.
+    """
+    rng = np.random.default_rng(seed)
+    geoms: list[shapely.Geometry] = []
+    ids: list[str] = []
+    tract_of: list[int] = []
+    for k, (geoid, poly) in enumerate(zip(tracts[id_column], tracts.geometry, strict=True)):
+        x0, y0, x1, y1 = poly.bounds
+        pts = rng.uniform((x0, y0), (x1, y1), size=(per_tract * 4, 2))
+        inside = pts[shapely.contains_xy(poly, pts[:, 0], pts[:, 1])][:per_tract]
+        if len(inside) < 2:
+            cells = [poly]
+        else:
+            regions = shapely.voronoi_polygons(shapely.MultiPoint(inside), extend_to=poly)
+            parts = shapely.intersection(np.asarray(shapely.get_parts(regions)), poly)
+            cells = [p for p in parts if not p.is_empty and p.area > 0]
+        for j, cell in enumerate(cells):
+            geoms.append(cell)
+            ids.append(f"{geoid}{1000 + j:04d}")
+            tract_of.append(k)
+    block_geoms = np.asarray(geoms, dtype=object)
+    if segment_m is not None:
+        block_geoms = shapely.segmentize(block_geoms, segment_m)
+    where = np.asarray(tract_of)
+    centroid = shapely.centroid(block_geoms)
+    dist = np.hypot(shapely.get_x(centroid) - centre[0], shapely.get_y(centroid) - centre[1])
+    weight = shapely.area(block_geoms) * np.exp(-dist / decay_m) * rng.lognormal(0, 0.5, dist.size)
+    out = pd.DataFrame({"GEOID20": ids, "tract": tracts[id_column].to_numpy()[where]})
+    starts = np.searchsorted(where, np.arange(len(tracts)))
+    ends = np.searchsorted(where, np.arange(len(tracts)), side="right")
+    for column in counts.columns:
+        values = np.zeros(where.size, dtype=np.int64)
+        totals = np.rint(counts[column].to_numpy(dtype=float)).astype(np.int64)
+        for k in range(len(tracts)):
+            lo, hi = starts[k], ends[k]
+            if hi > lo and totals[k] > 0:
+                w = weight[lo:hi]
+                values[lo:hi] = rng.multinomial(totals[k], w / w.sum())
+        out[column] = values
+    return gpd.GeoDataFrame(out, geometry=block_geoms, crs=tracts.crs)

@@ -357,3 +357,38 @@ def test_prepare_blocks_command(people_in_uncovered_half, capsys):
     assert result.summary["coverage"]["groups"]["white"]["covered_population"] == 30.0
     ex = result.exclusions
     assert ex[ex["source"] == "blocks"]["row"].tolist() == [6]
+
+
+# --- the demo region's blocks and the report ------------------------------------------------
+
+BUNDLED = Path(__file__).resolve().parent.parent / "demo_regions" / "ostmere"
+
+
+def test_demo_blocks_regenerate_and_nest(tmp_path):
+    from coverage_audit.demo import DEMO_SEED, build_region, write_block_scenario
+
+    cells, demo = build_region(DEMO_SEED)
+    write_block_scenario(tmp_path, cells, demo, DEMO_SEED)
+    assert (tmp_path / "delivery_blocks.toml").read_bytes() == (
+        BUNDLED / "delivery_blocks.toml"
+    ).read_bytes()
+    made = gpd.read_parquet(tmp_path / "blocks.parquet")
+    bundled = gpd.read_parquet(BUNDLED / "blocks.parquet")
+    pd.testing.assert_frame_equal(pd.DataFrame(made), pd.DataFrame(bundled))
+    sums = made.groupby(made["GEOID20"].str[:11])["P2_001N"].sum()
+    assert np.array_equal(sums.loc[cells["geoid"]].to_numpy(), demo["pop_total"].to_numpy())
+
+
+def test_demo_delivery_reports_both_ways(tmp_path):
+    spec = load_spec(BUNDLED / "delivery_blocks.toml")
+    result = run_audit(spec.with_analysis(permutations=19, enclave_draws=19, sensitivity=False))
+    cov = result.summary["coverage"]
+    assert cov["apportionment"] == "blocks"
+    assert set(cov["blocks"]["areal_rates"]) == set(cov["groups"])
+    assert cov["blocks"]["blocks_used"] == cov["blocks"]["blocks_read"] > 3000
+    result.write(tmp_path / "out")
+    page = (tmp_path / "out" / "report.html").read_text(encoding="utf-8")
+    assert "Where people live" in page
+    assert "Counting people where they live, by census block" in page
+    areal = pd.read_csv(tmp_path / "out" / "areas.csv", dtype={"geoid": str})
+    assert "covered_population_share" in areal.columns

@@ -27,7 +27,7 @@ import pandas as pd
 import scipy.sparse as sp
 
 from ..errors import InputError
-from . import further, uncertainty_section
+from . import blocks_section, further, uncertainty_section
 from .markup import (
     NA,
     Html,
@@ -539,11 +539,13 @@ def render_report(
         present.add("enclaves")
     present |= further.present(summary)
     present |= {uncertainty_section.ANCHOR} if uncertainty_section.has_margins(summary) else set()
+    present |= {blocks_section.ANCHOR} if blocks_section.has_blocks(summary) else set()
     sections = [
         (anchor, title, render)
         for anchor, title, render in (
             ("audited", "What was audited", audited_section),
             ("coverage", "Coverage by group", coverage_section),
+            (blocks_section.ANCHOR, blocks_section.TITLE, blocks_section.blocks_section),
             (
                 uncertainty_section.ANCHOR,
                 uncertainty_section.TITLE,
