@@ -387,3 +387,19 @@ def group_rates(apportioned: Apportioned, groups: Sequence[str]) -> dict[str, fl
         g: safe_ratio(float(apportioned.covered[g].sum()), float(frame[g].to_numpy().sum()))
         for g in groups
     }
+
+
+#: How the areal-weighting caution of audit.CAUTIONS reads (replaced when blocks are used).
+AREAL_CAUTION_PART = "coverage is areal-weighted"
+
+
+def block_cautions(cautions: Sequence[str]) -> list[str]:
+    """Return the cautions with the areal-weighting one saying that people were counted by block."""
+    text = (
+        "Results depend on the areal units chosen (tracts, block groups or other boundaries "
+        "can give other figures). People were counted where they live, by census block: each "
+        "block's covered fraction weights its people, who are assumed to be spread evenly "
+        "within the block; the area counts are the blocks' sums (decennial census counts, "
+        "which may differ from survey estimates of the same areas)."
+    )
+    return [text if AREAL_CAUTION_PART in c else c for c in cautions]

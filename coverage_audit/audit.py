@@ -266,6 +266,10 @@ def run_audit(
     exclusions = inputs.exclusions
     summary["exclusions"] = {"count": exclusions.count(), "by_reason": exclusions.by_reason()}
     summary["cautions"] = cautions(CAUTIONS, summary)
+    if spec.blocks is not None:
+        from .apportion import block_cautions
+
+        summary["cautions"] = block_cautions(summary["cautions"])
     finished = _dt.datetime.now(_dt.timezone.utc)
     manifest = build_manifest(spec, inputs, footprint, started, finished)
     frame = _order_columns(frame, inputs)
