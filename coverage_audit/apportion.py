@@ -292,6 +292,20 @@ def run_partitions(
     path: Path, task: Task, pieces: np.ndarray | None, analysis: Any
 ) -> tuple[list[PartitionSums], str]:
     """Run every partition of the blocks: local in order, or on dask; say how."""
+    func, args, how = partition_tasks(path, task, pieces, analysis)
+    return _run(func, args, analysis), how
+
+
+def partition_tasks(
+    path: Path, task: Task, pieces: np.ndarray | None, analysis: Any
+) -> tuple[Any, list[tuple[Any, ...]], str]:
+    """Return the task function, one argument tuple per partition, and how it was split.
+
+    A prepared dataset gives one partition per file (county); any other block file is
+    read here, checked, projected and cut into ``analysis.partitions`` chunks in GEOID
+    order (one with the local engine). Each partition's pieces are those meeting its
+    envelope, as WKB.
+    """
     pieces_all = pieces if pieces is not None else np.array([], dtype=object)
     if is_partitioned(path):
         files = dataset_files(path)
@@ -301,8 +315,7 @@ def run_partitions(
             (str(f), shapely.to_wkb(pieces_all[s]), e, task)
             for f, e, s in zip(files, envelopes, chosen, strict=True)
         ]
-        parts = _run(file_task, args, analysis)
-        return parts, f"{len(files)} files of a prepared dataset"
+        return file_task, args, f"{len(files)} files of a prepared dataset"
     frame = read_blocks(path, task.columns)
     clean = clean_blocks(frame, task.columns)
     geoms = _project(clean.geometry, frame.crs, task.crs_wkt, str(path))
@@ -310,7 +323,7 @@ def run_partitions(
     if analysis.engine == "dask":
         k = analysis.partitions or default_chunks(len(clean.ids))
     order = np.argsort(clean.ids, kind="stable")
-    chunks = [c for c in np.array_split(order, max(1, min(k, max(order.size, 1))))]
+    chunks = list(np.array_split(order, max(1, min(k, max(order.size, 1)))))
     bounds = shapely.bounds(geoms) if geoms.size else np.zeros((0, 4))
     envelopes = [
         np.concatenate([bounds[c, :2].min(axis=0), bounds[c, 2:].max(axis=0)])
@@ -324,7 +337,7 @@ def run_partitions(
         excluded = clean.excluded if j == 0 else []
         chunk = (clean.ids[c], clean.counts[c], shapely.to_wkb(geoms[c]), clean.rows[c], excluded)
         args.append((chunk, shapely.to_wkb(pieces_all[s]), task))
-    return _run(memory_task, args, analysis), f"{len(chunks)} chunks of one file"
+    return memory_task, args, f"{len(chunks)} chunks of one file"
 
 
 def _envelope(path: Path, crs_wkt: str) -> np.ndarray:

@@ -1,0 +1,200 @@
+"""Benchmark of block apportionment: local, dask local processes and a LocalCluster, same run.
+
+Generates a fictional block layer nested in tracts (--blocks, default 200,000; 10 blocks a
+tract; edges segmentized so blocks have about 20-60 vertices; tracts grouped into county
+bands of growing size; fixed seed), a footprint of buffered service points, writes the blocks as one
+GeoParquet file and prepares them as GeoParquet partitioned by county
+(io.blocks.prepare_blocks), then times, each once:
+
+- baseline (named): engine "local" on the one file (read whole, one partition);
+- local, prepared dataset: county files one after another in this process;
+- dask on local processes (the engine's default without dask_scheduler);
+- dask on a LocalCluster of 1 and of 2 worker processes x 1 thread (loopback only).
+
+For each it prints the time, its ratio to the baseline, the peak resident memory above the
+start (this process, and the worker processes' summed peak) and whether the per-area sums
+equal the baseline's exactly. It then times each county partition alone and fits
+time = a + b x blocks, to show the cost grows linearly, and projects the national
+8,180,866 blocks (2020) on 1, 2, 8 and 32 workers from the fit.
+Usage: python benchmarks/bench_blocks.py [--blocks 200000] [--counties 8] [--skip-cluster]
+"""
+
+from __future__ import annotations
+
+import argparse
+import logging
+import tempfile
+import time
+from pathlib import Path
+from types import SimpleNamespace
+
+import numpy as np
+import pandas as pd
+import shapely
+from bench_distributed import MIB, PeakMemory, trim_memory
+from pyproj import CRS
+
+from coverage_audit.apportion import (
+    Task,
+    combine,
+    partition_tasks,
+    run_on_client,
+    run_partitions,
+)
+from coverage_audit.footprint import cut_pieces
+from coverage_audit.io.blocks import BlockColumns, dataset_files, prepare_blocks
+from coverage_audit.synthetic import FICTIONAL_CRS, demographics, nested_blocks, tessellation
+
+NATIONAL_BLOCKS = 8_180_866  # 2020 census, all areas (REFERENCES.md)
+PER_TRACT = 10
+
+
+def build(n_blocks: int, counties: int, folder: Path) -> tuple[Task, np.ndarray]:
+    """Write blocks.parquet and prepared/; return the task settings and footprint pieces."""
+    tracts = tessellation(n_blocks // PER_TRACT, seed=11, cell_size_m=1_500.0)
+    # County bands of growing height (1, 2, ..., k shares), so partition sizes differ.
+    rows = tracts["row"].to_numpy()
+    shares = np.cumsum(np.arange(1, counties + 1)) / (counties * (counties + 1) / 2)
+    cuts = np.rint(shares[:-1] * (rows.max() + 1))
+    county = np.searchsorted(cuts, rows, side="right") * 2 + 1
+    tracts["geoid"] = [f"99{c:03d}{g[5:]}" for c, g in zip(county, tracts["geoid"], strict=True)]
+    demo = demographics(tracts, seed=12)
+    counts = demo[["pop_total", "pop_white_nh", "pop_black_nh"]]
+    x0, y0, x1, y1 = tracts.total_bounds
+    blocks = nested_blocks(
+        tracts,
+        counts,
+        seed=13,
+        per_tract=PER_TRACT,
+        centre=((x0 + x1) / 2, (y0 + y1) / 2),
+        decay_m=(x1 - x0) / 4,
+        segment_m=40.0,
+    )
+    blocks.to_parquet(folder / "blocks.parquet", index=False)
+    prepare_blocks([folder / "blocks.parquet"], folder / "prepared")
+    rng = np.random.default_rng(14)
+    sites = shapely.points(rng.uniform(x0, x1, 600), rng.uniform(y0, y1, 600))
+    pieces = cut_pieces(shapely.union_all(shapely.buffer(sites, 2_500.0, quad_segs=16)))
+    task = Task(
+        columns=BlockColumns(
+            "GEOID20", "pop_total", (("white", "pop_white_nh"), ("black", "pop_black_nh"))
+        ),
+        area_ids=np.array(sorted(tracts["geoid"]), dtype=str),
+        width=11,
+        crs_wkt=CRS(FICTIONAL_CRS).to_wkt(),
+        minority_of=1,
+        served=None,
+    )
+    vertices = shapely.get_num_coordinates(np.asarray(blocks.geometry.array))
+    print(
+        f"{len(blocks):,} blocks in {len(tracts):,} tracts and "
+        f"{len(dataset_files(folder / 'prepared'))} counties; vertices per block "
+        f"median {int(np.median(vertices))}, 5-95% {int(np.percentile(vertices, 5))}-"
+        f"{int(np.percentile(vertices, 95))}; footprint {pieces.size} pieces"
+    )
+    return task, pieces
+
+
+def main() -> None:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--blocks", type=int, default=200_000)
+    parser.add_argument("--counties", type=int, default=8)
+    parser.add_argument("--skip-cluster", action="store_true")
+    args = parser.parse_args()
+    logging.getLogger("distributed").setLevel(logging.ERROR)
+    with tempfile.TemporaryDirectory() as tmp:
+        folder = Path(tmp)
+        t0 = time.perf_counter()
+        task, pieces = build(args.blocks, args.counties, folder)
+        print(f"generated and prepared in {time.perf_counter() - t0:.1f} s\n")
+        local = SimpleNamespace(engine="local", partitions=None, dask_scheduler=None)
+        dask = SimpleNamespace(engine="dask", partitions=None, dask_scheduler=None)
+        results: dict[str, tuple[float, float, float, bool]] = {}
+        baseline: pd.DataFrame | None = None
+
+        def run(label: str, path: Path, analysis: SimpleNamespace) -> None:
+            nonlocal baseline
+            trim_memory()
+            with PeakMemory() as mem:
+                start = time.perf_counter()
+                parts, _ = run_partitions(path, task, pieces, analysis)
+                elapsed = time.perf_counter() - start
+            sums = combine(parts, 4)
+            baseline = sums if baseline is None else baseline
+            same = sums.equals(baseline)
+            results[label] = (
+                elapsed,
+                (mem.peak_main - mem.start_main) / MIB,
+                (mem.peak_children - mem.start_children) / MIB,
+                same,
+            )
+
+        run("baseline: local, one file", folder / "blocks.parquet", local)
+        run("local, prepared dataset", folder / "prepared", local)
+        run("dask, local processes", folder / "prepared", dask)
+        if not args.skip_cluster:
+            from distributed import Client, LocalCluster
+
+            for workers in (1, 2):
+                with (
+                    LocalCluster(
+                        n_workers=workers,
+                        threads_per_worker=1,
+                        processes=True,
+                        dashboard_address=None,
+                        host="127.0.0.1",
+                        scheduler_kwargs={"dashboard_address": "127.0.0.1:0"},
+                    ) as cluster,
+                    Client(cluster) as client,
+                ):
+                    func, args_list, _ = partition_tasks(folder / "prepared", task, pieces, dask)
+                    trim_memory()
+                    with PeakMemory() as mem:
+                        start = time.perf_counter()
+                        parts = run_on_client(client, func, args_list)
+                        elapsed = time.perf_counter() - start
+                    same = baseline is not None and combine(parts, 4).equals(baseline)
+                    results[f"LocalCluster, {workers} worker(s)"] = (
+                        elapsed,
+                        (mem.peak_main - mem.start_main) / MIB,
+                        (mem.peak_children - mem.start_children) / MIB,
+                        same,
+                    )
+        base = results["baseline: local, one file"][0]
+        print(
+            f"{'variant':34s} {'time s':>8s} {'ratio':>6s} {'peak MiB':>9s} {'workers MiB':>11s} same"
+        )
+        for label, (elapsed, peak, children, same) in results.items():
+            print(
+                f"{label:34s} {elapsed:8.2f} {elapsed / base:6.2f} {peak:9.0f} "
+                f"{children:11.0f} {same}"
+            )
+        # Per-partition time against partition size (county files, one at a time, here).
+        sizes, times = [], []
+        for f in dataset_files(folder / "prepared"):
+            start = time.perf_counter()
+            part = run_partitions(f.parent, task, pieces, local)[0][0]
+            times.append(time.perf_counter() - start)
+            sizes.append(part.rows)
+        slope, intercept = np.polyfit(sizes, times, 1)
+        fit = np.polyval([slope, intercept], sizes)
+        r2 = 1 - np.sum((np.array(times) - fit) ** 2) / max(
+            np.sum((times - np.mean(times)) ** 2), 1e-12
+        )
+        print(
+            "\npartition blocks, seconds:",
+            ", ".join(f"{s}: {t:.2f}" for s, t in zip(sizes, times, strict=True)),
+        )
+        print(
+            f"fit: time = {intercept:.3f} s + {slope * 1e6:.2f} s per million blocks (R^2 {r2:.3f})"
+        )
+        national = slope * NATIONAL_BLOCKS
+        for workers in (1, 2, 8, 32):
+            print(
+                f"projection, {NATIONAL_BLOCKS:,} blocks on {workers} worker(s): "
+                f"{national / workers / 60:.1f} min (partition time only, perfect spread)"
+            )
+
+
+if __name__ == "__main__":
+    main()
