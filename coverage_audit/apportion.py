@@ -15,7 +15,7 @@ envelope and returns per-area sums, which are added up. Sums are kept in fixed p
 from __future__ import annotations
 
 import os
-from collections.abc import Sequence
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -175,6 +175,16 @@ class Apportioned:
     share: np.ndarray
     section: dict[str, Any]
     partitions: str = ""
+    method: str = "blocks"
+
+
+def apportion(spec: Any, inputs: Any, footprint: Any, frame: gpd.GeoDataFrame) -> Apportioned:
+    """Place people within areas by census blocks or by a settlement mask, as the spec says."""
+    if spec.dasymetric is not None:
+        from .dasymetric import apportion_dasymetric
+
+        return apportion_dasymetric(spec, inputs, footprint, frame)
+    return apportion_blocks(spec, inputs, footprint, frame)
 
 
 def apportion_blocks(
@@ -406,13 +416,23 @@ def group_rates(apportioned: Apportioned, groups: Sequence[str]) -> dict[str, fl
 AREAL_CAUTION_PART = "coverage is areal-weighted"
 
 
-def block_cautions(cautions: Sequence[str]) -> list[str]:
-    """Return the cautions with the areal-weighting one saying that people were counted by block."""
-    text = (
-        "Results depend on the areal units chosen (tracts, block groups or other boundaries "
-        "can give other figures). People were counted where they live, by census block: each "
-        "block's covered fraction weights its people, who are assumed to be spread evenly "
-        "within the block; the area counts are the blocks' sums (decennial census counts, "
-        "which may differ from survey estimates of the same areas)."
-    )
+def block_cautions(cautions: Sequence[str], summary: Mapping[str, Any]) -> list[str]:
+    """Return the cautions with the areal-weighting one saying how people were placed."""
+    if summary["coverage"].get("apportionment") == "dasymetric":
+        text = (
+            "Results depend on the areal units chosen (tracts, block groups or other "
+            "boundaries can give other figures). People were placed by a settlement mask "
+            "(dasymetric apportionment): each area's people are assumed to live only on its "
+            "settled land, spread evenly over it; the mask's accuracy and date bound the "
+            "figures."
+        )
+    else:
+        text = (
+            "Results depend on the areal units chosen (tracts, block groups or other "
+            "boundaries can give other figures). People were counted where they live, by "
+            "census block: each block's covered fraction weights its people, who are assumed "
+            "to be spread evenly within the block; the area counts are the blocks' sums "
+            "(decennial census counts, which may differ from survey estimates of the same "
+            "areas)."
+        )
     return [text if AREAL_CAUTION_PART in c else c for c in cautions]

@@ -266,10 +266,10 @@ def run_audit(
     exclusions = inputs.exclusions
     summary["exclusions"] = {"count": exclusions.count(), "by_reason": exclusions.by_reason()}
     summary["cautions"] = cautions(CAUTIONS, summary)
-    if spec.blocks is not None:
+    if spec.blocks is not None or spec.dasymetric is not None:
         from .apportion import block_cautions
 
-        summary["cautions"] = block_cautions(summary["cautions"])
+        summary["cautions"] = block_cautions(summary["cautions"], summary)
     finished = _dt.datetime.now(_dt.timezone.utc)
     manifest = build_manifest(spec, inputs, footprint, started, finished)
     frame = _order_columns(frame, inputs)
@@ -485,12 +485,12 @@ def measure_coverage(
     frame = frame.copy()
     frame["covered_fraction"] = fraction
     frame["served"] = fraction >= spec.analysis.served_threshold
-    blocks = None
-    if spec.blocks is not None:  # counts and covered people summed from census blocks
-        from .apportion import apportion_blocks
+    placed = None
+    if spec.blocks is not None or spec.dasymetric is not None:  # people placed within areas
+        from .apportion import apportion
 
-        blocks = apportion_blocks(spec, inputs, footprint, frame)
-        frame, fraction = blocks.frame, blocks.share
+        placed = apportion(spec, inputs, footprint, frame)
+        frame, fraction = placed.frame, placed.share
         geoms = np.asarray(frame.geometry.array, dtype=object)
     distance = None
     if footprint.kind == "points" and footprint.points is not None:
@@ -506,10 +506,12 @@ def measure_coverage(
         threshold=spec.analysis.served_threshold,
         comparison=spec.analysis.comparison,
         distance_m=distance,
-        covered=None if blocks is None else blocks.covered,
+        covered=None if placed is None else placed.covered,
     )
-    if blocks is not None:
-        coverage = replace(coverage, blocks=blocks.section)
+    if placed is not None:
+        coverage = replace(
+            coverage, apportionment=placed.method, apportionment_detail=placed.section
+        )
     return coverage, frame
 
 

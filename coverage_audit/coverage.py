@@ -173,8 +173,9 @@ class CoverageResult:
     covered_population: float
     #: "areal" (people spread evenly within each area) or "blocks" (counted by block).
     apportionment: str = "areal"
-    #: Block apportionment details (blocks read and used, areal rates beside), if any.
-    blocks: Mapping[str, Any] | None = None
+    #: Details of a block or dasymetric apportionment (areal rates beside), if any;
+    #: written under the key named by ``apportionment``.
+    apportionment_detail: Mapping[str, Any] | None = None
 
     def to_dict(self) -> dict[str, Any]:
         """Plain data for summary.json's ``coverage`` section."""
@@ -195,8 +196,8 @@ class CoverageResult:
         }
         if self.distance is not None:
             out["distance"] = self.distance
-        if self.blocks is not None:
-            out["blocks"] = dict(self.blocks)
+        if self.apportionment_detail is not None:
+            out[self.apportionment] = dict(self.apportionment_detail)
         return out
 
 

@@ -225,6 +225,18 @@ class BlocksSpec:
 
 
 @dataclass(frozen=True)
+class DasymetricSpec:
+    """A settlement mask that apportions each area's people to its settled part.
+
+    ``mask`` is a polygon layer of settled land, or a raster whose cells with one of
+    ``values`` (land-cover codes) are settled.
+    """
+
+    mask: Path
+    values: tuple[int, ...] = ()
+
+
+@dataclass(frozen=True)
 class AuditSpec:
     """A whole audit, as resolved from a spec file or options.
 
@@ -250,6 +262,7 @@ class AuditSpec:
     base_dir: Path = field(default_factory=Path.cwd)
     source: Path | None = None
     blocks: BlocksSpec | None = None
+    dasymetric: DasymetricSpec | None = None
 
     @property
     def footprint(self) -> FootprintSpec:
@@ -295,7 +308,7 @@ class AuditSpec:
         out["footprint"] = [_dataclass_dict(f) for f in self.footprints]
         out["analysis"] = _dataclass_dict(self.analysis)
         out["output"] = _dataclass_dict(self.output)
-        for key in ("explain", "change", "activity", "blocks"):
+        for key in ("explain", "change", "activity", "blocks", "dasymetric"):
             value = getattr(self, key)
             if value is not None:
                 out[key] = _dataclass_dict(value)
@@ -354,6 +367,7 @@ _TOP_KEYS = (
     "change",
     "activity",
     "blocks",
+    "dasymetric",
 )
 _BLOCKS_KEYS = ("path", "id", "total", "groups", "preset")
 _EXPLAIN_KEYS = tuple(f.name for f in fields(ExplainSpec))
@@ -505,6 +519,31 @@ def spec_from_dict(
         base_dir=base,
         source=Path(source) if source else None,
         blocks=_blocks_from(data.get("blocks"), base, where, population),
+        dasymetric=_dasymetric_from(data.get("dasymetric"), base, where, "blocks" in data),
+    )
+
+
+def _dasymetric_from(value: Any, base: Path, where: str, has_blocks: bool) -> DasymetricSpec | None:
+    """Parse ``[dasymetric]``: a mask path and, for a raster, the settled cell values."""
+    if value is None:
+        return None
+    if has_blocks:
+        raise SpecError(
+            f"{where}: [blocks] and [dasymetric] are two ways of placing people; give one"
+        )
+    d = _table(value, where, "dasymetric")
+    _check_keys(d, ("mask", "values"), where, "[dasymetric]")
+    values = d.get("values", [])
+    if not isinstance(values, list) or not all(
+        isinstance(v, int) and not isinstance(v, bool) for v in values
+    ):
+        raise SpecError(
+            f"{where}: [dasymetric] values must be a list of whole numbers (raster cell values "
+            f"of settled land, e.g. [21, 22, 23, 24]), got {values!r}"
+        )
+    return DasymetricSpec(
+        mask=_path(d, "mask", base, where, "dasymetric", required=True),  # type: ignore[arg-type]
+        values=tuple(values),
     )
 
 

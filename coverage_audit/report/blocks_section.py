@@ -30,11 +30,13 @@ TITLE = "Where people live: coverage counted by census block"
 
 
 def has_blocks(summary: Mapping[str, Any]) -> bool:
-    """Whether the audit counted covered people by census block."""
-    return as_mapping(summary.get("coverage")).get("apportionment") == "blocks"
+    """Whether the audit placed people by census block or by a settlement mask."""
+    return as_mapping(summary.get("coverage")).get("apportionment") in ("blocks", "dasymetric")
 
 
-def difference_sentence(groups: Mapping[str, Any], areal: Mapping[str, Any]) -> str:
+def difference_sentence(
+    groups: Mapping[str, Any], areal: Mapping[str, Any], how: str = "by census block"
+) -> str:
     """Plain words for the largest gap between block-based and areal rates."""
     gaps = []
     for g, item in groups.items():
@@ -46,7 +48,7 @@ def difference_sentence(groups: Mapping[str, Any], areal: Mapping[str, Any]) -> 
     _, g, rate, other = max(gaps)
     direction = "higher" if rate > other else "lower" if rate < other else "the same"
     return (
-        f"Counting people where they live, by census block, the coverage rate of {g} is "
+        f"Counting people where they live, {how}, the coverage rate of {g} is "
         f"{fmt_percent(rate)}, against {fmt_percent(other)} if people were spread evenly "
         f"over each area ({fmt_points(rate - other)}, {direction}): the largest difference "
         "between the two ways of counting. Where the two differ, the footprint's edges cut "
@@ -58,7 +60,8 @@ def difference_sentence(groups: Mapping[str, Any], areal: Mapping[str, Any]) -> 
 def blocks_section(page: Page) -> Html:
     """Return the section: rates by block and by areal weighting, and the blocks used."""
     cov = as_mapping(page.summary.get("coverage"))
-    info = as_mapping(cov.get("blocks"))
+    method = str(cov.get("apportionment"))
+    info = as_mapping(cov.get(method))
     groups = as_mapping(cov.get("groups"))
     areal = as_mapping(info.get("areal_rates"))
     rows = []
@@ -67,7 +70,25 @@ def blocks_section(page: Page) -> Html:
         other = areal.get(g)
         gap = rate - other if isinstance(rate, float) and isinstance(other, float) else None
         rows.append((g, Num(fmt_percent(rate)), Num(fmt_percent(other)), Num(fmt_points(gap))))
-    headers = ("Group", Num("Rate by block"), Num("Rate by areal weighting"), Num("Difference"))
+    by = "block" if method == "blocks" else "settled land"
+    headers = ("Group", Num(f"Rate by {by}"), Num("Rate by areal weighting"), Num("Difference"))
+    if method == "dasymetric":
+        intro = para(
+            f"Census blocks were not given; the settlement mask {info.get('mask', '')} "
+            "placed each area's people on its settled land only, spread evenly over it "
+            "(masked areal interpolation, as PySAL's tobler computes it). "
+            f"{fmt_count(info.get('areas_without_settled_land'))} areas had no settled land "
+            "and keep their areal fraction. The mask's accuracy and date bound these figures."
+        )
+        return section(
+            ANCHOR,
+            "Where people live: coverage of settled land",
+            intro,
+            table(
+                headers, rows, table_id="blocks-table", caption="Coverage rate by group, two ways"
+            ),
+            para(difference_sentence(groups, areal, "on settled land")),
+        )
     return section(
         ANCHOR,
         TITLE,
