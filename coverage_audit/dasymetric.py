@@ -144,6 +144,11 @@ def apportion_dasymetric(spec: Any, inputs: Any, footprint: Any, frame: gpd.GeoD
     else:
         share, settled_share = settled_fractions(geoms, mask, np.asarray(footprint.pieces))
     unsettled = np.isnan(share)
+    if unsettled.all():
+        raise InputError(
+            f"mask '{dspec.mask}' has no settled land over the areas; check the file, its CRS "
+            "and [dasymetric] values"
+        )
     share = np.clip(np.where(unsettled, areal, share), 0.0, 1.0)
     out = frame.copy()
     out["settled_share"] = settled_share
