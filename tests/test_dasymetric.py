@@ -73,6 +73,10 @@ def test_polygon_mask_by_hand_and_against_tobler(two_by_two):
         )
     assert cov["dasymetric"]["areal_rates"]["white"] == pytest.approx(70 / 260, rel=1e-12)
     assert any("settlement mask" in c for c in result.summary["cautions"])
+    result.write(two_by_two / "out")
+    page = (two_by_two / "out" / "report.html").read_text(encoding="utf-8")
+    assert "Where people live: coverage of settled land" in page
+    assert "Counting people where they live, on settled land" in page
 
 
 def test_raster_mask_against_tobler(two_by_two):
