@@ -16,7 +16,7 @@ from __future__ import annotations
 
 import os
 from collections.abc import Mapping, Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from pathlib import Path
 from typing import Any
 
@@ -322,7 +322,7 @@ def partition_tasks(
         envelopes = [_envelope(f, task.crs_wkt) for f in files]
         chosen = _pieces_for(pieces_all, envelopes)
         args: list[tuple[Any, ...]] = [
-            (str(f), shapely.to_wkb(pieces_all[s]), e, task)
+            (str(f), shapely.to_wkb(pieces_all[s]), e, _task_for(task, _county_of(f)))
             for f, e, s in zip(files, envelopes, chosen, strict=True)
         ]
         return file_task, args, f"{len(files)} files of a prepared dataset"
@@ -346,8 +346,31 @@ def partition_tasks(
     for j, (c, s) in enumerate(zip(chunks, chosen, strict=True)):
         excluded = clean.excluded if j == 0 else []
         chunk = (clean.ids[c], clean.counts[c], shapely.to_wkb(geoms[c]), clean.rows[c], excluded)
-        args.append((chunk, shapely.to_wkb(pieces_all[s]), task))
+        span = (clean.ids[c[0]][: task.width], clean.ids[c[-1]][: task.width]) if c.size else None
+        args.append((chunk, shapely.to_wkb(pieces_all[s]), _task_for(task, span)))
     return memory_task, args, f"{len(chunks)} chunks of one file"
+
+
+def _county_of(path: Path) -> tuple[str, str] | None:
+    """Return the GEOID prefix range of a prepared partition (``state=SS/county=CCC``)."""
+    state, county = path.parent.parent.name, path.parent.name
+    if state.startswith("state=") and county.startswith("county="):
+        prefix = state[6:] + county[7:]
+        return prefix, prefix + "\uffff"
+    return None
+
+
+def _task_for(task: Task, span: tuple[str, str] | None) -> Task:
+    """Return ``task`` with only the area ids in ``span`` (ids sorted; both ends kept).
+
+    A partition is sent the ids of its own areas, not the whole country's; a block whose
+    area lies outside the span could not be in this partition's county or id range.
+    """
+    if span is None:
+        return task
+    lo = int(np.searchsorted(task.area_ids, span[0][: task.width], side="left"))
+    hi = int(np.searchsorted(task.area_ids, span[1][: task.width] + "\uffff", side="right"))
+    return replace(task, area_ids=task.area_ids[lo:hi])
 
 
 def _envelope(path: Path, crs_wkt: str) -> np.ndarray:
