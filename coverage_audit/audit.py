@@ -227,7 +227,12 @@ def run_audit(
     started = _dt.datetime.now(_dt.timezone.utc)
     streams = random_streams(spec.analysis.seed)
     with progress.stage("reading areas"):
-        inputs = load_areas(spec.areas, spec.population, analysis_crs=spec.analysis.analysis_crs)
+        inputs = load_areas(
+            spec.areas,
+            spec.population,
+            analysis_crs=spec.analysis.analysis_crs,
+            tables=spec.tables,
+        )
     frame = inputs.frame
     with progress.stage(f"building footprint '{spec.footprint.name}'"):
         footprint = build_footprint(
@@ -539,8 +544,16 @@ def _table_section(inputs: AreaInputs) -> dict[str, Any] | None:
     if not table:
         return None
     rows = table[0].rows
-    excluded = inputs.exclusions.count("table")
-    return {"table": {"rows": rows, "matched": rows - excluded, "excluded": excluded}}
+    excluded = inputs.exclusions.count("table") if len(table) == 1 else (
+        rows - inputs.matches[0].matched
+    )
+    out: dict[str, Any] = {
+        "table": {"rows": rows, "matched": rows - excluded, "excluded": excluded}
+    }
+    out["tables"] = [m.to_dict() for m in inputs.matches]
+    if inputs.water_only:
+        out["water_only_areas"] = list(inputs.water_only)
+    return out
 
 
 def _order_columns(frame: gpd.GeoDataFrame, inputs: AreaInputs) -> gpd.GeoDataFrame:

@@ -407,7 +407,12 @@ def _cmd_check(args: argparse.Namespace) -> int:
     from .spec import load_spec
 
     spec = load_spec(args.spec)
-    inputs = load_areas(spec.areas, spec.population, analysis_crs=spec.analysis.analysis_crs)
+    inputs = load_areas(
+            spec.areas,
+            spec.population,
+            analysis_crs=spec.analysis.analysis_crs,
+            tables=spec.tables,
+        )
     for fp in spec.footprints:
         build_footprint(
             fp,

@@ -15,7 +15,7 @@ from __future__ import annotations
 import hashlib
 import warnings
 from collections.abc import Iterable
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Any
 
@@ -27,7 +27,11 @@ import shapely
 from pyproj import CRS, Transformer
 
 from .errors import IdWarning, InputError, RepairWarning
-from .spec import AreasSpec, PopulationSpec
+from .io.boundaries import describe_layout, detect_id_column, strip_prefix, water_only
+from .io.census import annotation_reason
+from .io.joins import MatchReport
+from .io.tables import join_tables, numeric_estimates
+from .spec import AreasSpec, PopulationSpec, TableSpec
 
 #: Extensions read with pandas/pyarrow rather than GDAL.
 PARQUET_SUFFIXES = (".parquet", ".geoparquet", ".pq")
@@ -115,6 +119,14 @@ class AreaInputs:
     repaired: int
     income_unknown: int
     source_crs: CRS
+    #: The population spec as resolved: margins paired from downloads filled in.
+    population: PopulationSpec | None = None
+    #: Match report of every table joined on the id.
+    matches: list[MatchReport] = field(default_factory=list)
+    #: Detected layout of the areas file.
+    layout: str | None = None
+    #: Ids of water-only areas (``ALAND = 0``), kept in the analysis and listed.
+    water_only: list[str] = field(default_factory=list)
 
 
 def sha256_file(path: Path) -> str:
@@ -372,21 +384,73 @@ def income_tier(ratio: np.ndarray | pd.Series) -> np.ndarray:
 
 
 def _numeric_problem(raw: pd.Series) -> tuple[pd.Series, pd.Series]:
-    """Return numbers and a per-row problem text ('' where fine)."""
+    """Return numbers and a per-row problem text ('' where fine).
+
+    Census annotation values (``-``, ``N``, ``(X)``, ``250,000+``, API sentinels ...) are
+    never read as numbers: each gets its meaning as the problem.
+    """
+    notes = raw.map(annotation_reason) if raw.dtype == object else None
+    if notes is not None and notes.notna().any():
+        raw = raw.where(notes.isna(), None)
     numbers = pd.to_numeric(raw, errors="coerce")
     problem = pd.Series("", index=raw.index, dtype=object)
     missing = raw.isna() | (raw.astype(str).str.strip() == "")
     bad = numbers.isna() & ~missing
     problem[missing] = "missing"
     problem[bad] = "not a number"
+    if notes is not None:
+        problem[notes.notna()] = notes[notes.notna()]
     infinite = ~np.isfinite(numbers.fillna(0.0))
     problem[infinite] = "not a finite number"
     problem[(numbers < 0) & (problem == "")] = "negative"
     return numbers.astype(float), problem
 
 
+def _pair_margins(
+    pop_spec: PopulationSpec, margins: dict[str, str], frame: pd.DataFrame
+) -> PopulationSpec:
+    """Fill each group's and the total's margin column from a download's ``_E``/``_M`` pairs.
+
+    Margins named by the convention (``X_E`` -> ``X_M``, as the preset does) but absent
+    from the tables are dropped; a margin the spec names explicitly must exist.
+    """
+    moes = dict(pop_spec.moes)
+    for name, column in pop_spec.groups:
+        if name not in moes and column in margins:
+            moes[name] = margins[column]
+    for name, moe in list(moes.items()):
+        if moe not in frame.columns:
+            if moe == pop_spec.group_columns[name][:-1] + "M":
+                del moes[name]
+            else:
+                raise InputError(
+                    f"margin column {moe!r} of group {name!r} is in no demographics table; "
+                    "name an existing column or remove moe"
+                )
+    total_moe = pop_spec.total_moe
+    if total_moe is None and pop_spec.total in margins:
+        total_moe = margins[pop_spec.total]
+    if total_moe is not None and total_moe not in frame.columns:
+        if total_moe == pop_spec.total[:-1] + "M":
+            total_moe = None
+        else:
+            raise InputError(
+                f"total_moe column {total_moe!r} is in no demographics table; name an existing "
+                "column or remove total_moe"
+            )
+    return replace(
+        pop_spec,
+        moes=tuple((n, moes[n]) for n, _ in pop_spec.groups if n in moes),
+        total_moe=total_moe,
+    )
+
+
 def load_areas(
-    areas_spec: AreasSpec, pop_spec: PopulationSpec, *, analysis_crs: str | None = None
+    areas_spec: AreasSpec,
+    pop_spec: PopulationSpec,
+    *,
+    analysis_crs: str | None = None,
+    tables: tuple[TableSpec, ...] = (),
 ) -> AreaInputs:
     """Read, join, validate, repair and project the areas.
 
@@ -396,6 +460,8 @@ def load_areas(
         The spec's ``[areas]`` and ``[population]``.
     analysis_crs : str, optional
         Projected CRS to use instead of the automatic local equal-area one.
+    tables : tuple of TableSpec
+        Further demographics tables (``[[table]]``) joined on the id.
 
     Returns
     -------
@@ -418,7 +484,8 @@ def load_areas(
         )
     )
     n_input = len(layer)
-    id_col = areas_spec.id
+    matches: list[MatchReport] = []
+    id_col = areas_spec.id or detect_id_column([str(c) for c in layer.columns], path)
     if id_col not in layer.columns:
         raise InputError(
             f"areas file '{path}' has no id column \"{id_col}\"; its columns are "
@@ -429,6 +496,9 @@ def load_areas(
     frame[id_col] = ids_as_text(
         frame[id_col], width=areas_spec.id_width, where=f"areas file '{path}' column {id_col}"
     )
+    if areas_spec.id is None:
+        frame[id_col] = strip_prefix(frame[id_col])
+    water = water_only(frame)
     geoms = np.asarray(layer.geometry.array, dtype=object)
     keep = np.ones(n_input, dtype=bool)
 
@@ -470,66 +540,27 @@ def load_areas(
         )
     geoms = repaired_geoms
 
-    if areas_spec.table is not None:
-        table_id = areas_spec.table_id or id_col
-        table = read_table(areas_spec.table, id_column=table_id, role="demographics table")
-        records.append(
-            InputRecord("table", str(areas_spec.table), sha256_file(areas_spec.table), len(table))
+    table_list = ([(areas_spec.table, areas_spec.table_id)] if areas_spec.table else []) + [
+        (t.path, t.id) for t in tables
+    ]
+    joined = None
+    if table_list:
+        joined = join_tables(
+            frame,
+            id_column=id_col,
+            keep=keep,
+            tables=table_list,
+            id_width=areas_spec.id_width,
+            exclusions=exclusions,
+            ids_as_text=ids_as_text,
         )
-        if table_id not in table.columns:
-            raise InputError(
-                f"demographics table '{areas_spec.table}' has no id column \"{table_id}\"; its columns "
-                f"are {list(table.columns)}"
-            )
-        table = table.copy()
-        table["_trow"] = np.arange(1, len(table) + 1)
-        table[table_id] = ids_as_text(
-            table[table_id],
-            width=areas_spec.id_width,
-            where=f"demographics table column {table_id}",
-        )
-        tkeep = table[table_id].notna().to_numpy().copy()
-        exclusions.add(
-            "table", table.loc[~tkeep, "_trow"], table.loc[~tkeep, table_id], "missing id"
-        )
-        tcounts = table.loc[tkeep, table_id].value_counts()
-        tdup = table[table_id].map(tcounts).fillna(0).to_numpy() > 1
-        tdup &= tkeep
-        exclusions.add(
-            "table",
-            table.loc[tdup, "_trow"],
-            table.loc[tdup, table_id],
-            [
-                f"duplicate id: appears {int(tcounts[v])} times in the table"
-                for v in table.loc[tdup, table_id]
-            ],
-        )
-        tkeep &= ~tdup
-        layer_ids = set(ids[keep].dropna())
-        only_table = tkeep & ~table[table_id].isin(layer_ids).to_numpy()
-        all_layer_ids = set(ids.dropna())
-        exclusions.add(
-            "table",
-            table.loc[only_table, "_trow"],
-            table.loc[only_table, table_id],
-            [
-                "no area with this id in the areas file"
-                if v not in all_layer_ids
-                else "its area was excluded (see the areas rows)"
-                for v in table.loc[only_table, table_id]
-            ],
-        )
-        tkeep &= ~only_table
-        good_table = table.loc[tkeep].set_index(table_id)
-        overlap = [c for c in good_table.columns if c in frame.columns and c not in ("_trow",)]
-        # Columns present in both: the table's values are the demographics; say so by suffix.
-        frame = frame.rename(columns={c: f"{c}_areas" for c in overlap})
-        joined = frame.join(good_table, on=id_col)
-        no_table_row = keep & joined["_trow"].isna().to_numpy()
-        drop(
-            no_table_row, f"no row with this id in the demographics table '{areas_spec.table.name}'"
-        )
-        frame = joined.drop(columns=["_trow"])
+        for tpath, rows in joined.rows:
+            records.append(InputRecord("table", str(tpath), sha256_file(tpath), rows))
+        for mask, reason in joined.missing:
+            drop(mask & keep, reason)
+        frame = joined.frame
+        matches.extend(joined.reports)
+        pop_spec = _pair_margins(pop_spec, joined.margins, frame)
 
     # Count columns: the total, each group and the optional income ratio.
     where_counts = (
@@ -553,7 +584,9 @@ def load_areas(
         numbers[label] = values
         bad = (problem != "").to_numpy()
         reasons = [
-            f"{p} count in column {column}: {v!r}"
+            f"{p} in column {column} instead of a count"
+            if p.startswith("annotation")
+            else f"{p} count in column {column}: {v!r}"
             for p, v in zip(problem, frame[column], strict=True)
         ]
         drop(bad, reasons)
@@ -566,6 +599,10 @@ def load_areas(
         ]
         drop(above, reasons)
     income_unknown = 0
+    if joined is not None:
+        numeric_estimates(
+            frame, joined.reads, {pop_spec.total, *pop_spec.group_columns.values()}
+        )
     if pop_spec.income_ratio is not None:
         ratio = pd.to_numeric(frame[pop_spec.income_ratio], errors="coerce")
         negative = (ratio < 0).to_numpy()
@@ -610,9 +647,11 @@ def load_areas(
         out, geometry=gpd.GeoSeries(geoms[sel], crs=layer.crs).values, crs=layer.crs
     )
     if len(analysed) == 0:
+        first = [f"row {r['row']} ({r['source']}, id {r['id']}): {r['reason']}" for r in exclusions.records[:3]]
         raise InputError(
             f"no area of '{path}' can be analysed: all {n_input} rows were excluded "
-            f"({exclusions.by_reason()}); see the reasons above and fix the inputs"
+            f"({exclusions.by_reason()}); for example {'; '.join(first)}. Fix the inputs "
+            "(exclusions.csv of a partial run lists every row)"
         )
     crs = choose_analysis_crs(analysed.geometry, analysis_crs)
     analysed = analysed.to_crs(crs)
@@ -633,4 +672,8 @@ def load_areas(
         repaired=repaired,
         income_unknown=income_unknown,
         source_crs=source_crs,
+        population=pop_spec,
+        matches=matches,
+        layout=describe_layout(path),
+        water_only=[str(i) for i in frame.loc[water & keep, id_col]],
     )

@@ -26,7 +26,7 @@ else:  # pragma: no cover - exercised only on Python 3.10
 #: Seed used when a spec names none, so that reruns are identical by default.
 DEFAULT_SEED = 20_261_201
 
-FOOTPRINT_KINDS = ("polygons", "points", "ids")
+FOOTPRINT_KINDS = ("polygons", "points", "ids", "zips")
 COMPARISONS = ("reference", "highest")
 FDR_METHODS = ("bh", "none")
 #: Where covered fractions are computed: in this process, or on dask (threads, or the
@@ -59,7 +59,8 @@ class AreasSpec:
     """Where the areas and their demographics come from."""
 
     path: Path
-    id: str
+    #: Id column of the layer; None to find ``GEOID``/``GEOID20``/``GEOID10`` by itself.
+    id: str | None
     layer: str | None = None
     crs: str | None = None
     table: Path | None = None
@@ -126,6 +127,46 @@ class FootprintSpec:
     served_ids_column: str | None = None
     served_column: str | None = None
     ids: tuple[str, ...] | None = None
+    #: Id column of a polygon layer from which ``ids``/``ids_path`` choose the footprint.
+    id: str | None = None
+    #: A file of ids (one a line, or a CSV whose first column holds them) choosing polygons.
+    ids_path: Path | None = None
+    #: ZIP codes served (one a line, or a CSV with a ``zip`` column), kind "zips".
+    zips: Path | None = None
+    #: Census ZCTA-to-tract relationship file (pipe-delimited) for ``zips``.
+    zcta_relationship: Path | None = None
+    #: A ZIP-to-area crosswalk with a ratio column, instead of the relationship file.
+    crosswalk: Path | None = None
+    #: Ratio column of ``crosswalk`` (share of each area that a ZIP holds).
+    crosswalk_ratio: str | None = None
+
+
+@dataclass(frozen=True)
+class TableSpec:
+    """One demographics table joined to the areas on the id (``[[table]]``)."""
+
+    path: Path
+    #: Id column; None to detect ``GEO_ID``, ``GEOID``, ``GEOID20`` or geography columns.
+    id: str | None = None
+
+
+#: Standard population presets: table codes -> groups with labels and margins.
+PRESETS: dict[str, dict[str, Any]] = {
+    "acs_b03002": {
+        "total": "B03002_001E",
+        "reference": "white_nh",
+        "groups": (
+            ("white_nh", "B03002_003E", "White alone, not Hispanic"),
+            ("black_nh", "B03002_004E", "Black alone, not Hispanic"),
+            ("aian_nh", "B03002_005E", "American Indian and Alaska Native alone, not Hispanic"),
+            ("asian_nh", "B03002_006E", "Asian alone, not Hispanic"),
+            ("nhpi_nh", "B03002_007E", "Native Hawaiian and Other Pacific Islander alone, not Hispanic"),
+            ("other_nh", "B03002_008E", "Some other race alone, not Hispanic"),
+            ("multi_nh", "B03002_009E", "Two or more races, not Hispanic"),
+            ("hispanic", "B03002_012E", "Hispanic or Latino"),
+        ),
+    },
+}
 
 
 @dataclass(frozen=True)
@@ -224,6 +265,8 @@ class AuditSpec:
     activity: ActivitySpec | None = None
     base_dir: Path = field(default_factory=Path.cwd)
     source: Path | None = None
+    #: Demographics tables joined on the id (``[[table]]``), beside ``[areas] table``.
+    tables: tuple[TableSpec, ...] = ()
 
     @property
     def footprint(self) -> FootprintSpec:
@@ -269,6 +312,8 @@ class AuditSpec:
             value = getattr(self, key)
             if value is not None:
                 out[key] = _dataclass_dict(value)
+        if self.tables:
+            out["table"] = [_dataclass_dict(t) for t in self.tables]
         return out
 
 
@@ -323,7 +368,9 @@ _TOP_KEYS = (
     "explain",
     "change",
     "activity",
+    "table",
 )
+_TABLE_KEYS = ("path", "id")
 _EXPLAIN_KEYS = tuple(f.name for f in fields(ExplainSpec))
 _CHANGE_KEYS = ("before", "after")
 _ACTIVITY_KEYS = tuple(f.name for f in fields(ActivitySpec))
@@ -338,6 +385,7 @@ _POP_KEYS = (
     "majority_minority_rule",
     "total_moe",
     "unit",
+    "preset",
 )
 #: Keys of a group given as a table: { column = "...", label = "...", moe = "..." }.
 _GROUP_KEYS = ("column", "label", "moe")
@@ -354,6 +402,11 @@ _FOOT_KEYS = (
     "served_ids_column",
     "served_column",
     "ids",
+    "id",
+    "zips",
+    "zcta_relationship",
+    "crosswalk",
+    "crosswalk_ratio",
 )
 _ANALYSIS_KEYS = tuple(f.name for f in fields(AnalysisSpec))
 _OUTPUT_KEYS = tuple(f.name for f in fields(OutputSpec))
@@ -394,7 +447,7 @@ def spec_from_dict(
     _check_keys(areas_d, _AREAS_KEYS, where, "[areas]")
     areas = AreasSpec(
         path=_path(areas_d, "path", base, where, "areas", required=True),  # type: ignore[arg-type]
-        id=_str(areas_d, "id", where, "areas", required=True),  # type: ignore[arg-type]
+        id=_str(areas_d, "id", where, "areas"),
         layer=_str(areas_d, "layer", where, "areas"),
         crs=_str(areas_d, "crs", where, "areas"),
         table=_path(areas_d, "table", base, where, "areas"),
@@ -451,6 +504,7 @@ def spec_from_dict(
             raise SpecError(f"{where}: [change] before and after must be two different footprints")
         change = ChangeSpec(before=str(before), after=str(after))
     activity = _activity_from(data.get("activity"), base, where)
+    tables = _tables_from(data.get("table"), base, where)
     title = data.get("title", "Coverage audit")
     if not isinstance(title, str) or not title.strip():
         raise SpecError(f"{where}: title must be a non-empty string")
@@ -466,10 +520,65 @@ def spec_from_dict(
         activity=activity,
         base_dir=base,
         source=Path(source) if source else None,
+        tables=tables,
     )
 
 
+def _tables_from(value: Any, base: Path, where: str) -> tuple[TableSpec, ...]:
+    if value is None:
+        return ()
+    items = list(value) if isinstance(value, list) else [value]
+    out = []
+    for k, item in enumerate(items):
+        label = f"table #{k + 1}"
+        t_d = _table(item, where, label)
+        _check_keys(t_d, _TABLE_KEYS, where, f"[[table]] #{k + 1}")
+        path = _path(t_d, "path", base, where, label, required=True)
+        assert path is not None
+        out.append(TableSpec(path=path, id=_str(t_d, "id", where, label)))
+    return tuple(out)
+
+
+def _preset_population(pop_d: Mapping[str, Any], where: str) -> dict[str, Any]:
+    """Expand ``preset = "acs_b03002"`` into total, groups (with labels and margins), reference.
+
+    Codes per ACS table B03002 (REFERENCES.md): _001E total, _003E..._009E not Hispanic by
+    race, _012E Hispanic or Latino; each _E estimate's margin is the matching _M column.
+    """
+    name = pop_d["preset"]
+    if name not in PRESETS:
+        raise SpecError(
+            f'{where}: [population] preset was "{name}" but is expected to be one of '
+            f"{list(PRESETS)}"
+        )
+    preset = PRESETS[name]
+    chosen = pop_d.get("groups")
+    names = [g[0] for g in preset["groups"]]
+    if chosen is not None and not (
+        isinstance(chosen, list) and all(isinstance(c, str) and c in names for c in chosen)
+    ):
+        raise SpecError(
+            f"{where}: [population] with preset = \"{name}\", groups is a list of the preset's "
+            f"groups to report, chosen from {names}; got {chosen!r}"
+        )
+    keep = set(chosen or names) | {preset["reference"]}
+    groups = {
+        g: {"column": col, "label": label, "moe": col[:-1] + "M"}
+        for g, col, label in preset["groups"]
+        if g in keep
+    }
+    out = {k: v for k, v in pop_d.items() if k not in ("preset", "groups")}
+    out.setdefault("total", preset["total"])
+    out.setdefault("total_moe", preset["total"][:-1] + "M")
+    out.setdefault("reference", preset["reference"])
+    out.setdefault("derive_minority", True)
+    out["groups"] = groups
+    return out
+
+
 def _population_from(pop_d: Mapping[str, Any], where: str) -> PopulationSpec:
+    if "preset" in pop_d:
+        pop_d = _preset_population(pop_d, where)
     total = _str(pop_d, "total", where, "population", required=True)
     assert total is not None  # required=True raised otherwise
     groups_raw = pop_d.get("groups")
@@ -552,15 +661,50 @@ def _footprint_from(
     served_column = _str(fp_d, "served_column", where, label)
     ids_raw = fp_d.get("ids")
     ids: tuple[str, ...] | None = None
-    if ids_raw is not None:
+    ids_path: Path | None = None
+    layer_id = _str(fp_d, "id", where, label)
+    if isinstance(ids_raw, str) and layer_id is not None:
+        ids_path = _path(fp_d, "ids", base, where, label)
+    elif ids_raw is not None:
         if not isinstance(ids_raw, list) or not all(isinstance(i, (str, int)) for i in ids_raw):
-            raise SpecError(f"{where}: [{label}] ids must be a list of area ids (strings)")
+            raise SpecError(
+                f"{where}: [{label}] ids must be a list of area ids (strings), or with id and "
+                "path a file of ids"
+            )
         ids = tuple(str(i) for i in ids_raw)
+    zips = _path(fp_d, "zips", base, where, label)
+    relationship = _path(fp_d, "zcta_relationship", base, where, label)
+    crosswalk = _path(fp_d, "crosswalk", base, where, label)
+    crosswalk_ratio = _str(fp_d, "crosswalk_ratio", where, label)
+    if layer_id is not None:
+        if path is None or (ids is None and ids_path is None):
+            raise SpecError(
+                f"{where}: [{label}] id chooses polygons of a layer: give path = the layer and "
+                'ids = ["...", ...] (or ids = "a file of ids") beside it'
+            )
+        if fp_d.get("kind", "polygons") != "polygons":
+            raise SpecError(f'{where}: [{label}] id and ids with path need kind = "polygons"')
+    if zips is not None or relationship is not None or crosswalk is not None:
+        if zips is None or (relationship is None) == (crosswalk is None):
+            raise SpecError(
+                f'{where}: [{label}] ZIP-code zones need zips = "FILE" and exactly one of '
+                'zcta_relationship = "FILE" (the Census ZCTA-to-tract relationship file) or '
+                'crosswalk = "FILE" (with crosswalk_ratio = "COLUMN")'
+            )
+        if crosswalk is not None and crosswalk_ratio is None:
+            raise SpecError(
+                f'{where}: [{label}] crosswalk needs crosswalk_ratio = "COLUMN", the share of '
+                "each area held by the ZIP code (for example a residential-address ratio)"
+            )
     radius = fp_d.get("radius")
     radius_column = _str(fp_d, "radius_column", where, label)
     kind = fp_d.get("kind")
     if kind is None:
-        if served_ids is not None or served_column is not None or ids is not None:
+        if zips is not None:
+            kind = "zips"
+        elif layer_id is not None:
+            kind = "polygons"
+        elif served_ids is not None or served_column is not None or ids is not None:
             kind = "ids"
         elif radius is not None or radius_column is not None:
             kind = "points"
@@ -600,7 +744,7 @@ def _footprint_from(
                 f"{where}: [{label}] a list of served areas needs exactly one of served_ids "
                 f"(a file of ids), served_column (a flag column of the areas) or ids; got {given}"
             )
-    elif served_ids is not None or served_column is not None or ids is not None:
+    elif served_ids is not None or served_column is not None or (ids is not None and not layer_id):
         raise SpecError(
             f'{where}: [{label}] served_ids/served_column/ids apply only to kind = "ids"'
         )
@@ -617,6 +761,12 @@ def _footprint_from(
         served_ids_column=_str(fp_d, "served_ids_column", where, label),
         served_column=served_column,
         ids=ids,
+        id=layer_id,
+        ids_path=ids_path,
+        zips=zips,
+        zcta_relationship=relationship,
+        crosswalk=crosswalk,
+        crosswalk_ratio=crosswalk_ratio,
     )
 
 
