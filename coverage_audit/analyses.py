@@ -292,6 +292,7 @@ def peers_section(
 ) -> tuple[dict[str, Any], InputRecord]:
     """Each lender's share of activity in majority-minority areas against its peers."""
     from .compare import peer_comparison
+    from .io.joins import match_ids
 
     activity = spec.activity
     assert activity is not None
@@ -313,6 +314,12 @@ def peers_section(
         width=activity.id_width or spec.areas.id_width,
         where=f"activity table '{activity.path}'",
     )
+    match = match_ids(
+        "activity table",
+        str(activity.path),
+        list(table[activity.id]),
+        frame[inputs.id_column].tolist(),
+    )
     flags = pd.Series(
         frame["majority_minority"].to_numpy(dtype=bool),
         index=frame[inputs.id_column].to_numpy(dtype=object),
@@ -326,4 +333,4 @@ def peers_section(
         lender_columns=list(activity.lender_columns) if activity.lender_columns else None,
         alpha=activity.alpha,
     )
-    return result.to_dict(), record
+    return result.to_dict() | {"match": match.to_dict()}, record

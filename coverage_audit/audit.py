@@ -338,7 +338,7 @@ def compute_statistics(
         out["clustering"] = _clustering(frame, graph, an, streams["clustering"])
     with progress.stage("enclaves"):
         holes: tuple[Any, ...] = ()
-        if footprint.kind != "ids":
+        if footprint.kind not in ("ids", "zips"):
             holes = footprint_holes(footprint.geometry, geoms, ids, population, counts)
         result = find_enclaves(
             geoms,
@@ -476,7 +476,7 @@ def measure_coverage(
 ) -> tuple[CoverageResult, gpd.GeoDataFrame]:
     """Covered fraction, served flag and (points) nearest-site distance of each area."""
     geoms = np.asarray(frame.geometry.array, dtype=object)
-    if spec.analysis.engine == "dask" and footprint.kind != "ids":
+    if spec.analysis.engine == "dask" and footprint.kind not in ("ids", "zips"):
         fraction = _dask_fractions(spec, frame, footprint)
     else:
         fraction = footprint_fractions(footprint, geoms, frame[inputs.id_column].tolist())
@@ -536,7 +536,7 @@ def _areas_section(inputs: AreaInputs, frame: gpd.GeoDataFrame) -> dict[str, Any
         "repaired_geometries": inputs.repaired,
         "zero_population": int((frame["population"] <= 0).sum()),
         "income_unknown": inputs.income_unknown,
-    }
+    } | ({"water_only": list(inputs.water_only)} if inputs.water_only else {})
 
 
 def _table_section(inputs: AreaInputs) -> dict[str, Any] | None:
@@ -551,8 +551,6 @@ def _table_section(inputs: AreaInputs) -> dict[str, Any] | None:
         "table": {"rows": rows, "matched": rows - excluded, "excluded": excluded}
     }
     out["tables"] = [m.to_dict() for m in inputs.matches]
-    if inputs.water_only:
-        out["water_only_areas"] = list(inputs.water_only)
     return out
 
 

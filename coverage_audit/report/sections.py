@@ -123,6 +123,11 @@ def _footprint_text(page: Page) -> str:
         return f"Footprint: service-area polygons from {name}, dissolved into one footprint."
     if kind == "ids":
         return f"Footprint: the areas listed as served in {name}."
+    if kind == "zips":
+        return (
+            f"Footprint: the ZIP codes listed in {name}; each area's covered fraction is the "
+            "share of its land (ZCTA relationship file) or of its addresses (crosswalk) in them."
+        )
     return "Footprint: not described."
 
 
