@@ -253,6 +253,7 @@ def run_audit(
         "title": spec.title,
         "footprint": footprint.to_dict(),
         "areas": _areas_section(inputs, frame),
+        "labels": _labels_section(inputs, spec),
     }
     table_section = _table_section(inputs)
     if table_section:
@@ -537,6 +538,15 @@ def _areas_section(inputs: AreaInputs, frame: gpd.GeoDataFrame) -> dict[str, Any
         "zero_population": int((frame["population"] <= 0).sum()),
         "income_unknown": inputs.income_unknown,
     } | ({"water_only": list(inputs.water_only)} if inputs.water_only else {})
+
+
+def _labels_section(inputs: AreaInputs, spec: AuditSpec) -> dict[str, Any]:
+    """Display labels of the groups and the counted unit, for console, report and map."""
+    pop = inputs.population or spec.population
+    groups = pop.group_labels
+    if pop.derive_minority and "minority" not in dict(pop.labels) and pop.reference in dict(pop.labels):
+        groups["minority"] = f"Minority (all but {groups[pop.reference]})"
+    return {"groups": groups, "unit": pop.unit}
 
 
 def _table_section(inputs: AreaInputs) -> dict[str, Any] | None:

@@ -30,17 +30,20 @@ def print_summary(result: Any, paths: dict[str, Path], *, seconds: float, stream
         f"areas: {areas['input']} in, {areas['analysed']} analysed, {areas['excluded']} excluded; "
         f"served: {cov['served_areas']} of {cov['areas']} (threshold {cov['served_threshold']:g})"
     )
+    labels = (s.get("labels") or {}).get("groups") or {}
+    unit = (s.get("labels") or {}).get("unit") or "people"
     table = Table(show_edge=False, header_style="bold")
+    comparison = labels.get(cov["comparison_group"], cov["comparison_group"])
     console.print(
         f"[dim]coverage = areal-weighted rate; served = share living in served areas; ratio and "
-        f"diff (percentage points) against {cov['comparison_group']}; <4/5 = ratio below 0.8[/dim]"
+        f"diff (percentage points) against {comparison}; <4/5 = ratio below 0.8[/dim]"
     )
-    for col in ("group", "people", "coverage", "served", "ratio", "diff pp", "<4/5"):
+    for col in ("group", unit, "coverage", "served", "ratio", "diff pp", "<4/5"):
         table.add_column(col, justify="left" if col == "group" else "right")
     for g, row in cov["groups"].items():
         diff = row["difference"]
         table.add_row(
-            g,
+            labels.get(g, g),
             f"{row['population']:,.0f}",
             _pct(row["rate"]),
             _pct(row["served_area_rate"]),
@@ -51,8 +54,11 @@ def print_summary(result: Any, paths: dict[str, Path], *, seconds: float, stream
     console.print(table)
     seg = s.get("segregation")
     if seg:
-        d = ", ".join(f"{g} {_num(v)}" for g, v in seg.get("dissimilarity", {}).items())
-        console.print(f"dissimilarity vs {seg.get('reference_group')}: {d}")
+        d = ", ".join(
+            f"{labels.get(g, g)} {_num(v)}" for g, v in seg.get("dissimilarity", {}).items()
+        )
+        ref = seg.get("reference_group")
+        console.print(f"dissimilarity vs {labels.get(ref, ref)}: {d}")
     clu = s.get("clustering")
     if clu and clu.get("moran"):
         m = clu["moran"]
@@ -61,7 +67,7 @@ def print_summary(result: Any, paths: dict[str, Path], *, seconds: float, stream
         )
     enclaves = s.get("enclaves")
     if enclaves is not None:
-        top = ", ".join(f"{e['id']} ({e['population']:,.0f} people)" for e in enclaves[:3])
+        top = ", ".join(f"{e['id']} ({e['population']:,.0f} {unit})" for e in enclaves[:3])
         console.print(f"enclaves: {len(enclaves)}" + (f"; largest {top}" if top else ""))
     comparison = s.get("comparison")
     if comparison:
@@ -75,7 +81,7 @@ def print_summary(result: Any, paths: dict[str, Path], *, seconds: float, stream
         lost, gained = change.get("lost_service", {}), change.get("gained_service", {})
         console.print(
             f"change: {lost.get('count', 0)} areas lost service ({lost.get('population', 0):,.0f} "
-            f"people), {gained.get('count', 0)} gained"
+            f"{unit}), {gained.get('count', 0)} gained"
         )
     peers = s.get("peers")
     if peers:

@@ -509,14 +509,16 @@ def _views(
                 note=note,
             )
         )
+    names = (summary.get("labels") or {}).get("groups") or {}
     for k, group in enumerate(groups):
         field = f"s{k}"
         note = "reference group" if group == reference else None
+        name = names.get(group, group)
         views.append(
             View(
                 key=f"share:{group}",
-                label=f"Share: {group}",
-                title=f"Share of population: {group}",
+                label=f"Share: {name}",
+                title=f"Share of population: {name}",
                 field=field,
                 type="bins",
                 colors=SHARE_COLORS,

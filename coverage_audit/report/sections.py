@@ -88,13 +88,23 @@ class Page:
             self._layers = charts.RegionLayers.build(self.areas.geometry.to_numpy(), served)
         return self._layers
 
+    def label(self, group: str) -> str:
+        """The display label of a group (its key when the spec gives none)."""
+        labels = (self.summary.get("labels") or {}).get("groups") or {}
+        return str(labels.get(group, group))
+
+    @property
+    def unit(self) -> str:
+        """What is counted ("people", "households" ...)."""
+        return str((self.summary.get("labels") or {}).get("unit") or "people")
+
     @property
     def comparison_label(self) -> str:
         """The group every ratio divides by, in words ("the reference group (white_nh)")."""
         if self.highest:
-            named = f" ({self.comparison_group})" if self.comparison_group else ""
+            named = f" ({self.label(self.comparison_group)})" if self.comparison_group else ""
             return f"the highest-rate group{named}"
-        return f"the reference group ({self.comparison_group})"
+        return f"the reference group ({self.label(self.comparison_group or '')})"
 
 
 # --- what was audited ------------------------------------------------------------------
@@ -290,7 +300,7 @@ def coverage_section(page: Page) -> Html:
     if cov.get("rate") is not None:
         parts.append(
             para(
-                f"Whole population: {fmt_percent(cov.get('rate'))} covered "
+                f"Whole population ({page.unit}): {fmt_percent(cov.get('rate'))} covered "
                 f"({fmt_count(cov.get('covered_population'))} of "
                 f"{fmt_count(cov.get('population'))}); {fmt_count(cov.get('served_areas'))}"
                 f" of {fmt_count(cov.get('areas'))} areas served."
@@ -302,7 +312,10 @@ def coverage_section(page: Page) -> Html:
         item = as_mapping(data.get(g))
         flagged = bool(item.get("below_four_fifths"))
         is_comparison = g == page.comparison_group
-        label = g + (" (highest rate)" if page.highest else " (reference)") if is_comparison else g
+        name = page.label(g)
+        label = (
+            name + (" (highest rate)" if page.highest else " (reference)") if is_comparison else name
+        )
         rows.append(
             (
                 label,
@@ -325,8 +338,8 @@ def coverage_section(page: Page) -> Html:
         attrs.append({"class_": classes or None, "data_group": g})
     headers = (
         "Group",
-        Num("Population"),
-        Num("Covered population"),
+        Num("Population" if page.unit == "people" else f"Count ({page.unit})"),
+        Num("Covered population" if page.unit == "people" else f"Covered ({page.unit})"),
         Num("Coverage rate"),
         Num("Served-area rate"),
         Num("Ratio"),
@@ -352,7 +365,7 @@ def coverage_section(page: Page) -> Html:
         if page.highest and comparison_rate is None:
             comparison_rate = max((r for r in rates if r is not None), default=None)
         svg = charts.coverage_bar_chart(
-            order,
+            [page.label(g) for g in order],
             rates,
             comparison_rate=comparison_rate,
             salt="report-coverage-bars",
@@ -469,14 +482,14 @@ def segregation_section(page: Page) -> Html:
         present.extend(g for g in seg[key] if g not in present)
     parts: list[Any] = [
         para(
-            f"Indices over the analysed areas; the reference group is {ref}. "
+            f"Indices over the analysed areas; the reference group is {page.label(ref)}. "
             "Dissimilarity runs from 0 (the same spread over the areas) to 1 "
             "(no area shared)."
         )
     ]
     if columns:
         rows = [
-            (g, *(Num(fmt_fixed(get_in(seg, k, g))) for k, _ in columns))
+            (page.label(g), *(Num(fmt_fixed(get_in(seg, k, g))) for k, _ in columns))
             for g in ordered(page.groups, present)
         ]
         parts.append(
