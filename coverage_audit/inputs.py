@@ -389,7 +389,8 @@ def _numeric_problem(raw: pd.Series) -> tuple[pd.Series, pd.Series]:
     Census annotation values (``-``, ``N``, ``(X)``, ``250,000+``, API sentinels ...) are
     never read as numbers: each gets its meaning as the problem.
     """
-    notes = raw.map(annotation_reason) if raw.dtype == object else None
+    textual = raw.dtype == object or pd.api.types.is_string_dtype(raw.dtype)
+    notes = raw.map(annotation_reason) if textual else None
     if notes is not None and notes.notna().any():
         raw = raw.where(notes.isna(), None)
     numbers = pd.to_numeric(raw, errors="coerce")

@@ -276,7 +276,7 @@ def _finish(
             f"{list(frame.columns)[:20]}"
         )
     values = frame[id_column]
-    if values.dtype == object:
+    if values.dtype == object or pd.api.types.is_string_dtype(values.dtype):
         text = values.map(lambda v: v.strip() if isinstance(v, str) else v)
         match = text.map(lambda v: _PREFIX_RE.match(v) if isinstance(v, str) else None)
         prefixed = match.map(lambda m: m is not None)

@@ -1,0 +1,347 @@
+"""Census Bureau downloads, API JSON, boundary zips and several tables, read as they come.
+
+Every fixture is made here, in the published layout named beside it (REFERENCES.md,
+"Public data layouts"), with made-up values. The main check of each format: a region built
+from the file gives exactly the coverage rates of the same data in tidy form.
+"""
+
+from __future__ import annotations
+
+import csv
+import json
+import zipfile
+from pathlib import Path
+
+import geopandas as gpd
+import numpy as np
+import pandas as pd
+import pytest
+import shapely
+
+from coverage_audit import run_audit
+from coverage_audit.errors import InputError, SpecError
+from coverage_audit.io.census import annotation_reason, parse_margins, read_census_table
+from coverage_audit.spec import spec_from_dict
+
+#: A 3 x 3 grid of 0.01-degree cells in NAD83 (the CRS of TIGER/Line files), ids state 01.
+CELL = 0.01
+LON0, LAT0 = -100.0, 40.0
+CODES = ("001", "003", "004", "005", "006", "007", "008", "009", "012")
+GROUP_OF = {
+    "003": "white_nh",
+    "004": "black_nh",
+    "005": "aian_nh",
+    "006": "asian_nh",
+    "007": "nhpi_nh",
+    "008": "other_nh",
+    "009": "multi_nh",
+    "012": "hispanic",
+}
+FAST = {"permutations": 9, "enclave_draws": 0, "sensitivity": False}
+
+
+def _cells() -> gpd.GeoDataFrame:
+    boxes, ids = [], []
+    for j in range(3):
+        for i in range(3):
+            x, y = LON0 + i * CELL, LAT0 + j * CELL
+            boxes.append(shapely.box(x, y, x + CELL, y + CELL))
+            ids.append(f"0100102{len(ids) + 1:02d}00")
+    land = [1_000_000] * 9
+    land[8] = 0  # a water-only tract, as coastal TIGER/Line tracts have
+    return gpd.GeoDataFrame(
+        {"GEOID": ids, "ALAND": land, "AWATER": [0] * 8 + [1_000_000]},
+        geometry=boxes,
+        crs="EPSG:4269",
+    )
+
+
+def _counts() -> pd.DataFrame:
+    """Made-up B03002 estimates and margins; group counts add up within the total."""
+    rng = np.random.default_rng(7)
+    rows = []
+    for k, geoid in enumerate(_cells()["GEOID"]):
+        groups = rng.integers(0, 400, size=8)
+        row = {"GEOID": geoid, "B03002_001E": int(groups.sum()) + 10 * k}
+        for code, value in zip(CODES[1:], groups, strict=True):
+            row[f"B03002_{code}E"] = int(value)
+        for code in CODES:
+            row[f"B03002_{code}M"] = int(rng.integers(5, 90))
+        rows.append(row)
+    return pd.DataFrame(rows)
+
+
+def _write_areas(tmp: Path) -> None:
+    _cells().to_file(tmp / "areas.gpkg", layer="tracts", driver="GPKG")
+    zone = shapely.box(LON0 - 0.001, LAT0 - 0.001, LON0 + 1.5 * CELL, LAT0 + 2.2 * CELL)
+    gpd.GeoDataFrame(geometry=[zone], crs="EPSG:4269").to_file(tmp / "zone.gpkg", driver="GPKG")
+
+
+def _write_tidy(tmp: Path, counts: pd.DataFrame) -> Path:
+    counts.to_csv(tmp / "tidy.csv", index=False)
+    return tmp / "tidy.csv"
+
+
+def _write_download(path: Path, counts: pd.DataFrame, *, prefix: str = "1400000US") -> None:
+    """data.census.gov CSV: codes row, labels row, every value quoted, trailing comma.
+
+    Layout: data.census.gov table downloads (REFERENCES.md, public data layouts).
+    """
+    codes = ["GEO_ID", "NAME"] + [c for c in counts.columns if c != "GEOID"]
+    labels = ["Geography", "Geographic Area Name"] + [
+        ("Estimate!!Total:" if c.endswith("E") else "Margin of Error!!Total:") for c in codes[2:]
+    ]
+    with open(path, "w", newline="", encoding="utf-8") as handle:
+        writer = csv.writer(handle, quoting=csv.QUOTE_ALL, lineterminator=",\n")
+        writer.writerow(codes)
+        writer.writerow(labels)
+        for _, row in counts.iterrows():
+            name = f"Census Tract {row['GEOID'][5:9]}; Fictional County; Nowhere"
+            writer.writerow(
+                [prefix + row["GEOID"], name] + [str(row[c]) for c in codes[2:]]
+            )
+
+
+def _write_api_json(path: Path, counts: pd.DataFrame) -> None:
+    """Census API JSON: header row, all strings, geography columns last.
+
+    Layout: Census API responses (REFERENCES.md, public data layouts).
+    """
+    variables = [c for c in counts.columns if c != "GEOID"]
+    data = [["NAME", *variables, "state", "county", "tract"]]
+    for _, row in counts.iterrows():
+        g = row["GEOID"]
+        data.append(["Tract", *[str(row[v]) for v in variables], g[:2], g[2:5], g[5:]])
+    path.write_text(json.dumps(data), encoding="utf-8")
+
+
+def _spec(tmp: Path, population: dict, **extra) -> dict:
+    data = {
+        "title": "downloads",
+        "areas": {"path": str(tmp / "areas.gpkg"), "layer": "tracts", "id": "GEOID"},
+        "population": population,
+        "footprint": {"path": str(tmp / "zone.gpkg")},
+        "analysis": FAST,
+    }
+    data.update(extra)
+    return data
+
+
+def _tidy_population() -> dict:
+    return {
+        "total": "B03002_001E",
+        "reference": "white_nh",
+        "derive_minority": True,
+        "groups": {GROUP_OF[c]: f"B03002_{c}E" for c in CODES[1:]},
+    }
+
+
+def _rates(result) -> dict:
+    return {
+        g: (v["population"], v["covered_population"], v["rate"], v["ratio"])
+        for g, v in result.summary["coverage"]["groups"].items()
+    }
+
+
+@pytest.fixture
+def region(tmp_path):
+    _write_areas(tmp_path)
+    counts = _counts()
+    tidy = _write_tidy(tmp_path, counts)
+    spec = _spec(tmp_path, _tidy_population())
+    spec["areas"]["table"] = str(tidy)
+    expected = _rates(run_audit(spec_from_dict(spec)))
+    return tmp_path, counts, expected
+
+
+def _run(spec: dict):
+    return run_audit(spec_from_dict(spec))
+
+
+def test_census_download_csv_with_preset_gives_the_tidy_rates(region):
+    tmp, counts, expected = region
+    _write_download(tmp / "download.csv", counts)
+    spec = _spec(tmp, {"preset": "acs_b03002"}, table=[{"path": str(tmp / "download.csv")}])
+    result = _run(spec)
+    assert _rates(result) == expected  # exactly: same numbers, another layout
+    entry = result.summary["inputs"]["tables"][0]
+    assert (entry["rows"], entry["matched"], entry["unmatched"], entry["match_rate"]) == (
+        9,
+        9,
+        0,
+        1.0,
+    )
+    assert "data.census.gov" in entry["layout"] and "tract" in entry["layout"]
+    # The preset pairs each estimate with its margin, for the survey-error work.
+    pop = result.extras["inputs"].population
+    assert pop.group_moes["black_nh"] == "B03002_004M"
+    assert pop.total_moe == "B03002_001M"
+    assert result.summary["labels"]["groups"]["black_nh"] == "Black alone, not Hispanic"
+
+
+def test_zipped_download_found_by_content_not_name(region):
+    tmp, counts, expected = region
+    _write_download(tmp / "inner.csv", counts)
+    with zipfile.ZipFile(tmp / "download.zip", "w") as archive:
+        # Member names as downloads have used them; the data file is found by its first row.
+        archive.writestr("ACSDT5Y2099.B03002-Column-Metadata.csv", "Column Name,Label\nGEO_ID,Geography\n")
+        archive.writestr("ACSDT5Y2099.B03002-Table-Notes.txt", "Notes about the table\n")
+        archive.write(tmp / "inner.csv", "ACSDT5Y2099.B03002-Data.csv")
+    spec = _spec(tmp, {"preset": "acs_b03002"}, table=[{"path": str(tmp / "download.zip")}])
+    assert _rates(_run(spec)) == expected
+
+
+def test_census_api_json_gives_the_tidy_rates(region):
+    tmp, counts, expected = region
+    _write_api_json(tmp / "api.json", counts)
+    read = read_census_table(tmp / "api.json", id_column=None, role="t")
+    assert read.layout == "Census API JSON" and read.level == "tract"
+    assert list(read.frame["GEOID"])[:2] == ["01001020100", "01001020200"]
+    spec = _spec(tmp, {"preset": "acs_b03002"}, table=[{"path": str(tmp / "api.json")}])
+    assert _rates(_run(spec)) == expected
+
+
+def test_tiger_zip_with_geoid_found_and_water_only_listed(region):
+    tmp, counts, expected = region
+    shp = tmp / "shp"
+    shp.mkdir()
+    # TIGER/Line layout: zipped shapefile tl_YYYY_SS_tract, fields GEOID, ALAND, AWATER,
+    # NAD83 geographic (REFERENCES.md, public data layouts).
+    _cells().to_file(shp / "tl_2099_01_tract.shp")
+    with zipfile.ZipFile(tmp / "tl_2099_01_tract.zip", "w") as archive:
+        for f in shp.iterdir():
+            archive.write(f, f.name)
+    spec = _spec(tmp, _tidy_population())
+    spec["areas"] = {"path": str(tmp / "tl_2099_01_tract.zip"), "table": str(tmp / "tidy.csv")}
+    result = _run(spec)
+    # A shapefile stores outer rings clockwise (the GeoPackage kept them as written), so
+    # intersections run over the vertices in another order: equal to the last bits only.
+    got = _rates(result)
+    assert got.keys() == expected.keys()
+    for g, values in expected.items():
+        assert got[g] == pytest.approx(values, rel=1e-12, abs=0), g
+    assert result.summary["areas"]["water_only"] == ["01001020900"]
+    assert result.manifest["inputs"][0]["crs"] == "EPSG:4269"
+
+
+def test_two_tables_joined_and_a_shared_column_is_an_error(region):
+    tmp, counts, expected = region
+    first = counts[["GEOID"] + [c for c in counts.columns if c[-4:-1] in ("001", "003", "004")]]
+    second = counts.drop(columns=[c for c in first.columns if c != "GEOID"])
+    _write_download(tmp / "part1.csv", first)
+    _write_api_json(tmp / "part2.json", second)
+    spec = _spec(
+        tmp,
+        {"preset": "acs_b03002"},
+        table=[{"path": str(tmp / "part1.csv")}, {"path": str(tmp / "part2.json")}],
+    )
+    result = _run(spec)
+    assert _rates(result) == expected
+    assert [t["match_rate"] for t in result.summary["inputs"]["tables"]] == [1.0, 1.0]
+    _write_api_json(tmp / "again.json", first)
+    spec["table"] = [{"path": str(tmp / "part1.csv")}, {"path": str(tmp / "again.json")}]
+    with pytest.raises(InputError, match=r"'B03002_001E' is in two demographics tables.*part1.*again"):
+        _run(spec)
+
+
+def test_annotation_makes_the_count_missing_and_is_listed(region):
+    tmp, counts, _ = region
+    text = counts.astype(object)
+    text.loc[4, "B03002_004E"] = "-"  # no estimate
+    text.loc[2, "B03002_004M"] = "*****"  # controlled estimate: margin 0
+    text.loc[3, "B03002_004M"] = "**"
+    _write_download(tmp / "download.csv", text)
+    spec = _spec(tmp, {"preset": "acs_b03002"}, table=[{"path": str(tmp / "download.csv")}])
+    result = _run(spec)
+    ex = result.exclusions
+    row = ex[ex["id"] == "01001020500"]
+    assert list(row["source"]) == ["areas"]
+    assert "annotation '-'" in row["reason"].iloc[0] and "B03002_004E" in row["reason"].iloc[0]
+    # Same as the tidy table without that area.
+    tidy = counts.drop(index=4)
+    tidy.to_csv(tmp / "tidy4.csv", index=False)
+    spec2 = _spec(tmp, _tidy_population())
+    spec2["areas"]["table"] = str(tmp / "tidy4.csv")
+    with pytest.warns(Warning):
+        expected = _rates(_run(spec2))
+    assert _rates(result) == expected
+    margins = result.areas.set_index("GEOID")["B03002_004M"]
+    assert margins["01001020300"] == 0.0 and np.isnan(margins["01001020400"])
+
+
+@pytest.mark.parametrize(
+    ("value", "meaning"),
+    [
+        ("-", "no estimate"),
+        ("N", "not available"),
+        ("(X)", "not applicable"),
+        ("**", "no margin"),
+        ("***", "open-ended"),
+        ("*****", "controlled"),
+        ("250,000+", "top-coded"),
+        ("2,500-", "bottom-coded"),
+        ("-666666666", "sentinel"),
+        ("12", None),
+        ("-3", None),
+    ],
+)
+def test_annotation_symbols(value, meaning):
+    # Symbols per the Census Bureau's ACS data notes (REFERENCES.md, from memory).
+    reason = annotation_reason(value)
+    assert (reason is None) == (meaning is None)
+    if meaning:
+        assert meaning in reason
+
+
+def test_controlled_margin_is_zero():
+    out = parse_margins(pd.Series(["*****", "12", "**", "-555555555"]))
+    assert out.iloc[0] == 0.0 and out.iloc[1] == 12.0
+    assert np.isnan(out.iloc[2]) and np.isnan(out.iloc[3])
+
+
+def test_served_ids_without_zeros_fail_with_a_hint(region):
+    tmp, _, _ = region
+    (tmp / "served.txt").write_text("1001020100\n1001020200\n", encoding="utf-8")
+    spec = _spec(tmp, _tidy_population(), footprint={"served_ids": str(tmp / "served.txt")})
+    spec["areas"]["table"] = str(tmp / "tidy.csv")
+    with pytest.raises(InputError, match=r"none matched.*leading zeros.*id_width = 11"):
+        _run(spec)
+
+
+@pytest.mark.parametrize(
+    ("ids", "cause"),
+    [
+        (["1400000US01001020100", "1400000US01001020200"], "summary-level prefix"),
+        (["010010201001", "010010202001", "010010203002"], "another geography level"),
+        (["01001990100", "01001990200"], "another vintage"),
+        (["99901", "99902"], "ZIP codes"),
+    ],
+)
+def test_unmatched_ids_name_the_likely_cause(region, ids, cause):
+    tmp, _, _ = region
+    spec = _spec(tmp, _tidy_population(), footprint={"ids": ids})
+    spec["areas"]["table"] = str(tmp / "tidy.csv")
+    with pytest.raises(InputError, match=cause):
+        _run(spec)
+
+
+def test_table_matching_few_areas_is_an_error_showing_ids(region):
+    tmp, counts, _ = region
+    wrong = counts.copy()
+    wrong.loc[:6, "GEOID"] = [f"0100188{k:02d}00" for k in range(7)]
+    wrong.to_csv(tmp / "wrong.csv", index=False)
+    spec = _spec(tmp, _tidy_population())
+    spec["areas"]["table"] = str(tmp / "wrong.csv")
+    # 2 of 9 areas (22%) find a row: below the stated 50%.
+    with pytest.raises(InputError, match=r"only 22\.2% of the areas.*'0100188"):
+        _run(spec)
+
+
+def test_preset_rejects_unknown_name_and_groups_choose(tmp_path):
+    base = {"areas": {"path": "a.gpkg", "id": "g"}, "footprint": {"path": "f.gpkg"}}
+    with pytest.raises(SpecError, match="preset"):
+        spec_from_dict(base | {"population": {"preset": "acs_nope"}})
+    spec = spec_from_dict(base | {"population": {"preset": "acs_b03002", "groups": ["black_nh"]}})
+    # The reference stays in: minority = total - not Hispanic White alone (B03002_003E).
+    assert spec.population.group_columns == {"white_nh": "B03002_003E", "black_nh": "B03002_004E"}
+    assert spec.population.derive_minority and spec.population.reference == "white_nh"
