@@ -345,3 +345,156 @@ def test_preset_rejects_unknown_name_and_groups_choose(tmp_path):
     # The reference stays in: minority = total - not Hispanic White alone (B03002_003E).
     assert spec.population.group_columns == {"white_nh": "B03002_003E", "black_nh": "B03002_004E"}
     assert spec.population.derive_minority and spec.population.reference == "white_nh"
+
+
+# --- ZIP-code zones ------------------------------------------------------------------
+
+#: 2020 ZCTA-to-tract relationship file header, pipe-delimited (REFERENCES.md; field names
+#: from memory of the published record layout).
+REL_HEADER = (
+    "OID_ZCTA5_20|GEOID_ZCTA5_20|NAMELSAD_ZCTA5_20|AREALAND_ZCTA5_20|AREAWATER_ZCTA5_20|"
+    "MTFCC_ZCTA5_20|CLASSFP_ZCTA5_20|FUNCSTAT_ZCTA5_20|OID_TRACT_20|GEOID_TRACT_20|"
+    "NAMELSAD_TRACT_20|AREALAND_TRACT_20|AREAWATER_TRACT_20|MTFCC_TRACT_20|CLASSFP_TRACT_20|"
+    "FUNCSTAT_TRACT_20|AREALAND_PART|AREAWATER_PART"
+)
+
+
+def _rel_row(zcta: str, tract: str, tract_land: int, part: int) -> str:
+    return (
+        f"1|{zcta}|ZCTA5 {zcta}|5000000|0|G6350|B5|S|2|{tract}|Census Tract|{tract_land}|0|"
+        f"G5020|S1|S|{part}|0"
+    )
+
+
+def test_zips_through_the_relationship_file(region):
+    tmp, _, _ = region
+    lines = [
+        REL_HEADER,
+        _rel_row("99901", "01001020100", 1_000_000, 400_000),
+        _rel_row("99902", "01001020100", 1_000_000, 600_000),
+        _rel_row("99901", "01001020200", 1_000_000, 1_000_000),
+        _rel_row("99903", "01001020300", 800_000, 200_000),
+        _rel_row("99901", "01001020300", 800_000, 600_000),
+    ]
+    (tmp / "rel.txt").write_text("\n".join(lines) + "\n", encoding="utf-8")
+    (tmp / "zips.csv").write_text("zip,name\n99901,a\n99903,b\n99999,po box\n", encoding="utf-8")
+    spec = _spec(
+        tmp,
+        _tidy_population(),
+        footprint={"zips": str(tmp / "zips.csv"), "zcta_relationship": str(tmp / "rel.txt")},
+    )
+    spec["areas"]["table"] = str(tmp / "tidy.csv")
+    result = _run(spec)
+    cf = result.areas.set_index("GEOID")["covered_fraction"]
+    # By hand: land of the parts in listed ZCTAs over the tract's land.
+    assert cf["01001020100"] == 0.4  # 400,000 / 1,000,000 (99902 not listed)
+    assert cf["01001020200"] == 1.0
+    assert cf["01001020300"] == 1.0  # (200,000 + 600,000) / 800,000
+    assert cf["01001020400"] == 0.0
+    ex = result.exclusions
+    po = ex[ex["source"] == "zips:footprint"]
+    assert list(po["id"]) == ["99999"] and "no ZCTA" in po["reason"].iloc[0]
+    assert result.summary["footprint"]["kind"] == "zips"
+
+
+def test_zips_through_a_crosswalk_ratio(region):
+    tmp, _, _ = region
+    (tmp / "zips.txt").write_text("99901\n", encoding="utf-8")
+    (tmp / "xwalk.csv").write_text(
+        "zip,tract,res_ratio\n99901,01001020100,0.25\n99902,01001020100,0.75\n"
+        "99901,01001020500,1.0\n",
+        encoding="utf-8",
+    )
+    spec = _spec(
+        tmp,
+        _tidy_population(),
+        footprint={
+            "zips": str(tmp / "zips.txt"),
+            "crosswalk": str(tmp / "xwalk.csv"),
+            "crosswalk_ratio": "res_ratio",
+        },
+    )
+    spec["areas"]["table"] = str(tmp / "tidy.csv")
+    cf = _run(spec).areas.set_index("GEOID")["covered_fraction"]
+    assert (cf["01001020100"], cf["01001020500"], cf["01001020200"]) == (0.25, 1.0, 0.0)
+
+
+def test_footprint_polygons_chosen_by_ids_equal_the_chosen_file(region):
+    tmp, _, _ = region
+    zones = gpd.GeoDataFrame(
+        {"ZCTA5CE20": ["99901", "99902", "99903"]},
+        geometry=[
+            shapely.box(LON0, LAT0, LON0 + 1.5 * CELL, LAT0 + CELL),
+            shapely.box(LON0 + 2 * CELL, LAT0, LON0 + 3 * CELL, LAT0 + 3 * CELL),
+            shapely.box(LON0, LAT0 + 2 * CELL, LON0 + CELL, LAT0 + 3 * CELL),
+        ],
+        crs="EPSG:4269",
+    )
+    zones.to_file(tmp / "zcta.gpkg", driver="GPKG")
+    zones.iloc[[0, 2]].to_file(tmp / "chosen.gpkg", driver="GPKG")
+    spec = _spec(
+        tmp,
+        _tidy_population(),
+        footprint={"path": str(tmp / "zcta.gpkg"), "id": "ZCTA5CE20", "ids": ["99901", "99903"]},
+    )
+    spec["areas"]["table"] = str(tmp / "tidy.csv")
+    got = _rates(_run(spec))
+    spec["footprint"] = {"path": str(tmp / "chosen.gpkg")}
+    assert got == _rates(_run(spec))
+    (tmp / "ids.txt").write_text("99901\n99903\n", encoding="utf-8")
+    spec["footprint"] = {"path": str(tmp / "zcta.gpkg"), "id": "ZCTA5CE20", "ids": str(tmp / "ids.txt")}
+    assert _rates(_run(spec)) == got
+
+
+# --- check ---------------------------------------------------------------------------
+
+
+def _toml(tmp: Path, body: str) -> Path:
+    path = tmp / "audit.toml"
+    path.write_text(body, encoding="utf-8")
+    return path
+
+
+def test_check_lists_layouts_match_rates_and_fails_where_run_would(region, capsys):
+    from coverage_audit.cli import main
+
+    tmp, counts, _ = region
+    _write_download(tmp / "download.csv", counts)
+    body = (
+        'title = "t"\n[areas]\npath = "areas.gpkg"\nlayer = "tracts"\n'
+        '[[table]]\npath = "download.csv"\n[population]\npreset = "acs_b03002"\nunit = "people"\n'
+        '[footprint]\npath = "zone.gpkg"\n'
+    )
+    spec = _toml(tmp, body)
+    assert main(["check", str(spec)]) == 0
+    out = capsys.readouterr().out
+    assert "id column GEOID" in out
+    assert "Census table download (data.census.gov CSV), tract level): 9 rows, 9 matched" in out
+    assert "(100.0%)" in out and "Black alone, not Hispanic = B03002_004E (margin B03002_004M)" in out
+    assert "water-only areas (ALAND = 0), kept: 01001020900" in out
+    (tmp / "served.txt").write_text("1001020100\n", encoding="utf-8")
+    spec = _toml(tmp, body.replace('path = "zone.gpkg"', 'served_ids = "served.txt"'))
+    assert main(["check", str(spec)]) == 2
+    captured = capsys.readouterr()
+    assert "9 matched" in captured.out  # the inputs read before the failing one are listed
+    assert "id_width = 11" in captured.err
+
+
+def test_console_uses_labels_and_unit(region):
+    import io
+
+    from coverage_audit.console import print_summary
+
+    tmp, counts, _ = region
+    _write_download(tmp / "download.csv", counts)
+    spec = _spec(
+        tmp,
+        {"preset": "acs_b03002", "unit": "households"},
+        table=[{"path": str(tmp / "download.csv")}],
+    )
+    result = _run(spec)
+    stream = io.StringIO()
+    print_summary(result, {"summary": tmp / "summary.json"}, seconds=1.0, stream=stream)
+    text = stream.getvalue()
+    assert "Hispanic or Latino" in text and "households" in text
+    assert "Minority (all but White alone, not Hispanic)" in text
