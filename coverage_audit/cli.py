@@ -454,7 +454,13 @@ def _cmd_check(args: argparse.Namespace) -> int:
             id_width=spec.areas.id_width,
         )
         line = f"footprint '{fp.name}' ({fp.kind}): {built.features} features"
-        if built.match is not None:
+        if fp.kind == "zips" and built.match is not None:
+            line = (
+                f"footprint '{fp.name}' (ZIP codes, {built.match.layout or 'relationship file'}): "
+                f"{built.features} ZIP codes with a ZCTA or crosswalk row; "
+                f"{built.match.matched} areas reached"
+            )
+        elif built.match is not None:
             rate = built.match.match_rate
             line += (
                 f"; {built.match.matched} of {built.match.rows} ids matched"

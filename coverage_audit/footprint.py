@@ -309,10 +309,11 @@ def _zips_footprint(spec: FootprintSpec, areas: AreaInputs, exclusions: Exclusio
     ids = frame[areas.id_column].tolist()
     touched = [a for a, f in result.fractions.items() if f > 0]
     match = match_ids(
-        f"{role} areas of the listed ZIP codes ({result.layout})",
+        f"{role} areas of the listed ZIP codes",
         str(source_path),
         touched,
         ids,
+        layout=result.layout,
         min_share=0.0,
     )
     fractions = {i: float(result.fractions.get(i, 0.0)) for i in ids}
