@@ -22,8 +22,8 @@ from pyproj import Geod, Transformer
 from .coverage import coverage_by_group, covered_fraction, footprint_fractions
 from .errors import AnalysisError, DegenerateStatisticWarning, InputError
 from .footprint import Footprint, build_footprint, cut_pieces, geodesic_circles
-from .io.joins import MatchReport, match_ids
 from .inputs import AreaInputs, InputRecord, ids_as_text, read_table, sha256_file
+from .io.joins import MatchReport, match_ids
 from .spec import AuditSpec
 from .weights import AreaGraph
 

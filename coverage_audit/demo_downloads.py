@@ -94,7 +94,9 @@ def _b03002(demo: pd.DataFrame, rng: np.random.Generator) -> pd.DataFrame:
     out = {}
     for k, values in enumerate(lines, start=1):
         out[f"B03002_{k:03d}E"] = values
-        margin = np.round(1.645 * np.sqrt(np.maximum(values, 4)) * rng.uniform(1.4, 2.6, values.size))
+        margin = np.round(
+            1.645 * np.sqrt(np.maximum(values, 4)) * rng.uniform(1.4, 2.6, values.size)
+        )
         out[f"B03002_{k:03d}M"] = margin.astype(np.int64)
     return pd.DataFrame(out)
 
@@ -105,7 +107,9 @@ def _download_csv(geoids: list[str], names: list[str], table: pd.DataFrame) -> b
     for column in table.columns:
         line = int(column[7:10]) - 1
         text = B03002_LABELS[line]
-        labels.append(text if column.endswith("E") else text.replace("Estimate", "Margin of Error", 1))
+        labels.append(
+            text if column.endswith("E") else text.replace("Estimate", "Margin of Error", 1)
+        )
     buffer = io.StringIO()
     writer = csv.writer(buffer, quoting=csv.QUOTE_ALL, lineterminator=",\n")
     writer.writerow(codes)
@@ -141,7 +145,10 @@ def _tiger_zip(cells: gpd.GeoDataFrame, water: np.ndarray, path: Path) -> None:
     with tempfile.TemporaryDirectory() as tmp:
         shp = Path(tmp) / f"{path.stem}.shp"
         pyogrio.write_dataframe(
-            frame, shp, driver="ESRI Shapefile", layer_options={"DBF_DATE_LAST_UPDATE": "2099-12-01"}
+            frame,
+            shp,
+            driver="ESRI Shapefile",
+            layer_options={"DBF_DATE_LAST_UPDATE": "2099-12-01"},
         )
         members = [
             (p.name, p.read_bytes()) for p in sorted(Path(tmp).iterdir()) if p.suffix != ".xml"
@@ -160,12 +167,16 @@ def _relationship(cells: gpd.GeoDataFrame, water: np.ndarray) -> tuple[str, pd.D
         "NAMELSAD_TRACT_20|AREALAND_TRACT_20|AREAWATER_TRACT_20|MTFCC_TRACT_20|CLASSFP_TRACT_20|"
         "FUNCSTAT_TRACT_20|AREALAND_PART|AREAWATER_PART"
     )
-    squares, codes = [], []
+    squares: list[shapely.Polygon] = []
+    codes: list[str] = []
     for j in range(ny):
         for i in range(nx):
             squares.append(
                 shapely.box(
-                    x0 + i * _ZCTA_M, y0 + j * _ZCTA_M, x0 + (i + 1) * _ZCTA_M, y0 + (j + 1) * _ZCTA_M
+                    x0 + i * _ZCTA_M,
+                    y0 + j * _ZCTA_M,
+                    x0 + (i + 1) * _ZCTA_M,
+                    y0 + (j + 1) * _ZCTA_M,
                 )
             )
             codes.append(f"{100 + len(codes) + 1:05d}")
@@ -190,9 +201,24 @@ def _relationship(cells: gpd.GeoDataFrame, water: np.ndarray) -> tuple[str, pd.D
             "|".join(
                 str(v)
                 for v in (
-                    z + 1, codes[z], f"ZCTA5 {codes[z]}", zland.get(z, 0), zwater.get(z, 0),
-                    "G6350", "B5", "S", t + 1, g, f"Census Tract {int(g[5:]) / 100:g}", land, wat,
-                    "G5020", "S1", "S", 0 if water[t] else a, a if water[t] else 0,
+                    z + 1,
+                    codes[z],
+                    f"ZCTA5 {codes[z]}",
+                    zland.get(z, 0),
+                    zwater.get(z, 0),
+                    "G6350",
+                    "B5",
+                    "S",
+                    t + 1,
+                    g,
+                    f"Census Tract {int(g[5:]) / 100:g}",
+                    land,
+                    wat,
+                    "G5020",
+                    "S1",
+                    "S",
+                    0 if water[t] else a,
+                    a if water[t] else 0,
                 )
             )
         )
@@ -202,9 +228,7 @@ def _relationship(cells: gpd.GeoDataFrame, water: np.ndarray) -> tuple[str, pd.D
     return "\n".join(lines) + "\n", shares
 
 
-def write_download_files(
-    out: Path, cells: gpd.GeoDataFrame, demo: pd.DataFrame, seed: int
-) -> None:
+def write_download_files(out: Path, cells: gpd.GeoDataFrame, demo: pd.DataFrame, seed: int) -> None:
     """Write Ostmere's inputs in Census layouts (see the module docstring) into ``out``."""
     rng = np.random.default_rng(seed + 3)
     names = cells["name"].tolist()

@@ -74,19 +74,34 @@ def test_zip_delivery_from_downloads_equals_the_tidy_files():
     spec = load_spec(BUNDLED / "zip_delivery.toml")
     tidy = {
         "title": "tidy",
-        "areas": {"path": str(BUNDLED / "areas.gpkg"), "layer": "tracts", "id": "geoid",
-                  "table": str(BUNDLED / "demographics.csv")},
+        "areas": {
+            "path": str(BUNDLED / "areas.gpkg"),
+            "layer": "tracts",
+            "id": "geoid",
+            "table": str(BUNDLED / "demographics.csv"),
+        },
         "population": {
             "total": "pop_total",
             "reference": "white_nh",
             "derive_minority": True,
-            "groups": {"white_nh": "pop_white_nh", "black_nh": "pop_black_nh",
-                       "asian_nh": "pop_asian_nh", "hispanic": "pop_hispanic"},
+            "groups": {
+                "white_nh": "pop_white_nh",
+                "black_nh": "pop_black_nh",
+                "asian_nh": "pop_asian_nh",
+                "hispanic": "pop_hispanic",
+            },
         },
-        "footprint": {"name": "delivery_zips", "zips": str(spec.footprint.zips),
-                      "zcta_relationship": str(spec.footprint.zcta_relationship)},
-        "analysis": {"permutations": 49, "enclave_draws": 49, "sensitivity": False,
-                     "transparent_zero_population": True},
+        "footprint": {
+            "name": "delivery_zips",
+            "zips": str(spec.footprint.zips),
+            "zcta_relationship": str(spec.footprint.zcta_relationship),
+        },
+        "analysis": {
+            "permutations": 49,
+            "enclave_draws": 49,
+            "sensitivity": False,
+            "transparent_zero_population": True,
+        },
     }
     expected = run_audit(tidy).summary["coverage"]["groups"]
     got = downloads.summary["coverage"]["groups"]

@@ -97,9 +97,7 @@ def _write_download(path: Path, counts: pd.DataFrame, *, prefix: str = "1400000U
         writer.writerow(labels)
         for _, row in counts.iterrows():
             name = f"Census Tract {row['GEOID'][5:9]}; Fictional County; Nowhere"
-            writer.writerow(
-                [prefix + row["GEOID"], name] + [str(row[c]) for c in codes[2:]]
-            )
+            writer.writerow([prefix + row["GEOID"], name] + [str(row[c]) for c in codes[2:]])
 
 
 def _write_api_json(path: Path, counts: pd.DataFrame) -> None:
@@ -184,7 +182,9 @@ def test_zipped_download_found_by_content_not_name(region):
     _write_download(tmp / "inner.csv", counts)
     with zipfile.ZipFile(tmp / "download.zip", "w") as archive:
         # Member names as downloads have used them; the data file is found by its first row.
-        archive.writestr("ACSDT5Y2099.B03002-Column-Metadata.csv", "Column Name,Label\nGEO_ID,Geography\n")
+        archive.writestr(
+            "ACSDT5Y2099.B03002-Column-Metadata.csv", "Column Name,Label\nGEO_ID,Geography\n"
+        )
         archive.writestr("ACSDT5Y2099.B03002-Table-Notes.txt", "Notes about the table\n")
         archive.write(tmp / "inner.csv", "ACSDT5Y2099.B03002-Data.csv")
     spec = _spec(tmp, {"preset": "acs_b03002"}, table=[{"path": str(tmp / "download.zip")}])
@@ -240,7 +240,9 @@ def test_two_tables_joined_and_a_shared_column_is_an_error(region):
     assert [t["match_rate"] for t in result.summary["inputs"]["tables"]] == [1.0, 1.0]
     _write_api_json(tmp / "again.json", first)
     spec["table"] = [{"path": str(tmp / "part1.csv")}, {"path": str(tmp / "again.json")}]
-    with pytest.raises(InputError, match=r"'B03002_001E' is in two demographics tables.*part1.*again"):
+    with pytest.raises(
+        InputError, match=r"'B03002_001E' is in two demographics tables.*part1.*again"
+    ):
         _run(spec)
 
 
@@ -442,7 +444,11 @@ def test_footprint_polygons_chosen_by_ids_equal_the_chosen_file(region):
     spec["footprint"] = {"path": str(tmp / "chosen.gpkg")}
     assert got == _rates(_run(spec))
     (tmp / "ids.txt").write_text("99901\n99903\n", encoding="utf-8")
-    spec["footprint"] = {"path": str(tmp / "zcta.gpkg"), "id": "ZCTA5CE20", "ids": str(tmp / "ids.txt")}
+    spec["footprint"] = {
+        "path": str(tmp / "zcta.gpkg"),
+        "id": "ZCTA5CE20",
+        "ids": str(tmp / "ids.txt"),
+    }
     assert _rates(_run(spec)) == got
 
 
@@ -470,7 +476,9 @@ def test_check_lists_layouts_match_rates_and_fails_where_run_would(region, capsy
     out = capsys.readouterr().out
     assert "id column GEOID" in out
     assert "Census table download (data.census.gov CSV), tract level): 9 rows, 9 matched" in out
-    assert "(100.0%)" in out and "Black alone, not Hispanic = B03002_004E (margin B03002_004M)" in out
+    assert (
+        "(100.0%)" in out and "Black alone, not Hispanic = B03002_004E (margin B03002_004M)" in out
+    )
     assert "water-only areas (ALAND = 0), kept: 01001020900" in out
     (tmp / "served.txt").write_text("1001020100\n", encoding="utf-8")
     spec = _toml(tmp, body.replace('path = "zone.gpkg"', 'served_ids = "served.txt"'))

@@ -64,7 +64,15 @@ ANNOTATIONS = {
 }
 #: Census API sentinels for "not available" (negative numbers used as annotations).
 API_SENTINELS = frozenset(
-    {"-111111111", "-222222222", "-333333333", "-555555555", "-666666666", "-888888888", "-999999999"}
+    {
+        "-111111111",
+        "-222222222",
+        "-333333333",
+        "-555555555",
+        "-666666666",
+        "-888888888",
+        "-999999999",
+    }
 )
 _CODED_RE = re.compile(r"^[0-9][0-9,.]*[+-]$")
 
@@ -176,7 +184,7 @@ def read_census_table(
         frame = pd.read_csv(
             io.StringIO(text),
             sep=sep,
-            dtype=str if download else text_ids,  # type: ignore[arg-type]
+            dtype=str if download else text_ids,
             keep_default_na=not download,
             skiprows=[1] if download else None,
         )
@@ -265,7 +273,7 @@ def _finish(
                 raise InputError(
                     f"{role} file '{path}' ({layout}) has no id column: none of "
                     f"{list(ID_CANDIDATES)} nor the geography columns state, county, tract; "
-                    f"name it with id = \"COLUMN\" (its columns are {list(frame.columns)[:12]})"
+                    f'name it with id = "COLUMN" (its columns are {list(frame.columns)[:12]})'
                 )
             frame = frame.copy()
             frame["GEOID"], level = built
@@ -289,7 +297,9 @@ def _finish(
     margins = {
         c: c[:-1] + "M"
         for c in frame.columns
-        if isinstance(c, str) and c.endswith("E") and re.search(r"_\d{3}E$", c)
+        if isinstance(c, str)
+        and c.endswith("E")
+        and re.search(r"_\d{3}E$", c)
         and c[:-1] + "M" in frame.columns
     }
     if level is None and "Census API" in layout:

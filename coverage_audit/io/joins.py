@@ -12,7 +12,7 @@ another vintage (2010 vs 2020 tract codes in the same counties).
 from __future__ import annotations
 
 import re
-from collections.abc import Iterable
+from collections.abc import Iterable, Sequence
 from dataclasses import dataclass
 from typing import Any
 
@@ -124,7 +124,7 @@ def likely_cause(unmatched: list[str], targets: Iterable[str]) -> str:
 def match_ids(
     role: str,
     path: str,
-    ids: list[str | None],
+    ids: Sequence[str | None],
     targets: Iterable[str],
     *,
     layout: str | None = None,

@@ -11,8 +11,10 @@ download that are not counts are made numbers with annotations as missing.
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 import pandas as pd
@@ -20,6 +22,9 @@ import pandas as pd
 from ..errors import InputError
 from .census import TableRead, parse_margins, read_census_table
 from .joins import MatchReport, match_ids
+
+if TYPE_CHECKING:
+    from ..inputs import Exclusions
 
 #: Columns every Census download repeats; kept from the first table only.
 _SHARED = ("NAME", "GEO_ID", "GEOID", "state", "county", "tract", "block group")
@@ -46,8 +51,8 @@ def join_tables(
     keep: np.ndarray,
     tables: list[tuple[Path, str | None]],
     id_width: int | None,
-    exclusions: object,
-    ids_as_text: object,
+    exclusions: Exclusions,
+    ids_as_text: Callable[..., Any],
 ) -> JoinedTables:
     """Join every table to ``frame`` on ``id_column``.
 
@@ -88,11 +93,11 @@ def join_tables(
         out.reads.append((path, read))
         out.rows.append((path, len(table)))
         table["_trow"] = np.arange(1, len(table) + 1)
-        table[tid] = ids_as_text(  # type: ignore[operator]
+        table[tid] = ids_as_text(
             table[tid], width=id_width, where=f"demographics table '{path}' column {tid}"
         )
         good = table[tid].notna().to_numpy().copy()
-        add = exclusions.add  # type: ignore[attr-defined]
+        add = exclusions.add
         add(source, table.loc[~good, "_trow"], table.loc[~good, tid], "missing id")
         counts = table.loc[good, tid].value_counts()
         dup = good & (table[tid].map(counts).fillna(0).to_numpy() > 1)
@@ -100,7 +105,10 @@ def join_tables(
             source,
             table.loc[dup, "_trow"],
             table.loc[dup, tid],
-            [f"duplicate id: appears {int(counts[v])} times in the table" for v in table.loc[dup, tid]],
+            [
+                f"duplicate id: appears {int(counts[v])} times in the table"
+                for v in table.loc[dup, tid]
+            ],
         )
         good &= ~dup
         ids_list = [v if ok else None for v, ok in zip(table[tid], good, strict=True)]
@@ -161,7 +169,9 @@ def join_tables(
     return out
 
 
-def numeric_estimates(frame: pd.DataFrame, reads: list[tuple[Path, TableRead]], used: set[str]) -> None:
+def numeric_estimates(
+    frame: pd.DataFrame, reads: list[tuple[Path, TableRead]], used: set[str]
+) -> None:
     """Make the download estimate columns not used as counts numbers (annotations missing)."""
     for _, read in reads:
         if "Census" not in read.layout:
@@ -169,5 +179,9 @@ def numeric_estimates(frame: pd.DataFrame, reads: list[tuple[Path, TableRead]], 
         for column in read.frame.columns:
             if column in used or column not in frame.columns or column == read.id_column:
                 continue
-            if isinstance(column, str) and column[-1:] == "E" and column[-5:-1].lstrip("_").isdigit():
+            if (
+                isinstance(column, str)
+                and column[-1:] == "E"
+                and column[-5:-1].lstrip("_").isdigit()
+            ):
                 frame[column] = pd.to_numeric(frame[column], errors="coerce")

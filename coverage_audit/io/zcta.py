@@ -45,10 +45,14 @@ def read_zip_list(path: Path, *, role: str) -> list[str]:
     lines = path.read_text(encoding="utf-8-sig").splitlines()
     first = lines[0].split(",") if lines else []
     cols = [c.strip().strip('"').lower() for c in first]
-    if len(cols) > 1 or (cols and not cols[0].isdigit() and cols[0] in ("zip", "zipcode", "zip_code", "zcta")):
+    if len(cols) > 1 or (
+        cols and not cols[0].isdigit() and cols[0] in ("zip", "zipcode", "zip_code", "zcta")
+    ):
         table = pd.read_csv(path, dtype=str, keep_default_na=False)
         lower = {str(c).lower(): c for c in table.columns}
-        column = next((lower[k] for k in ("zip", "zipcode", "zip_code", "zcta") if k in lower), None)
+        column = next(
+            (lower[k] for k in ("zip", "zipcode", "zip_code", "zcta") if k in lower), None
+        )
         if column is None:
             raise InputError(
                 f"{role} file '{path}' is a table without a zip column; its columns are "

@@ -89,7 +89,7 @@ class Page:
         return self._layers
 
     def label(self, group: str) -> str:
-        """The display label of a group (its key when the spec gives none)."""
+        """Return the display label of a group (its key when the spec gives none)."""
         labels = (self.summary.get("labels") or {}).get("groups") or {}
         return str(labels.get(group, group))
 
