@@ -28,7 +28,7 @@ from pyproj import CRS, Transformer
 
 from .errors import IdWarning, InputError, RepairWarning
 from .io.boundaries import describe_layout, detect_id_column, strip_prefix, water_only
-from .io.census import annotation_reason
+from .io.census import annotation_reasons
 from .io.joins import MatchReport
 from .io.tables import join_tables, numeric_estimates
 from .spec import AreasSpec, PopulationSpec, TableSpec
@@ -389,8 +389,11 @@ def _numeric_problem(raw: pd.Series) -> tuple[pd.Series, pd.Series]:
     Census annotation values (``-``, ``N``, ``(X)``, ``250,000+``, API sentinels ...) are
     never read as numbers: each gets its meaning as the problem.
     """
-    textual = raw.dtype == object or pd.api.types.is_string_dtype(raw.dtype)
-    notes = raw.map(annotation_reason) if textual else None
+    notes = (
+        annotation_reasons(raw, pd.to_numeric(raw, errors="coerce"))
+        if not pd.api.types.is_bool_dtype(raw.dtype)
+        else None
+    )
     if notes is not None and notes.notna().any():
         raw = raw.where(notes.isna(), None)
     numbers = pd.to_numeric(raw, errors="coerce")
