@@ -305,7 +305,13 @@ class AuditSpec:
         if pop["total_moe"] is None:
             pop.pop("total_moe")
         out["population"] = pop
-        out["footprint"] = [_dataclass_dict(f) for f in self.footprints]
+        out["footprint"] = []
+        for f in self.footprints:
+            fd = _dataclass_dict(f)
+            ids_path = fd.pop("ids_path")
+            if ids_path is not None:
+                fd["ids"] = ids_path
+            out["footprint"].append(fd)
         out["analysis"] = _dataclass_dict(self.analysis)
         out["output"] = _dataclass_dict(self.output)
         for key in ("explain", "change", "activity"):

@@ -506,3 +506,38 @@ def test_console_uses_labels_and_unit(region):
     text = stream.getvalue()
     assert "Hispanic or Latino" in text and "households" in text
     assert "Minority (all but White alone, not Hispanic)" in text
+
+
+# --- bad input: one message naming the file, row or column, and what to do ------------
+
+
+@pytest.mark.parametrize(
+    ("name", "content", "message"),
+    [
+        ("bad.json", "[[\"NAME\", \"B01001_001E\"], [\"x\"", r"bad\.json.*not valid JSON"),
+        ("ragged.json", '[["NAME","B1","state"],["a","1"]]', r"ragged\.json.*row 1 has a different"),
+        ("noid.csv", "name,total\na,1\n", r"noid\.csv.*has no id column.*id = "),
+    ],
+)
+def test_bad_tables_are_named(tmp_path, name, content, message):
+    (tmp_path / name).write_text(content, encoding="utf-8")
+    with pytest.raises(InputError, match=message):
+        read_census_table(tmp_path / name, id_column=None, role="demographics table")
+
+
+def test_zip_without_a_download_lists_its_files(tmp_path):
+    with zipfile.ZipFile(tmp_path / "t.zip", "w") as archive:
+        archive.writestr("notes.txt", "nothing here\n")
+    with pytest.raises(InputError, match=r"t\.zip' holds no Census table download.*notes\.txt"):
+        read_census_table(tmp_path / "t.zip", id_column=None, role="demographics table")
+
+
+def test_bad_zip_list_and_relationship_file_are_named(tmp_path):
+    from coverage_audit.io.zcta import read_zip_list, relationship_fractions
+
+    (tmp_path / "zips.txt").write_text("00101\nABCDE\n", encoding="utf-8")
+    with pytest.raises(InputError, match=r"zips\.txt' row 2: 'ABCDE' is not a ZIP code"):
+        read_zip_list(tmp_path / "zips.txt", role="zips")
+    (tmp_path / "rel.txt").write_text("A|B\n1|2\n", encoding="utf-8")
+    with pytest.raises(InputError, match=r"rel\.txt' has no GEOID_ZCTA5"):
+        relationship_fractions(["00101"], tmp_path / "rel.txt", role="relationship")
