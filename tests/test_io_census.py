@@ -541,3 +541,23 @@ def test_bad_zip_list_and_relationship_file_are_named(tmp_path):
     (tmp_path / "rel.txt").write_text("A|B\n1|2\n", encoding="utf-8")
     with pytest.raises(InputError, match=r"rel\.txt' has no GEOID_ZCTA5"):
         relationship_fractions(["00101"], tmp_path / "rel.txt", role="relationship")
+
+
+def test_groups_naming_download_estimates_get_their_margins(region):
+    tmp, counts, _ = region
+    _write_download(tmp / "download.csv", counts)
+    population = {
+        "total": "B03002_001E",
+        "reference": "white",
+        "groups": {
+            "white": "B03002_003E",
+            "black": {"column": "B03002_004E", "label": "Black, not Hispanic"},
+        },
+    }
+    spec = _spec(tmp, population, table=[{"path": str(tmp / "download.csv")}])
+    result = _run(spec)
+    pop = result.extras["inputs"].population
+    assert pop.group_moes == {"white": "B03002_003M", "black": "B03002_004M"}
+    assert pop.total_moe == "B03002_001M"
+    assert result.summary["labels"]["groups"] == {"white": "white", "black": "Black, not Hispanic"}
+    assert result.areas["B03002_004M"].dtype == float
