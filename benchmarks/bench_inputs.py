@@ -108,7 +108,8 @@ def main() -> None:
 
         def ours_table():
             read = read_census_table(table, id_column=None, role="table")
-            for column in [c for c in read.frame.columns if c.endswith("E")][:9]:
+            counts = [c for c in read.frame.columns if c.startswith("B03002_") and c.endswith("E")]
+            for column in counts[:9]:
                 _numeric_problem(read.frame[column])
             for margin in read.margins.values():
                 parse_margins(read.frame[margin])

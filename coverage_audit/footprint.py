@@ -1,4 +1,4 @@
-"""Footprint: service polygons, points with a reach, or listed area ids -> one footprint.
+"""Footprint: service polygons, points with a reach, listed ids or ZIP codes -> one footprint.
 
 Takes a ``[footprint]`` spec and the analysed areas (already in the analysis CRS) and gives
 a :class:`Footprint`: the dissolved service geometry in the analysis CRS, cut into disjoint
@@ -61,7 +61,7 @@ class Footprint:
     Attributes
     ----------
     name, kind : str
-        From the spec; kind is "polygons", "points" or "ids".
+        From the spec; kind is "polygons", "points", "ids" or "zips".
     geometry : shapely geometry
         The dissolved footprint (may be empty).
     pieces : numpy.ndarray

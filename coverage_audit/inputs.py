@@ -389,24 +389,26 @@ def _numeric_problem(raw: pd.Series) -> tuple[pd.Series, pd.Series]:
     Census annotation values (``-``, ``N``, ``(X)``, ``250,000+``, API sentinels ...) are
     never read as numbers: each gets its meaning as the problem.
     """
-    notes = (
-        annotation_reasons(raw, pd.to_numeric(raw, errors="coerce"))
-        if not pd.api.types.is_bool_dtype(raw.dtype)
-        else None
-    )
-    if notes is not None and notes.notna().any():
-        raw = raw.where(notes.isna(), None)
     numbers = pd.to_numeric(raw, errors="coerce")
-    problem = pd.Series("", index=raw.index, dtype=object)
-    missing = raw.isna() | (raw.astype(str).str.strip() == "")
-    bad = numbers.isna() & ~missing
-    problem[missing] = "missing"
-    problem[bad] = "not a number"
-    if notes is not None:
-        problem[notes.notna()] = notes[notes.notna()]
-    infinite = ~np.isfinite(numbers.fillna(0.0))
-    problem[infinite] = "not a finite number"
-    problem[(numbers < 0) & (problem == "")] = "negative"
+    if pd.api.types.is_bool_dtype(raw.dtype):
+        numbers = numbers.astype(float)
+    notes = annotation_reasons(raw, numbers)
+    noted = notes.notna().to_numpy()
+    if noted.any():
+        numbers = numbers.astype(float).mask(noted)
+    if pd.api.types.is_numeric_dtype(raw.dtype):
+        missing = raw.isna().to_numpy()  # numbers: no blank text to look for
+    else:
+        missing = (raw.isna() | (raw.astype(str).str.strip() == "")).to_numpy()
+    flags = np.full(len(raw), "", dtype=object)
+    flags[missing & ~noted] = "missing"
+    flags[numbers.isna().to_numpy() & ~missing & ~noted] = "not a number"
+    flags[noted] = notes.to_numpy()[noted]
+    values = numbers.to_numpy(dtype=float, na_value=np.nan)
+    with np.errstate(invalid="ignore"):
+        flags[np.isinf(values)] = "not a finite number"
+        flags[(values < 0) & (flags == "")] = "negative"
+    problem = pd.Series(flags, index=raw.index, dtype=object)
     return numbers.astype(float), problem
 
 

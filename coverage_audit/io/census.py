@@ -172,11 +172,12 @@ def read_census_table(
     data = path.read_bytes()
     if data[:4] == b"PK\x03\x04":
         member, data = _zip_member(path)
-    text = data.decode("utf-8-sig", errors="replace")
     if _sniff(data) == "json":
+        text = data.decode("utf-8-sig", errors="replace")
         return _read_api_json(text, id_column, path, role, prefer)
     sep = "\t" if suffix == ".tsv" else ","
-    rows = list(csv.reader(io.StringIO(text[:65536]), delimiter=sep))
+    head = data[:65536].decode("utf-8-sig", errors="replace")
+    rows = list(csv.reader(io.StringIO(head), delimiter=sep))
     download = len(rows) > 1 and _is_download_labels(rows[1])
     # Ids stay text so that leading zeros survive. Counts are left to pandas' fast parser: a
     # column holding an annotation ("-", "N", "250,000+") stays text and is looked at cell
@@ -184,8 +185,9 @@ def read_census_table(
     text_ids = {c: str for c in (*ID_CANDIDATES, "NAME", id_column or prefer or "GEOID")}
     try:
         frame = pd.read_csv(
-            io.StringIO(text),
+            io.BytesIO(data),
             sep=sep,
+            encoding="utf-8-sig",
             dtype=text_ids,
             keep_default_na=not download,
             na_values=[""] if download else None,
@@ -198,7 +200,8 @@ def read_census_table(
         for c in frame.columns
         if str(c).startswith("Unnamed:") and (frame[c].isna() | (frame[c] == "")).all()
     ]
-    frame = frame.drop(columns=phantom)
+    for column in phantom:
+        del frame[column]
     labels: dict[str, str] = {}
     if download:
         header = [c for c in rows[0]]
@@ -278,7 +281,6 @@ def _finish(
                     f"{list(ID_CANDIDATES)} nor the geography columns state, county, tract; "
                     f'name it with id = "COLUMN" (its columns are {list(frame.columns)[:12]})'
                 )
-            frame = frame.copy()
             frame["GEOID"], level = built
             id_column = "GEOID"
     elif id_column not in frame.columns:
@@ -295,7 +297,6 @@ def _finish(
         if prefixed.any() and prefixed[values.notna()].all():
             prefix = str(head[prefixed].mode().iloc[0])
             level = SUMMARY_LEVELS.get(prefix, (None, None))[0] or level
-            frame = frame.copy()
             frame[id_column] = text.str.slice(9).astype(object).where(prefixed, None)
     margins = {
         c: c[:-1] + "M"

@@ -88,7 +88,7 @@ def join_tables(
         read = read_census_table(
             path, id_column=id_given, role="demographics table", prefer=id_column
         )
-        table = read.frame.copy()
+        table = read.frame  # freshly read: ours to change
         tid = read.id_column
         out.reads.append((path, read))
         out.rows.append((path, len(table)))
