@@ -127,6 +127,9 @@ class AreaInputs:
     layout: str | None = None
     #: Ids of water-only areas (``ALAND = 0``), kept in the analysis and listed.
     water_only: list[str] = field(default_factory=list)
+    #: Every estimate column of the tables with its margin column (``X_E`` -> ``X_M``); the
+    #: margins are numbers in ``frame`` (``*****`` read as 0, other annotations missing).
+    margins: dict[str, str] = field(default_factory=dict)
 
 
 def sha256_file(path: Path) -> str:
@@ -682,4 +685,5 @@ def load_areas(
         matches=matches,
         layout=describe_layout(path),
         water_only=[str(i) for i in frame.loc[water & keep, id_col]],
+        margins=dict(joined.margins) if joined is not None else {},
     )

@@ -174,6 +174,7 @@ def test_census_download_csv_with_preset_gives_the_tidy_rates(region):
     pop = result.extras["inputs"].population
     assert pop.group_moes["black_nh"] == "B03002_004M"
     assert pop.total_moe == "B03002_001M"
+    assert result.extras["inputs"].margins["B03002_008E"] == "B03002_008M"
     assert result.summary["labels"]["groups"]["black_nh"] == "Black alone, not Hispanic"
 
 
