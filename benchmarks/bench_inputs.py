@@ -77,9 +77,7 @@ def write_inputs(folder: Path, n: int) -> tuple[Path, Path]:
     frame["GEOID"] = geoids
     frame["ALAND"] = np.round(frame.geometry.area).astype(np.int64)
     frame["AWATER"] = 0
-    frame = frame.set_geometry(shapely.segmentize(frame.geometry.values, 150.0)).to_crs(
-        "EPSG:4269"
-    )
+    frame = frame.set_geometry(shapely.segmentize(frame.geometry.values, 150.0)).to_crs("EPSG:4269")
     shp = folder / "shp"
     shp.mkdir()
     pyogrio.write_dataframe(frame, shp / "cb_2099_us_tract_500k.shp")
@@ -152,8 +150,10 @@ def main() -> None:
     print(f"{'input':32s} {'ours s':>8s} {'MiB':>7s} {'plain s':>8s} {'MiB':>7s} {'ratio':>6s}")
     for name, t_o, m_o, t_b, m_b in rows:
         print(f"{name:32s} {t_o:8.2f} {m_o:7.0f} {t_b:8.2f} {m_b:7.0f} {t_o / t_b:6.2f}")
-    print(f"load_areas end to end (both files, validation, join, projection): {t_load:.1f} s, "
-          f"{m_load:.0f} MiB traced")
+    print(
+        f"load_areas end to end (both files, validation, join, projection): {t_load:.1f} s, "
+        f"{m_load:.0f} MiB traced"
+    )
     rss = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
     print(f"process peak RSS: {rss:.0f} MiB")
 

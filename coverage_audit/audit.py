@@ -544,7 +544,11 @@ def _labels_section(inputs: AreaInputs, spec: AuditSpec) -> dict[str, Any]:
     """Display labels of the groups and the counted unit, for console, report and map."""
     pop = inputs.population or spec.population
     groups = pop.group_labels
-    if pop.derive_minority and "minority" not in dict(pop.labels) and pop.reference in dict(pop.labels):
+    if (
+        pop.derive_minority
+        and "minority" not in dict(pop.labels)
+        and pop.reference in dict(pop.labels)
+    ):
         groups["minority"] = f"Minority (all but {groups[pop.reference]})"
     return {"groups": groups, "unit": pop.unit}
 
@@ -554,8 +558,8 @@ def _table_section(inputs: AreaInputs) -> dict[str, Any] | None:
     if not table:
         return None
     rows = table[0].rows
-    excluded = inputs.exclusions.count("table") if len(table) == 1 else (
-        rows - inputs.matches[0].matched
+    excluded = (
+        inputs.exclusions.count("table") if len(table) == 1 else (rows - inputs.matches[0].matched)
     )
     out: dict[str, Any] = {
         "table": {"rows": rows, "matched": rows - excluded, "excluded": excluded}

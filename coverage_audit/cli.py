@@ -462,9 +462,8 @@ def _cmd_check(args: argparse.Namespace) -> int:
             )
         elif built.match is not None:
             rate = built.match.match_rate
-            line += (
-                f"; {built.match.matched} of {built.match.rows} ids matched"
-                + ("" if rate is None else f" ({rate:.1%})")
+            line += f"; {built.match.matched} of {built.match.rows} ids matched" + (
+                "" if rate is None else f" ({rate:.1%})"
             )
         print(line)
     if spec.activity is not None:

@@ -283,7 +283,9 @@ def _zips_footprint(spec: FootprintSpec, areas: AreaInputs, exclusions: Exclusio
     zips = read_zip_list(spec.zips, role=f"{role} zips")
     records = [InputRecord(f"zips:{spec.name}", str(spec.zips), sha256_file(spec.zips), len(zips))]
     if spec.zcta_relationship is not None:
-        result = relationship_fractions(zips, spec.zcta_relationship, role=f"{role} zcta_relationship")
+        result = relationship_fractions(
+            zips, spec.zcta_relationship, role=f"{role} zcta_relationship"
+        )
         source_path = spec.zcta_relationship
     else:
         assert spec.crosswalk is not None and spec.crosswalk_ratio is not None
@@ -295,9 +297,7 @@ def _zips_footprint(spec: FootprintSpec, areas: AreaInputs, exclusions: Exclusio
             id_candidates=(areas.id_column, "tract", "geoid", "GEOID", "GEOID20"),
         )
         source_path = spec.crosswalk
-    records.append(
-        InputRecord(f"zcta:{spec.name}", str(source_path), sha256_file(source_path), 0)
-    )
+    records.append(InputRecord(f"zcta:{spec.name}", str(source_path), sha256_file(source_path), 0))
     exclusions.add(
         f"zips:{spec.name}",
         [k for k, _ in result.unknown],

@@ -609,9 +609,7 @@ def load_areas(
         drop(above, reasons)
     income_unknown = 0
     if joined is not None:
-        numeric_estimates(
-            frame, joined.reads, {pop_spec.total, *pop_spec.group_columns.values()}
-        )
+        numeric_estimates(frame, joined.reads, {pop_spec.total, *pop_spec.group_columns.values()})
     if pop_spec.income_ratio is not None:
         ratio = pd.to_numeric(frame[pop_spec.income_ratio], errors="coerce")
         negative = (ratio < 0).to_numpy()
@@ -656,7 +654,10 @@ def load_areas(
         out, geometry=gpd.GeoSeries(geoms[sel], crs=layer.crs).values, crs=layer.crs
     )
     if len(analysed) == 0:
-        first = [f"row {r['row']} ({r['source']}, id {r['id']}): {r['reason']}" for r in exclusions.records[:3]]
+        first = [
+            f"row {r['row']} ({r['source']}, id {r['id']}): {r['reason']}"
+            for r in exclusions.records[:3]
+        ]
         raise InputError(
             f"no area of '{path}' can be analysed: all {n_input} rows were excluded "
             f"({exclusions.by_reason()}); for example {'; '.join(first)}. Fix the inputs "

@@ -515,8 +515,12 @@ def test_console_uses_labels_and_unit(region):
 @pytest.mark.parametrize(
     ("name", "content", "message"),
     [
-        ("bad.json", "[[\"NAME\", \"B01001_001E\"], [\"x\"", r"bad\.json.*not valid JSON"),
-        ("ragged.json", '[["NAME","B1","state"],["a","1"]]', r"ragged\.json.*row 1 has a different"),
+        ("bad.json", '[["NAME", "B01001_001E"], ["x"', r"bad\.json.*not valid JSON"),
+        (
+            "ragged.json",
+            '[["NAME","B1","state"],["a","1"]]',
+            r"ragged\.json.*row 1 has a different",
+        ),
         ("noid.csv", "name,total\na,1\n", r"noid\.csv.*has no id column.*id = "),
     ],
 )

@@ -629,9 +629,10 @@ def _footprint_overlays(
         lonlat = gpd.GeoSeries(geoms, crs=series.crs).to_crs(4326).values
         lonlat = np.asarray(lonlat)[_has_polygon(np.asarray(lonlat))]
         if lonlat.size:
-            label = {"ids": "Footprint (listed areas)", "zips": "Footprint (areas of the ZIP codes)"}.get(
-                kind, "Footprint"
-            )
+            label = {
+                "ids": "Footprint (listed areas)",
+                "zips": "Footprint (areas of the ZIP codes)",
+            }.get(kind, "Footprint")
             out.append(
                 {
                     "key": "footprint",

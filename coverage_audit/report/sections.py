@@ -314,7 +314,9 @@ def coverage_section(page: Page) -> Html:
         is_comparison = g == page.comparison_group
         name = page.label(g)
         label = (
-            name + (" (highest rate)" if page.highest else " (reference)") if is_comparison else name
+            name + (" (highest rate)" if page.highest else " (reference)")
+            if is_comparison
+            else name
         )
         rows.append(
             (
