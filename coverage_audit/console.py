@@ -30,6 +30,14 @@ def print_summary(result: Any, paths: dict[str, Path], *, seconds: float, stream
         f"areas: {areas['input']} in, {areas['analysed']} analysed, {areas['excluded']} excluded; "
         f"served: {cov['served_areas']} of {cov['areas']} (threshold {cov['served_threshold']:g})"
     )
+    for entry in (s.get("inputs") or {}).get("tables") or []:
+        rate = entry.get("match_rate")
+        console.print(
+            f"table {Path(entry['path']).name}"
+            + (f" ({entry['layout']})" if entry.get("layout") else "")
+            + f": {entry['matched']} of {entry['rows']} rows matched the areas"
+            + ("" if rate is None else f" ({100 * rate:.1f}%)")
+        )
     labels = (s.get("labels") or {}).get("groups") or {}
     unit = (s.get("labels") or {}).get("unit") or "people"
     table = Table(show_edge=False, header_style="bold")

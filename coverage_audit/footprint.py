@@ -317,9 +317,7 @@ def _zips_footprint(spec: FootprintSpec, areas: AreaInputs, exclusions: Exclusio
         min_share=0.0,
     )
     fractions = {i: float(result.fractions.get(i, 0.0)) for i in ids}
-    mask = np.array([fractions[i] > 0 for i in ids], dtype=bool)
-    geoms = np.asarray(frame.geometry.array, dtype=object)[mask]
-    dissolved = shapely.union_all(geoms) if geoms.size else shapely.Polygon()
+    dissolved = _dissolve_areas(frame, np.array([fractions[i] > 0 for i in ids], dtype=bool))
     return Footprint(
         name=spec.name,
         kind="zips",
@@ -486,6 +484,17 @@ def cut_pieces(geometry: Any, max_vertices: int = MAX_PIECE_VERTICES) -> np.ndar
     return np.array(done, dtype=object)
 
 
+def _dissolve_areas(frame: gpd.GeoDataFrame, mask: np.ndarray) -> Any:
+    """Union of the areas where ``mask`` (fast coverage union, exact union as fallback)."""
+    geoms = np.asarray(frame.geometry.array, dtype=object)[mask]
+    if not geoms.size:
+        return shapely.Polygon()
+    try:
+        return shapely.coverage_union_all(geoms)
+    except shapely.errors.GEOSException:
+        return shapely.union_all(geoms)
+
+
 def _ids_footprint(
     spec: FootprintSpec, areas: AreaInputs, exclusions: Exclusions, *, id_width: int | None
 ) -> Footprint:
@@ -537,15 +546,7 @@ def _ids_footprint(
             ],
         )
         served = frozenset(listed[known])
-    mask = frame[id_col].isin(served).to_numpy()
-    geoms = np.asarray(frame.geometry.array, dtype=object)[mask]
-    if geoms.size:
-        try:
-            dissolved = shapely.coverage_union_all(geoms)
-        except shapely.errors.GEOSException:
-            dissolved = shapely.union_all(geoms)
-    else:
-        dissolved = shapely.Polygon()
+    dissolved = _dissolve_areas(frame, frame[id_col].isin(served).to_numpy())
     return Footprint(
         name=spec.name,
         kind="ids",

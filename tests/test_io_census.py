@@ -507,6 +507,7 @@ def test_console_uses_labels_and_unit(region):
     text = stream.getvalue()
     assert "Hispanic or Latino" in text and "households" in text
     assert "Minority (all but White alone, not Hispanic)" in text
+    assert "table download.csv (Census table download" in text and "9 of 9 rows matched" in text
 
 
 # --- bad input: one message naming the file, row or column, and what to do ------------
