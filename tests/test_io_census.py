@@ -567,3 +567,14 @@ def test_groups_naming_download_estimates_get_their_margins(region):
     assert pop.total_moe == "B03002_001M"
     assert result.summary["labels"]["groups"] == {"white": "white", "black": "Black, not Hispanic"}
     assert result.areas["B03002_004M"].dtype == float
+
+
+def test_report_lists_joins_with_layout_and_rate(region):
+    from coverage_audit.report.inputs_sections import joins_part
+
+    tmp, counts, _ = region
+    _write_download(tmp / "download.csv", counts)
+    spec = _spec(tmp, {"preset": "acs_b03002"}, table=[{"path": str(tmp / "download.csv")}])
+    html = joins_part(_run(spec).summary)
+    assert "download.csv" in html and "data.census.gov" in html and "100.0%" in html
+    assert joins_part({"areas": {}}) == ""

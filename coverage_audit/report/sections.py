@@ -20,6 +20,7 @@ import pandas as pd
 import shapely
 
 from . import charts
+from .inputs_sections import joins_part
 from .markup import (
     NA,
     Html,
@@ -215,6 +216,7 @@ def audited_section(page: Page) -> Html:
                 caption="Input files and their SHA-256 digests",
             )
         )
+    parts.append(joins_part(page.summary))
     if m.get("analysis_crs"):
         parts.append(
             para(
