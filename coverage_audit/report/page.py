@@ -327,7 +327,7 @@ def _key_figures(page: Page) -> Html:
         flagged = [g for g in ordered(page.groups, cov) if get_in(cov, g, "below_four_fifths")]
         if flagged:
             parts = "; ".join(
-                f"{g} {fmt_percent(get_in(cov, g, 'rate'))} (ratio "
+                f"{page.label(g)} {fmt_percent(get_in(cov, g, 'rate'))} (ratio "
                 f"{fmt_fixed(get_in(cov, g, 'ratio'))})"
                 for g in flagged
             )
@@ -366,7 +366,7 @@ def _key_figures(page: Page) -> Html:
                     "li",
                     f"{len(enclaves)} enclave{plural} of unserved areas enclosed "
                     f"by served ones; the most populous, {top.get('id') or NA}, has "
-                    f"{fmt_count(top.get('population'))} residents.",
+                    f"{fmt_count(top.get('population'))} {page.residents}.",
                 )
             )
         else:

@@ -100,6 +100,11 @@ class Page:
         return str((self.summary.get("labels") or {}).get("unit") or "people")
 
     @property
+    def residents(self) -> str:
+        """The word for what is counted in sentences ("residents" when people are)."""
+        return "residents" if self.unit == "people" else self.unit
+
+    @property
     def comparison_label(self) -> str:
         """The group every ratio divides by, in words ("the reference group (white_nh)")."""
         if self.highest:
@@ -893,7 +898,7 @@ def _enclave_figures(enclaves: Sequence[Mapping[str, Any]], page: Page) -> Html:
             figure(
                 svg,
                 f"Enclave {label}: {plural(members.size, 'area')}, "
-                f"{fmt_count(e.get('population'))} residents. Left: its place in "
+                f"{fmt_count(e.get('population'))} {page.residents}. Left: its place in "
                 "the region (the box marks the close-up). Right: the enclave "
                 "highlighted, its ring outlined.",
             )
