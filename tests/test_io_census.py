@@ -578,3 +578,23 @@ def test_report_lists_joins_with_layout_and_rate(region):
     html = joins_part(_run(spec).summary)
     assert "download.csv" in html and "data.census.gov" in html and "100.0%" in html
     assert joins_part({"areas": {}}) == ""
+
+
+def test_id_column_candidates_and_prefix_levels(tmp_path):
+    # GEO_ID prefixes per the data.census.gov layout (REFERENCES.md): 1500000US block group.
+    (tmp_path / "bg.csv").write_text(
+        '"GEO_ID","NAME","B01003_001E",\n"Geography","Geographic Area Name","Estimate!!Total",\n'
+        '"1500000US010010201001","Block Group 1","12",\n',
+        encoding="utf-8",
+    )
+    read = read_census_table(tmp_path / "bg.csv", id_column=None, role="t")
+    assert read.level == "block group" and read.prefix == "1500000US"
+    assert list(read.frame["GEO_ID"]) == ["010010201001"]
+    assert list(read.frame.columns) == ["GEO_ID", "NAME", "B01003_001E"]  # phantom column gone
+    (tmp_path / "ff.csv").write_text(
+        "GEO.id,GEO.id2,GEO.display-label,HD01_VD01\nId,Id2,Geography,Estimate; Total\n"
+        "1400000US01001020100,01001020100,Tract 201,5\n",
+        encoding="utf-8",
+    )
+    read = read_census_table(tmp_path / "ff.csv", id_column=None, role="t")
+    assert read.id_column == "GEO.id2" and list(read.frame["GEO.id2"]) == ["01001020100"]

@@ -16,6 +16,9 @@ Layouts, as published (REFERENCES.md, "Public data layouts"):
 - Census API JSON: a 2-D array, header row first, all values strings, geography columns
   (``state``, ``county``, ``tract``, ``block group``) at the end.
 
+Row numbers given for a table's rows count data rows (1 is the first row after the header
+rows, the labels row of a download included).
+
 Annotation values (``-``, ``N``, ``(X)``, ``**``, ``***``, ``*****``, coded values such as
 ``250,000+`` and ``2,500-``, and the API's negative sentinels) are never read as numbers:
 :func:`parse_counts` gives each a reason. In a margin column ``*****`` means a controlled
@@ -51,7 +54,9 @@ SUMMARY_LEVELS: dict[str, tuple[str, int | None]] = {
 _PREFIX_RE = re.compile(r"^(\d{7})US(\w*)$")
 #: API geography columns in GEOID order, with their widths.
 GEOGRAPHY_COLUMNS = (("state", 2), ("county", 3), ("tract", 6), ("block group", 1))
-ID_CANDIDATES = ("GEO_ID", "GEOID", "GEOID20", "GEOID10", "geoid", "geo_id")
+#: Id columns found without being named; ``GEO.id2`` is the plain GEOID of the older
+#: American FactFinder downloads (from memory).
+ID_CANDIDATES = ("GEO_ID", "GEOID", "GEOID20", "GEOID10", "geoid", "geo_id", "GEO.id2")
 #: Meaning of each annotation symbol (Census Bureau ACS data notes).
 ANNOTATIONS = {
     "-": "no estimate (too few sample observations, or not applicable)",
