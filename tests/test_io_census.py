@@ -268,8 +268,11 @@ def test_annotation_makes_the_count_missing_and_is_listed(region):
     with pytest.warns(Warning):
         expected = _rates(_run(spec2))
     assert _rates(result) == expected
-    margins = result.areas.set_index("GEOID")["B03002_004M"]
-    assert margins["01001020300"] == 0.0 and np.isnan(margins["01001020400"])
+    # The margins reach the survey-error work as the group's margin column: ***** is 0,
+    # ** is no margin (counted as missing).
+    margins = result.areas.set_index("GEOID")["black_nh_moe"]
+    assert margins["01001020300"] == 0.0
+    assert result.extras["inputs"].margins_missing == {"B03002_004M": 1}
 
 
 @pytest.mark.parametrize(
@@ -297,9 +300,11 @@ def test_annotation_symbols(value, meaning):
 
 
 def test_controlled_margin_is_zero():
-    out = parse_margins(pd.Series(["*****", "12", "**", "-555555555"]))
-    assert out.iloc[0] == 0.0 and out.iloc[1] == 12.0
-    assert np.isnan(out.iloc[2]) and np.isnan(out.iloc[3])
+    # ***** and the API's -555555555: controlled estimate, margin 0 (ACS data notes, from
+    # memory); ** and other sentinels: no margin.
+    out = parse_margins(pd.Series(["*****", "12", "**", "-555555555", "-222222222"]))
+    assert out.iloc[0] == 0.0 and out.iloc[1] == 12.0 and out.iloc[3] == 0.0
+    assert np.isnan(out.iloc[2]) and np.isnan(out.iloc[4])
 
 
 def test_served_ids_without_zeros_fail_with_a_hint(region):
@@ -566,7 +571,7 @@ def test_groups_naming_download_estimates_get_their_margins(region):
     assert pop.group_moes == {"white": "B03002_003M", "black": "B03002_004M"}
     assert pop.total_moe == "B03002_001M"
     assert result.summary["labels"]["groups"] == {"white": "white", "black": "Black, not Hispanic"}
-    assert result.areas["B03002_004M"].dtype == float
+    assert result.extras["inputs"].margin_columns["black"] == "black_moe"
 
 
 def test_report_lists_joins_with_layout_and_rate(region):

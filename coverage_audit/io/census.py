@@ -339,6 +339,8 @@ def parse_margins(values: pd.Series) -> pd.Series:
     else:
         text = values.astype("string").str.strip()
         out = pd.to_numeric(text.mask(text == "*****", "0"), errors="coerce").astype(float)
+    # -555555555: the API's "controlled estimate, margin not appropriate", as ***** is.
+    out[out == -555555555.0] = 0.0
     out[out.isin(SENTINEL_VALUES)] = np.nan
     return out
 
