@@ -456,6 +456,8 @@ def _pair_margins(
         moes=tuple((n, moes[n]) for n, _ in pop_spec.groups if n in moes),
         total_moe=total_moe,
     )
+
+
 #: Census Bureau annotation of a controlled estimate: the margin is not applicable, i.e. 0.
 CONTROLLED_MARGIN = "*****"
 #: Census API sentinel of a controlled estimate's margin (annotation value, treat as 0).
