@@ -60,7 +60,11 @@ def print_summary(result: Any, paths: dict[str, Path], *, seconds: float, stream
         columns[5:5] = ["ratio 90%"]
     for col in columns:
         table.add_column(
-            col, justify="left" if col == "group" else "right", no_wrap=col == "ratio 90%"
+            col,
+            justify="left" if col == "group" else "right",
+            no_wrap=col in ("ratio 90%", unit),
+            # Labels such as "Black alone, not Hispanic" wrap in two lines, not five.
+            min_width=22 if col == "group" else None,
         )
     for g, row in cov["groups"].items():
         diff = row["difference"]
