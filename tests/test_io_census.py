@@ -603,3 +603,14 @@ def test_id_column_candidates_and_prefix_levels(tmp_path):
     )
     read = read_census_table(tmp_path / "ff.csv", id_column=None, role="t")
     assert read.id_column == "GEO.id2" and list(read.frame["GEO.id2"]) == ["01001020100"]
+
+
+def test_api_json_zcta_geography(tmp_path):
+    # Census API responses for ZCTAs end with a "zip code tabulation area" column
+    # (REFERENCES.md layout; column name from memory).
+    (tmp_path / "z.json").write_text(
+        '[["NAME","B01003_001E","zip code tabulation area"],["ZCTA5 00101","12","00101"]]',
+        encoding="utf-8",
+    )
+    read = read_census_table(tmp_path / "z.json", id_column=None, role="t")
+    assert read.level == "ZCTA" and list(read.frame["GEOID"]) == ["00101"]

@@ -249,6 +249,9 @@ def _read_api_json(
 
 def _geography_id(frame: pd.DataFrame) -> tuple[pd.Series, str] | None:
     """GEOID from the API's geography columns (state, county, tract, block group)."""
+    if "zip code tabulation area" in frame.columns:  # the API's ZCTA geography
+        zcta = frame["zip code tabulation area"].fillna("").astype(str).str.strip().str.zfill(5)
+        return zcta, "ZCTA"
     present = [(c, w) for c, w in GEOGRAPHY_COLUMNS if c in frame.columns]
     if not present or present[0][0] != "state":
         return None
