@@ -287,6 +287,34 @@ def change_section(
     ).to_dict()
 
 
+#: Columns that name a service site, in order of preference.
+SITE_NAME_COLUMNS = ("name", "site_name", "site_id", "id")
+
+
+def _site_names(footprint: Footprint) -> dict[str, str]:
+    """Site key -> display name of a points footprint (key: name column, else location)."""
+    points = footprint.points
+    if points is None or points.empty:
+        return {}
+    column = next((c for c in SITE_NAME_COLUMNS if c in points.columns), None)
+    xy = [f"{p.x:.0f} {p.y:.0f}" for p in points.geometry]
+    names = [str(v) for v in points[column]] if column is not None else xy
+    keys = names if column is not None else xy
+    return dict(zip(keys, names, strict=True))
+
+
+def site_changes(change: Any, footprints: list[Footprint]) -> dict[str, Any]:
+    """The names of the footprints compared and, for points, the sites closed and opened."""
+    by_name = {f.name: f for f in footprints}
+    before, after = by_name.get(change.before), by_name.get(change.after)
+    out: dict[str, Any] = {"before": change.before, "after": change.after}
+    if before is not None and after is not None and before.kind == after.kind == "points":
+        old, new = _site_names(before), _site_names(after)
+        out["sites_closed"] = sorted(old[k] for k in old.keys() - new.keys())
+        out["sites_opened"] = sorted(new[k] for k in new.keys() - old.keys())
+    return out
+
+
 def peers_section(
     spec: AuditSpec, inputs: AreaInputs, frame: gpd.GeoDataFrame
 ) -> tuple[dict[str, Any], InputRecord]:

@@ -49,6 +49,11 @@ def print_summary(result: Any, paths: dict[str, Path], *, seconds: float, stream
             "yes" if row["below_four_fifths"] else "",
         )
     console.print(table)
+    findings = s.get("findings") or []
+    if findings:
+        console.print("[bold]Findings[/bold]")
+        for item in findings:
+            console.print(f"- {item['sentence']}")
     seg = s.get("segregation")
     if seg:
         d = ", ".join(f"{g} {_num(v)}" for g, v in seg.get("dissimilarity", {}).items())
