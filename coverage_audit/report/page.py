@@ -61,6 +61,7 @@ from .sections import (
     enclaves_section,
     segregation_section,
 )
+from .findings_section import findings_section
 from .text import ASSOCIATION_CAUTION, FOUR_FIFTHS_NOTE, METHODS, STANDARD_CAUTIONS
 
 __all__ = [
@@ -541,25 +542,29 @@ def render_report(
     sections = [
         (anchor, title, render)
         for anchor, title, render in (
-            ("audited", "What was audited", audited_section),
             ("coverage", "Coverage by group", coverage_section),
             ("segregation", "Segregation", segregation_section),
             ("clustering", "Spatial clustering", clustering_section),
             ("enclaves", "Enclaves", enclaves_section),
             *further.FURTHER_SECTIONS,
         )
-        if anchor == "audited" or anchor in present
+        if anchor in present
     ]
     methods = _methods_section(page, present)
-    toc = [(a, t) for a, t, _ in sections] + ([("methods", "Methods")] if methods else [])
+    toc = (
+        [("findings", "Findings"), *((a, t) for a, t, _ in sections)]
+        + ([("methods", "Methods")] if methods else [])
+        + [("cautions", "Cautions"), ("audited", "Appendix: inputs and provenance")]
+    )
     body = [
         _header(page),
+        findings_section(page),
         _cautions_box(page),
         _key_figures(page),
-        _toc([*toc, ("cautions", "Cautions")]),
+        _toc(toc),
     ]
     body.extend(render(page) for _, _, render in sections)
-    body.extend([methods, _cautions_section(page)])
+    body.extend([methods, _cautions_section(page), audited_section(page)])
     title = f"{summary.get('title') or 'Coverage audit'}: coverage audit report"
     head = "\n".join(
         [

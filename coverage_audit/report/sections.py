@@ -147,7 +147,8 @@ def _to_crs(frame: Any, crs: Any) -> gpd.GeoSeries | gpd.GeoDataFrame:
     return frame
 
 
-def _overview(page: Page) -> Html:
+def overview_figure(page: Page) -> Html:
+    """Return the small region map: served areas, footprint outline, service points."""
     if not len(page.areas):
         return Html("")
     fp = page.footprint
@@ -167,8 +168,43 @@ def _overview(page: Page) -> Html:
     )
 
 
+#: Characters of a SHA-256 digest shown in the report (the full value is in the title
+#: attribute and in manifest.json), so printed tables carry no page-long digit columns.
+DIGEST_SHOWN = 16
+
+
+def _digest_cell(digest: Any) -> Html:
+    if not isinstance(digest, str) or not digest:
+        return tag("span", NA, class_="digest")
+    shown = digest if len(digest) <= DIGEST_SHOWN else digest[:DIGEST_SHOWN] + "\u2026"
+    return tag("span", shown, class_="digest", title=digest)
+
+
+def parameter_rows(spec: Mapping[str, Any]) -> list[tuple[str, Any]]:
+    """Flatten the resolved spec into (key, value) rows, each setting once, with its unit.
+
+    A footprint's radius appears once, as ``radius_m`` in metres with its unit, rather
+    than as ``radius_m`` above a ``radius_unit`` that named the unit the spec was written in.
+    """
+    rows = _flatten(spec)
+    units = {k: v for k, v in rows if k.endswith("radius_unit")}
+    out: list[tuple[str, Any]] = []
+    for key, value in rows:
+        if key.endswith("radius_unit"):
+            continue
+        if key.endswith("radius_m") or key.endswith("within_m"):
+            if isinstance(value, (int, float)) and not isinstance(value, bool):
+                given = units.get(key[: -len("radius_m")] + "radius_unit")
+                value = f"{fmt_param(value)} m" + (
+                    f" (written in {given})" if given and given != "m" else ""
+                )
+        out.append((key, value))
+    return out
+
+
 def audited_section(page: Page) -> Html:
-    """Return "What was audited": areas, footprint, inputs, parameters, exclusions."""
+    """Return the appendix "What was audited": areas, footprint, inputs with their digests,
+    parameters, exclusions and software versions (provenance, placed after the cautions)."""
     m = page.manifest
     areas = page.summary.get("areas") or {}
     parts: list[Any] = [
@@ -187,7 +223,7 @@ def audited_section(page: Page) -> Html:
             (
                 i.get("role") or NA,
                 tag("span", i.get("path") or NA, class_="mono"),
-                tag("span", i.get("sha256") or NA, class_="digest"),
+                _digest_cell(i.get("sha256")),
                 Num(fmt_count(i.get("rows"))),
                 i.get("crs") or NA,
             )
@@ -207,8 +243,7 @@ def audited_section(page: Page) -> Html:
                 tag("code", m["analysis_crs"]),
             )
         )
-    parts.append(_overview(page))
-    params = _flatten(m["spec"]) if isinstance(m.get("spec"), Mapping) else []
+    params = parameter_rows(m["spec"]) if isinstance(m.get("spec"), Mapping) else []
     if m.get("seed") is not None and not any(k.endswith("seed") for k, _ in params):
         params.append(("seed", m["seed"]))
     if params:
@@ -219,7 +254,15 @@ def audited_section(page: Page) -> Html:
     if isinstance(libraries, Mapping) and libraries:
         rows = [(name, Num(cell_text(v))) for name, v in libraries.items()]
         parts.append(table(("Library", Num("Version")), rows, caption="Software versions"))
-    return section("audited", "What was audited", *parts)
+    parts.insert(
+        1,
+        para(
+            "Digests are shortened to their first "
+            f"{DIGEST_SHOWN} characters; the full values are in manifest.json.",
+            class_="muted",
+        ),
+    )
+    return section("audited", "Appendix: what was audited, inputs and provenance", *parts)
 
 
 def _exclusions_part(page: Page) -> Html:
