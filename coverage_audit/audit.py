@@ -144,6 +144,7 @@ class AuditResult:
                         title=self.spec.title,
                         path=out / "map.html",
                         tiles=self.spec.output.tiles,
+                        outside=self.extras.get("outside_study_area"),
                     )
                 paths["map"] = out / "map.html"
                 extra["map"] = to_plain(info)

@@ -108,6 +108,7 @@ MAP_CSS = """
   box-shadow: 0 1px 4px rgba(0,0,0,0.3); color: #1f1f1f; max-width: 320px; }
 .ca-title h1 { font-size: 15px; margin: 0 0 2px 0; }
 .ca-title p { margin: 0; color: #444; font-size: 12px; }
+.ca-title p.ca-finding { max-width: 360px; margin-top: 4px; color: #222; font-weight: 600; }
 .ca-legend h2, .ca-hover h2 { font-size: 13px; margin: 0 0 4px 0; }
 .ca-legend .ca-note { font-size: 11px; color: #555; margin: 2px 0 4px 0; }
 .ca-legend ul { list-style: none; margin: 0 0 6px 0; padding: 0; }
@@ -494,6 +495,13 @@ window.coverageAuditDraw = function (map, D) {
   var titleBox = el("div", "ca-panel ca-title");
   titleBox.appendChild(el("h1", null, D.texts.title));
   D.texts.subtitle.forEach(function (line) { titleBox.appendChild(el("p", null, line)); });
+  if (D.texts.finding) {
+    var finding = el("p", "ca-finding", D.texts.finding + " ");
+    var link = el("a", null, D.texts.findings_link.text);
+    link.href = D.texts.findings_link.href;
+    finding.appendChild(link);
+    titleBox.appendChild(finding);
+  }
   titleCtl.onAdd = function () { return titleBox; };
   titleCtl.addTo(map);
 

@@ -595,10 +595,41 @@ def _texts(title: str, summary: Mapping[str, Any], n: int, footprint: Mapping | 
         subtitle.append(f"{int(excluded):,} input rows excluded (see exclusions.csv)")
     if footprint is not None and footprint.get("name"):
         subtitle.append(f"Footprint: {footprint['name']}")
-    return {
+    out: dict[str, Any] = {
         "title": str(title),
         "subtitle": subtitle,
         "hover_hint": "Point at an area to see its figures.",
+    }
+    findings = summary.get("findings")
+    if isinstance(findings, list) and findings and isinstance(findings[0], Mapping):
+        out["finding"] = str(findings[0].get("sentence") or "")
+        out["findings_link"] = {"href": "report.html#findings", "text": "All findings"}
+    return out
+
+
+#: Fill of the areas outside the study area (greyed: not analysed).
+OUTSIDE_COLOR = "#a3a3a3"
+
+
+def outside_overlay(outside: gpd.GeoSeries, tolerance: float, decimals: int) -> dict[str, Any]:
+    """The areas outside the study area as one greyed overlay, below the others."""
+    geoms = shapely.get_parts(np.asarray(outside.values))
+    if tolerance > 0:
+        geoms = shapely.simplify(geoms, tolerance, preserve_topology=True)
+    lonlat = np.asarray(gpd.GeoSeries(geoms, crs=outside.crs).to_crs(4326).values)
+    lonlat = lonlat[_has_polygon(lonlat)]
+    return {
+        "key": "outside_study_area",
+        "label": "Outside the study area (not analysed)",
+        "kind": "outline",
+        "shapes": encode_shapes(lonlat, decimals) if lonlat.size else _empty_shapes(),
+        "color": "#8c8c8c",
+        "weight": 0.5,
+        "dash": None,
+        "fill_color": OUTSIDE_COLOR,
+        "fill_opacity": 0.7,
+        "visible": True,
+        "legend": [{"color": OUTSIDE_COLOR, "kind": "box", "label": "outside the study area"}],
     }
 
 
@@ -830,6 +861,7 @@ def build_map(
     tiles: bool = False,
     label_column: str | None = None,
     simplify_tolerance: float | None = None,
+    outside: gpd.GeoSeries | None = None,
 ) -> MapInfo:
     """Write a self-contained, offline interactive map of the analysed areas.
 
@@ -866,6 +898,9 @@ def build_map(
     simplify_tolerance : float, optional
         Display simplification tolerance in CRS units; ``None`` picks one from the
         region's extent (:func:`display_tolerance`), ``0`` keeps the geometry as is.
+    outside : geopandas.GeoSeries, optional
+        Areas outside the study area: drawn greyed, without figures; the initial view
+        fits the analysed areas.
 
     Returns
     -------
@@ -919,6 +954,8 @@ def build_map(
     fields, missing = _fields(frame, id_column, groups, label_column)
     views = _views(frame, fields, missing, groups, reference, summary)
     overlays = _footprint_overlays(footprint, areas.crs, tolerance, decimals)
+    if outside is not None and len(outside):
+        overlays.insert(0, outside_overlay(outside, tolerance, decimals))
     codes: dict[str, list[str]] = {"tier": list(INCOME_TIERS), "lisa": list(LISA_LABELS)}
     if "enclave_id" in frame.columns:
         enclave = _enclave_overlay(
