@@ -170,6 +170,8 @@ def _get(d: Any, *keys: str) -> Any:
 
 # --- built-in builders -------------------------------------------------------------------
 
+#: Level below which a p-value makes a finding salient (common practice, no source).
+SIGNIFICANCE = 0.05
 #: How many groups and enclaves the headline names at most.
 MAX_GROUPS = 3
 MAX_ENCLAVES = 2
@@ -235,9 +237,9 @@ def coverage_gaps(summary: Mapping[str, Any]) -> list[Finding]:
         interval = _interval(row)
         extra = f" (interval {interval[0]:.2f} to {interval[1]:.2f})" if interval else ""
         sentence = (
-            f"{count(row.get('population'))} {label(summary, g)} {unit} are covered at "
-            f"{pct(row.get('rate'))} against {pct(ref_rate)} for {ref}: a ratio of "
-            f"{row['ratio']:.2f}{extra}, below four-fifths ({threshold:g}), "
+            f"Of {count(row.get('population'))} {label(summary, g)} {unit}, "
+            f"{pct(row.get('rate'))} are covered, against {pct(ref_rate)} of {ref} {unit}: "
+            f"a ratio of {row['ratio']:.2f}{extra}, below four-fifths ({threshold:g}), "
             f"{gap_words(row.get('difference'))}."
         )
         figures = {
@@ -277,7 +279,7 @@ def _enclave_group(summary: Mapping[str, Any], enclave: Mapping[str, Any]) -> st
     return None
 
 
-@register_finding("enclave", order=40)
+@register_finding("enclave", order=20)
 def enclaves(summary: Mapping[str, Any]) -> list[Finding]:
     """Where: the most populous enclaves of unserved areas, against their ring."""
     items = summary.get("enclaves")
@@ -311,7 +313,10 @@ def enclaves(summary: Mapping[str, Any]) -> list[Finding]:
         p = number(enclave.get("p_value"))
         if p is not None:
             sentence += f" (composition test p = {p_text(p)})"
-        out.append(Finding("enclave", sentence + ".", figures, salient=True))
+        # An enclave whose composition differs from its ring beyond chance leads the
+        # headlines; one that does not is still listed, after the salient findings.
+        salient = p is not None and p <= SIGNIFICANCE
+        out.append(Finding("enclave", sentence + ".", figures, salient=salient))
     return out
 
 
