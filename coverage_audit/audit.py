@@ -265,6 +265,8 @@ def run_audit(
     frame = statistics.pop("_frame")
     statistics_extras = statistics.pop("_report")
     summary.update(statistics)
+    if footprint.kind == "ids":
+        summary["assessment_area"] = _assessment_area(frame, inputs.id_column, footprint)
 
     exclusions = inputs.exclusions
     summary["exclusions"] = {"count": exclusions.count(), "by_reason": exclusions.by_reason()}
@@ -294,6 +296,23 @@ def run_audit(
             "outside_study_area": None if study is None else study[1],
         },
     )
+
+
+def _assessment_area(
+    frame: gpd.GeoDataFrame, id_column: str, footprint: Footprint
+) -> dict[str, Any]:
+    """The assessment-area review of a footprint of whole areas (12 CFR 228.41)."""
+    from .stats.assessment_area import review_assessment_area
+
+    ids = frame[id_column].astype(str).to_numpy()
+    return review_assessment_area(
+        ids,
+        np.asarray(frame.geometry.array, dtype=object),
+        np.isin(ids, sorted(footprint.served_ids or ())),
+        frame["income_tier"].to_numpy(dtype=object) if "income_tier" in frame else None,
+        frame["majority_minority"].to_numpy(dtype=bool) if "majority_minority" in frame else None,
+        frame["population"].to_numpy(dtype=float),
+    ).to_dict()
 
 
 def _study_area(

@@ -527,3 +527,100 @@ def peers(summary: Mapping[str, Any]) -> list[Finding]:
         }
         out.append(Finding("peers", sentence, figures, salient=True))
     return out
+
+
+def _ids_text(ids: list[Any], limit: int = 4) -> str:
+    shown = ", ".join(str(i) for i in ids[:limit])
+    return shown + (f" and {len(ids) - limit} more" if len(ids) > limit else "")
+
+
+@register_finding("assessment_area", order=5)
+def assessment_area(summary: Mapping[str, Any]) -> list[Finding]:
+    """An assessment area of whole tracts: adjacent LMI and majority-minority tracts left
+    out, partial counties, and its LMI and majority-minority shares against its counties
+    (12 CFR 228.41(d) and (e))."""
+    section = summary.get("assessment_area")
+    if not isinstance(section, Mapping):
+        return []
+    unit = _unit(summary)
+    out: list[Finding] = []
+    lmi = section.get("adjacent_excluded_lmi") or {}
+    mm = section.get("adjacent_excluded_majority_minority") or {}
+    n_lmi, n_mm = int(lmi.get("count") or 0), int(mm.get("count") or 0)
+    if n_lmi or n_mm:
+        parts = []
+        if n_lmi:
+            parts.append(
+                f"{n_lmi} low- or moderate-income tract{'s' if n_lmi != 1 else ''} "
+                f"({_ids_text(list(lmi.get('ids') or []))}; {count(lmi.get('population'))} {unit})"
+            )
+        if n_mm:
+            parts.append(
+                f"{n_mm} majority-minority tract{'s' if n_mm != 1 else ''} "
+                f"({count(mm.get('population'))} {unit})"
+            )
+        sentence = (
+            "The assessment area leaves out " + " and ".join(parts) + " that border it; an "
+            "assessment area may not arbitrarily exclude low- or moderate-income tracts."
+        )
+        out.append(
+            Finding(
+                "assessment_area",
+                sentence,
+                {
+                    "adjacent_excluded_lmi": n_lmi,
+                    "adjacent_excluded_lmi_ids": list(lmi.get("ids") or []),
+                    "adjacent_excluded_lmi_population": lmi.get("population"),
+                    "adjacent_excluded_majority_minority": n_mm,
+                    "adjacent_excluded_majority_minority_population": mm.get("population"),
+                },
+                salient=True,
+            )
+        )
+    share, region = section.get("lmi_share"), section.get("lmi_share_counties")
+    mm_share, mm_region = (
+        section.get("majority_minority_share"),
+        section.get("majority_minority_share_counties"),
+    )
+    counties = ", ".join(str(c) for c in section.get("counties") or []) or "n/a"
+    if number(share) is not None and number(region) is not None:
+        sentence = (
+            f"Low- or moderate-income tracts are {pct(share)} of the assessment area's "
+            f"tracts against {pct(region)} of the tracts of the county it lies in ({counties})"
+        )
+        if number(mm_share) is not None and number(mm_region) is not None:
+            sentence += (
+                f"; majority-minority tracts {pct(mm_share)} against {pct(mm_region)}"
+            )
+        below = (number(share) or 0) < (number(region) or 0) or (number(mm_share) or 0) < (
+            number(mm_region) or 0
+        )
+        out.append(
+            Finding(
+                "assessment_area",
+                sentence + ".",
+                {
+                    "lmi_share": share,
+                    "lmi_share_counties": region,
+                    "majority_minority_share": mm_share,
+                    "majority_minority_share_counties": mm_region,
+                    "counties": list(section.get("counties") or []),
+                },
+                salient=below,
+            )
+        )
+    partial = section.get("partial_counties") or {}
+    if partial:
+        listed = "; ".join(
+            f"county {c}: {v.get('inside')} of {v.get('areas')} tracts" for c, v in partial.items()
+        )
+        out.append(
+            Finding(
+                "assessment_area",
+                f"The assessment area takes in only part of {len(partial)} "
+                f"count{'ies' if len(partial) != 1 else 'y'} ({listed}); a partial county "
+                "should be the part the institution can reasonably serve.",
+                {"partial_counties": {k: dict(v) for k, v in partial.items()}},
+            )
+        )
+    return out
