@@ -304,7 +304,7 @@ def _site_names(footprint: Footprint) -> dict[str, str]:
 
 
 def site_changes(change: Any, footprints: list[Footprint]) -> dict[str, Any]:
-    """The names of the footprints compared and, for points, the sites closed and opened."""
+    """Return the footprints compared and, for points, the sites closed and opened."""
     by_name = {f.name: f for f in footprints}
     before, after = by_name.get(change.before), by_name.get(change.after)
     out: dict[str, Any] = {"before": change.before, "after": change.after}

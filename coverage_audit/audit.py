@@ -301,7 +301,7 @@ def run_audit(
 def _assessment_area(
     frame: gpd.GeoDataFrame, id_column: str, footprint: Footprint
 ) -> dict[str, Any]:
-    """The assessment-area review of a footprint of whole areas (12 CFR 228.41)."""
+    """Return the assessment-area review of a footprint of whole areas (12 CFR 228.41)."""
     from .stats.assessment_area import review_assessment_area
 
     ids = frame[id_column].astype(str).to_numpy()

@@ -156,8 +156,11 @@ def build_region(seed: int = DEMO_SEED) -> tuple[gpd.GeoDataFrame, pd.DataFrame]
 
 
 def _skipped_neighbourhood(cells: gpd.GeoDataFrame, demo: pd.DataFrame) -> np.ndarray:
-    """The neighbourhood the delivery zone goes around: near the central tract with the
-    highest Black share, far enough inside the zone (radius 0.4 of the span) to be enclosed."""
+    """Return the neighbourhood the delivery zone goes around.
+
+    It lies near the central tract with the highest Black share, far enough inside the
+    zone (radius 0.4 of the span) to be enclosed.
+    """
     x, y = cells["x"].to_numpy(), cells["y"].to_numpy()
     span = float(np.ptp(x))
     total = demo["pop_total"].to_numpy(float)
@@ -192,7 +195,7 @@ def _concentrate(demo: pd.DataFrame, skipped: np.ndarray) -> None:
 
 
 def _city_limits(cells: gpd.GeoDataFrame) -> shapely.Geometry:
-    """The fictional city of Ostmere: the tracts within 0.45 of the span of the centre."""
+    """Return the fictional city limits: the tracts within 0.45 of the span of the centre."""
     x, y = cells["x"].to_numpy(), cells["y"].to_numpy()
     city = np.hypot(x, y) < 0.45 * float(np.ptp(x))
     limits = shapely.union_all(cells.geometry.values[city])

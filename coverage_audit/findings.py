@@ -120,19 +120,19 @@ def number(value: Any) -> float | None:
 
 
 def pct(value: Any, digits: int = 1) -> str:
-    """A share as a percentage: 0.1234 -> "12.3%"."""
+    """Format a share as a percentage: 0.1234 -> "12.3%"."""
     v = number(value)
     return "n/a" if v is None else f"{100 * v:.{digits}f}%"
 
 
 def count(value: Any) -> str:
-    """A count with thousands separators."""
+    """Format a count with thousands separators."""
     v = number(value)
     return "n/a" if v is None else f"{v:,.0f}"
 
 
 def p_text(value: Any) -> str:
-    """A p-value as quoted in sentences."""
+    """Format a p-value as quoted in sentences."""
     v = number(value)
     if v is None:
         return "n/a"
@@ -140,7 +140,7 @@ def p_text(value: Any) -> str:
 
 
 def gap_words(difference: Any) -> str:
-    """A difference (group rate minus comparison rate) in words: "12.5 percentage points below"."""
+    """Say a difference (group rate minus comparison rate) in words: "12.5 percentage points below"."""
     v = number(difference)
     if v is None:
         return "n/a"
@@ -151,7 +151,7 @@ def gap_words(difference: Any) -> str:
 
 
 def label(summary: Mapping[str, Any], group: str) -> str:
-    """The display label of a group (its name when the spec gives none)."""
+    """Return the display label of a group (its name when the spec gives none)."""
     labels = summary.get("group_labels") or {}
     return str(labels.get(group, group))
 
@@ -178,7 +178,7 @@ MAX_ENCLAVES = 2
 
 
 def _interval(row: Mapping[str, Any]) -> tuple[float, float] | None:
-    """A ratio interval where margins exist (``ratio_low``/``ratio_high`` or ``ratio_interval``)."""
+    """Return a ratio interval where margins exist (``ratio_low``/``ratio_high`` or ``ratio_interval``)."""
     low, high = number(row.get("ratio_low")), number(row.get("ratio_high"))
     if low is None or high is None:
         pair = row.get("ratio_interval") or row.get("ratio_ci")
@@ -259,7 +259,7 @@ def coverage_gaps(summary: Mapping[str, Any]) -> list[Finding]:
 
 
 def _enclave_group(summary: Mapping[str, Any], enclave: Mapping[str, Any]) -> str | None:
-    """The group whose share the enclave's test contrasts (else the largest share gap)."""
+    """Return the group to describe an enclave by: the largest named share gap, else the contrast group."""
     contrast = _get(summary, "enclave_settings", "contrast_group")
     diffs = enclave.get("share_difference") or {}
     reference = _get(summary, "coverage", "reference_group")
@@ -374,7 +374,10 @@ def models(summary: Mapping[str, Any]) -> list[Finding]:
     if not change:
         return []
     row = change[0]
-    alone, with_controls = number(row.get("odds_ratio_alone")), number(row.get("odds_ratio_with_controls"))
+    alone, with_controls = (
+        number(row.get("odds_ratio_alone")),
+        number(row.get("odds_ratio_with_controls")),
+    )
     if alone is None:
         return []
     controls = [str(c) for c in section.get("controls") or []]
@@ -406,7 +409,7 @@ def models(summary: Mapping[str, Any]) -> list[Finding]:
 
 @register_finding("sensitivity", order=70)
 def sensitivity(summary: Mapping[str, Any]) -> list[Finding]:
-    """What did not hold: sweeps in which a four-fifths flag disappears."""
+    """State what did not hold: sweeps in which a four-fifths flag disappears."""
     section = summary.get("sensitivity")
     if not isinstance(section, Mapping):
         return []
@@ -536,9 +539,11 @@ def _ids_text(ids: list[Any], limit: int = 4) -> str:
 
 @register_finding("assessment_area", order=5)
 def assessment_area(summary: Mapping[str, Any]) -> list[Finding]:
-    """An assessment area of whole tracts: adjacent LMI and majority-minority tracts left
-    out, partial counties, and its LMI and majority-minority shares against its counties
-    (12 CFR 228.41(d) and (e))."""
+    """Review an assessment area of whole tracts (12 CFR 228.41(d) and (e)).
+
+    Adjacent LMI and majority-minority tracts left out, partial counties, and the area's
+    LMI and majority-minority shares against its counties.
+    """
     section = summary.get("assessment_area")
     if not isinstance(section, Mapping):
         return []
@@ -589,9 +594,7 @@ def assessment_area(summary: Mapping[str, Any]) -> list[Finding]:
             f"tracts against {pct(region)} of the tracts of the county it lies in ({counties})"
         )
         if number(mm_share) is not None and number(mm_region) is not None:
-            sentence += (
-                f"; majority-minority tracts {pct(mm_share)} against {pct(mm_region)}"
-            )
+            sentence += f"; majority-minority tracts {pct(mm_share)} against {pct(mm_region)}"
         below = (number(share) or 0) < (number(region) or 0) or (number(mm_share) or 0) < (
             number(mm_region) or 0
         )

@@ -789,7 +789,7 @@ def _study_area_from(value: Any, base: Path, where: str) -> StudyAreaSpec | None
         raise SpecError(
             f"{where}: [study_area] give exactly one of path (a polygon layer or a list of ids), "
             f"ids, prefixes (GEOID prefixes such as county codes) or within (a distance from "
-            f"the footprint, e.g. \"5 km\"); found {given or 'none'}"
+            f'the footprint, e.g. "5 km"); found {given or "none"}'
         )
     name = _str(sa_d, "name", where, t) or "study area"
     rule = _choice(sa_d, "inside", where, t, STUDY_AREA_RULES, "point")

@@ -149,7 +149,7 @@ def _polygon_layer(spec: StudyAreaSpec, crs: Any) -> tuple[Any, InputRecord]:
         if spec.crs is None:
             raise InputError(
                 f"study area file '{spec.path}' has no CRS; set crs in [study_area] "
-                "(e.g. crs = \"EPSG:4269\")"
+                '(e.g. crs = "EPSG:4269")'
             )
         layer = layer.set_crs(spec.crs)
     geoms = np.asarray(layer.to_crs(crs).geometry.array, dtype=object)
@@ -162,7 +162,11 @@ def _polygon_layer(spec: StudyAreaSpec, crs: Any) -> tuple[Any, InputRecord]:
             "(a polygon layer), a list of ids, prefixes or within"
         )
     record = InputRecord(
-        "study_area", str(spec.path), sha256_file(spec.path), len(layer), layer.crs.to_string(),
+        "study_area",
+        str(spec.path),
+        sha256_file(spec.path),
+        len(layer),
+        layer.crs.to_string(),
         spec.layer,
     )
     return shapely.union_all(polys), record
@@ -256,7 +260,9 @@ def apply_study_area(
         missing = listed.isna().to_numpy()
         known = listed.isin(set(ids)).to_numpy()
         rows = np.arange(1, len(listed) + 1)
-        inputs.exclusions.add("study_area", rows[missing], [None] * int(missing.sum()), "missing id")
+        inputs.exclusions.add(
+            "study_area", rows[missing], [None] * int(missing.sum()), "missing id"
+        )
         unknown = ~known & ~missing
         inputs.exclusions.add(
             "study_area",

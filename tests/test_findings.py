@@ -171,7 +171,10 @@ def test_assessment_area_review_on_a_grid() -> None:
     cells = grid(3, 3)
     ids = cells["geoid"].to_numpy().astype(str)
     inside = np.isin(np.arange(9), [0, 3, 6])
-    tiers = np.array(["middle", "low", "moderate", "upper", "middle", "middle", "upper", "low", "middle"], dtype=object)
+    tiers = np.array(
+        ["middle", "low", "moderate", "upper", "middle", "middle", "upper", "low", "middle"],
+        dtype=object,
+    )
     mm = np.isin(np.arange(9), [4, 5])
     population = np.arange(1, 10) * 100.0
     review = review_assessment_area(
@@ -244,7 +247,9 @@ def test_first_viewport_shows_the_finding(tmp_path: Path, browser_page) -> None:
         {"width": 1400, "height": 900, "deviceScaleFactor": 1, "mobile": False},
     )
     try:
-        browser_page.open(tmp_path / "out" / "report.html", ready="document.readyState === 'complete'")
+        browser_page.open(
+            tmp_path / "out" / "report.html", ready="document.readyState === 'complete'"
+        )
         shot = browser_page.screenshot("first_viewport.png")
         box = browser_page.js(
             "var li = document.querySelector('#findings .finding-list li');"

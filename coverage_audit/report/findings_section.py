@@ -70,7 +70,7 @@ def findings_section(page: Page) -> Html:
 
 
 def first_sentence(summary: Mapping[str, Any]) -> str | None:
-    """The first finding sentence, or None."""
+    """Return the first finding sentence, or None."""
     sentence = get_in(summary, "findings")
     if isinstance(sentence, list) and sentence and isinstance(sentence[0], Mapping):
         return str(sentence[0].get("sentence"))

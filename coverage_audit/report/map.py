@@ -612,7 +612,7 @@ OUTSIDE_COLOR = "#a3a3a3"
 
 
 def outside_overlay(outside: gpd.GeoSeries, tolerance: float, decimals: int) -> dict[str, Any]:
-    """The areas outside the study area as one greyed overlay, below the others."""
+    """Return the areas outside the study area as one greyed overlay, below the others."""
     geoms = shapely.get_parts(np.asarray(outside.values))
     if tolerance > 0:
         geoms = shapely.simplify(geoms, tolerance, preserve_topology=True)

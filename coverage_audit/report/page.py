@@ -28,6 +28,7 @@ import scipy.sparse as sp
 
 from ..errors import InputError
 from . import further
+from .findings_section import findings_section
 from .markup import (
     NA,
     Html,
@@ -61,7 +62,6 @@ from .sections import (
     enclaves_section,
     segregation_section,
 )
-from .findings_section import findings_section
 from .text import ASSOCIATION_CAUTION, FOUR_FIFTHS_NOTE, METHODS, STANDARD_CAUTIONS
 
 __all__ = [

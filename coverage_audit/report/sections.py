@@ -203,8 +203,10 @@ def parameter_rows(spec: Mapping[str, Any]) -> list[tuple[str, Any]]:
 
 
 def audited_section(page: Page) -> Html:
-    """Return the appendix "What was audited": areas, footprint, inputs with their digests,
-    parameters, exclusions and software versions (provenance, placed after the cautions)."""
+    """Return the appendix "What was audited", placed after the cautions.
+
+    Areas, footprint, inputs with their digests, parameters, exclusions and versions.
+    """
     m = page.manifest
     areas = page.summary.get("areas") or {}
     parts: list[Any] = [
