@@ -489,11 +489,19 @@ _SEGREGATION_COLUMNS: tuple[tuple[str, str], ...] = (
     ("coverage_dissimilarity", "Coverage dissimilarity"),
     ("areal_coverage_dissimilarity", "Areal coverage dissimilarity"),
 )
+def _negated_points(value: Any) -> str:
+    """Format a gap (reference minus group) as a difference (group minus reference)."""
+    number = as_number(value)
+    return fmt_points(None if number is None else -number)
+
+
+#: The gap test is shown with the sign convention of every difference in the report:
+#: the group's rate minus the comparison rate (negative: the group is less served).
 _GAP_COLUMNS: tuple[tuple[str, str, Callable[[Any], str]], ...] = (
-    ("gap", "Gap", fmt_points),
+    ("gap", "Difference", _negated_points),
     ("p_value", "p (two-sided)", fmt_p),
     ("p_value_one_sided", "p (one-sided)", fmt_p),
-    ("null_mean", "Null mean", fmt_points),
+    ("null_mean", "Null mean", _negated_points),
     ("null_sd", "Null sd", fmt_points),
     ("permutations", "Permutations", fmt_count),
 )
@@ -539,7 +547,7 @@ def segregation_section(page: Page) -> Html:
                 rows,
                 table_id="gap-table",
                 caption="Permutation test of the served-area "
-                f"rate gap, {ref} rate minus the group's, in percentage points",
+                f"rate difference, the group's rate minus {ref}'s, in percentage points",
             )
         )
     return section("segregation", "Segregation", *parts)
