@@ -377,7 +377,12 @@ window.coverageAuditDraw = function (map, D) {
     if (F.dist) { row(t, "Nearest site", F.dist[i] === null ? "n/a" : fmtInt(F.dist[i]) + " m"); }
     if (F.lisa) {
       var lc = F.lisa[i] === null ? "left out" : D.codes.lisa[F.lisa[i]];
-      if (F.lisa_p && F.lisa_p[i] !== null) { lc += " (p = " + fmtP(F.lisa_p[i]) + ")"; }
+      if (D.lisa_fdr && F.lisa_q && F.lisa_q[i] !== null) {
+        lc += " (q = " + fmtP(F.lisa_q[i]) + " after false-discovery-rate correction" +
+          (F.lisa_p && F.lisa_p[i] !== null ? "; pseudo p = " + fmtP(F.lisa_p[i]) + " before" : "") + ")";
+      } else if (F.lisa_p && F.lisa_p[i] !== null) {
+        lc += " (pseudo p = " + fmtP(F.lisa_p[i]) + ", no false-discovery-rate correction)";
+      }
       row(t, "LISA cluster", lc);
     }
     if (F.enc) {

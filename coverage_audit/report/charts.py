@@ -222,43 +222,48 @@ def moran_scatter_chart(
     str
         Inline SVG markup.
     """
-    fig = _new_figure(5.2, 4.6)
+    from .palette import MORAN_LINE_COLOR, MORAN_QUADRANT_COLORS
+
+    fig = _new_figure(5.2, 5.2)
     ax = fig.add_subplot()
     many = z.size > RASTERISE_SCATTER_ABOVE
-    ax.scatter(
-        z,
-        lag,
-        s=9 if many else 16,
-        color=BAR_TONE,
-        alpha=0.55,
-        linewidths=0,
-        rasterized=many,
+    # Points take the tone of their quadrant (palette.py); the quadrants are named in a
+    # legend under the plot, so no label sits on the points.
+    quadrants = (
+        ("high-high", (z >= 0) & (lag >= 0), "high value, high-valued neighbours"),
+        ("low-low", (z < 0) & (lag < 0), "low value, low-valued neighbours"),
+        ("high-low", (z >= 0) & (lag < 0), "high value, low-valued neighbours"),
+        ("low-high", (z < 0) & (lag >= 0), "low value, high-valued neighbours"),
     )
-    ax.axhline(0, color="#888888", linewidth=0.8)
-    ax.axvline(0, color="#888888", linewidth=0.8)
+    for name, mask, words in quadrants:
+        ax.scatter(
+            z[mask],
+            lag[mask],
+            s=9 if many else 16,
+            color=MORAN_QUADRANT_COLORS[name],
+            edgecolors="#555555" if name in ("high-low", "low-high") else "none",
+            linewidths=0.3,
+            alpha=0.85,
+            rasterized=many,
+            label=f"{name}: {words}",
+        )
+    ax.axhline(0, color="#9a9a9a", linewidth=0.7, linestyle=":")
+    ax.axvline(0, color="#9a9a9a", linewidth=0.7, linestyle=":")
     denom = float(np.dot(z, z))
     slope = float(np.dot(z, lag) / denom) if denom > 0 else np.nan
     lim = float(max(np.max(np.abs(z), initial=1.0), np.max(np.abs(lag), initial=1.0)) * 1.08)
     if np.isfinite(slope):
         xs = np.array([-lim, lim])
-        ax.plot(xs, slope * xs, color=FLAG_TONE, linewidth=1.5, label=f"slope {slope:.3f}")
-        ax.legend(loc="lower right", fontsize=8)
-    for x, yv, text in (
-        (0.97, 0.97, "high-high"),
-        (0.03, 0.03, "low-low"),
-        (0.97, 0.03, "high-low"),
-        (0.03, 0.97, "low-high"),
-    ):
-        ax.text(
-            x,
-            yv,
-            text,
-            transform=ax.transAxes,
-            ha="right" if x > 0.5 else "left",
-            va="top" if yv > 0.5 else "bottom",
-            fontsize=8,
-            color="#555555",
+        ax.plot(
+            xs, slope * xs, color=MORAN_LINE_COLOR, linewidth=1.4, label=f"slope {slope:.3f}"
         )
+    ax.legend(
+        loc="upper center",
+        bbox_to_anchor=(0.5, -0.16),
+        ncol=1,
+        fontsize=7.5,
+        frameon=False,
+    )
     ax.set_xlim(-lim, lim)
     ax.set_ylim(-lim, lim)
     ax.set_aspect("equal")

@@ -32,7 +32,7 @@ from jinja2 import Template
 
 from .._util import clean_number, to_jsonable
 from ..errors import InputError, SpecError
-from . import assets
+from . import assets, palette
 
 __all__ = [
     "COVERED_COLORS",
@@ -71,11 +71,12 @@ SHARE_THRESHOLDS: tuple[int, ...] = (100, 250, 500, 750)
 SERVED_COLORS: tuple[str, ...] = ("#e6a03b", "#2b7186")  # unserved, served
 MAJORITY_MINORITY_COLORS: tuple[str, ...] = ("#e4e1d8", "#7a3f8f")  # no, yes
 
-INCOME_TIERS: tuple[str, ...] = ("low", "moderate", "middle", "upper", "unknown")
-INCOME_COLORS: tuple[str, ...] = ("#9a4a0b", "#df8f3a", "#c7d3e0", "#4b6c9c", "#d0d0d0")
+# Income tiers and LISA clusters: the project's palette, documented in palette.py.
+INCOME_TIERS: tuple[str, ...] = palette.INCOME_TIERS
+INCOME_COLORS: tuple[str, ...] = palette.INCOME_COLORS
 
-LISA_LABELS: tuple[str, ...] = ("high-high", "low-low", "high-low", "low-high", "not significant")
-LISA_COLORS: tuple[str, ...] = ("#c2423b", "#2f67a8", "#eda39b", "#9cc0e3", "#f1f0ec")
+LISA_LABELS: tuple[str, ...] = palette.LISA_LABELS
+LISA_COLORS: tuple[str, ...] = palette.LISA_COLORS
 
 MISSING_COLOR = "#bdbdbd"
 FOOTPRINT_KINDS: tuple[str, ...] = ("polygons", "points", "ids")
@@ -984,6 +985,8 @@ def build_map(
         "overlays": overlays,
         "enclave_info": to_jsonable(_enclave_info(summary)),
         "texts": _texts(title, summary, n, footprint),
+        # Hover texts say when a p-value is after false-discovery-rate correction.
+        "lisa_fdr": (summary.get("clustering") or {}).get("local_moran", {}).get("fdr") == "bh",
         "typical_size_m": _typical_size_m(geoms[drawable], metres_per_unit),
         "style": {
             "edge": "#ffffff",
@@ -1122,4 +1125,8 @@ def _fields(
         lp = pd.to_numeric(frame["lisa_p"], errors="coerce").to_numpy(dtype=float)
         ok = np.isfinite(lp)
         fields["lisa_p"] = _nullable(np.round(np.where(ok, lp, 0.0), 4), ok)
+    if "lisa_q" in frame.columns:
+        lq = pd.to_numeric(frame["lisa_q"], errors="coerce").to_numpy(dtype=float)
+        ok = np.isfinite(lq)
+        fields["lisa_q"] = _nullable(np.round(np.where(ok, lq, 0.0), 4), ok)
     return fields, missing
