@@ -48,10 +48,10 @@ derive_minority = true
 income_ratio = "income_ratio"
 
 [population.groups]
-white_nh = "pop_white_nh"
-black_nh = "pop_black_nh"
-hispanic = "pop_hispanic"
-asian_nh = "pop_asian_nh"
+white_nh = {{ column = "pop_white_nh", label = "non-Hispanic White" }}
+black_nh = {{ column = "pop_black_nh", label = "non-Hispanic Black" }}
+hispanic = {{ column = "pop_hispanic", label = "Hispanic" }}
+asian_nh = {{ column = "pop_asian_nh", label = "non-Hispanic Asian" }}
 
 {footprint}
 

@@ -212,7 +212,7 @@ def test_demo_delivery_first_finding() -> None:
     assert first["kind"] == "enclave"
     assert first["sentence"].startswith(
         "Enclave E1, 23 unserved areas with 94,195 people enclosed by served areas, is 76% "
-        "black_nh against 35% in the ring of areas around it"
+        "non-Hispanic Black against 35% in the ring of areas around it"
     )
     assert s["study_area"]["kind"] == "polygons" and s["study_area"]["areas_outside"] > 0
 

@@ -88,6 +88,11 @@ class Page:
             self._layers = charts.RegionLayers.build(self.areas.geometry.to_numpy(), served)
         return self._layers
 
+    def label(self, group: str) -> str:
+        """Return a group's display label (``summary["group_labels"]``; its name without)."""
+        labels = self.summary.get("group_labels")
+        return str(labels.get(group, group)) if isinstance(labels, Mapping) else group
+
     @property
     def comparison_label(self) -> str:
         """The group every ratio divides by, in words ("the reference group (white_nh)")."""
@@ -342,7 +347,12 @@ def coverage_section(page: Page) -> Html:
         item = as_mapping(data.get(g))
         flagged = bool(item.get("below_four_fifths"))
         is_comparison = g == page.comparison_group
-        label = g + (" (highest rate)" if page.highest else " (reference)") if is_comparison else g
+        name = page.label(g)
+        label = (
+            name + (" (highest rate)" if page.highest else " (reference)")
+            if is_comparison
+            else name
+        )
         rows.append(
             (
                 label,
@@ -392,12 +402,12 @@ def coverage_section(page: Page) -> Html:
         if page.highest and comparison_rate is None:
             comparison_rate = max((r for r in rates if r is not None), default=None)
         svg = charts.coverage_bar_chart(
-            order,
+            [page.label(g) for g in order],
             rates,
             comparison_rate=comparison_rate,
             salt="report-coverage-bars",
             comparison_label=(
-                f"{page.comparison_group or 'highest rate'} "
+                f"{page.label(page.comparison_group) if page.comparison_group else 'highest rate'} "
                 f"({'highest rate' if page.highest else 'reference'})"
             ),
             flagged=[bool(get_in(data, g, "below_four_fifths")) for g in order],
@@ -463,7 +473,7 @@ def _distance_part(distance: Any, page: Page) -> Html:
     unit = str(distance.get("unit") or "m")
     rows = [
         (
-            g,
+            page.label(g),
             Num(fmt_distance(get_in(data, g, "mean"), unit)),
             Num(fmt_distance(get_in(data, g, "median"), unit)),
         )
@@ -524,7 +534,7 @@ def segregation_section(page: Page) -> Html:
     ]
     if columns:
         rows = [
-            (g, *(Num(fmt_fixed(get_in(seg, k, g))) for k, _ in columns))
+            (page.label(g), *(Num(fmt_fixed(get_in(seg, k, g))) for k, _ in columns))
             for g in ordered(page.groups, present)
         ]
         parts.append(
@@ -538,7 +548,7 @@ def segregation_section(page: Page) -> Html:
     gap = seg.get("coverage_gap_test")
     if isinstance(gap, Mapping) and gap:
         rows = [
-            (g, *(Num(f(get_in(gap, g, k))) for k, _, f in _GAP_COLUMNS))
+            (page.label(g), *(Num(f(get_in(gap, g, k))) for k, _, f in _GAP_COLUMNS))
             for g in ordered(page.groups, gap)
         ]
         parts.append(
@@ -883,7 +893,7 @@ def _enclave_shares_part(enclaves: Sequence[Mapping[str, Any]], page: Page) -> H
                 diff = None if a is None or b is None else a - b
             rows.append(
                 (
-                    f"{e.get('id') or NA}: {g}",
+                    f"{e.get('id') or NA}: {page.label(g)}",
                     Num(fmt_percent(get_in(e, "group_shares", g))),
                     Num(fmt_percent(get_in(e, "ring_group_shares", g))),
                     Num(fmt_points(diff)),
