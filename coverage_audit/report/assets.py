@@ -467,8 +467,17 @@ window.coverageAuditDraw = function (map, D) {
             radius: o.radius_m,
             color: o.reach_color, weight: 1, fillColor: o.reach_color, fillOpacity: 0.06}));
         }
-        lg.addLayer(L.circleMarker(ll, {renderer: overlayRenderer, interactive: false, radius: dot,
-          color: "#ffffff", weight: 1, fillColor: o.color, fillOpacity: 1}));
+        var marker = L.circleMarker(ll, {renderer: overlayRenderer, interactive: !!o.names,
+          radius: dot, color: "#ffffff", weight: 1, fillColor: o.color, fillOpacity: 1});
+        if (o.names) { marker.bindTooltip(el("span", null, o.names[q]), {direction: "top"}); }
+        lg.addLayer(marker);
+      }
+    } else if (o.kind === "sites") {
+      for (var m = 0; m < o.lat.length; m++) {
+        var site = L.circleMarker(L.latLng(o.lat[m], o.lon[m]), {renderer: overlayRenderer,
+          radius: 6, color: "#ffffff", weight: 2, fillColor: o.colors[m], fillOpacity: 1});
+        site.bindTooltip(el("span", null, o.names[m]), {direction: "top"});
+        lg.addLayer(site);
       }
     }
     lg._caOverlay = o.key;

@@ -516,8 +516,8 @@ def _views(
         views.append(
             View(
                 key=f"share:{group}",
-                label=f"Share: {group}",
-                title=f"Share of population: {group}",
+                label=f"Share: {_group_label(summary, group)}",
+                title=f"Share of population: {_group_label(summary, group)}",
                 field=field,
                 type="bins",
                 colors=SHARE_COLORS,
@@ -608,6 +608,39 @@ def _texts(title: str, summary: Mapping[str, Any], n: int, footprint: Mapping | 
     return out
 
 
+def _group_label(summary: Mapping[str, Any], group: str) -> str:
+    """Return a group's display label (``summary["group_labels"]``; its name without)."""
+    labels = summary.get("group_labels")
+    return str(labels.get(group, group)) if isinstance(labels, Mapping) else str(group)
+
+
+#: Colours of sites closed and opened between two footprints.
+SITE_CHANGE_COLORS = {"closed": "#9a5b00", "opened": "#1f6f6b"}
+
+
+def site_change_overlay(summary: Mapping[str, Any]) -> dict[str, Any] | None:
+    """Return the sites closed and opened between two footprints (summary ``change``)."""
+    rows = (summary.get("change") or {}).get("site_changes") or []
+    if not rows:
+        return None
+    change = summary.get("change") or {}
+    return {
+        "key": "site_changes",
+        "label": f"Sites closed and opened ({change.get('before')} to {change.get('after')})",
+        "kind": "sites",
+        "names": [f"{r['name']} ({r['change']})" for r in rows],
+        "lon": [r["lon"] for r in rows],
+        "lat": [r["lat"] for r in rows],
+        "colors": [SITE_CHANGE_COLORS.get(r["change"], "#555555") for r in rows],
+        "visible": True,
+        "legend": [
+            {"color": c, "kind": "dot", "label": f"site {k}"}
+            for k, c in SITE_CHANGE_COLORS.items()
+            if any(r["change"] == k for r in rows)
+        ],
+    }
+
+
 #: Fill of the areas outside the study area (greyed: not analysed).
 OUTSIDE_COLOR = "#a3a3a3"
 
@@ -687,11 +720,16 @@ def _footprint_overlays(
             legend.append(
                 {"color": "#5a3d8a", "kind": "line", "label": f"reach: {radius:,.0f} m radius"}
             )
+        named = next((c for c in ("name", "site_name", "site_id") if c in points.columns), None)
         out.append(
             {
                 "key": "points",
                 "label": f"Service points: {name}",
                 "kind": "points",
+                # Site names show when pointing at a site.
+                "names": (
+                    [str(v) for v in points.loc[pts.index, named]] if named is not None else None
+                ),
                 "lon": np.round(pts.x.to_numpy(), 6).tolist(),
                 "lat": np.round(pts.y.to_numpy(), 6).tolist(),
                 "radius_m": radius,
@@ -957,6 +995,9 @@ def build_map(
     overlays = _footprint_overlays(footprint, areas.crs, tolerance, decimals)
     if outside is not None and len(outside):
         overlays.insert(0, outside_overlay(outside, tolerance, decimals))
+    changed = site_change_overlay(summary)
+    if changed is not None:
+        overlays.append(changed)
     codes: dict[str, list[str]] = {"tier": list(INCOME_TIERS), "lisa": list(LISA_LABELS)}
     if "enclave_id" in frame.columns:
         enclave = _enclave_overlay(
@@ -978,7 +1019,7 @@ def build_map(
         "scales": {"cf": CF_SCALE, "share": SHARE_SCALE},
         "codes": codes,
         "groups": [
-            {"label": str(g), "field": f"s{k}", "reference": g == reference}
+            {"label": _group_label(summary, g), "field": f"s{k}", "reference": g == reference}
             for k, g in enumerate(groups)
         ],
         "views": [v.to_dict() for v in views],
@@ -986,7 +1027,7 @@ def build_map(
         "enclave_info": to_jsonable(_enclave_info(summary)),
         "texts": _texts(title, summary, n, footprint),
         # Hover texts say when a p-value is after false-discovery-rate correction.
-        "lisa_fdr": (summary.get("clustering") or {}).get("local_moran", {}).get("fdr") == "bh",
+        "lisa_fdr": ((summary.get("clustering") or {}).get("local_moran") or {}).get("fdr") == "bh",
         "typical_size_m": _typical_size_m(geoms[drawable], metres_per_unit),
         "style": {
             "edge": "#ffffff",
