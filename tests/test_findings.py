@@ -263,3 +263,50 @@ def test_first_viewport_shows_the_finding(tmp_path: Path, browser_page) -> None:
     assert text == first
     assert 0 <= top and bottom <= 900, (top, bottom)
     assert shot.exists()
+
+
+# --- map context ---------------------------------------------------------------------------
+
+
+def test_map_layers_of_study_area_and_site_changes() -> None:
+    from coverage_audit.report import map as cmap
+
+    summary = {
+        "change": {
+            "before": "a",
+            "after": "b",
+            "site_changes": [
+                {"name": "North", "change": "closed", "lon": 1.0, "lat": 2.0},
+                {"name": "South", "change": "opened", "lon": 3.0, "lat": 4.0},
+            ],
+        }
+    }
+    layer = cmap.site_change_overlay(summary)
+    assert layer is not None
+    assert layer["names"] == ["North (closed)", "South (opened)"]
+    assert layer["colors"] == [cmap.SITE_CHANGE_COLORS["closed"], cmap.SITE_CHANGE_COLORS["opened"]]
+    assert cmap.site_change_overlay({}) is None
+
+
+def test_demo_maps_open_on_the_study_area(tmp_path: Path) -> None:
+    import json
+    import re
+
+    spec = load_spec(BUNDLED / "delivery.toml")
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        result = run_audit(spec.with_analysis(permutations=49, enclave_draws=49, sensitivity=False))
+    result.write(tmp_path / "out")
+    page = (tmp_path / "out" / "map.html").read_text(encoding="utf-8")
+    block = re.search(
+        r'<script type="application/json" id="ca-map-data">(.*?)</script>', page, re.S
+    )
+    data = json.loads(block.group(1))
+    assert "Outside the study area (not analysed)" in page
+    assert data["texts"]["findings_link"]["href"] == "report.html#findings"
+    assert data["texts"]["finding"] == result.summary["findings"][0]["sentence"]
+    # The view opens on the study area; the whole region is larger and contains it.
+    (south, west), (north, east) = data["bounds"]
+    (rs, rw), (rn, r_east) = data["region_bounds"]
+    assert rs <= south and rw <= west and rn >= north and r_east >= east
+    assert (rn - rs) * (r_east - rw) > (north - south) * (east - west)

@@ -214,6 +214,23 @@ window.coverageAuditDraw = function (map, D) {
   var S = D.style;
   var bounds = L.latLngBounds(D.bounds);
   map.fitBounds(bounds, {padding: [10, 10]});
+  if (D.region_bounds) {
+    // The view opens on the study area; this control shows the whole region.
+    var regionCtl = L.control({position: "topleft"});
+    regionCtl.onAdd = function () {
+      var box = el("div", "ca-panel ca-region");
+      var whole = el("button", null, "Whole region");
+      var study = el("button", null, "Study area");
+      whole.type = study.type = "button";
+      whole.onclick = function () { map.fitBounds(L.latLngBounds(D.region_bounds)); };
+      study.onclick = function () { map.fitBounds(bounds, {padding: [10, 10]}); };
+      box.appendChild(whole);
+      box.appendChild(study);
+      L.DomEvent.disableClickPropagation(box);
+      return box;
+    };
+    regionCtl.addTo(map);
+  }
 
   // Areas: drawn once on one canvas; a view change only restyles them.
   var shapes = decodeShapes(D.areas);

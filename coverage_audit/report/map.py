@@ -993,8 +993,14 @@ def build_map(
     fields, missing = _fields(frame, id_column, groups, label_column)
     views = _views(frame, fields, missing, groups, reference, summary)
     overlays = _footprint_overlays(footprint, areas.crs, tolerance, decimals)
+    region_bounds = None
     if outside is not None and len(outside):
         overlays.insert(0, outside_overlay(outside, tolerance, decimals))
+        oxmin, oymin, oxmax, oymax = outside.to_crs(4326).total_bounds
+        region_bounds = [
+            [float(min(ymin, oymin)), float(min(xmin, oxmin))],
+            [float(max(ymax, oymax)), float(max(xmax, oxmax))],
+        ]
     changed = site_change_overlay(summary)
     if changed is not None:
         overlays.append(changed)
@@ -1014,6 +1020,7 @@ def build_map(
     data = {
         "n": n,
         "bounds": bounds,
+        "region_bounds": region_bounds,
         "areas": encode_shapes(lonlat, decimals) if n else _empty_shapes(),
         "fields": fields,
         "scales": {"cf": CF_SCALE, "share": SHARE_SCALE},
