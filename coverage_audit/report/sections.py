@@ -173,6 +173,8 @@ def overview_figure(page: Page) -> Html:
     )
 
 
+#: Up to this many settings the parameter table is one table; longer, two side by side.
+PARAMETER_ROWS_IN_ONE = 24
 #: Characters of a SHA-256 digest shown in the report (the full value is in the title
 #: attribute and in manifest.json), so printed tables carry no page-long digit columns.
 DIGEST_SHOWN = 16
@@ -255,12 +257,33 @@ def audited_section(page: Page) -> Html:
         params.append(("seed", m["seed"]))
     if params:
         rows: list[tuple[Any, ...]] = [(tag("code", k), fmt_param(v)) for k, v in params]
-        parts.append(table(("Parameter", "Value"), rows, caption="Parameters (resolved spec)"))
+        # Two tables side by side: a long list of settings fills half the printed pages.
+        half = (len(rows) + 1) // 2 if len(rows) > PARAMETER_ROWS_IN_ONE else len(rows)
+        halves = [rows[:half], rows[half:]] if half < len(rows) else [rows]
+        parts.append(
+            tag(
+                "div",
+                *(
+                    table(
+                        ("Parameter", "Value"),
+                        chunk,
+                        caption="Parameters (resolved spec)" + (" continued" if k else ""),
+                    )
+                    for k, chunk in enumerate(halves)
+                ),
+                class_="table-pair",
+            )
+        )
     parts.append(_exclusions_part(page))
     libraries = m.get("libraries") or {}
     if isinstance(libraries, Mapping) and libraries:
-        rows = [(name, Num(cell_text(v))) for name, v in libraries.items()]
-        parts.append(table(("Library", Num("Version")), rows, caption="Software versions"))
+        parts.append(tag("h3", "Software versions"))
+        parts.append(
+            para(
+                "; ".join(f"{name} {cell_text(v)}" for name, v in libraries.items()) + ".",
+                class_="versions",
+            )
+        )
     parts.insert(
         1,
         para(
