@@ -310,3 +310,26 @@ def test_demo_maps_open_on_the_study_area(tmp_path: Path) -> None:
     (rs, rw), (rn, r_east) = data["region_bounds"]
     assert rs <= south and rw <= west and rn >= north and r_east >= east
     assert (rn - rs) * (r_east - rw) > (north - south) * (east - west)
+
+
+def test_report_shortens_digests_and_keeps_the_full_value_in_the_title(tmp_path: Path) -> None:
+    import re
+
+    spec = load_spec(BUNDLED / "assessment_area.toml")
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        result = run_audit(spec.with_analysis(permutations=49, enclave_draws=49, sensitivity=False))
+    result.write(tmp_path / "out")
+    page = (tmp_path / "out" / "report.html").read_text(encoding="utf-8")
+    digests = [r["sha256"] for r in result.manifest["inputs"]]
+    for full in digests:
+        assert f'title="{full}"' in page
+        assert f">{full[:16]}\u2026<" in page
+    # No 64-hex-digit run is printed as text (only inside title attributes).
+    text = re.sub(r'title="[^"]*"', "", page)
+    assert not re.search(r"[0-9a-f]{64}", text)
+    # Findings come first, then the evidence, methods, cautions and the appendix last.
+    order = [
+        page.index(f'<section id="{a}"') for a in ("findings", "coverage", "cautions", "audited")
+    ]
+    assert order == sorted(order)

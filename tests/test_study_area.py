@@ -127,3 +127,28 @@ def test_nothing_inside_is_an_error(region: Path) -> None:
 def test_one_kind_only(region: Path) -> None:
     with pytest.raises(SpecError, match="exactly one of"):
         _run(region, '[study_area]\nprefixes = ["01001"]\nwithin = "1 km"\n')
+
+
+def test_listed_ids_that_match_nothing_are_exclusions(region: Path) -> None:
+    ids = [*INSIDE, "01001999999"]
+    study = f"[study_area]\nids = {ids!r}\n".replace("'", '"')
+    summary = _run(region, study)
+    assert summary["study_area"]["unmatched_ids"] == 1
+    reasons = summary["exclusions"]["by_reason"]
+    assert reasons["study_area: listed id is not an analysed area of the areas file"] == 1
+    assert summary["coverage"]["groups"]["black"]["population"] == 590
+
+
+def test_console_prints_the_findings_after_its_table(region: Path, tmp_path: Path, capsys) -> None:
+    from coverage_audit.cli import main
+
+    spec = write_spec(
+        region / "audit.toml", spec_text('path = "zone.gpkg"') + STUDY_AREAS["prefixes"]
+    )
+    code = main(["run", str(spec), "--out", str(tmp_path / "out"), "--no-map", "--no-report"])
+    out = capsys.readouterr().out
+    assert code == 0
+    table_end = out.index("<4/5")
+    findings = out.index("Findings")
+    assert findings > table_end
+    assert "- Of 590 black people, 61.9% are covered" in out  # 365 / 590 = 0.6186...
