@@ -275,9 +275,7 @@ def moran_scatter_chart(
     lim = float(max(np.max(np.abs(z), initial=1.0), np.max(np.abs(lag), initial=1.0)) * 1.08)
     if np.isfinite(slope):
         xs = np.array([-lim, lim])
-        ax.plot(
-            xs, slope * xs, color=MORAN_LINE_COLOR, linewidth=1.4, label=f"slope {slope:.3f}"
-        )
+        ax.plot(xs, slope * xs, color=MORAN_LINE_COLOR, linewidth=1.4, label=f"slope {slope:.3f}")
     ax.legend(
         loc="upper center",
         bbox_to_anchor=(0.5, -0.16),

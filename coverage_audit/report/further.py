@@ -117,13 +117,13 @@ def key_figures(page: Page) -> list[Html]:
     if thresholds and not skipped_reason(sens):
         _, drawn = sweep_groups(thresholds, page)
         steady = all(len(set(flags_of(thresholds, g))) == 1 for g in drawn)
-        flagged = any(any(flags_of(thresholds, g)) for g in drawn)
+        any_flag = any(any(flags_of(thresholds, g)) for g in drawn)
         items.append(
             tag(
                 "li",
                 (
                     "No group is flagged at any served threshold tried"
-                    if not flagged
+                    if not any_flag
                     else "Four-fifths flags "
                     + (
                         "hold at every served threshold tried"

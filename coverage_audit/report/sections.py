@@ -522,6 +522,8 @@ _SEGREGATION_COLUMNS: tuple[tuple[str, str], ...] = (
     ("coverage_dissimilarity", "Coverage dissimilarity"),
     ("areal_coverage_dissimilarity", "Areal coverage dissimilarity"),
 )
+
+
 def _negated_points(value: Any) -> str:
     """Format a gap (reference minus group) as a difference (group minus reference)."""
     number = as_number(value)
