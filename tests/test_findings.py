@@ -328,6 +328,10 @@ def test_report_shortens_digests_and_keeps_the_full_value_in_the_title(tmp_path:
     # No 64-hex-digit run is printed as text (only inside title attributes).
     text = re.sub(r'title="[^"]*"', "", page)
     assert not re.search(r"[0-9a-f]{64}", text)
+    # The assessment-area review has its own evidence section.
+    review = result.summary["assessment_area"]
+    assert '<section id="assessment_area"' in page
+    assert ", ".join(review["adjacent_excluded_lmi"]["ids"]) in page
     # Findings come first, then the evidence, methods, cautions and the appendix last.
     order = [
         page.index(f'<section id="{a}"') for a in ("findings", "coverage", "cautions", "audited")

@@ -28,6 +28,9 @@ import scipy.sparse as sp
 
 from ..errors import InputError
 from . import further
+from .assessment_section import ANCHOR as ASSESSMENT_ANCHOR
+from .assessment_section import TITLE as ASSESSMENT_TITLE
+from .assessment_section import assessment_area_section
 from .findings_section import findings_section
 from .markup import (
     NA,
@@ -539,6 +542,7 @@ def render_report(
     if isinstance(summary.get("enclaves"), list):
         present.add("enclaves")
     present |= further.present(summary)
+    present |= {"assessment_area"} if isinstance(summary.get("assessment_area"), Mapping) else set()
     sections = [
         (anchor, title, render)
         for anchor, title, render in (
@@ -546,6 +550,7 @@ def render_report(
             ("segregation", "Segregation", segregation_section),
             ("clustering", "Spatial clustering", clustering_section),
             ("enclaves", "Enclaves", enclaves_section),
+            (ASSESSMENT_ANCHOR, ASSESSMENT_TITLE, assessment_area_section),
             *further.FURTHER_SECTIONS,
         )
         if anchor in present
