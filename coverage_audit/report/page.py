@@ -331,7 +331,7 @@ def _key_figures(page: Page) -> Html:
         flagged = [g for g in ordered(page.groups, cov) if get_in(cov, g, "below_four_fifths")]
         if flagged:
             parts = "; ".join(
-                f"{g} {fmt_percent(get_in(cov, g, 'rate'))} (ratio "
+                f"{page.label(g)} {fmt_percent(get_in(cov, g, 'rate'))} (ratio "
                 f"{fmt_fixed(get_in(cov, g, 'ratio'))})"
                 for g in flagged
             )
