@@ -152,3 +152,15 @@ def test_console_prints_the_findings_after_its_table(region: Path, tmp_path: Pat
     findings = out.index("Findings")
     assert findings > table_end
     assert "- Of 590 black people, 61.9% are covered" in out  # 365 / 590 = 0.6186...
+
+
+def test_check_reports_the_study_area(region: Path, capsys) -> None:
+    from coverage_audit.cli import main
+
+    spec = write_spec(
+        region / "audit.toml", spec_text('path = "zone.gpkg"') + STUDY_AREAS["within"]
+    )
+    assert main(["check", str(spec)]) == 0
+    out = capsys.readouterr().out
+    assert "study area 'study area' (within): 4 areas inside, 2 outside" in out
+    assert "4 would be analysed" in out
