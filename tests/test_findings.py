@@ -234,8 +234,9 @@ def test_demo_assessment_area_first_finding_names_lmi_tracts() -> None:
     )
 
 
-def test_first_viewport_shows_the_finding(tmp_path: Path, browser_page) -> None:
-    spec = load_spec(BUNDLED / "delivery.toml")
+@pytest.mark.parametrize("scenario", ["delivery", "branches", "assessment_area"])
+def test_first_viewport_shows_the_finding(tmp_path: Path, browser_page, scenario: str) -> None:
+    spec = load_spec(BUNDLED / f"{scenario}.toml")
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         result = run_audit(spec.with_analysis(permutations=49, enclave_draws=49, sensitivity=False))
