@@ -250,7 +250,8 @@ def _closed_branches(
     return gpd.GeoDataFrame(
         {
             "site_id": [f"C{k:02d}" for k in range(1, 6)],
-            "name": [f"Ostmere Savings branch {k:02d} (closed 2025)" for k in range(17, 22)],
+            "name": [f"Ostmere Savings branch {k:02d}" for k in range(17, 22)],
+            "closed": ["2025"] * 5,
         },
         geometry=points,
         crs=cells.crs,
