@@ -259,12 +259,18 @@ def coverage_gaps(summary: Mapping[str, Any]) -> list[Finding]:
 
 
 def _enclave_group(summary: Mapping[str, Any], enclave: Mapping[str, Any]) -> str | None:
-    """Return the group to describe an enclave by: the largest named share gap, else the contrast group."""
+    """Return the group to describe an enclave by.
+
+    The contrast group of the enclave test when it is a named group, else the named group
+    whose share most exceeds the ring's, else the contrast group.
+    """
     contrast = _get(summary, "enclave_settings", "contrast_group")
     diffs = enclave.get("share_difference") or {}
     reference = _get(summary, "coverage", "reference_group")
     # The derived "minority" share is the complement of the reference group's; a named
     # group says more when one stands out.
+    if isinstance(contrast, str) and contrast not in (reference, "minority") and contrast in diffs:
+        return contrast
     named = {
         g: number(v)
         for g, v in diffs.items()
@@ -311,8 +317,17 @@ def enclaves(summary: Mapping[str, Any]) -> list[Finding]:
             sentence += f", is {pct(share, 0)} {label(summary, g)} against {pct(ring, 0)} in the ring of areas around it"
             figures.update({"group": g, "group_share": share, "ring_group_share": ring})
         p = number(enclave.get("p_value"))
+        contrast = _get(summary, "enclave_settings", "contrast_group")
         if p is not None:
-            sentence += f" (composition test p = {p_text(p)})"
+            if g is None or g == contrast or not isinstance(contrast, str):
+                sentence += f" (composition test p = {p_text(p)})"
+            else:
+                # The test is of the contrast group's share; say so when another is described.
+                sentence += (
+                    f" (test of the {label(summary, contrast)} share against random "
+                    f"placements: p = {p_text(p)})"
+                )
+            figures["test_group"] = contrast
         # An enclave whose composition differs from its ring beyond chance leads the
         # headlines; one that does not is still listed, after the salient findings.
         salient = p is not None and p <= SIGNIFICANCE
