@@ -270,7 +270,7 @@ def test_first_viewport_shows_the_finding(tmp_path: Path, browser_page, scenario
 
 
 def test_map_layers_of_study_area_and_site_changes() -> None:
-    from coverage_audit.report import map as cmap
+    from coverage_audit.report import map_context as cmap
 
     summary = {
         "change": {

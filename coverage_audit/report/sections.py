@@ -48,6 +48,7 @@ from .markup import (
     table,
     tag,
 )
+from .provenance import DIGEST_SHOWN, PARAMETER_ROWS_IN_ONE, digest_cell, parameter_rows
 from .text import FOUR_FIFTHS_NOTE
 
 #: Exclusion rows listed in the page; beyond this the page links to exclusions.csv.
@@ -131,19 +132,6 @@ def _footprint_text(page: Page) -> str:
     return "Footprint: not described."
 
 
-def _flatten(mapping: Mapping[str, Any], prefix: str = "") -> list[tuple[str, Any]]:
-    out: list[tuple[str, Any]] = []
-    for key, value in mapping.items():
-        if isinstance(value, Mapping) and value:
-            out.extend(_flatten(value, f"{prefix}{key}."))
-        elif isinstance(value, list) and value and all(isinstance(v, Mapping) for v in value):
-            for k, item in enumerate(value):
-                out.extend(_flatten(item, f"{prefix}{key}[{k}]."))
-        else:
-            out.append((f"{prefix}{key}", value))
-    return out
-
-
 def _to_crs(frame: Any, crs: Any) -> gpd.GeoSeries | gpd.GeoDataFrame:
     if not isinstance(frame, (gpd.GeoSeries, gpd.GeoDataFrame)):
         frame = gpd.GeoSeries(frame, crs=crs)
@@ -173,42 +161,6 @@ def overview_figure(page: Page) -> Html:
     )
 
 
-#: Up to this many settings the parameter table is one table; longer, two side by side.
-PARAMETER_ROWS_IN_ONE = 24
-#: Characters of a SHA-256 digest shown in the report (the full value is in the title
-#: attribute and in manifest.json), so printed tables carry no page-long digit columns.
-DIGEST_SHOWN = 16
-
-
-def _digest_cell(digest: Any) -> Html:
-    if not isinstance(digest, str) or not digest:
-        return tag("span", NA, class_="digest")
-    shown = digest if len(digest) <= DIGEST_SHOWN else digest[:DIGEST_SHOWN] + "\u2026"
-    return tag("span", shown, class_="digest", title=digest)
-
-
-def parameter_rows(spec: Mapping[str, Any]) -> list[tuple[str, Any]]:
-    """Flatten the resolved spec into (key, value) rows, each setting once, with its unit.
-
-    A footprint's radius appears once, as ``radius_m`` in metres with its unit, rather
-    than as ``radius_m`` above a ``radius_unit`` that named the unit the spec was written in.
-    """
-    rows = _flatten(spec)
-    units = {k: v for k, v in rows if k.endswith("radius_unit")}
-    out: list[tuple[str, Any]] = []
-    for key, value in rows:
-        if key.endswith("radius_unit"):
-            continue
-        if key.endswith("radius_m") or key.endswith("within_m"):
-            if isinstance(value, (int, float)) and not isinstance(value, bool):
-                given = units.get(key[: -len("radius_m")] + "radius_unit")
-                value = f"{fmt_param(value)} m" + (
-                    f" (written in {given})" if given and given != "m" else ""
-                )
-        out.append((key, value))
-    return out
-
-
 def audited_section(page: Page) -> Html:
     """Return the appendix "What was audited", placed after the cautions.
 
@@ -232,7 +184,7 @@ def audited_section(page: Page) -> Html:
             (
                 i.get("role") or NA,
                 tag("span", i.get("path") or NA, class_="mono"),
-                _digest_cell(i.get("sha256")),
+                digest_cell(i.get("sha256")),
                 Num(fmt_count(i.get("rows"))),
                 i.get("crs") or NA,
             )
