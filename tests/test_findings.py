@@ -304,6 +304,9 @@ def test_demo_maps_open_on_the_study_area(tmp_path: Path) -> None:
     )
     data = json.loads(block.group(1))
     assert "Outside the study area (not analysed)" in page
+    # LISA hover texts say the q-value is after false-discovery-rate correction (bh).
+    assert data["lisa_fdr"] is True and "lisa_q" in data["fields"]
+    assert "after false-discovery-rate correction" in page
     assert data["texts"]["findings_link"]["href"] == "report.html#findings"
     assert data["texts"]["finding"] == result.summary["findings"][0]["sentence"]
     # The view opens on the study area; the whole region is larger and contains it.
