@@ -64,7 +64,7 @@ LIBRARIES = (
 )
 
 #: Child-stream names, in a fixed order, so each statistic has its own seeded stream.
-RNG_STREAMS = ("segregation", "clustering", "enclaves", "explain", "sensitivity")
+RNG_STREAMS = ("segregation", "clustering", "enclaves", "explain", "sensitivity", "uncertainty")
 
 
 def library_versions() -> dict[str, str | None]:
@@ -267,10 +267,13 @@ def run_audit(
     summary.update(statistics)
     if footprint.kind == "ids":
         summary["assessment_area"] = _assessment_area(frame, inputs.id_column, footprint)
+    from .margins import cautions, survey_error
+
+    survey_error(summary, frame, inputs, spec, streams["uncertainty"])
 
     exclusions = inputs.exclusions
     summary["exclusions"] = {"count": exclusions.count(), "by_reason": exclusions.by_reason()}
-    summary["cautions"] = list(CAUTIONS)
+    summary["cautions"] = cautions(CAUTIONS, summary)
     from .findings import build_findings
 
     summary["group_labels"] = spec.population.group_labels

@@ -27,7 +27,7 @@ import pandas as pd
 import scipy.sparse as sp
 
 from ..errors import InputError
-from . import further
+from . import further, uncertainty_section
 from .assessment_section import ANCHOR as ASSESSMENT_ANCHOR
 from .assessment_section import TITLE as ASSESSMENT_TITLE
 from .assessment_section import assessment_area_section
@@ -543,10 +543,16 @@ def render_report(
         present.add("enclaves")
     present |= further.present(summary)
     present |= {"assessment_area"} if isinstance(summary.get("assessment_area"), Mapping) else set()
+    present |= {uncertainty_section.ANCHOR} if uncertainty_section.has_margins(summary) else set()
     sections = [
         (anchor, title, render)
         for anchor, title, render in (
             ("coverage", "Coverage by group", coverage_section),
+            (
+                uncertainty_section.ANCHOR,
+                uncertainty_section.TITLE,
+                uncertainty_section.survey_error_section,
+            ),
             ("segregation", "Segregation", segregation_section),
             ("clustering", "Spatial clustering", clustering_section),
             ("enclaves", "Enclaves", enclaves_section),
