@@ -181,7 +181,7 @@ def _interval(row: Mapping[str, Any]) -> tuple[float, float] | None:
     """Return a ratio interval where margins exist (``ratio_low``/``ratio_high`` or ``ratio_interval``)."""
     low, high = number(row.get("ratio_low")), number(row.get("ratio_high"))
     if low is None or high is None:
-        pair = row.get("ratio_interval") or row.get("ratio_ci")
+        pair = row.get("ratio_ci90") or row.get("ratio_interval") or row.get("ratio_ci")
         if isinstance(pair, (list, tuple)) and len(pair) == 2:
             low, high = number(pair[0]), number(pair[1])
     return None if low is None or high is None else (low, high)
@@ -235,12 +235,19 @@ def coverage_gaps(summary: Mapping[str, Any]) -> list[Finding]:
         return [Finding("coverage_gap", sentence, figures)]
     for g, row in flagged[:MAX_GROUPS]:
         interval = _interval(row)
-        extra = f" (interval {interval[0]:.2f} to {interval[1]:.2f})" if interval else ""
+        extra = f" (90% interval {interval[0]:.2f} to {interval[1]:.2f})" if interval else ""
+        uncertain = row.get("four_fifths_confidence") == "uncertain"
         sentence = (
             f"Of {count(row.get('population'))} {label(summary, g)} {unit}, "
             f"{pct(row.get('rate'))} are covered, against {pct(ref_rate)} of {ref} {unit}: "
             f"a ratio of {row['ratio']:.2f}{extra}, below four-fifths ({threshold:g}), "
-            f"{gap_words(row.get('difference'))}."
+            f"{gap_words(row.get('difference'))}"
+            + (
+                "; the interval reaches the four-fifths line, so the survey error leaves the "
+                "flag uncertain."
+                if uncertain
+                else "."
+            )
         )
         figures = {
             "group": g,
@@ -254,6 +261,7 @@ def coverage_gaps(summary: Mapping[str, Any]) -> list[Finding]:
         }
         if interval:
             figures["ratio_interval"] = list(interval)
+            figures["four_fifths_confidence"] = row.get("four_fifths_confidence")
         out.append(Finding("coverage_gap", sentence, figures, salient=True))
     return out
 
@@ -547,6 +555,13 @@ def peers(summary: Mapping[str, Any]) -> list[Finding]:
     return out
 
 
+def _area_name(summary: Mapping[str, Any], *, start: bool = True) -> str:
+    """Name a footprint of listed tracts: "The listed tracts of <footprint>"."""
+    name = _get(summary, "footprint", "name")
+    text = f"the listed tracts of {name}" if name else "the listed tracts"
+    return text[0].upper() + text[1:] if start else text
+
+
 def _ids_text(ids: list[Any], limit: int = 4) -> str:
     shown = ", ".join(str(i) for i in ids[:limit])
     return shown + (f" and {len(ids) - limit} more" if len(ids) > limit else "")
@@ -580,8 +595,9 @@ def assessment_area(summary: Mapping[str, Any]) -> list[Finding]:
                 f"({count(mm.get('population'))} {unit})"
             )
         sentence = (
-            "The assessment area leaves out " + " and ".join(parts) + " that border it; an "
-            "assessment area may not arbitrarily exclude low- or moderate-income tracts."
+            f"{_area_name(summary)} leave out " + " and ".join(parts) + " that border them "
+            "(an assessment area may not arbitrarily exclude low- or moderate-income tracts, "
+            "12 CFR 228.41(e))."
         )
         out.append(
             Finding(
@@ -605,8 +621,10 @@ def assessment_area(summary: Mapping[str, Any]) -> list[Finding]:
     counties = ", ".join(str(c) for c in section.get("counties") or []) or "n/a"
     if number(share) is not None and number(region) is not None:
         sentence = (
-            f"Low- or moderate-income tracts are {pct(share)} of the assessment area's "
-            f"tracts against {pct(region)} of the tracts of the county it lies in ({counties})"
+            f"Low- or moderate-income tracts are {pct(share)} of "
+            f"{_area_name(summary, start=False)} against {pct(region)} of all tracts of "
+            f"the count{'ies' if len(section.get('counties') or []) > 1 else 'y'} "
+            f"around them ({counties})"
         )
         if number(mm_share) is not None and number(mm_region) is not None:
             sentence += f"; majority-minority tracts {pct(mm_share)} against {pct(mm_region)}"
@@ -635,7 +653,7 @@ def assessment_area(summary: Mapping[str, Any]) -> list[Finding]:
         out.append(
             Finding(
                 "assessment_area",
-                f"The assessment area takes in only part of {len(partial)} "
+                f"{_area_name(summary)} take in only part of {len(partial)} "
                 f"count{'ies' if len(partial) != 1 else 'y'} ({listed}); a partial county "
                 "should be the part the institution can reasonably serve.",
                 {"partial_counties": {k: dict(v) for k, v in partial.items()}},

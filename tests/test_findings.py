@@ -189,7 +189,7 @@ def test_assessment_area_review_on_a_grid() -> None:
     assert review.majority_minority_share_counties == pytest.approx(2 / 9)
     found = fnd.build_findings({"assessment_area": review.to_dict()})
     assert found[0]["sentence"].startswith(
-        "The assessment area leaves out 2 low- or moderate-income tracts (01001000002, "
+        "The listed tracts leave out 2 low- or moderate-income tracts (01001000002, "
         "01001000008; 1,000 people) and 1 majority-minority tract (500 people)"
     )
 
@@ -230,7 +230,8 @@ def test_demo_assessment_area_first_finding_names_lmi_tracts() -> None:
     first = _quick("assessment_area")["findings"][0]
     assert first["kind"] == "assessment_area"
     assert first["sentence"].startswith(
-        "The assessment area leaves out 8 low- or moderate-income tracts (99017010900"
+        "The listed tracts of assessment_area leave out 8 low- or moderate-income tracts "
+        "(99017010900"
     )
 
 
