@@ -14,7 +14,7 @@ from .markup import Html, Num, as_mapping, fmt_count, fmt_percent, para, section
 from .sections import Page
 
 #: Anchor and title of the section.
-ANCHOR, TITLE = "assessment_area", "Assessment-area review"
+ANCHOR, TITLE = "assessment_area", "Listed tracts: assessment-area review"
 
 
 def assessment_area_section(page: Page) -> Html:
