@@ -421,13 +421,12 @@ def _cmd_check(args: argparse.Namespace) -> int:
         analysis_crs=spec.analysis.analysis_crs,
         tables=spec.tables,
     )
-    ex = inputs.exclusions
     source_crs = inputs.source_crs.to_authority()
     crs_name = ":".join(source_crs) if source_crs else inputs.source_crs.name
     print(
         f"areas: {spec.areas.path} ({inputs.layout}, {crs_name}), id column {inputs.id_column}: "
         f"{inputs.input_rows} rows, {len(inputs.frame)} would be analysed, "
-        f"{ex.count('areas')} excluded"
+        f"{inputs.exclusions.count('areas')} excluded"
     )
     if inputs.water_only:
         print(
@@ -446,30 +445,43 @@ def _cmd_check(args: argparse.Namespace) -> int:
             for g, c in pop.groups
         )
     )
+    built = []
     for fp in spec.footprints:
-        built = build_footprint(
+        footprint = build_footprint(
             fp,
             inputs,
             inputs.exclusions,
             circle_vertices=spec.analysis.circle_vertices,
             id_width=spec.areas.id_width,
         )
-        line = f"footprint '{fp.name}' ({fp.kind}): {built.features} features"
-        if fp.kind == "zips" and built.match is not None:
+        built.append(footprint)
+        line = f"footprint '{fp.name}' ({fp.kind}): {footprint.features} features"
+        if fp.kind == "zips" and footprint.match is not None:
             line = (
-                f"footprint '{fp.name}' (ZIP codes, {built.match.layout or 'relationship file'}): "
-                f"{built.features} ZIP codes with a ZCTA or crosswalk row; "
-                f"{built.match.matched} areas reached"
+                f"footprint '{fp.name}' (ZIP codes, "
+                f"{footprint.match.layout or 'relationship file'}): {footprint.features} ZIP "
+                f"codes with a ZCTA or crosswalk row; {footprint.match.matched} areas reached"
             )
-        elif built.match is not None:
-            rate = built.match.match_rate
-            line += f"; {built.match.matched} of {built.match.rows} ids matched" + (
+        elif footprint.match is not None:
+            rate = footprint.match.match_rate
+            line += f"; {footprint.match.matched} of {footprint.match.rows} ids matched" + (
                 "" if rate is None else f" ({rate:.1%})"
             )
         print(line)
+    if spec.study_area is not None:
+        from .study_area import apply_study_area
+
+        inputs, study, _ = apply_study_area(
+            spec.study_area, inputs, built[0], id_width=spec.areas.id_width
+        )
+        print(
+            f"study area '{study.name}' ({study.kind}): {study.areas_inside} areas inside, "
+            f"{study.areas_outside} outside"
+        )
     if spec.activity is not None:
         _, _, match = read_activity(spec, inputs.frame[inputs.id_column].tolist())
         print(match.line())
+    ex = inputs.exclusions
     print(f"exclusions: {ex.count()} rows would be left out")
     for reason, n in ex.by_reason().items():
         print(f"  {n:6d}  {reason}")

@@ -42,8 +42,8 @@ def print_summary(result: Any, paths: dict[str, Path], *, seconds: float, stream
             + f": {entry['matched']} of {entry['rows']} rows matched the areas"
             + ("" if rate is None else f" ({100 * rate:.1f}%)")
         )
-    labels = (s.get("labels") or {}).get("groups") or {}
-    unit = (s.get("labels") or {}).get("unit") or "people"
+    labels = s.get("group_labels") or {}
+    unit = s.get("population_unit") or "people"
     table = Table(show_edge=False, header_style="bold")
     comparison = labels.get(cov["comparison_group"], cov["comparison_group"])
     console.print(
@@ -84,6 +84,11 @@ def print_summary(result: Any, paths: dict[str, Path], *, seconds: float, stream
             cells[5:5] = [_interval(row.get("ratio_ci90"), _num)]
         table.add_row(*cells)
     console.print(table)
+    findings = s.get("findings") or []
+    if findings:
+        console.print("[bold]Findings[/bold]")
+        for item in findings:
+            console.print(f"- {item['sentence']}")
     seg = s.get("segregation")
     if seg:
         d = ", ".join(

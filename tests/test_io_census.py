@@ -175,7 +175,7 @@ def test_census_download_csv_with_preset_gives_the_tidy_rates(region):
     assert pop.group_moes["black_nh"] == "B03002_004M"
     assert pop.total_moe == "B03002_001M"
     assert result.extras["inputs"].margins["B03002_008E"] == "B03002_008M"
-    assert result.summary["labels"]["groups"]["black_nh"] == "Black alone, not Hispanic"
+    assert result.summary["group_labels"]["black_nh"] == "Black alone, not Hispanic"
 
 
 def test_zipped_download_found_by_content_not_name(region):
@@ -511,7 +511,6 @@ def test_console_uses_labels_and_unit(region):
     print_summary(result, {"summary": tmp / "summary.json"}, seconds=1.0, stream=stream)
     text = stream.getvalue()
     assert "Hispanic or Latino" in text and "households" in text
-    assert "Minority (all but White alone, not Hispanic)" in text
     assert "table download.csv (Census table download" in text and "9 of 9 rows matched" in text
 
 
@@ -570,7 +569,7 @@ def test_groups_naming_download_estimates_get_their_margins(region):
     pop = result.extras["inputs"].population
     assert pop.group_moes == {"white": "B03002_003M", "black": "B03002_004M"}
     assert pop.total_moe == "B03002_001M"
-    assert result.summary["labels"]["groups"] == {"white": "white", "black": "Black, not Hispanic"}
+    assert result.summary["group_labels"] == {"white": "white", "black": "Black, not Hispanic"}
     assert result.extras["inputs"].margin_columns["black"] == "black_moe"
 
 
