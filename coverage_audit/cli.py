@@ -476,7 +476,7 @@ def _cmd_check(args: argparse.Namespace) -> int:
         )
         print(
             f"study area '{study.name}' ({study.kind}): {study.areas_inside} areas inside, "
-            f"{study.areas_outside} outside"
+            f"{study.areas_outside} outside; {len(inputs.frame)} would be analysed"
         )
     if spec.activity is not None:
         _, _, match = read_activity(spec, inputs.frame[inputs.id_column].tolist())
