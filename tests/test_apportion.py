@@ -367,18 +367,17 @@ BUNDLED = Path(__file__).resolve().parent.parent / "demo_regions" / "ostmere"
 
 
 def test_demo_blocks_regenerate_and_nest(tmp_path):
-    from coverage_audit.demo import DEMO_SEED, build_region, write_block_scenario
+    from coverage_audit.demo import write_demo_region
 
-    cells, demo = build_region(DEMO_SEED)
-    write_block_scenario(tmp_path, cells, demo, DEMO_SEED)
-    assert (tmp_path / "delivery_blocks.toml").read_bytes() == (
-        BUNDLED / "delivery_blocks.toml"
-    ).read_bytes()
-    made = gpd.read_parquet(tmp_path / "blocks.parquet")
+    out = write_demo_region(tmp_path / "ostmere")
+    made = out / "delivery_blocks.toml"
+    assert made.read_bytes() == (BUNDLED / "delivery_blocks.toml").read_bytes()
+    blocks = gpd.read_parquet(out / "blocks.parquet")
     bundled = gpd.read_parquet(BUNDLED / "blocks.parquet")
-    pd.testing.assert_frame_equal(pd.DataFrame(made), pd.DataFrame(bundled))
-    sums = made.groupby(made["GEOID20"].str[:11])["P2_001N"].sum()
-    assert np.array_equal(sums.loc[cells["geoid"]].to_numpy(), demo["pop_total"].to_numpy())
+    pd.testing.assert_frame_equal(pd.DataFrame(blocks), pd.DataFrame(bundled))
+    tracts = pd.read_csv(BUNDLED / "demographics.csv", dtype={"geoid": str})
+    sums = blocks.groupby(blocks["GEOID20"].str[:11])["P2_001N"].sum()
+    assert np.array_equal(sums.loc[tracts["geoid"]].to_numpy(), tracts["pop_total"].to_numpy())
 
 
 def test_demo_delivery_reports_both_ways(tmp_path):
