@@ -29,6 +29,7 @@ from pyproj import CRS
 from ._util import safe_ratio
 from .coverage import covered_fraction
 from .errors import AnalysisError, InputError
+from .inputs import InputRecord
 from .io.blocks import (
     BlockColumns,
     CleanBlocks,
@@ -130,10 +131,27 @@ def memory_task(chunk: tuple[Any, ...], pieces_wkb: np.ndarray, task: Task) -> P
 
 
 def file_task(path: str, pieces_wkb: np.ndarray, envelope: np.ndarray, task: Task) -> PartitionSums:
-    """One partition file of a prepared dataset: read, check, project, measure, sum."""
-    frame = gpd.read_parquet(path)
+    """One partition file of a prepared dataset: read it, then :func:`frame_task`."""
+    return frame_task(gpd.read_parquet(path), pieces_wkb, envelope, task, path)
+
+
+def frame_task(
+    frame: gpd.GeoDataFrame, pieces_wkb: np.ndarray, envelope: np.ndarray, task: Task, path: str
+) -> PartitionSums:
+    """One partition of a prepared dataset, as read: check, project, measure, sum.
+
+    Raises an AnalysisError if a block lies outside the envelope its pieces were chosen
+    for, or outside the county the partition's file names (``state=SS/county=CCC``):
+    either would mean the partitions and their pieces or area ids got out of step.
+    """
     check_columns(frame, task.columns, path)
     clean = clean_blocks(frame, task.columns)
+    county = _county_of(Path(path))
+    if county is not None and not all(v.startswith(county[0]) for v in clean.ids):
+        raise AnalysisError(
+            f"blocks of '{path}' are not all of county {county[0]}; prepare the dataset again "
+            "with coverage-audit prepare-blocks"
+        )
     geoms = _project(clean.geometry, frame.crs, task.crs_wkt, path)
     if geoms.size and task.served is None:
         low = shapely.bounds(geoms)
@@ -242,6 +260,9 @@ def apportion_blocks(
     pieces = np.asarray(footprint.pieces, dtype=object) if footprint.kind != "ids" else None
     parts, how = run_partitions(bspec.path, task, pieces, spec.analysis)
     sums = combine(parts, len(names))
+    inputs.inputs.append(
+        InputRecord("blocks", str(bspec.path), digest(bspec.path), sum(p.rows for p in parts))
+    )
     excluded = sorted(
         (e for p in parts for e in p.excluded), key=lambda e: (e[0], e[1] or "", e[2])
     )
@@ -303,7 +324,7 @@ def run_partitions(
 ) -> tuple[list[PartitionSums], str]:
     """Run every partition of the blocks: local in order, or on dask; say how."""
     func, args, how = partition_tasks(path, task, pieces, analysis)
-    return _run(func, args, analysis), how
+    return _run(func, args, analysis, path if func is file_task else None), how
 
 
 def partition_tasks(
@@ -373,6 +394,20 @@ def _task_for(task: Task, span: tuple[str, str] | None) -> Task:
     return replace(task, area_ids=task.area_ids[lo:hi])
 
 
+def digest(path: Path) -> str:
+    """Return the SHA-256 of a file, or of a prepared folder (its files' names and digests)."""
+    from .inputs import sha256_file
+
+    if not path.is_dir():
+        return sha256_file(path)
+    import hashlib
+
+    total = hashlib.sha256()
+    for f in dataset_files(path):
+        total.update(f"{f.relative_to(path).as_posix()} {sha256_file(f)}\n".encode())
+    return total.hexdigest()
+
+
 def _envelope(path: Path, crs_wkt: str) -> np.ndarray:
     """Return a partition's bounding box in the analysis CRS, padded (ENVELOPE_PAD_M)."""
     import pyarrow.parquet as pq
@@ -403,21 +438,39 @@ def _pieces_for(pieces: np.ndarray, envelopes: list[np.ndarray]) -> list[np.ndar
     return out
 
 
-def _run(func: Any, args: list[tuple[Any, ...]], analysis: Any) -> list[PartitionSums]:
-    """Run ``func`` on each argument tuple: here, on local processes, or on a cluster."""
+def _run(
+    func: Any, args: list[tuple[Any, ...]], analysis: Any, dataset: Path | None = None
+) -> list[PartitionSums]:
+    """Run ``func`` on each argument tuple: here, on local processes, or on a cluster.
+
+    On dask, the county files of a prepared dataset are read as the partitions of a
+    dask-geopandas collection (one per file, in file order: checked in each task), so
+    the workers read their own counties.
+    """
     if analysis.engine != "dask":
         return [func(*a) for a in args]
     from .distributed import _import_dask
 
-    dask, _ = _import_dask()
-    if analysis.dask_scheduler is None:
+    dask, dask_geopandas = _import_dask()
+    if dataset is not None and args:
+        root = dataset
+        parts = dask_geopandas.read_parquet(root).to_delayed()
+        if len(parts) != len(args):
+            raise AnalysisError(
+                f"dask-geopandas read {len(parts)} partitions from '{root}' but it has "
+                f"{len(args)} files; prepare the dataset again with coverage-audit prepare-blocks"
+            )
+        task = dask.delayed(frame_task, pure=False)
+        tasks = [task(part, *a[1:], a[0]) for part, a in zip(parts, args, strict=True)]
+    else:
         tasks = [dask.delayed(func, pure=False)(*a) for a in args]
+    if analysis.dask_scheduler is None:
         workers = max(1, min(len(tasks), os.cpu_count() or 1))
         return list(dask.compute(*tasks, scheduler=LOCAL_SCHEDULER, num_workers=workers))
     from distributed import Client
 
     with Client(analysis.dask_scheduler) as client:
-        return run_on_client(client, func, args)
+        return list(client.gather(client.compute(tasks)))
 
 
 def run_on_client(client: Any, func: Any, args: list[tuple[Any, ...]]) -> list[PartitionSums]:

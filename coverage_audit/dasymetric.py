@@ -24,7 +24,7 @@ from pyproj import CRS
 from ._util import safe_ratio
 from .coverage import covered_fraction
 from .errors import InputError
-from .inputs import PARQUET_SUFFIXES
+from .inputs import PARQUET_SUFFIXES, InputRecord, sha256_file
 
 #: Raster suffixes read with rasterio; anything else is read as a polygon layer.
 RASTER_SUFFIXES = (".tif", ".tiff", ".img", ".vrt")
@@ -155,6 +155,7 @@ def apportion_dasymetric(spec: Any, inputs: Any, footprint: Any, frame: gpd.GeoD
     out["covered_population_share"] = share
     out["served"] = share >= spec.analysis.served_threshold
     covered = {g: out[g].to_numpy(dtype=float) * share for g in inputs.groups}
+    inputs.inputs.append(InputRecord("mask", str(dspec.mask), sha256_file(dspec.mask), 0))
     section = {
         "mask": dspec.mask.name,
         "mask_kind": "raster" if dspec.mask.suffix.lower() in RASTER_SUFFIXES else "polygons",

@@ -90,6 +90,8 @@ def test_people_in_the_uncovered_half_are_not_covered(people_in_uncovered_half):
     assert areal["white"] == pytest.approx(70 / 260, abs=1e-12)
     assert areal["black"] == pytest.approx(255 / 710, abs=1e-12)
     assert cov["blocks"]["blocks_read"] == 6
+    roles = {r["role"]: r for r in result.manifest["inputs"]}
+    assert roles["blocks"]["rows"] == 6 and len(roles["blocks"]["sha256"]) == 64
     assert any("counted where they live, by census block" in c for c in result.summary["cautions"])
     assert not any("areal-weighted" in c for c in result.summary["cautions"])
     assert cov["blocks"]["blocks_used"] == 5
