@@ -393,5 +393,6 @@ def test_demo_delivery_reports_both_ways(tmp_path):
     page = (tmp_path / "out" / "report.html").read_text(encoding="utf-8")
     assert "Where people live" in page
     assert "Counting people where they live, by census block" in page
+    assert "assumed to be spread evenly within the block" in page
     areal = pd.read_csv(tmp_path / "out" / "areas.csv", dtype={"geoid": str})
     assert "covered_population_share" in areal.columns
