@@ -35,7 +35,10 @@ def has_blocks(summary: Mapping[str, Any]) -> bool:
 
 
 def difference_sentence(
-    groups: Mapping[str, Any], areal: Mapping[str, Any], how: str = "by census block"
+    groups: Mapping[str, Any],
+    areal: Mapping[str, Any],
+    how: str = "by census block",
+    label: Any = str,
 ) -> str:
     """Plain words for the largest gap between block-based and areal rates."""
     gaps = []
@@ -48,7 +51,7 @@ def difference_sentence(
     _, g, rate, other = max(gaps)
     direction = "higher" if rate > other else "lower" if rate < other else "the same"
     return (
-        f"Counting people where they live, {how}, the coverage rate of {g} is "
+        f"Counting people where they live, {how}, the coverage rate of {label(g)} is "
         f"{fmt_percent(rate)}, against {fmt_percent(other)} if people were spread evenly "
         f"over each area ({fmt_points(rate - other)}, {direction}): the largest difference "
         "between the two ways of counting. Where the two differ, the footprint's edges cut "
@@ -87,7 +90,7 @@ def blocks_section(page: Page) -> Html:
             table(
                 headers, rows, table_id="blocks-table", caption="Coverage rate by group, two ways"
             ),
-            para(difference_sentence(groups, areal, "on settled land")),
+            para(difference_sentence(groups, areal, "on settled land", page.label)),
         )
     return section(
         ANCHOR,
@@ -104,5 +107,5 @@ def blocks_section(page: Page) -> Html:
             "to be spread evenly within each block."
         ),
         table(headers, rows, table_id="blocks-table", caption="Coverage rate by group, two ways"),
-        para(difference_sentence(groups, areal)),
+        para(difference_sentence(groups, areal, label=page.label)),
     )
