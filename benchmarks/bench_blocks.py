@@ -34,13 +34,7 @@ import shapely
 from bench_distributed import MIB, PeakMemory, trim_memory
 from pyproj import CRS
 
-from coverage_audit.apportion import (
-    Task,
-    combine,
-    partition_tasks,
-    run_on_client,
-    run_partitions,
-)
+from coverage_audit.apportion import Task, combine, run_partitions
 from coverage_audit.footprint import cut_pieces
 from coverage_audit.io.blocks import BlockColumns, dataset_files, prepare_blocks
 from coverage_audit.synthetic import FICTIONAL_CRS, demographics, nested_blocks, tessellation
@@ -133,33 +127,21 @@ def main() -> None:
         run("local, prepared dataset", folder / "prepared", local)
         run("dask, local processes", folder / "prepared", dask)
         if not args.skip_cluster:
-            from distributed import Client, LocalCluster
+            from distributed import LocalCluster
 
             for workers in (1, 2):
-                with (
-                    LocalCluster(
-                        n_workers=workers,
-                        threads_per_worker=1,
-                        processes=True,
-                        dashboard_address=None,
-                        host="127.0.0.1",
-                        scheduler_kwargs={"dashboard_address": "127.0.0.1:0"},
-                    ) as cluster,
-                    Client(cluster) as client,
-                ):
-                    func, args_list, _ = partition_tasks(folder / "prepared", task, pieces, dask)
-                    trim_memory()
-                    with PeakMemory() as mem:
-                        start = time.perf_counter()
-                        parts = run_on_client(client, func, args_list)
-                        elapsed = time.perf_counter() - start
-                    same = baseline is not None and combine(parts, 4).equals(baseline)
-                    results[f"LocalCluster, {workers} worker(s)"] = (
-                        elapsed,
-                        (mem.peak_main - mem.start_main) / MIB,
-                        (mem.peak_children - mem.start_children) / MIB,
-                        same,
+                with LocalCluster(
+                    n_workers=workers,
+                    threads_per_worker=1,
+                    processes=True,
+                    dashboard_address=None,
+                    host="127.0.0.1",
+                    scheduler_kwargs={"dashboard_address": "127.0.0.1:0"},
+                ) as cluster:
+                    on_cluster = SimpleNamespace(
+                        engine="dask", partitions=None, dask_scheduler=cluster.scheduler_address
                     )
+                    run(f"LocalCluster, {workers} worker(s)", folder / "prepared", on_cluster)
         base = results["baseline: local, one file"][0]
         print(
             f"{'variant':34s} {'time s':>8s} {'ratio':>6s} {'peak MiB':>9s} {'workers MiB':>11s} same"

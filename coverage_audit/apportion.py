@@ -443,16 +443,19 @@ def _run(
 ) -> list[PartitionSums]:
     """Run ``func`` on each argument tuple: here, on local processes, or on a cluster.
 
-    On dask, the county files of a prepared dataset are read as the partitions of a
-    dask-geopandas collection (one per file, in file order: checked in each task), so
-    the workers read their own counties.
+    On a dask cluster, the county files of a prepared dataset are read as the partitions
+    of a dask-geopandas collection (one per file, in file order: checked in each task),
+    so the workers read their own counties.
     """
     if analysis.engine != "dask":
         return [func(*a) for a in args]
     from .distributed import _import_dask
 
     dask, dask_geopandas = _import_dask()
-    if dataset is not None and args:
+    # On a cluster the county files are read as a dask-geopandas collection and each read
+    # partition is measured where it was read. Local processes share no memory (a read
+    # partition would travel back through this process), so there each task reads its own.
+    if dataset is not None and args and analysis.dask_scheduler is not None:
         root = dataset
         parts = dask_geopandas.read_parquet(root).to_delayed()
         if len(parts) != len(args):

@@ -203,7 +203,7 @@ def _cmd_prepare_blocks(args: argparse.Namespace) -> int:
     from .io.blocks import prepare_blocks
 
     done = prepare_blocks(args.sources, args.out, id_column=args.id)
-    print(f"wrote {done['blocks']} blocks in {done['partitions']} county partitions to {args.out}")
+    print(f"wrote {done['blocks']} blocks in {done['files']} county files to {args.out}")
     return EXIT_OK
 
 

@@ -270,8 +270,8 @@ def test_prepared_dataset_has_county_partitions(random_region):
         for p in (random_region / "prepared").rglob("*.parquet")
     )
     assert [str(f) for f in files] == [
-        "state=01/county=001/blocks.parquet",
-        "state=01/county=003/blocks.parquet",
+        "state=01/county=001/part-0001-0000.parquet",
+        "state=01/county=003/part-0001-0000.parquet",
     ]
     import pyarrow.parquet as pq
 
@@ -352,11 +352,20 @@ def test_prepare_blocks_command(people_in_uncovered_half, capsys):
     folder = people_in_uncovered_half
     out = folder / "prepared"
     assert main(["prepare-blocks", str(folder / "blocks.gpkg"), "--out", str(out)]) == 0
-    assert "wrote 6 blocks in 1 county partitions" in capsys.readouterr().out
+    assert "wrote 6 blocks in 1 county files" in capsys.readouterr().out
     assert main(["prepare-blocks", str(folder / "blocks.gpkg"), "--out", str(out)]) == 2
     assert "is not empty" in capsys.readouterr().err
-    frame = gpd.read_parquet(out / "state=01" / "county=001" / "blocks.parquet")
+    frame = gpd.read_parquet(out / "state=01" / "county=001" / "part-0001-0000.parquet")
     assert frame["block_row"].tolist() == [1, 2, 3, 4, 5, 6]
+    # Read two features at a time: three files for the county, rows kept.
+    done = prepare_blocks([folder / "blocks.gpkg"], folder / "chunked", chunk=2)
+    assert done == {"blocks": 6, "files": 3, "folder": str(folder / "chunked")}
+    rows = gpd.read_parquet(
+        folder / "chunked" / "state=01" / "county=001" / "part-0001-0002.parquet"
+    )
+    assert rows["block_row"].tolist() == [5, 6]
+    chunked = run_audit(_spec(folder, "chunked")).summary["coverage"]
+    assert chunked["groups"]["white"]["covered_population"] == 30.0
     result = run_audit(_spec(folder, "prepared"))
     assert result.summary["coverage"]["groups"]["white"]["covered_population"] == 30.0
     ex = result.exclusions

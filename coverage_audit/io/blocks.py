@@ -229,8 +229,16 @@ def file_bounds(path: Path) -> np.ndarray:
     return np.asarray(geoms.total_bounds, dtype=float)
 
 
+#: Features read at a time by :func:`prepare_blocks` (memory stays bounded by a chunk).
+PREPARE_CHUNK = 500_000
+
+
 def prepare_blocks(
-    sources: Sequence[str | Path], out_dir: str | Path, *, id_column: str = "GEOID20"
+    sources: Sequence[str | Path],
+    out_dir: str | Path,
+    *,
+    id_column: str = "GEOID20",
+    chunk: int = PREPARE_CHUNK,
 ) -> dict[str, Any]:
     """Convert block files into GeoParquet partitioned by state and county, once.
 
@@ -241,15 +249,19 @@ def prepare_blocks(
         Shapefiles, GeoPackages or GeoParquet; all in one CRS.
     out_dir : path
         Output folder (created; must be empty or absent). Written as
-        ``state=SS/county=CCC/blocks.parquet``, each with a ``bbox`` covering column and
-        a ``block_row`` column (the block's 1-based row in its source file).
+        ``state=SS/county=CCC/part-SSSS-KKKK.parquet`` (source and chunk numbers), each
+        with a ``bbox`` covering column and a ``block_row`` column (the block's 1-based
+        row in its source file).
     id_column : str
         The 15-digit block GEOID column.
+    chunk : int
+        Features read at a time from an OGR source, so that a national file is
+        converted without holding it in memory.
 
     Returns
     -------
     dict
-        Files, blocks and partitions written.
+        Blocks and files written.
 
     Raises
     ------
@@ -260,47 +272,63 @@ def prepare_blocks(
     out = Path(out_dir)
     if out.exists() and any(out.iterdir()):
         raise InputError(f"output folder '{out}' is not empty; name a new folder")
-    frames = []
     crs = None
-    for source in sources:
+    blocks = files = 0
+    for k, source in enumerate(sources, start=1):
         path = Path(source)
         if not path.exists():
             raise InputError(f"blocks file '{path}' was not found; check the path")
-        try:
-            frame = (
-                gpd.read_parquet(path)
-                if _suffix(path) in PARQUET_SUFFIXES
-                else pyogrio.read_dataframe(path)
-            )
-        except Exception as exc:
-            raise InputError(f"blocks file '{path}' could not be read ({exc})") from None
-        if id_column not in frame.columns:
-            raise InputError(
-                f"blocks file '{path}' has no id column \"{id_column}\"; its columns are "
-                f"{[c for c in frame.columns if c != 'geometry'][:30]}; give --id"
-            )
-        if crs is not None and frame.crs is not None and not frame.crs.equals(crs):
-            raise InputError(f"blocks file '{path}' is in {frame.crs} but the others in {crs}")
-        crs = crs or frame.crs
-        frame[ROW_COLUMN] = np.arange(1, len(frame) + 1, dtype=np.int64)
-        frames.append(frame)
-    blocks = gpd.GeoDataFrame(pd.concat(frames, ignore_index=True), crs=crs)
-    numeric = pd.api.types.is_numeric_dtype(blocks[id_column].dtype)
+        for offset, frame in _chunks(path, chunk):
+            if id_column not in frame.columns:
+                raise InputError(
+                    f"blocks file '{path}' has no id column \"{id_column}\"; its columns are "
+                    f"{[c for c in frame.columns if c != 'geometry'][:30]}; give --id"
+                )
+            if crs is not None and frame.crs is not None and not frame.crs.equals(crs):
+                raise InputError(f"blocks file '{path}' is in {frame.crs} but the others in {crs}")
+            crs = crs or frame.crs
+            frame[ROW_COLUMN] = np.arange(offset + 1, offset + len(frame) + 1, dtype=np.int64)
+            files += _write_counties(frame, out, id_column, f"part-{k:04d}-{offset // chunk:04d}")
+            blocks += len(frame)
+    return {"blocks": blocks, "files": files, "folder": str(out)}
+
+
+def _chunks(path: Path, chunk: int) -> Any:
+    """Yield (offset, frame) chunks of a block layer."""
+    try:
+        if _suffix(path) in PARQUET_SUFFIXES:
+            yield 0, gpd.read_parquet(path)
+            return
+        total = int(pyogrio.read_info(path)["features"])
+        if total < 0:
+            yield 0, pyogrio.read_dataframe(path)
+            return
+        for offset in range(0, max(total, 1), chunk):
+            yield offset, pyogrio.read_dataframe(path, skip_features=offset, max_features=chunk)
+    except InputError:
+        raise
+    except Exception as exc:
+        raise InputError(f"blocks file '{path}' could not be read ({exc})") from None
+
+
+def _write_counties(frame: gpd.GeoDataFrame, out: Path, id_column: str, name: str) -> int:
+    """Write one chunk's blocks county by county; return the files written."""
+    numeric = pd.api.types.is_numeric_dtype(frame[id_column].dtype)
     ids = ids_as_text(
-        blocks[id_column], width=BLOCK_ID_WIDTH if numeric else None, where=f"column {id_column}"
+        frame[id_column], width=BLOCK_ID_WIDTH if numeric else None, where=f"column {id_column}"
     )
-    blocks[id_column] = ids
+    frame[id_column] = ids
     county = ids.map(lambda v: v[:COUNTY_WIDTH] if isinstance(v, str) else "")
-    unknown = county.str.len() != COUNTY_WIDTH
-    county[unknown] = "99999"  # kept, so that each bad row is reported when audited
+    # Kept in a partition of their own, so that each bad row is reported when audited.
+    county[(county.str.len() != COUNTY_WIDTH) | ~county.str.isdigit()] = "99999"
     written = 0
     for key in sorted(county.unique()):
-        part = blocks[(county == key).to_numpy()]
+        part = frame[(county == key).to_numpy()]
         folder = out / f"state={key[:2]}" / f"county={key[2:]}"
         folder.mkdir(parents=True, exist_ok=True)
-        part.to_parquet(folder / "blocks.parquet", index=False, write_covering_bbox=True)
+        part.to_parquet(folder / f"{name}.parquet", index=False, write_covering_bbox=True)
         written += 1
-    return {"blocks": int(len(blocks)), "partitions": written, "folder": str(out)}
+    return written
 
 
 def default_chunks(n_blocks: int, per_partition: int = 50_000) -> int:
