@@ -284,7 +284,7 @@ def apportion_blocks(
     for k, name in enumerate(names):
         out[name] = row[f"n{k}"].to_numpy() / SCALE
         covered[name] = row[f"c{k}"].to_numpy() / SCALE
-    out["blocks"] = row["blocks"].to_numpy()
+    out["block_count"] = row["blocks"].to_numpy()
     pop = out["population"].to_numpy(dtype=float)
     areal = out["covered_fraction"].to_numpy(dtype=float)
     with np.errstate(divide="ignore", invalid="ignore"):
@@ -298,7 +298,7 @@ def apportion_blocks(
     block_groups = [g for g in inputs.groups if g in covered]
     section = {
         "blocks_read": int(sum(p.rows for p in parts)),
-        "blocks_used": int(out["blocks"].sum()),
+        "blocks_used": int(out["block_count"].sum()),
         "blocks_excluded": len(excluded),
         "areas_without_blocks": int((~has).sum()),
         "prefix_digits": task.width,

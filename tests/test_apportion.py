@@ -77,6 +77,7 @@ def test_people_in_the_uncovered_half_are_not_covered(people_in_uncovered_half):
     assert areas.loc["01001000001", "covered_population_share"] == 0.0
     assert not areas.loc["01001000001", "served"]
     assert areas.loc["01001000003", "covered_population_share"] == 1.0
+    assert areas.loc["01001000001", "block_count"] == 2
     cov = result.summary["coverage"]
     assert cov["apportionment"] == "blocks"
     groups = cov["groups"]
