@@ -78,6 +78,8 @@ class Timings(SilentProgress):
         seconds = time.perf_counter() - t0
         self.sampler.peak = max(self.sampler.peak, _rss_mib())
         self.rows.append((name, seconds, self.sampler.peak))
+        # Printed as it ends, so that a run stopped early still shows its stages.
+        print(f"    ... {name}: {seconds:.1f} s, peak {self.sampler.peak:,.0f} MiB", flush=True)
 
 
 def build_workload(folder: Path, n_areas: int, n_points: int) -> dict:
@@ -127,13 +129,14 @@ def main() -> None:
     t0 = time.perf_counter()
     spec = build_workload(folder, args.areas, args.points)
     spec["output"] = {"map": not args.no_map, "report": not args.no_report}
-    print(f"workload built in {time.perf_counter() - t0:.1f} s in {folder}")
+    print(f"workload built in {time.perf_counter() - t0:.1f} s in {folder}", flush=True)
 
     sampler = _Sampler()
     # Baseline, same run: a plain read of the same areas file.
     t0 = time.perf_counter()
     pyogrio.read_dataframe(folder / "areas.gpkg")
     plain = time.perf_counter() - t0
+    print(f"    ... plain pyogrio read: {plain:.2f} s", flush=True)
 
     timings = Timings(sampler)
     t0 = time.perf_counter()
