@@ -11,9 +11,9 @@ the analysis).
 Method
 ------
 1. Every ring is oriented (exteriors counter-clockwise, holes clockwise, so the area is
-   always on the left) and, unless the layer is a clean coverage, simplified by
-   Douglas-Peucker within a quarter of the tolerance (a straight line densified with
-   extra vertices becomes one segment again).
+   always on the left) and simplified by Douglas-Peucker within a thousandth of the
+   tolerance (a straight line densified with extra vertices becomes one segment again;
+   a length changes by far less than a millimetre).
 2. Segments of different areas whose boxes, grown by the tolerance, meet are candidate
    pairs (an STR tree over segment boxes). For a pair (A, B), when both ends of B lie
    within half the tolerance of A's line, the stretch of A covered by B's projection is
@@ -38,8 +38,14 @@ from scipy.sparse.csgraph import connected_components
 from scipy.spatial import cKDTree
 
 #: Two boundaries closer than this (metres, in the analysis CRS) are taken for the same
-#: line; recorded with the weights in summary.json and the manifest.
+#: line; the tolerance in use is recorded with the weights in summary.json.
 EDGE_TOLERANCE_M = 0.1
+#: ... or closer than this fraction of the layer's extent, when that is smaller (a layer in
+#: other units, or a very small one).
+EDGE_TOLERANCE_SHARE = 1e-6
+#: Rings are simplified within this fraction of the tolerance: enough to undo a
+#: densification along straight lines, far too little to change a length measurably.
+_SIMPLIFY_FRACTION = 1e-3
 #: A shared stretch no longer than this many tolerances is a point contact, not an edge.
 _MIN_EDGE_TOLERANCES = 2.0
 
@@ -79,7 +85,7 @@ def _segments(geoms: np.ndarray, tolerance: float, simplify: bool) -> tuple[np.n
     oriented = shapely.orient_polygons(geoms)
     simple = oriented
     if simplify:
-        simple = shapely.simplify(oriented, tolerance / 4.0, preserve_topology=False)
+        simple = shapely.simplify(oriented, tolerance * _SIMPLIFY_FRACTION, preserve_topology=False)
         lost = shapely.is_empty(simple) | ~np.isin(shapely.get_type_id(simple), (3, 6))
         simple = np.where(lost, oriented, simple)
     parts, part_owner = shapely.get_parts(simple, return_index=True)
@@ -92,8 +98,20 @@ def _segments(geoms: np.ndarray, tolerance: float, simplify: bool) -> tuple[np.n
     return p[proper], q[proper], owner[proper].astype(np.int64), simple
 
 
+def default_tolerance(geometries: np.ndarray) -> float:
+    """The smaller of :data:`EDGE_TOLERANCE_M` and a millionth of the layer's extent."""
+    geoms = np.asarray(geometries, dtype=object)
+    if geoms.size == 0:
+        return EDGE_TOLERANCE_M
+    xmin, ymin, xmax, ymax = shapely.total_bounds(geoms)
+    extent = max(xmax - xmin, ymax - ymin)
+    if not np.isfinite(extent) or extent <= 0:
+        return EDGE_TOLERANCE_M
+    return float(min(EDGE_TOLERANCE_M, EDGE_TOLERANCE_SHARE * extent))
+
+
 def edge_table(
-    geometries: np.ndarray, tolerance: float = EDGE_TOLERANCE_M, *, simplify: bool = True
+    geometries: np.ndarray, tolerance: float | None = None, *, simplify: bool = True
 ) -> EdgeTable:
     """Measure shared edges, point contacts and free edges of the areas.
 
@@ -101,11 +119,12 @@ def edge_table(
     ----------
     geometries : numpy.ndarray of shapely Polygons or MultiPolygons
         Areas in a projected (metric) CRS.
-    tolerance : float
-        Distance (metres) under which two boundaries are taken for the same line.
+    tolerance : float, optional
+        Distance (CRS units, metres) under which two boundaries are taken for the same
+        line; by default :func:`default_tolerance`.
     simplify : bool
-        Simplify the rings first (step 1). A clean coverage (shared edges identical,
-        vertex for vertex) needs no simplification, and its lengths are then exact.
+        Simplify the rings first (step 1); without it lengths are exact on a clean
+        coverage, at the cost of more segments.
 
     Returns
     -------
@@ -113,6 +132,8 @@ def edge_table(
     """
     geoms = np.asarray(geometries, dtype=object)
     n = geoms.size
+    if tolerance is None:
+        tolerance = default_tolerance(geoms)
     perimeter = shapely.length(geoms)
     p, q, owner, simple = _segments(geoms, tolerance, simplify)
     seg_len = np.hypot(*(q - p).T)

@@ -146,10 +146,7 @@ class AreaGraph:
         if cached is None:
             if self._geometries is None:
                 raise AnalysisError("this AreaGraph was built without its geometries")
-            clean = self.__dict__.get("_clean")
-            if clean is None:
-                clean = _is_clean_coverage(self._geometries)
-            cached = edge_table(self._geometries, simplify=not clean)
+            cached = edge_table(self._geometries)
             self.__dict__["_edges"] = cached
         return cached
 
@@ -168,7 +165,7 @@ class AreaGraph:
         sizes = np.bincount(self.component_labels) if self.n else np.array([], dtype=int)
         return {
             "contiguity": self.kind,
-            "edge_tolerance_m": EDGE_TOLERANCE_M,
+            "edge_tolerance_m": self.edges().tolerance if self.n > 1 else EDGE_TOLERANCE_M,
             "transform": "row-standardised",
             "areas": self.n,
             "links": int(self.adjacency.nnz // 2),
@@ -213,12 +210,9 @@ def build_area_graph(
 
     Notes
     -----
-    When the polygons form a valid GEOS coverage (``shapely.coverage_is_valid``: shared
-    edges match vertex for vertex, as in a clean tract layer or a Voronoi tessellation),
-    neighbours are found by comparing vertices and edges, which is exact there. Otherwise
-    they come from :func:`coverage_audit.edges.edge_table`: areas whose boundaries share a
-    stretch of line within :data:`~coverage_audit.edges.EDGE_TOLERANCE_M` (longer than
-    twice it) are rook neighbours, areas whose boundaries come within it are queen
+    Neighbours come from :func:`coverage_audit.edges.edge_table`: areas whose boundaries share a
+    stretch of line within a tolerance (:func:`~coverage_audit.edges.default_tolerance`:
+    0.1 m, or a millionth of the layer's extent when smaller; longer than twice it) are rook neighbours, areas whose boundaries come within it are queen
     neighbours, whether or not their vertices coincide. An
     :class:`~coverage_audit.errors.IslandWarning` is issued when there are islands or
     several components.
@@ -241,12 +235,11 @@ def build_area_graph(
     if n == 0:
         raise AnalysisError("no areas to build contiguity from")
     table: EdgeTable | None = None
-    clean = n > 1 and _is_clean_coverage(geoms)
-    if n > 1 and not clean:
+    if n > 1:
         table = edge_table(geoms)
         adjacency = _table_contiguity(table, n, rook=(kind == "rook"))
     else:
-        adjacency = _contiguity_matrix(geoms, rook=(kind == "rook"))
+        adjacency = sp.csr_matrix((1, 1), dtype=np.float64)
     island_mask = np.asarray(adjacency.sum(axis=1)).ravel() == 0
     _, labels = connected_components(adjacency, directed=False)
     labels = _relabel_in_order(labels)
@@ -267,7 +260,6 @@ def build_area_graph(
         _knn_links=knn_links,
         _geometries=geoms,
     )
-    graph.__dict__["_clean"] = clean
     if table is not None:
         graph.__dict__["_edges"] = table
     if islands or graph.n_components > 1:
@@ -481,8 +473,7 @@ def shared_boundary_lengths(
     averaged, so it is exact for a clean coverage and still right where the two
     boundaries do not share vertices. Point contacts (queen-only neighbours) are dropped.
     """
-    geoms = np.asarray(geometries, dtype=object)
-    table = edge_table(geoms, simplify=geoms.size > 1 and not _is_clean_coverage(geoms))
+    table = edge_table(np.asarray(geometries, dtype=object))
     frame = table.pairs
     if pairs is not None:
         pair_arr = np.asarray(pairs, dtype=np.int64).reshape(-1, 2)

@@ -346,10 +346,14 @@ def test_edge_table_separates_holes_from_the_outer_edge():
 
 
 def test_point_contact_within_tolerance_is_a_queen_link_only():
-    # Two squares whose corners are 5 cm apart (under the 0.1 m tolerance): queen, not rook.
+    # Two squares whose corners are 5 cm apart (under a 0.1 m tolerance): queen, not rook;
+    # with the default tolerance of this 2 km layer (2 mm) they do not touch.
     geoms = np.array([shapely.box(0, 0, 1000, 1000), shapely.box(1000.05, 1000, 2000, 2000)])
-    table = edge_table(geoms)
+    assert edge_table(geoms).touching.size == 0
+    table = edge_table(geoms, tolerance=0.1)
     assert table.touching.tolist() == [[0, 1]]
     assert table.pairs.empty
     graph = build_quietly(lattice(2, 2), ids_for(4), kind="queen")
-    assert graph.to_dict()["edge_tolerance_m"] == EDGE_TOLERANCE_M == 0.1
+    # A 2-unit layer: a millionth of its extent is below 0.1 (default_tolerance).
+    assert graph.to_dict()["edge_tolerance_m"] == pytest.approx(2e-6)
+    assert EDGE_TOLERANCE_M == 0.1
