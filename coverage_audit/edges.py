@@ -99,7 +99,7 @@ def _segments(geoms: np.ndarray, tolerance: float, simplify: bool) -> tuple[np.n
 
 
 def default_tolerance(geometries: np.ndarray) -> float:
-    """The smaller of :data:`EDGE_TOLERANCE_M` and a millionth of the layer's extent."""
+    """Return the smaller of :data:`EDGE_TOLERANCE_M` and a millionth of the layer's extent."""
     geoms = np.asarray(geometries, dtype=object)
     if geoms.size == 0:
         return EDGE_TOLERANCE_M

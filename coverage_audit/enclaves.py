@@ -369,6 +369,56 @@ def find_enclaves(
     )
 
 
+def count_enclaves(
+    served_sets: Sequence[np.ndarray],
+    population: np.ndarray | Sequence[float],
+    graph: AreaGraph,
+    *,
+    min_surround: float = 0.75,
+    min_population: float = 0.0,
+    transparent: np.ndarray | Sequence[bool] | None = None,
+) -> list[int]:
+    """Count the enclaves for each of several served flags, in one pass over the graph.
+
+    Gives ``len(find_enclaves(...).enclaves)`` for each entry of ``served_sets`` (same
+    components, surround shares and thresholds), without describing or testing them: the
+    shared-edge table, the population and the transparent bodies are prepared once and
+    each served set costs one component labelling and a few sums over the edge table.
+    Used by the sensitivity sweeps.
+    """
+    min_surround = _check_fraction("min_surround", min_surround)
+    if not _is_finite_number(min_population) or float(min_population) < 0:
+        raise SpecError(f"min_population was {min_population!r} but must be a number >= 0")
+    n = graph.n
+    pop = _as_numbers(population, n, "population")
+    clear = (
+        np.zeros(n, dtype=bool) if transparent is None else _as_mask(transparent, n, "transparent")
+    )
+    adjacency = graph.adjacency.tocsr()
+    cache = graph.shared_lengths()
+    body, n_body = _masked_components(adjacency, clear)
+    counts = []
+    for served in served_sets:
+        served_arr = _as_mask(np.asarray(served), n, "served")
+        unserved = ~served_arr & ~clear
+        comp, n_comp = _masked_components(adjacency, unserved)
+        lengths = _boundary_budget(
+            np.empty(0, dtype=object),
+            adjacency,
+            comp,
+            body,
+            served_arr,
+            n_comp,
+            n_body,
+            cache=cache,
+            min_surround=min_surround,
+        )
+        pop_c = np.bincount(comp[unserved], pop[unserved], n_comp)
+        flagged = (lengths.surround >= min_surround - _SHARE_ATOL) & (pop_c > min_population)
+        counts.append(int(np.count_nonzero(flagged)))
+    return counts
+
+
 def footprint_holes(
     footprint: Any,
     geometries: np.ndarray | Sequence[Any],
@@ -822,27 +872,45 @@ def _enclosed_pairs(
     """Mark the oriented pairs (x in C, y outside C) where y is enclosed by component C.
 
     An area outside C is enclosed by C when, on the graph of shared edges with C's areas
-    removed, it cannot reach any area on the region's outer edge. Only the candidates'
-    pairs are marked.
+    removed, it cannot reach any area on the region's outer edge. The areas outside every
+    component (served and transparent ones) are first grouped into pieces, once: a piece
+    on the outer edge is enclosed by nothing, and a piece off it that borders a single
+    component is enclosed by that one. Only a piece bordering several components needs
+    a search of its own, for each candidate among them.
     """
     drop = np.zeros(x.size, dtype=bool)
     n = comp.size
     if candidates.size == 0 or x.size == 0:
         return drop
+    in_comp = comp >= 0
     on_edge = outer_edge > 0
-    for c in candidates:
+    rest = ~in_comp[x] & ~in_comp[y]
+    graph = sp.csr_matrix((np.ones(int(rest.sum())), (x[rest], y[rest])), shape=(n, n))
+    _, piece = connected_components(graph, directed=False)
+    n_piece = int(piece.max()) + 1
+    piece_on_edge = np.bincount(piece[~in_comp & on_edge], minlength=n_piece) > 0
+    across = in_comp[x] & ~in_comp[y]
+    key = np.unique(piece[y[across]] * (int(comp.max()) + 1) + comp[x[across]])
+    key_piece = key // (int(comp.max()) + 1)
+    borders = np.bincount(key_piece, minlength=n_piece)
+    single = (borders == 1) & ~piece_on_edge
+    drop |= across & single[piece[y]]
+    shared_pieces = np.flatnonzero((borders > 1) & ~piece_on_edge)
+    if shared_pieces.size == 0:
+        return drop
+    key_comp = key % (int(comp.max()) + 1)
+    involved = np.intersect1d(key_comp[np.isin(key_piece, shared_pieces)], candidates)
+    for c in involved:
         inside = comp == c
-        across = inside[x] & ~inside[y]
-        if not across.any():
-            continue
         keep = ~inside[x] & ~inside[y]
         # Node n stands for the world beyond the region's outer edge.
-        rows = np.concatenate([x[keep], np.flatnonzero(on_edge & ~inside)])
-        cols = np.concatenate([y[keep], np.full(int((on_edge & ~inside).sum()), n)])
-        graph = sp.csr_matrix((np.ones(rows.size), (rows, cols)), shape=(n + 1, n + 1))
-        _, label = connected_components(graph, directed=False)
+        edge_nodes = np.flatnonzero(on_edge & ~inside)
+        rows = np.concatenate([x[keep], edge_nodes])
+        cols = np.concatenate([y[keep], np.full(edge_nodes.size, n)])
+        full = sp.csr_matrix((np.ones(rows.size), (rows, cols)), shape=(n + 1, n + 1))
+        _, label = connected_components(full, directed=False)
         enclosed = label[:n] != label[n]
-        drop |= across & enclosed[y]
+        drop |= (comp[x] == c) & across & enclosed[y]
     return drop
 
 

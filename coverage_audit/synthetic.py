@@ -172,9 +172,7 @@ def service_points(
     )
 
 
-def densify_independently(
-    geometries: np.ndarray, *, vertices: int = 100, seed: int
-) -> np.ndarray:
+def densify_independently(geometries: np.ndarray, *, vertices: int = 100, seed: int) -> np.ndarray:
     """Add vertices to every polygon on its own, so that neighbours' vertices differ.
 
     Each edge of each polygon gets the same number of extra vertices at random positions

@@ -12,9 +12,9 @@ from libpysal.examples import get_path
 from libpysal.graph import Graph
 
 from coverage_audit import weights as weights_module
+from coverage_audit.edges import EDGE_TOLERANCE_M, edge_table
 from coverage_audit.errors import AnalysisError, IslandWarning, SpecError
 from coverage_audit.synthetic import densify_independently, tessellation
-from coverage_audit.edges import EDGE_TOLERANCE_M, edge_table
 from coverage_audit.weights import (
     CONTIGUITY_KINDS,
     ISLAND_POLICIES,
