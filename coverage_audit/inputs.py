@@ -454,7 +454,10 @@ def load_areas(
     drop(missing_geom, "null or empty geometry")
     type_ids = shapely.get_type_id(geoms)
     wrong_type = ~np.isin(type_ids, (3, 6, 7)) & ~missing_geom
-    drop(wrong_type, [f"not a polygon: {'' if g is None else g.geom_type}" for g in geoms])
+    if wrong_type.any():  # reasons written only for the rows dropped
+        type_names = np.full(geoms.size, "", dtype=object)
+        type_names[wrong_type] = [f"not a polygon: {g.geom_type}" for g in geoms[wrong_type]]
+        drop(wrong_type, list(type_names))
     repaired_geoms, repaired_mask = repair(kept_geometries(geoms, keep))
     collection = keep & (type_ids == 7)
     if collection.any():
