@@ -135,9 +135,10 @@ class AreaGraph:
             table = self.edges()
             frame = table.pairs
             # Only pairs that are neighbours under this graph's rule.
-            linked = np.asarray(
-                self.adjacency[frame["i"].to_numpy(), frame["j"].to_numpy()]
-            ).ravel()
+            i, j = frame["i"].to_numpy(), frame["j"].to_numpy()
+            linked = np.zeros(i.size)
+            if i.size:
+                linked = np.asarray(self.adjacency[i, j]).ravel()
             cached = _from_table(table, frame[linked != 0].reset_index(drop=True))
             self.__dict__["_shared_lengths"] = cached
         return cached
