@@ -48,6 +48,8 @@ EDGE_TOLERANCE_SHARE = 1e-6
 _SIMPLIFY_FRACTION = 1e-3
 #: A shared stretch no longer than this many tolerances is a point contact, not an edge.
 _MIN_EDGE_TOLERANCES = 2.0
+#: Segments matched at once (bounds the memory of the candidate pairs).
+_CHUNK = 100_000
 
 
 @dataclass(frozen=True)
@@ -141,28 +143,16 @@ def edge_table(
     lo = np.minimum(p, q) - grow
     hi = np.maximum(p, q) + grow
     boxes = shapely.box(lo[:, 0], lo[:, 1], hi[:, 0], hi[:, 1])
-    a, b = shapely.STRtree(boxes).query(boxes)
-    keep = owner[a] != owner[b]
-    a, b = a[keep], b[keep]
-    # Stretch of segment a covered by segment b, when b runs along a's line.
-    d = (q[a] - p[a]) / seg_len[a][:, None]
-    u = p[b] - p[a]
-    v = q[b] - p[a]
-    cross_u = d[:, 0] * u[:, 1] - d[:, 1] * u[:, 0]
-    cross_v = d[:, 0] * v[:, 1] - d[:, 1] * v[:, 0]
-    tu = d[:, 0] * u[:, 0] + d[:, 1] * u[:, 1]
-    tv = d[:, 0] * v[:, 0] + d[:, 1] * v[:, 1]
-    start = np.clip(np.minimum(tu, tv), 0.0, seg_len[a])
-    end = np.clip(np.maximum(tu, tv), 0.0, seg_len[a])
-    # Offset of b from a's line where b's projection enters and leaves a (b clipped to a,
-    # so a long b that leaves a's line beyond a's ends still counts along a).
-    span = tv - tu
-    safe = np.where(span == 0.0, 1.0, span)
-    off_start = cross_u + (start - tu) / safe * (cross_v - cross_u)
-    off_end = cross_u + (end - tu) / safe * (cross_v - cross_u)
-    along = (np.abs(off_start) <= tolerance / 2.0) & (np.abs(off_end) <= tolerance / 2.0)
-    along &= (end > start) & (span != 0.0)
-    a, b, start, end = a[along], b[along], start[along], end[along]
+    tree = shapely.STRtree(boxes)
+    # Segments are matched in chunks, so that the candidate pairs never all sit in memory.
+    found = [
+        _covered(tree, boxes, p, q, owner, seg_len, first, tolerance)
+        for first in range(0, boxes.size, _CHUNK)
+    ]
+    a = np.concatenate([f[0] for f in found]) if found else np.zeros(0, dtype=np.int64)
+    b = np.concatenate([f[1] for f in found]) if found else np.zeros(0, dtype=np.int64)
+    start = np.concatenate([f[2] for f in found]) if found else np.zeros(0)
+    end = np.concatenate([f[3] for f in found]) if found else np.zeros(0)
     covered = end - start
 
     # Pair lengths: each side measured along its own segments, then averaged.
@@ -190,6 +180,43 @@ def edge_table(
         hole_edge=hole_edge,
         tolerance=float(tolerance),
     )
+
+
+def _covered(
+    tree: shapely.STRtree,
+    boxes: np.ndarray,
+    p: np.ndarray,
+    q: np.ndarray,
+    owner: np.ndarray,
+    seg_len: np.ndarray,
+    first: int,
+    tolerance: float,
+) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Stretches of segments ``first..first + _CHUNK`` covered by other areas' segments."""
+    b, a = tree.query(boxes[first : first + _CHUNK])
+    a = a.astype(np.int64)
+    b = b.astype(np.int64) + first
+    keep = owner[a] != owner[b]
+    a, b = a[keep], b[keep]
+    # Stretch of segment a covered by segment b, when b runs along a's line.
+    d = (q[a] - p[a]) / seg_len[a][:, None]
+    u = p[b] - p[a]
+    v = q[b] - p[a]
+    cross_u = d[:, 0] * u[:, 1] - d[:, 1] * u[:, 0]
+    cross_v = d[:, 0] * v[:, 1] - d[:, 1] * v[:, 0]
+    tu = d[:, 0] * u[:, 0] + d[:, 1] * u[:, 1]
+    tv = d[:, 0] * v[:, 0] + d[:, 1] * v[:, 1]
+    start = np.clip(np.minimum(tu, tv), 0.0, seg_len[a])
+    end = np.clip(np.maximum(tu, tv), 0.0, seg_len[a])
+    # Offset of b from a's line where b's projection enters and leaves a (b clipped to a,
+    # so a long b that leaves a's line beyond a's ends still counts along a).
+    span = tv - tu
+    safe = np.where(span == 0.0, 1.0, span)
+    off_start = cross_u + (start - tu) / safe * (cross_v - cross_u)
+    off_end = cross_u + (end - tu) / safe * (cross_v - cross_u)
+    along = (np.abs(off_start) <= tolerance / 2.0) & (np.abs(off_end) <= tolerance / 2.0)
+    along &= (end > start) & (span != 0.0)
+    return a[along], b[along], start[along], end[along]
 
 
 def _touching(geoms: np.ndarray, tolerance: float) -> np.ndarray:
