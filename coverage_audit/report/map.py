@@ -279,27 +279,40 @@ def _simplify(geoms: np.ndarray, tolerance: float) -> tuple[np.ndarray, str]:
 #: Below this share of vertices shared with another area, the areas cannot be a tiling
 #: whose shared edges match vertex for vertex (GEOS' check of that is skipped).
 _SHARED_VERTEX_SHARE = 0.3
+#: Areas looked at by that test.
+_SAMPLE_AREAS = 400
 
 
 def _may_be_coverage(geoms: np.ndarray) -> bool:
-    """Tell cheaply whether most vertices appear in more than one area (a clean tiling)."""
+    """Tell cheaply whether most vertices appear in more than one area (a clean tiling).
+
+    Looks at up to :data:`_SAMPLE_AREAS` areas spread through the layer and their
+    neighbours (by bounding box): the share of the sampled areas' vertices that are also
+    vertices of another area.
+    """
     if geoms.size < 2:
         return True
-    parts, part_owner = shapely.get_parts(geoms, return_index=True)
+    sample = np.unique(np.linspace(0, geoms.size - 1, min(geoms.size, _SAMPLE_AREAS)).astype(int))
+    _, near = shapely.STRtree(geoms).query(geoms[sample])
+    near = np.union1d(near, sample)
+    parts, part_owner = shapely.get_parts(geoms[near], return_index=True)
     rings, ring_part = shapely.get_rings(parts, return_index=True)
     coords, coord_ring = shapely.get_coordinates(rings, return_index=True)
     if coords.shape[0] == 0:
         return True
     keep = np.r_[coord_ring[1:] == coord_ring[:-1], False]  # drop each closing vertex
-    owner = part_owner[ring_part[coord_ring[keep]]]
+    owner = near[part_owner[ring_part[coord_ring[keep]]]]
     x, y = coords[keep, 0], coords[keep, 1]
     order = np.lexsort((owner, y, x))
     x, y, owner = x[order], y[order], owner[order]
     start = np.r_[True, (x[1:] != x[:-1]) | (y[1:] != y[:-1])]
     first = np.flatnonzero(start)
     several = np.minimum.reduceat(owner, first) != np.maximum.reduceat(owner, first)
-    size = np.diff(np.r_[first, x.size])
-    return bool((size * several).sum() / x.size >= _SHARED_VERTEX_SHARE)
+    shared = np.repeat(several, np.diff(np.r_[first, x.size]))
+    sampled = np.isin(owner, sample)
+    if not sampled.any():
+        return True
+    return bool(shared[sampled].mean() >= _SHARED_VERTEX_SHARE)
 
 
 def _coordinate_decimals(tolerance_m: float) -> int:
