@@ -432,6 +432,15 @@ def _raster_overview(
     return np.asarray(canvas.buffer_rgba()).copy()
 
 
+def _for_display(geoms: np.ndarray, tolerance: float) -> np.ndarray:
+    """Simplify polygons each on its own within ``tolerance`` (0: unchanged) for drawing."""
+    if tolerance <= 0 or geoms.size == 0:
+        return geoms
+    simple = shapely.simplify(geoms, tolerance, preserve_topology=False)
+    lost = shapely.is_empty(simple) | ~np.isin(shapely.get_type_id(simple), (3, 6))
+    return np.where(lost, geoms, simple)
+
+
 def _show_raster(ax, layers: RegionLayers) -> None:
     xmin, ymin, xmax, ymax = layers.bounds
     ax.imshow(
@@ -568,7 +577,12 @@ def enclave_locator_chart(
         )
         served_path = polygon_path([layers.served_small])
         _add_path(overview, served_path, facecolor=SERVED_TONE, edgecolor="none")
-    enclave_path = polygon_path(layers.geometries[members])
+    large = layers.image is not None
+    rx0, ry0, rx1, ry1 = layers.bounds if large else shapely.bounds(layers.region)
+    region_side = max(rx1 - rx0, ry1 - ry0, 1.0)
+    enclave_path = polygon_path(
+        _for_display(layers.geometries[members], region_side / 400.0 if large else 0.0)
+    )
     _add_path(overview, enclave_path, facecolor=ENCLAVE_TONE, edgecolor=ENCLAVE_TONE, linewidth=0.8)
     focus = np.concatenate([members, ring])
     xmin, ymin, xmax, ymax = shapely.total_bounds(layers.geometries[focus])
@@ -597,10 +611,14 @@ def enclave_locator_chart(
     nearby = np.sort(nearby)
     colours = np.where(layers.served[nearby], SERVED_TONE, REGION_GREY).astype(object)
     colours[np.isin(nearby, members)] = ENCLAVE_TONE
+    # Large regions: each polygon simplified within about a pixel of the close-up.
+    close_tolerance = side / 1500.0 if large else 0.0
     patches = []
     facecolors = []
     for tone in (REGION_GREY, SERVED_TONE, ENCLAVE_TONE):
-        path = polygon_path(layers.geometries[nearby[colours == tone]])
+        path = polygon_path(
+            _for_display(layers.geometries[nearby[colours == tone]], close_tolerance)
+        )
         if path is not None:
             patches.append(PathPatch(path))
             facecolors.append(tone)
@@ -609,7 +627,7 @@ def enclave_locator_chart(
     )
     _add_path(
         close,
-        polygon_path(layers.geometries[ring]),
+        polygon_path(_for_display(layers.geometries[ring], close_tolerance)),
         facecolor="none",
         edgecolor=RING_EDGE,
         linewidth=1.3,
