@@ -157,15 +157,17 @@ def edge_table(
 
     # Pair lengths: each side measured along its own segments, then averaged.
     oa, ob = owner[a], owner[b]
-    i, j = np.minimum(oa, ob), np.maximum(oa, ob)
-    key = i * n + j
-    uniq, inverse = np.unique(key, return_inverse=True)
-    both = np.bincount(inverse, covered, uniq.size) / 2.0
+    summed = coo_matrix(
+        (covered, (np.minimum(oa, ob), np.maximum(oa, ob))), shape=(n, n)
+    ).tocsr()  # duplicates are added up
+    summed.sort_indices()
+    summed = summed.tocoo()
+    both = summed.data / 2.0
     edge_pairs = both > _MIN_EDGE_TOLERANCES * tolerance
     pairs = pd.DataFrame(
         {
-            "i": (uniq // n)[edge_pairs].astype(np.int64),
-            "j": (uniq % n)[edge_pairs].astype(np.int64),
+            "i": summed.row[edge_pairs].astype(np.int64),
+            "j": summed.col[edge_pairs].astype(np.int64),
             "length": both[edge_pairs],
         }
     )
@@ -259,7 +261,9 @@ def _free_edges(
     gap_seg = [seg, seg[last]]
     gap_lo = [before, running[last]]
     gap_hi = [start, seg_len[seg[last]]]
-    untouched = np.setdiff1d(np.arange(seg_len.size), seg)
+    touched = np.zeros(seg_len.size, dtype=bool)
+    touched[seg] = True
+    untouched = np.flatnonzero(~touched)
     gap_seg.append(untouched)
     gap_lo.append(np.zeros(untouched.size))
     gap_hi.append(seg_len[untouched])
