@@ -17,6 +17,7 @@ from pathlib import Path
 from typing import Any
 
 from .errors import SpecError
+from .spec_lending import LendingSpec, lending_from
 
 if sys.version_info >= (3, 11):
     import tomllib
@@ -224,6 +225,7 @@ class AuditSpec:
     activity: ActivitySpec | None = None
     base_dir: Path = field(default_factory=Path.cwd)
     source: Path | None = None
+    lending: LendingSpec | None = None
 
     @property
     def footprint(self) -> FootprintSpec:
@@ -269,6 +271,8 @@ class AuditSpec:
             value = getattr(self, key)
             if value is not None:
                 out[key] = _dataclass_dict(value)
+        if self.lending is not None:
+            out["lending"] = self.lending.to_dict()
         return out
 
 
@@ -323,6 +327,7 @@ _TOP_KEYS = (
     "explain",
     "change",
     "activity",
+    "lending",
 )
 _EXPLAIN_KEYS = tuple(f.name for f in fields(ExplainSpec))
 _CHANGE_KEYS = ("before", "after")
@@ -466,6 +471,7 @@ def spec_from_dict(
         activity=activity,
         base_dir=base,
         source=Path(source) if source else None,
+        lending=lending_from(data.get("lending"), base, where),
     )
 
 
