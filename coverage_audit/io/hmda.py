@@ -36,6 +36,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 import pyarrow as pa
+import pyarrow.compute as pc
 import pyarrow.csv as pacsv
 
 from ..errors import InputError
@@ -288,7 +289,11 @@ class RecordReader:
     optional : sequence of str, optional
         Fields read only when the file has them.
     block_size : int
-        Bytes parsed per block (memory is about one block plus the kept columns).
+        Bytes parsed per block (small blocks stay in the processor's cache: 1 MiB parses
+        faster here than 16 MiB).
+    chunk_rows : int
+        Blocks are screened and passed on in chunks of about this many records (memory
+        is about one chunk's selected columns).
 
     Attributes
     ----------
@@ -305,9 +310,11 @@ class RecordReader:
         *,
         filters: RecordFilters | None = None,
         optional: Sequence[str] = (),
-        block_size: int = 16 << 20,
+        block_size: int = 1 << 20,
+        chunk_rows: int = 200_000,
     ) -> None:
         self.path = Path(path)
+        self.chunk_rows = int(chunk_rows)
         self.filters = filters or RecordFilters()
         self.delimiter, header = read_header(self.path)
         by_norm = {normalise_name(n): n for n in header}
@@ -353,6 +360,8 @@ class RecordReader:
         )
         cursor = 2  # the first record line; the header is line 1
         done_rejects = 0
+        pending: list[tuple[pa.RecordBatch, np.ndarray]] = []
+        pending_rows = 0
         try:
             for batch in reader:
                 k = batch.num_rows
@@ -369,11 +378,16 @@ class RecordReader:
                 self.counts.lines += k
                 if k == 0:
                     continue
-                frame = batch.to_pandas()
-                frame.columns = list(self.columns)
-                kept = self._screen(frame, lines)
+                pending.append((batch, lines))
+                pending_rows += k
+                if pending_rows >= self.chunk_rows:
+                    kept = self._flush(pending)
+                    pending, pending_rows = [], 0
+                    if len(kept):
+                        yield kept
+            if pending:
+                kept = self._flush(pending)
                 if len(kept):
-                    self.counts.kept += len(kept)
                     yield kept
         except pa.ArrowInvalid as exc:
             raise InputError(
@@ -384,26 +398,37 @@ class RecordReader:
         for line, actual in rejected[done_rejects:]:
             self._reject_count(line, actual)
 
+    def _flush(self, pending: list[tuple[pa.RecordBatch, np.ndarray]]) -> pd.DataFrame:
+        table = pa.Table.from_batches([b for b, _ in pending]).combine_chunks()
+        batch = table.to_batches()[0] if table.num_rows else pending[0][0]
+        kept = self._screen(batch, np.concatenate([lines for _, lines in pending]))
+        self.counts.kept += len(kept)
+        return kept
+
     def _reject_count(self, line: int, actual: int) -> None:
         self.counts.lines += 1
         reason = f"wrong column count: {actual} fields where the header has {self.n_fields}"
         self.counts.malformed[reason.split(":")[0]] += 1
         self.excluded.append((line, None, reason))
 
-    def _screen(self, frame: pd.DataFrame, lines: np.ndarray) -> pd.DataFrame:
-        """Return the valid in-scope rows with ``line``; record the others."""
-        n = len(frame)
-        text = {c: frame[c].astype(str).str.strip() for c in frame.columns}
+    def _screen(self, batch: pa.RecordBatch, lines: np.ndarray) -> pd.DataFrame:
+        """Return the valid in-scope rows with ``line``; record the others.
+
+        Checks run on the Arrow arrays (pyarrow.compute), so a chunk of valid records costs
+        no Python loop; only the rows set aside are looked at one by one.
+        """
+        n = batch.num_rows
+        text = dict(zip(self.columns, batch.columns, strict=True))
         empty = np.ones(n, dtype=bool)
         for values in text.values():
-            empty &= (values == "").to_numpy()
+            empty &= _np(pc.equal(values, ""))
         filter_reason = np.full(n, "", dtype=object)
         other_reason = np.full(n, "", dtype=object)
         _set(filter_reason, empty, "empty line")
         f = self.filters
         year_text = text["activity_year"]
-        year_ok = year_text.str.fullmatch(r"\d{4}").to_numpy(dtype=bool)
-        years = np.where(year_ok, pd.to_numeric(year_text.where(year_ok, "0")), 0)
+        year_ok = _digits(year_text, 4)
+        years = _np(pc.cast(pc.if_else(pa.array(year_ok), year_text, "0"), pa.int32()))
         _set(
             filter_reason,
             ~year_ok | (years < FIRST_YEAR),
@@ -411,10 +436,10 @@ class RecordReader:
             year_text,
         )
         market_field = f.market_field if f.markets is not None else None
-        for name in self.columns:
-            if name in ("activity_year", *TRACT_FIELDS):
+        for name, values in text.items():
+            if name == "activity_year":
                 continue
-            bad = _invalid(name, text[name])
+            bad = _invalid(name, values)
             if bad is None or not bad.any():
                 continue
             target = (
@@ -422,57 +447,59 @@ class RecordReader:
                 if name == market_field or name in f.code_filters()
                 else other_reason
             )
-            _set(target, bad, lambda v, name=name: _reason(name, v), text[name])
-        for name in TRACT_FIELDS:
-            if name in self.columns:
-                values = text[name]
-                number = pd.to_numeric(values, errors="coerce").to_numpy(dtype=float)
-                bad = (values != "NA").to_numpy() & (values != "").to_numpy()
-                bad &= ~np.isfinite(number) | (number < 0)
-                _set(
-                    other_reason, bad, lambda v, name=name: f"{name} not a number: {v!r}", values
-                )
+            _set(target, bad, _reason_of(name), values)
         # Filters, on records whose filter fields are valid.
         valid = filter_reason == ""
         scope = np.full(n, "", dtype=object)
         if f.years is not None:
             _set(scope, valid & ~np.isin(years, list(f.years)), "years")
         if market_field is not None and f.markets is not None:
-            _set(scope, valid & ~text[market_field].isin(f.markets).to_numpy(), "markets")
+            _set(scope, valid & ~_isin(text[market_field], f.markets), "markets")
         for name, allowed in f.code_filters().items():
-            _set(scope, valid & ~text[name].isin(allowed).to_numpy(), name)
+            _set(scope, valid & ~_isin(text[name], allowed), name)
         out_of_scope = scope != ""
-        for key, count in Counter(scope[out_of_scope]).items():
-            self.counts.filtered[key] += count
+        if out_of_scope.any():
+            for key, count in Counter(scope[out_of_scope]).items():
+                self.counts.filtered[key] += count
         reason = np.where(valid, np.where(out_of_scope, "", other_reason), filter_reason)
         bad_rows = np.flatnonzero(reason != "")
         if bad_rows.size:
-            tracts = (
-                text["census_tract"].to_numpy(dtype=object)
-                if "census_tract" in text
-                else np.full(n, None)
-            )
-            for r in bad_rows:
+            tracts = text["census_tract"].take(pa.array(bad_rows)).to_pylist()
+            for r, tract in zip(bad_rows, tracts, strict=True):
                 why = str(reason[r])
                 self.counts.malformed[why.split(":")[0]] += 1
-                tract = tracts[r]
                 self.excluded.append((int(lines[r]), tract if tract else None, why))
         keep = (reason == "") & ~out_of_scope
-        out = pd.DataFrame({c: text[c].to_numpy(dtype=object)[keep] for c in frame.columns})
+        out = batch.filter(pa.array(keep)).to_pandas()
+        out.columns = list(self.columns)
         out["line"] = lines[keep]
         return out
+
+
+def _np(values: Any) -> np.ndarray:
+    """Return an Arrow boolean or number array as numpy."""
+    return np.asarray(values.to_numpy(zero_copy_only=False))
+
+
+def _digits(values: Any, width: int) -> np.ndarray:
+    """Rows holding exactly ``width`` ASCII digits (faster than a regular expression)."""
+    return _np(pc.equal(pc.binary_length(values), width)) & _np(pc.ascii_is_decimal(values))
+
+
+def _isin(values: Any, allowed: frozenset[str]) -> np.ndarray:
+    return _np(pc.is_in(values, value_set=pa.array(sorted(allowed), type=pa.string())))
 
 
 def _set(
     target: np.ndarray,
     mask: np.ndarray,
     reason: str | Callable[[str], str],
-    values: pd.Series | None = None,
+    values: Any = None,
 ) -> None:
     """Write ``reason`` where ``mask`` holds and no earlier reason is set.
 
-    ``reason`` is a text, or a function of the row's value (``values``) called only on
-    the rows written, so valid chunks cost no Python loop.
+    ``reason`` is a text, or a function of the row's value (``values``, an Arrow array)
+    called only on the rows written.
     """
     where = mask & (target == "")
     if not where.any():
@@ -480,32 +507,43 @@ def _set(
     if isinstance(reason, str):
         target[where] = reason
     else:
-        assert values is not None
-        picked = values.to_numpy(dtype=object)[where]
-        target[where] = np.asarray([reason(str(v)) for v in picked], dtype=object)
+        rows = np.flatnonzero(where)
+        picked = values.take(pa.array(rows)).to_pylist()
+        target[rows] = np.asarray([reason(str(v)) for v in picked], dtype=object)
 
 
-def _invalid(name: str, values: pd.Series) -> np.ndarray | None:
+_NUMBER = r"^\d+(\.\d+)?$"
+
+
+def _invalid(name: str, values: Any) -> np.ndarray | None:
     """Return the rows whose value of ``name`` is not valid, or None if it is not checked."""
     if name in CODES:
-        return ~values.isin(CODES[name]).to_numpy()
+        return ~_isin(values, frozenset(CODES[name]))
     if name == "census_tract":
-        return ~values.str.fullmatch(r"\d{11}").to_numpy(dtype=bool)
+        return ~_digits(values, 11)
     if name == "lei":
-        return ~values.str.upper().str.fullmatch(r"[A-Z0-9]{20}").to_numpy(dtype=bool)
+        return ~(_np(pc.equal(pc.binary_length(values), 20)) & _np(pc.ascii_is_alnum(values)))
     if name in ("derived_msa-md", "county_code"):
-        return ~values.str.fullmatch(r"\d{5}").to_numpy(dtype=bool)
+        return ~_digits(values, 5)
+    if name in TRACT_FIELDS:
+        ok = _np(pc.match_substring_regex(values, _NUMBER)) | _isin(values, frozenset({"NA", ""}))
+        return ~ok
     return None
 
 
-def _reason(name: str, value: str) -> str:
-    if name == "census_tract":
-        return "census tract NA" if value == "NA" else f"census tract not 11 digits: {value!r}"
-    if name == "lei":
-        return f"lei not 20 letters and digits: {value!r}"
-    if name in ("derived_msa-md", "county_code"):
-        return f"{name} not 5 digits: {value!r}"
-    return f"{name} outside the published codes: {value!r}"
+def _reason_of(name: str) -> Callable[[str], str]:
+    def reason(value: str) -> str:
+        if name == "census_tract":
+            return "census tract NA" if value == "NA" else f"census tract not 11 digits: {value!r}"
+        if name == "lei":
+            return f"lei not 20 letters and digits: {value!r}"
+        if name in ("derived_msa-md", "county_code"):
+            return f"{name} not 5 digits: {value!r}"
+        if name in TRACT_FIELDS:
+            return f"{name} not a number: {value!r}"
+        return f"{name} outside the published codes: {value!r}"
+
+    return reason
 
 
 def open_records(
@@ -514,7 +552,7 @@ def open_records(
     *,
     filters: RecordFilters | None = None,
     optional: Sequence[str] = (),
-    block_size: int = 16 << 20,
+    block_size: int = 1 << 20,
 ) -> list[RecordReader]:
     """Return one :class:`RecordReader` per file (headers read and checked up front)."""
     return [
