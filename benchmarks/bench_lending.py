@@ -64,16 +64,18 @@ def generate(path: Path, rows: int) -> float:
         }
     )
     lenders = [
-        FictionalLender(fictional_lei(f"BENCH{k}", k % 100), f"Lender {k}", 5_000,
-                        float(rng.uniform(0.5, 1.5)))
+        FictionalLender(
+            fictional_lei(f"BENCH{k}", k % 100), f"Lender {k}", 5_000, float(rng.uniform(0.5, 1.5))
+        )
         for k in range(BLOCK_ROWS // 5_000)
     ]
     parts = []
     for m in range(10):  # ten fictional markets of 2,000 tracts each
-        sub = tracts.iloc[m * 2_000:(m + 1) * 2_000]
+        sub = tracts.iloc[m * 2_000 : (m + 1) * 2_000]
         parts.append(
-            lending_records(sub, lenders[m * 5:(m + 1) * 5], (2022,), rng, msa=f"9{m:04d}",
-                            na_tracts=20)
+            lending_records(
+                sub, lenders[m * 5 : (m + 1) * 5], (2022,), rng, msa=f"9{m:04d}", na_tracts=20
+            )
         )
     block = pd.concat(parts, ignore_index=True)
     header = "|".join(block.columns) + "\n"
@@ -174,7 +176,9 @@ def main() -> None:
         path = args.keep or Path(tmp) / "records.txt"
         gen = generate(path, args.rows)
         size = path.stat().st_size / 2**30
-        print(f"generated {args.rows:,} records in the public layout ({size:.2f} GB) in {gen:.0f} s")
+        print(
+            f"generated {args.rows:,} records in the public layout ({size:.2f} GB) in {gen:.0f} s"
+        )
         ours = measure("ours", path)
         base = measure("pandas", path)
     for name, r in (("ours (streamed, validated)", ours), ("plain pandas read_csv", base)):

@@ -322,7 +322,9 @@ _RECORD_LENDERS = (
 )
 
 
-def write_lending_records(path: Path, cells: gpd.GeoDataFrame, demo: pd.DataFrame, seed: int) -> Path:
+def write_lending_records(
+    path: Path, cells: gpd.GeoDataFrame, demo: pd.DataFrame, seed: int
+) -> Path:
     """Write the fictional HMDA-layout record file of the demo region (pipe-delimited).
 
     Six made-up lenders (LEI-like codes starting 9999), 2022-2024, one fictional MSA/MD

@@ -29,7 +29,7 @@ import pandas as pd
 
 from .errors import InputError
 from .inputs import AreaInputs, InputRecord, sha256_file
-from .io.hmda import TRACT_FIELDS, RecordFilters, RecordReader, open_records
+from .io.hmda import RecordFilters, RecordReader, open_records
 from .spec import AuditSpec
 from .spec_lending import LendingSpec
 from .stats.lending import band_peers, compare_shares, lmi_flags, share_flags
@@ -78,9 +78,7 @@ def lending_section(
         agg[name] = cats[name]
     volumes = _volumes(agg, SETS["applications"])
     subject = ls.lender
-    cells = sorted(
-        {(y, m) for (y, m, lei), v in volumes.items() if lei == subject and v > 0}
-    )
+    cells = sorted({(y, m) for (y, m, lei), v in volumes.items() if lei == subject and v > 0})
     if not cells:
         where = ", ".join(f"'{r.path.name}'" for r in scans)
         raise InputError(
@@ -158,9 +156,7 @@ def _tract_source(
         "majority_black_hispanic": {
             "definition": f"Black and Hispanic share {comparison} {pop.majority_minority_share:g}"
         },
-        "high_minority": {
-            "definition": f"minority share {comparison} {ls.high_minority_share:g}"
-        },
+        "high_minority": {"definition": f"minority share {comparison} {ls.high_minority_share:g}"},
         "lmi": {
             "definition": "tract income below 80% of the area median (12 CFR 228.12(m); "
             "exactly 80 is middle-income)"
@@ -174,7 +170,7 @@ def _tract_source(
         categories["majority_black_hispanic"]["available"] = False
         categories["majority_black_hispanic"]["reason"] = (
             "the records carry no Black or Hispanic share of the tract; use the audit's "
-            "demographics (tract_source = \"areas\") for this category"
+            'demographics (tract_source = "areas") for this category'
         )
         for name in ("majority_minority", "high_minority", "lmi"):
             categories[name]["available"] = True
@@ -270,10 +266,12 @@ def _read(
                     "lei": chunk["lei"].str.upper().to_numpy(dtype=object),
                     "tract": chunk["census_tract"].to_numpy(dtype=object),
                     "action": chunk["action_taken"].to_numpy(dtype=object),
-                    "race": chunk.get("derived_race", pd.Series("", index=chunk.index))
-                    .to_numpy(dtype=object),
-                    "ethnicity": chunk.get("derived_ethnicity", pd.Series("", index=chunk.index))
-                    .to_numpy(dtype=object),
+                    "race": chunk.get("derived_race", pd.Series("", index=chunk.index)).to_numpy(
+                        dtype=object
+                    ),
+                    "ethnicity": chunk.get(
+                        "derived_ethnicity", pd.Series("", index=chunk.index)
+                    ).to_numpy(dtype=object),
                 }
             )
             parts.append(keyed.groupby(_KEYS, sort=False).size().rename("n").reset_index())
@@ -346,9 +344,7 @@ def _categories(
                 share, pop.majority_minority_share, pop.majority_minority_rule
             ),
             "majority_black_hispanic": np.nan,
-            "high_minority": share_flags(
-                share, ls.high_minority_share, pop.majority_minority_rule
-            ),
+            "high_minority": share_flags(share, ls.high_minority_share, pop.majority_minority_rule),
             "lmi": lmi_flags(tract_figures["income_pct"].to_numpy(dtype=float)),
         }
     )
@@ -371,7 +367,7 @@ def _peers(
     volumes: dict[tuple[int, str, str], float],
     cells: list[tuple[int, str]],
 ) -> dict[tuple[int, str], tuple[str, ...]]:
-    """The peers of the lender in each (year, market) cell, by the spec's rule."""
+    """Return the peers of the lender in each (year, market) cell, by the spec's rule."""
     present = agg.groupby(["year", "market"])["lei"].unique()
     out: dict[tuple[int, str], tuple[str, ...]] = {}
     for year, market in cells:
@@ -491,12 +487,15 @@ def _screen(
     sel = agg.loc[in_cells & agg["action"].isin(SETS["applications"]).to_numpy()]
     sel = sel.loc[sel["majority_minority"].notna()]
     n = sel["n"].astype(float)
-    by = pd.DataFrame(
-        {"lei": sel["lei"], "total": n, "count": n * sel["majority_minority"]}
-    ).groupby("lei")[["count", "total"]].sum()
+    by = (
+        pd.DataFrame({"lei": sel["lei"], "total": n, "count": n * sel["majority_minority"]})
+        .groupby("lei")[["count", "total"]]
+        .sum()
+    )
     all_count, all_total = float(by["count"].sum()), float(by["total"].sum())
     lenders = []
-    for lei, row in by.sort_values("total", ascending=False).iterrows():
+    by = by.reset_index().sort_values(["total", "lei"], ascending=[False, True], kind="stable")
+    for lei, row in zip(by["lei"], by.to_dict("records"), strict=True):
         if row["total"] < SCREEN_MIN_APPLICATIONS and lei != subject:
             continue
         cmp = compare_shares(

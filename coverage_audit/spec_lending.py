@@ -169,7 +169,7 @@ def lending_from(value: Any, base: Path, where: str) -> LendingSpec | None:
         if bad:
             raise SpecError(
                 f"{where}: [lending] markets must be 5-digit codes (derived_msa-md codes, or "
-                f"counties with market_by = \"county\"), got {bad[:3]}"
+                f'counties with market_by = "county"), got {bad[:3]}'
             )
     if markets is not None and market_by == "area":
         raise SpecError(f'{where}: [lending] markets does not apply with market_by = "area"')
@@ -256,4 +256,3 @@ _CODE_FIELDS = {
     "total_units": "total_units",
     "loan_types": "loan_type",
 }
-

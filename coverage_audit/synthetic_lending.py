@@ -156,8 +156,9 @@ def _fill(
         "Hispanic or Latino",
         np.where(rng.uniform(size=n) < 0.9, "Not Hispanic or Latino", "Ethnicity Not Available"),
     )
-    purpose = rng.choice(np.array(["1", "31", "32", "2", "4"], dtype=object), n,
-                         p=[0.5, 0.22, 0.18, 0.05, 0.05])
+    purpose = rng.choice(
+        np.array(["1", "31", "32", "2", "4"], dtype=object), n, p=[0.5, 0.22, 0.18, 0.05, 0.05]
+    )
     amount = (rng.lognormal(12.4, 0.45, n) // 10_000 * 10_000 + 5_000).astype(np.int64)
     originated = action == "1"
     cols: dict[str, object] = {name: "NA" for name in PUBLIC_FIELDS}
@@ -178,7 +179,9 @@ def _fill(
             "action_taken": action,
             "purchaser_type": "0",
             "preapproval": "2",
-            "loan_type": rng.choice(np.array(["1", "2", "3"], dtype=object), n, p=[0.8, 0.14, 0.06]),
+            "loan_type": rng.choice(
+                np.array(["1", "2", "3"], dtype=object), n, p=[0.8, 0.14, 0.06]
+            ),
             "loan_purpose": purpose,
             "lien_status": np.where(rng.uniform(size=n) < 0.95, "1", "2"),
             "reverse_mortgage": "2",

@@ -37,8 +37,12 @@ C = "9999TESTLENDERC00003"
 T = [f"01001{k:06d}" for k in range(1, 5)]  # the four cells of a 2 x 2 grid
 #: Appended tract fields written into the records: minority % and income % by tract.
 #: Tract 2 sits at exactly 50% minority and exactly 80% income (boundaries).
-TRACT_PCT = {T[0]: ("20.00", "120.00"), T[1]: ("50.00", "80.00"),
-             T[2]: ("90.00", "79.99"), T[3]: ("75.00", "50.00")}
+TRACT_PCT = {
+    T[0]: ("20.00", "120.00"),
+    T[1]: ("50.00", "80.00"),
+    T[2]: ("90.00", "79.99"),
+    T[3]: ("75.00", "50.00"),
+}
 
 
 def record(lei: str, tract: str, action: str, **fields: str) -> dict[str, str]:
@@ -76,7 +80,9 @@ def hand_records() -> list[dict[str, str] | str]:
     rows: list[dict[str, str] | str] = []
     # Lender A (the subject): tract 1: 6 originated, 2 denied; tract 2: 1 originated,
     # 1 purchased, 1 preapproval denied; tract 4: 1 withdrawn.
-    rows += rows_of(A, T[0], "1", 6) + rows_of(A, T[0], "3", 2, derived_race="Black or African American")
+    rows += rows_of(A, T[0], "1", 6) + rows_of(
+        A, T[0], "3", 2, derived_race="Black or African American"
+    )
     rows += rows_of(A, T[1], "1", 1) + rows_of(A, T[1], "6", 1) + rows_of(A, T[1], "7", 1)
     rows += rows_of(A, T[3], "4", 1)
     # Lender B: tract 1: 2 originated; tract 2: 4 originated, 2 denied; tract 3:
@@ -100,8 +106,12 @@ def hand_records() -> list[dict[str, str] | str]:
 
 
 #: Line numbers (header = line 1) of the malformed rows above, by reason.
-MALFORMED_LINES = {32: "census tract NA", 33: "census tract not 11 digits",
-                   34: "action_taken outside the published codes", 35: "wrong column count"}
+MALFORMED_LINES = {
+    32: "census tract NA",
+    33: "census tract not 11 digits",
+    34: "action_taken outside the published codes",
+    35: "wrong column count",
+}
 
 
 def write_records(path: Path, rows: list, delimiter: str = "|", quote: bool = False) -> Path:
@@ -156,6 +166,16 @@ black_hispanic_groups = ["black"]
 
 @pytest.fixture
 def region(tmp_path: Path) -> Path:
+    return build_region(tmp_path)
+
+
+@pytest.fixture(scope="module")
+def base(tmp_path_factory):
+    """The default review of the hand-built region, run once for the tests that read it."""
+    return review(build_region(tmp_path_factory.mktemp("base")))
+
+
+def build_region(tmp_path: Path) -> Path:
     """A 2 x 2 grid: minority shares 0.2, 0.75, 0.9, 0.75; income 120, 80, 79.9, 50; the
     footprint covers the left half of tract 1 and all of tract 3 (both served)."""
     areas = grid(2, 2)
@@ -174,12 +194,20 @@ def region(tmp_path: Path) -> Path:
     return tmp_path
 
 
-def review(folder: Path, lending_extra: str = "", population_extra: str = "",
-           records: str = "records.txt", lender: str = A):
+def review(
+    folder: Path,
+    lending_extra: str = "",
+    population_extra: str = "",
+    records: str = "records.txt",
+    lender: str = A,
+):
     (folder / "audit.toml").write_text(
         LENDING_SPEC.format(
-            crs=GRID_CRS, records=records, lender=lender,
-            lending_extra=lending_extra, population_extra=population_extra,
+            crs=GRID_CRS,
+            records=records,
+            lender=lender,
+            lending_extra=lending_extra,
+            population_extra=population_extra,
         ),
         encoding="utf-8",
     )
@@ -308,8 +336,8 @@ def test_reader_errors_name_the_file(tmp_path):
 # ------------------------------------------------------------------ the review, by hand
 
 
-def test_sets_categories_and_peers_by_hand(region):
-    s = review(region).summary["lending"]
+def test_sets_categories_and_peers_by_hand(base):
+    s = base.summary["lending"]
     assert s["lender"] == {"lei": A, "name": "Test Lender A"}
     assert s["peer_rule"] == "market" and s["peer_lenders"] == 2
     assert s["tract_source"] == "areas"
@@ -345,8 +373,8 @@ def test_sets_categories_and_peers_by_hand(region):
     assert cell[0]["by_set"]["applications"]["majority_minority"] == entry  # one cell = pooled
 
 
-def test_records_counted_filtered_and_listed(region):
-    result = review(region)
+def test_records_counted_filtered_and_listed(base):
+    result = base
     rec = result.summary["lending"]["records"]
     assert rec["lines"] == 34 and rec["analysed"] == 27 and rec["outside_areas"] == 0
     assert rec["filtered_by"] == {"years": 1, "markets": 1, "loan_purpose": 1}
@@ -389,8 +417,8 @@ def test_categories_from_the_records_appended_fields(region):
     assert counts(s2["by_set"]["applications"]["majority_minority"]) == (2, 10, 13, 15)
 
 
-def test_lending_gap_and_map_columns(region):
-    result = review(region)
+def test_lending_gap_and_map_columns(base):
+    result = base
     gaps = result.summary["lending"]["gaps"]
     # Served: tracts 1 and 3; A has 8 applications in tract 1 and none in tract 3.
     assert gaps["gap_ids"] == [T[2]]
@@ -402,11 +430,23 @@ def test_lending_gap_and_map_columns(region):
     assert areas["lending_gap"].tolist() == [False, False, True, False]
 
 
-def test_summary_keys_are_spelled_as_the_issue_asks(region):
-    s = json.loads(json.dumps(review(region).summary))["lending"]
+def test_summary_keys_are_spelled_as_the_issue_asks(base):
+    s = json.loads(json.dumps(base.summary))["lending"]
     assert {"lender", "peer_rule", "peer_lenders", "by_set", "denials"} <= set(s)
-    keys = {"lender_count", "lender_total", "lender_share", "peer_count", "peer_total",
-            "peer_share", "ratio", "difference", "z", "p_two_sided", "fisher_p", "below_peers"}
+    keys = {
+        "lender_count",
+        "lender_total",
+        "lender_share",
+        "peer_count",
+        "peer_total",
+        "peer_share",
+        "ratio",
+        "difference",
+        "z",
+        "p_two_sided",
+        "fisher_p",
+        "below_peers",
+    }
     for set_name in ("applications", "originations"):
         for cat in ("majority_minority", "majority_black_hispanic", "high_minority", "lmi"):
             assert keys <= set(s["by_set"][set_name][cat])
@@ -433,3 +473,36 @@ def test_spec_errors(region):
             review(region, extra)
     with pytest.raises(SpecError, match="not an LEI"):
         review(region, lender="SHORT")
+
+
+# ------------------------------------------------------------------ demo, report and map
+
+BUNDLED = Path(__file__).resolve().parent.parent / "demo_regions" / "ostmere"
+
+
+def test_demo_record_file_regenerates_identically(tmp_path):
+    # Generated by code with a fixed seed (demo.write_lending_records): the bundled record
+    # file and scenario spec are what the code makes.
+    from coverage_audit.demo import write_demo_region
+
+    out = write_demo_region(tmp_path / "ostmere")
+    for name in ("hmda_records.txt", "lending.toml", "applications.csv", "demographics.csv"):
+        assert (out / name).read_bytes() == (BUNDLED / name).read_bytes(), name
+
+
+def test_demo_review_shows_one_lender_below_its_peers_and_others_not(tmp_path):
+    spec = load_spec(BUNDLED / "lending.toml")
+    result = run_audit(spec.with_analysis(permutations=19, enclave_draws=19, sensitivity=False))
+    s = result.summary["lending"]
+    mm = s["by_set"]["applications"]["majority_minority"]
+    assert s["lender"]["name"] == "Ostmere Savings" and mm["below_peers"]
+    screen = s["screen"]
+    assert screen["below_peers"] == ["9999OSTMERESAVINGS01"]
+    assert "9999HARBORMUTUAL0001" in screen["not_below_peers"]
+    assert s["records"]["malformed_by_reason"] == {"census tract NA": 36}  # 2 per lender-year
+    paths = result.write(tmp_path / "out")
+    page = paths["report"].read_text(encoding="utf-8")
+    assert 'id="lending-table"' in page and "significantly below its peers" in page
+    assert "not below: 9999HARBORMUTUAL0001" in page
+    map_page = paths["map"].read_text(encoding="utf-8")
+    assert '"lender_share"' in map_page and '"lending_gap"' in map_page

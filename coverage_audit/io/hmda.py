@@ -170,7 +170,6 @@ CORE_FIELDS: tuple[str, ...] = ("activity_year", "lei", "census_tract", "action_
 FIRST_YEAR = 2018
 
 
-
 def normalise_name(name: str) -> str:
     """Return a field name with ``-`` as ``_``, lower case, stripped (for matching only)."""
     return name.strip().strip('"').strip().lower().replace("-", "_")
@@ -443,9 +442,7 @@ class RecordReader:
             if bad is None or not bad.any():
                 continue
             target = (
-                filter_reason
-                if name == market_field or name in f.code_filters()
-                else other_reason
+                filter_reason if name == market_field or name in f.code_filters() else other_reason
             )
             _set(target, bad, _reason_of(name), values)
         # Filters, on records whose filter fields are valid.

@@ -21,11 +21,11 @@ from .markup import (
     fmt_p,
     fmt_percent,
     fmt_points,
+    not_computed,
     para,
     records,
     section,
     skipped_reason,
-    not_computed,
     table,
     tag,
 )
@@ -214,9 +214,9 @@ def _records_part(rec: Mapping[str, Any]) -> Html:
 def _cells_part(s: Mapping[str, Any]) -> Html:
     rows = []
     for cell in records(s.get("by_year_market")):
-        entry = as_mapping(as_mapping(as_mapping(cell.get("by_set")).get("applications")).get(
-            "majority_minority"
-        ))
+        entry = as_mapping(
+            as_mapping(as_mapping(cell.get("by_set")).get("applications")).get("majority_minority")
+        )
         if not entry:
             continue
         rows.append((f"{cell.get('year')}, market {cell.get('market')}", *_cells(entry)))
@@ -264,7 +264,7 @@ def _gaps_part(gaps: Mapping[str, Any], name: str) -> Html:
         f"tracts ({fmt_percent(cmp.get('lender_share'))}) against "
         f"{fmt_count(other.get('gaps'))} of {fmt_count(other.get('tracts'))} other tracts "
         f"({fmt_percent(cmp.get('peer_share'))}); p = {fmt_p(cmp.get('p_value'))} "
-        f"({cmp.get('test') or 'z'} test). The map's layer \"Lending gaps\" shows them."
+        f'({cmp.get("test") or "z"} test). The map\'s layer "Lending gaps" shows them.'
     )
 
 

@@ -587,7 +587,7 @@ def _views(
 
 
 def _lending_views(missing: dict[str, bool], summary: Mapping[str, Any]) -> list[View]:
-    """The lending review's layers: lender share of applications by tract, and gaps."""
+    """Return the lending review's layers: lender share of applications by tract, and gaps."""
     lender = (summary.get("lending") or {}).get("lender") or {}
     name = str(lender.get("name") or lender.get("lei") or "the lender")
     return [

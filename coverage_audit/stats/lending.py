@@ -145,9 +145,7 @@ def compare_shares(
     if lender_count > lender_total or peer_count > peer_total:
         raise ValueError(f"a count exceeds its total: {counts}")
     x1, n1, x2, n2 = (int(round(c)) for c in counts)
-    test = two_proportion_test(
-        np.array([x1]), np.array([n1]), np.array([x2]), np.array([n2])
-    )
+    test = two_proportion_test(np.array([x1]), np.array([n1]), np.array([x2]), np.array([n2]))
     z = clean_number(test["z"][0])
     p_z = clean_number(test["p_two_sided"][0])
     share1, share2 = safe_ratio(x1, n1), safe_ratio(x2, n2)
@@ -205,15 +203,11 @@ def band_peers(
         return ()
     # Compare v / own with the multipliers so a volume of exactly low x own is inside.
     return tuple(
-        lei
-        for lei, v in volumes.items()
-        if lei != subject and low <= float(v) / own <= high
+        lei for lei, v in volumes.items() if lei != subject and low <= float(v) / own <= high
     )
 
 
-def share_flags(
-    share: np.ndarray, cut: float, rule: str = "above"
-) -> np.ndarray:
+def share_flags(share: np.ndarray, cut: float, rule: str = "above") -> np.ndarray:
     """Return 1.0 where ``share`` passes ``cut`` (``above``: >, ``at_or_above``: >=), NaN if unknown."""
     share = np.asarray(share, dtype=float)
     known = np.isfinite(share)
