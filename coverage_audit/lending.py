@@ -54,6 +54,8 @@ CATEGORIES: tuple[str, ...] = (
 #: screen of every lender (their shares say little).
 SCREEN_MIN_APPLICATIONS = 20
 _KEYS = ["year", "market", "lei", "tract", "action", "race", "ethnicity"]
+#: Chunk counts are folded together when they hold more rows than this.
+_COMPACT_ROWS = 2_000_000
 
 
 def lending_section(
@@ -275,6 +277,9 @@ def _read(
                 }
             )
             parts.append(keyed.groupby(_KEYS, sort=False).size().rename("n").reset_index())
+            if sum(len(p) for p in parts) > _COMPACT_ROWS:
+                # Fold the chunks' counts together so memory follows the distinct cells.
+                parts = [_sum_counts(parts)]
             if source == "records":
                 fig = pd.DataFrame(
                     {
@@ -302,13 +307,19 @@ def _read(
             f"[lending] no record of {names} is in scope ({_counts_text(readers, outside)}); "
             "check years, markets and the other filters"
         )
-    agg = pd.concat(parts, ignore_index=True).groupby(_KEYS, sort=True)["n"].sum().reset_index()
+    agg = _sum_counts(parts)
     tract_figures = None
     if figures:
         tract_figures = (
             pd.concat(figures, ignore_index=True).groupby(["year", "tract"]).first().reset_index()
         )
     return agg, tract_figures, readers, outside
+
+
+def _sum_counts(parts: list[pd.DataFrame]) -> pd.DataFrame:
+    """Return the counts of several chunks summed by cell, sorted by the keys."""
+    combined = pd.concat(parts, ignore_index=True)
+    return combined.groupby(_KEYS, sort=True)["n"].sum().reset_index()
 
 
 def _counts_text(readers: list[RecordReader], outside: int) -> str:
