@@ -424,6 +424,12 @@ def _cmd_check(args: argparse.Namespace) -> int:
     for reason, n in ex.by_reason().items():
         print(f"  {n:6d}  {reason}")
     print(f"analysis CRS: {inputs.analysis_crs.srs}")
+    if spec.lending is not None:
+        from .io.hmda import read_header
+
+        for path in spec.lending.path:
+            delimiter, names = read_header(path)
+            print(f"lending records {path.name}: header of {len(names)} fields, '{delimiter}'")
     return EXIT_OK
 
 

@@ -506,3 +506,59 @@ def test_demo_review_shows_one_lender_below_its_peers_and_others_not(tmp_path):
     assert "not below: 9999HARBORMUTUAL0001" in page
     map_page = paths["map"].read_text(encoding="utf-8")
     assert '"lender_share"' in map_page and '"lending_gap"' in map_page
+
+
+def two_cells() -> list[dict[str, str]]:
+    """Two years in two markets (hand counts in the test below)."""
+    rows = [record(A, T[0], "1"), record(A, T[1], "1")]
+    rows += [record(B, t, "1") for t in (T[1], T[1], T[2], T[3])]
+    y = {"activity_year": "2023", "derived_msa__md": "90020"}
+    rows += [record(A, t, "1", **y) for t in (T[1], T[2], T[0])]
+    rows += [record(C, T[0], "1", **y)] + rows_of(B, T[0], "1", 10, **y)
+    return rows
+
+
+def test_cells_by_year_and_market_and_pooled(region):
+    write_records(region / "cells.txt", two_cells())
+    loose = 'years = [2022, 2023]\nmarkets = ["90010", "90020"]'
+    spec = LENDING_SPEC.replace('years = [2022]\nmarkets = ["90010"]\n', "")
+    assert spec != LENDING_SPEC
+
+    def run(extra: str):
+        (region / "audit.toml").write_text(
+            spec.format(
+                crs=GRID_CRS,
+                records="cells.txt",
+                lender=A,
+                population_extra="",
+                lending_extra=extra,
+            ),
+            encoding="utf-8",
+        )
+        return run_audit(load_spec(region / "audit.toml")).summary["lending"]
+
+    s = run(loose)
+    cells = {(c["year"], c["market"]): c for c in s["by_year_market"]}
+    mm = "majority_minority"
+    # 2022, 90010: A 1 of 2 in majority-minority tracts; its peer B 4 of 4.
+    assert counts(cells[(2022, "90010")]["by_set"]["applications"][mm]) == (1, 2, 4, 4)
+    # 2023, 90020: A 2 of 3; peers B (10 in tract 1) and C (1 in tract 1): 0 of 11.
+    assert counts(cells[(2023, "90020")]["by_set"]["applications"][mm]) == (2, 3, 0, 11)
+    # Pooled: the sums of the cells.
+    assert counts(s["by_set"]["applications"][mm]) == (3, 5, 4, 15)
+    assert s["scope"]["years"] == [2022, 2023] and s["peer_lenders"] == 2
+    # Band [0.5, 2.0] per cell: B's 4 is exactly 2 x A's 2 (a peer); in 2023 B's 10 and
+    # C's 1 lie outside 1.5-6, so that cell has no peers.
+    band = run(loose + '\npeers = "band"')
+    assert counts(band["by_set"]["applications"][mm]) == (3, 5, 4, 4)
+    assert band["peer_lenders"] == 1
+    # Counties as markets: every record is in county 01001.
+    county = run('market_by = "county"')
+    assert county["scope"]["markets"] == ["01001"]
+    assert counts(county["by_set"]["applications"][mm]) == (3, 5, 4, 15)
+    area = run('market_by = "area"')
+    assert area["scope"]["markets"] == ["study area"]
+    # A year filter keeps one cell.
+    one = run("years = [2023]")
+    assert counts(one["by_set"]["applications"][mm]) == (2, 3, 0, 11)
+    assert one["records"]["filtered_by"] == {"years": 6}
