@@ -116,6 +116,13 @@ markets = ["90010"]
 peers = "market"
 band = [0.5, 2.0]
 alpha = 0.05
+
+[lending.lender_names]
+9999HARBORMUTUAL0001 = "Harbor Mutual"
+9999TIDEWATERCREDI01 = "Tidewater Credit Union"
+9999COPPERLINEBANK01 = "Copperline Bank"
+9999SALTMARSHFEDER01 = "Saltmarsh Federal"
+9999LANTERNFISHLEN01 = "Lanternfish Lending"
 """,
     ),
     "assessment_area": (

@@ -90,8 +90,9 @@ def lending_section(
         )
     peers_by_cell = _peers(ls, agg, volumes, cells)
     agg["role"] = _roles(agg, subject, peers_by_cell)
+    names = dict(ls.lender_names)
     section: dict[str, Any] = {
-        "lender": {"lei": subject, "name": ls.lender_name or subject},
+        "lender": {"lei": subject, "name": ls.lender_name or names.get(subject) or subject},
         "peer_rule": ls.peer_rule,
         "peer_lenders": len({p for ps in peers_by_cell.values() for p in ps}),
         "peer_band": list(ls.band) if ls.peer_rule == "band" else None,
@@ -124,6 +125,8 @@ def lending_section(
         _cell(rows, cell, peers_by_cell[cell], ls, cmp_kw) for cell in cells
     ]
     section["screen"] = _screen(agg, cells, cmp_kw, ls.lender)
+    for entry in section["screen"]["lenders"]:
+        entry["name"] = section["lender"]["name"] if entry["subject"] else names.get(entry["lei"])
     gaps, columns = _gaps(agg, frame, ids, area_cats, ls, cmp_kw)
     section["gaps"] = gaps
     for name, values in columns.items():
@@ -398,18 +401,19 @@ def _peers(
 def _roles(
     agg: pd.DataFrame, subject: str, peers_by_cell: dict[tuple[int, str], tuple[str, ...]]
 ) -> np.ndarray:
-    keys = list(zip(agg["year"].astype(int), agg["market"].astype(str), strict=True))
-    leis = agg["lei"].to_numpy(dtype=object)
-    roles = np.full(len(agg), None, dtype=object)
-    for k, (key, lei) in enumerate(zip(keys, leis, strict=True)):
-        peers = peers_by_cell.get(key)
-        if peers is None:
-            continue
-        if lei == subject:
-            roles[k] = "lender"
-        elif lei in peers:
-            roles[k] = "peer"
-    return roles
+    """Return ``"lender"``, ``"peer"`` or None for each row of ``agg`` (by its cell)."""
+    table = pd.DataFrame(
+        [
+            (year, market, lei, role)
+            for (year, market), peers in peers_by_cell.items()
+            for lei, role in [(subject, "lender"), *((p, "peer") for p in peers)]
+        ],
+        columns=["year", "market", "lei", "role"],
+    )
+    merged = agg[["year", "market", "lei"]].merge(
+        table, on=["year", "market", "lei"], how="left", validate="many_to_one"
+    )
+    return merged["role"].astype(object).where(merged["role"].notna(), None).to_numpy()
 
 
 # --------------------------------------------------------------------------- comparisons
@@ -645,8 +649,10 @@ def _findings(section: dict[str, Any]) -> list[str]:
             f"{100 * mm['lender_share']:.1f}% against peers' {100 * mm['peer_share']:.1f}%."
         )
     screen = section.get("screen") or {}
-    below = [x["lei"] for x in screen.get("lenders", []) if x["below_peers"]]
-    not_below = [x["lei"] for x in screen.get("lenders", []) if not x["below_peers"]]
+    below = [x.get("name") or x["lei"] for x in screen.get("lenders", []) if x["below_peers"]]
+    not_below = [
+        x.get("name") or x["lei"] for x in screen.get("lenders", []) if not x["below_peers"]
+    ]
     if screen.get("lenders"):
         out.append(
             "Screen of every lender (applications in majority-minority tracts against all "

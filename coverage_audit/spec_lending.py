@@ -62,6 +62,8 @@ class LendingSpec:
     gap_max_applications : int
         A tract of the footprint with at most this many applications from the lender is
         a lending gap.
+    lender_names : tuple of (LEI, name)
+        Display names of other lenders (the records name lenders by LEI only).
     """
 
     path: tuple[Path, ...]
@@ -84,6 +86,7 @@ class LendingSpec:
     black_hispanic_groups: tuple[str, ...] | None = None
     small_cell: float = 5.0
     gap_max_applications: int = 0
+    lender_names: tuple[tuple[str, str], ...] = ()
 
     @property
     def peer_rule(self) -> str:
@@ -97,6 +100,8 @@ class LendingSpec:
             value = getattr(self, f.name)
             if f.name == "path":
                 value = [str(p) for p in value]
+            elif f.name == "lender_names":
+                value = dict(value)
             elif isinstance(value, tuple):
                 value = list(value)
             out[f.name] = value
@@ -181,6 +186,16 @@ def lending_from(value: Any, base: Path, where: str) -> LendingSpec | None:
             f"{where}: [lending] black_hispanic_groups must be a list of [population] group "
             f"names, got {groups!r}"
         )
+    names_raw = d.get("lender_names", {})
+    if not isinstance(names_raw, Mapping) or not all(
+        isinstance(v, str) and v.strip() for v in names_raw.values()
+    ):
+        raise SpecError(
+            f'{where}: [lending] lender_names must be a table of LEI = "display name", '
+            f"got {names_raw!r}"
+        )
+    for lei in names_raw:
+        _check_lei(str(lei), where, "lender_names")
     return LendingSpec(
         path=tuple(p for p in paths if p is not None),
         lender=lender.upper(),
@@ -202,6 +217,7 @@ def lending_from(value: Any, base: Path, where: str) -> LendingSpec | None:
         black_hispanic_groups=tuple(groups) if groups is not None else None,
         small_cell=s._float(d, "small_cell", where, t, 5.0, 0.0, None),
         gap_max_applications=s._int_default(d, "gap_max_applications", where, t, 0, minimum=0),
+        lender_names=tuple((str(k).upper(), str(v)) for k, v in names_raw.items()),
     )
 
 

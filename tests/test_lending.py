@@ -503,7 +503,7 @@ def test_demo_review_shows_one_lender_below_its_peers_and_others_not(tmp_path):
     paths = result.write(tmp_path / "out")
     page = paths["report"].read_text(encoding="utf-8")
     assert 'id="lending-table"' in page and "significantly below its peers" in page
-    assert "not below: 9999HARBORMUTUAL0001" in page
+    assert "below their peers: Ostmere Savings; not below: Harbor Mutual" in page
     map_page = paths["map"].read_text(encoding="utf-8")
     assert '"lender_share"' in map_page and '"lending_gap"' in map_page
 

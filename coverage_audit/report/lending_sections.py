@@ -237,11 +237,13 @@ def _screen_part(screen: Mapping[str, Any]) -> Html:
     rows = []
     attrs = []
     for x in lenders:
-        label = str(x.get("lei")) + (" (the lender reviewed)" if x.get("subject") else "")
+        label = (f"{x['name']} ({x.get('lei')})" if x.get("name") else str(x.get("lei"))) + (
+            ", the lender reviewed" if x.get("subject") else ""
+        )
         rows.append((label, *_cells(x)))
         attrs.append({"class_": "flagged" if x.get("below_peers") else None})
     return table(
-        ("Lender (LEI)", *_HEADERS),
+        ("Lender", *_HEADERS),
         rows,
         row_attrs=attrs,
         caption="Screen of every lender with at least "
