@@ -320,6 +320,12 @@ def test_csv_form_reads_like_the_pipe_form(tmp_path):
     b = [c.drop(columns="line") for c in csv]
     assert len(a) == len(b) == 1 and a[0].equals(b[0])
     assert sorted(pipe.excluded) == sorted(csv.excluded)
+    # A byte-order mark and Windows line ends (as some copies of the files have).
+    raw = (tmp_path / "a.csv").read_bytes().replace(b"\n", b"\r\n")
+    (tmp_path / "b.csv").write_bytes(b"\xef\xbb\xbf" + raw)
+    bom = RecordReader(tmp_path / "b.csv", [])
+    assert [c.drop(columns="line") for c in bom][0].equals(a[0])
+    assert sorted(bom.excluded) == sorted(csv.excluded)
 
 
 def test_reader_errors_name_the_file(tmp_path):

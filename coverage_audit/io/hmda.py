@@ -258,7 +258,7 @@ def read_header(path: Path) -> tuple[str, list[str]]:
     """
     if not path.is_file():
         raise InputError(f"lending records file '{path}' was not found; check [lending] path")
-    with open(path, encoding="utf-8", errors="replace", newline="") as handle:
+    with open(path, encoding="utf-8-sig", errors="replace", newline="") as handle:
         first = handle.readline().rstrip("\r\n")
     if not first:
         raise InputError(f"lending records file '{path}' is empty")
