@@ -228,30 +228,30 @@ def _check_lei(value: str, where: str, key: str) -> None:
         )
 
 
-def _int_list(d: Mapping[str, Any], key: str, where: str) -> tuple[int, ...] | None:
+def _list(d: Mapping[str, Any], key: str, where: str, kinds: tuple[type, ...], what: str) -> Any:
+    """Return a non-empty list of values of ``kinds`` (booleans refused), or None if absent."""
     value = d.get(key)
     if value is None:
         return None
     if (
         not isinstance(value, list)
         or not value
-        or not all(isinstance(v, int) and not isinstance(v, bool) for v in value)
+        or not all(isinstance(v, kinds) and not isinstance(v, bool) for v in value)
     ):
-        raise SpecError(f"{where}: [lending] {key} must be a list of whole numbers, got {value!r}")
-    return tuple(value)
+        raise SpecError(f"{where}: [lending] {key} must be a list of {what}, got {value!r}")
+    return value
+
+
+def _int_list(d: Mapping[str, Any], key: str, where: str) -> tuple[int, ...] | None:
+    value = _list(d, key, where, (int,), "whole numbers")
+    return None if value is None else tuple(value)
 
 
 def _code_list(d: Mapping[str, Any], key: str, where: str) -> tuple[str, ...] | None:
     """Codes given as numbers or text (``[1, 31]`` or ``["5-24"]``), kept as text."""
-    value = d.get(key)
+    value = _list(d, key, where, (int, str), "codes")
     if value is None:
         return None
-    if (
-        not isinstance(value, list)
-        or not value
-        or not all(isinstance(v, (int, str)) and not isinstance(v, bool) for v in value)
-    ):
-        raise SpecError(f"{where}: [lending] {key} must be a list of codes, got {value!r}")
     codes = tuple(str(v).strip() for v in value)
     field_name = _CODE_FIELDS.get(key)
     if field_name is not None:

@@ -11,10 +11,8 @@ from __future__ import annotations
 import json
 from pathlib import Path
 
-import geopandas as gpd
 import numpy as np
 import pytest
-import shapely
 from scipy.stats import fisher_exact
 from statsmodels.stats.proportion import proportions_ztest
 
@@ -29,7 +27,7 @@ from coverage_audit.stats.lending import (
     smallest_expected,
 )
 
-from .conftest import GRID_CRS, grid
+from .conftest import GRID_CRS, write_two_by_two
 
 A = "9999TESTLENDERA00001"
 B = "9999TESTLENDERB00002"
@@ -178,18 +176,7 @@ def base(tmp_path_factory):
 def build_region(tmp_path: Path) -> Path:
     """A 2 x 2 grid: minority shares 0.2, 0.75, 0.9, 0.75; income 120, 80, 79.9, 50; the
     footprint covers the left half of tract 1 and all of tract 3 (both served)."""
-    areas = grid(2, 2)
-    areas["total"] = [100, 200, 300, 400]
-    areas["white"] = [80, 50, 30, 100]
-    areas["black"] = [10, 150, 250, 300]
-    areas["income"] = [120.0, 80.0, 79.9, 50.0]
-    areas.to_file(tmp_path / "areas.gpkg", layer="areas", driver="GPKG")
-    zone = gpd.GeoDataFrame(
-        {"zone": ["a", "b"]},
-        geometry=[shapely.box(0, 0, 500, 1000), shapely.box(0, 1000, 1000, 2000)],
-        crs=GRID_CRS,
-    )
-    zone.to_file(tmp_path / "zone.gpkg", driver="GPKG")
+    write_two_by_two(tmp_path, income=[120.0, 80.0, 79.9, 50.0])
     write_records(tmp_path / "records.txt", hand_records())
     return tmp_path
 
