@@ -29,6 +29,8 @@ from coverage_audit.stats.lending import (
 
 from .conftest import GRID_CRS, write_two_by_two
 
+pytest_plugins = ["tests.browser"]
+
 A = "9999TESTLENDERA00001"
 B = "9999TESTLENDERB00002"
 C = "9999TESTLENDERC00003"
@@ -555,3 +557,33 @@ def test_cells_by_year_and_market_and_pooled(region):
     one = run("years = [2023]")
     assert counts(one["by_set"]["applications"][mm]) == (2, 3, 0, 11)
     assert one["records"]["filtered_by"] == {"years": 6}
+
+
+@pytest.mark.browser
+def test_map_draws_the_lender_share_and_gap_layers(base, browser_page, tmp_path):
+    from dataclasses import replace
+
+    from coverage_audit.report import map as cmap
+    from coverage_audit.spec import replace_output
+
+    result = replace(base, spec=replace_output(base.spec, map=True, report=False))
+    paths = result.write(tmp_path / "out")
+    browser_page.open(
+        paths["map"], ready="window.coverageAuditMap && window.coverageAuditMap.painted"
+    )
+    assert browser_page.console_errors() == [] and browser_page.network_requests() == []
+    ids = browser_page.js("return coverageAuditMap.drawn")
+    assert ids == 4
+    colours = browser_page.js(
+        "var out = []; for (var i = 0; i < 4; i++) "
+        "out.push(coverageAuditMap.colourOf('lender_share', i)); return out;"
+    )
+    # Shares 0.8, 1/7, 0 and 0.5 fall in the classes >= 75%, 10-25%, < 10% and 50-75%.
+    order = result.areas["geoid"].tolist()
+    assert order == T
+    assert colours == [cmap.SHARE_COLORS[k] for k in (4, 1, 0, 3)]
+    gaps = browser_page.js(
+        "var out = []; for (var i = 0; i < 4; i++) "
+        "out.push(coverageAuditMap.colourOf('lending_gap', i)); return out;"
+    )
+    assert gaps == ["#e4e1d8", "#e4e1d8", "#c2423b", "#e4e1d8"]
