@@ -110,6 +110,10 @@ def lending_section(
     cmp_kw = {"alpha": ls.alpha, "small_cell": ls.small_cell}
     in_cells = agg["role"].notna()
     rows = agg.loc[in_cells]
+    for c in CATEGORIES:
+        # Records of the compared lenders whose tract has no figure for the category (an
+        # area without population, a tract without appended figures): left out of its shares.
+        section["categories"][c]["unknown_records"] = int(rows.loc[rows[c].isna(), "n"].sum())
     section["lender_volume"] = {
         name: int(rows.loc[(rows["role"] == "lender") & rows["action"].isin(codes), "n"].sum())
         for name, codes in _sets(ls).items()

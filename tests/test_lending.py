@@ -405,6 +405,9 @@ def test_categories_from_the_records_appended_fields(region):
     assert counts(apps["lmi"]) == (1, 10, 7, 15)  # tract 2 (80) not LMI
     assert apps["majority_black_hispanic"] is None
     assert not s["categories"]["majority_black_hispanic"]["available"]
+    # Counted, not dropped silently: all 27 records of the three lenders lack that share.
+    assert s["categories"]["majority_black_hispanic"]["unknown_records"] == 27
+    assert s["categories"]["majority_minority"]["unknown_records"] == 0
     # With "at or above 50%", tract 2 is majority-minority too.
     s2 = review(
         region, 'tract_source = "records"', 'majority_minority_rule = "at_or_above"'
