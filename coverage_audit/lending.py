@@ -32,7 +32,7 @@ from .inputs import AreaInputs, InputRecord, sha256_file
 from .io.hmda import RecordFilters, RecordReader, open_records
 from .spec import AuditSpec
 from .spec_lending import LendingSpec
-from .stats.lending import band_peers, compare_shares, lmi_flags, share_flags
+from .stats.lending import band_peers, compare_shares, lmi_flags, mantel_haenszel, share_flags
 
 #: Record sets by ``action_taken`` code (public data-field documentation).
 SETS: dict[str, tuple[str, ...]] = {
@@ -128,6 +128,7 @@ def lending_section(
     section["by_year_market"] = [
         _cell(rows, cell, peers_by_cell[cell], ls, cmp_kw) for cell in cells
     ]
+    section["stratified"] = _stratified(section["by_year_market"], ls.alpha)
     section["screen"] = _screen(agg, cells, cmp_kw, ls.lender)
     for entry in section["screen"]["lenders"]:
         entry["name"] = section["lender"]["name"] if entry["subject"] else names.get(entry["lei"])
@@ -495,6 +496,34 @@ def _cell(
         },
         "denials": {c: _compare_denials(sel, c, kw) for c in CATEGORIES},
     }
+
+
+def _stratified(cells: list[dict[str, Any]], alpha: float) -> dict[str, Any]:
+    """Mantel-Haenszel combination of the year-and-market cells, per set and category."""
+
+    def combine(path: tuple[str, ...]) -> dict[str, Any] | None:
+        tables = []
+        for cell in cells:
+            entry: Any = cell
+            for key in path:
+                entry = entry.get(key) if isinstance(entry, dict) else None
+            if entry:
+                tables.append(
+                    (
+                        entry["lender_count"],
+                        entry["lender_total"],
+                        entry["peer_count"],
+                        entry["peer_total"],
+                    )
+                )
+        return mantel_haenszel(tables, alpha=alpha).to_dict() if tables else None
+
+    sets = list(cells[0]["by_set"]) if cells else []
+    out: dict[str, Any] = {
+        name: {c: combine(("by_set", name, c)) for c in CATEGORIES} for name in sets
+    }
+    out["denials"] = {c: combine(("denials", c)) for c in CATEGORIES}
+    return out
 
 
 def _screen(

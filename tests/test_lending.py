@@ -228,6 +228,23 @@ def test_z_test_matches_statsmodels_and_fisher_matches_scipy(x1, n1, x2, n2):
     assert cmp.ratio == pytest.approx((x1 / n1) / (x2 / n2), rel=1e-12)
 
 
+def test_mantel_haenszel_matches_statsmodels():
+    from statsmodels.stats.contingency_tables import StratifiedTable
+
+    from coverage_audit.stats.lending import mantel_haenszel
+
+    tables = [(1, 2, 4, 4), (2, 3, 0, 11), (5, 40, 30, 60), (0, 1, 0, 0)]
+    result = mantel_haenszel(tables)
+    # Oracle: statsmodels StratifiedTable (strata with fewer than 2 records left out).
+    oracle = StratifiedTable([np.array([[a, n - a], [c, m - c]]) for a, n, c, m in tables[:3]])
+    test = oracle.test_null_odds(correction=False)
+    assert result.strata == 3
+    assert result.odds_ratio_mh == pytest.approx(oracle.oddsratio_pooled, rel=1e-12)
+    assert result.statistic == pytest.approx(test.statistic, rel=1e-12)
+    assert result.p_value == pytest.approx(test.pvalue, rel=1e-9)
+    assert result.below_peers  # OR 0.275, p 0.001
+
+
 def test_z_statistic_by_hand():
     # By hand: p = 310/1100; se = sqrt(p(1-p)(1/100 + 1/1000)) = 0.0471843...;
     # z = (0.1 - 0.3) / se = -4.2386928 (two-proportion z-test, pooled standard error).
@@ -545,6 +562,13 @@ def test_cells_by_year_and_market_and_pooled(region):
     # Pooled: the sums of the cells.
     assert counts(s["by_set"]["applications"][mm]) == (3, 5, 4, 15)
     assert s["scope"]["years"] == [2022, 2023] and s["peer_lenders"] == 2
+    # Mantel-Haenszel over the two cells, by hand: tables [[1, 1], [4, 0]] (n = 6) and
+    # [[2, 1], [0, 11]] (n = 14): OR = (2 * 11 / 14) / (1 * 4 / 6) = 33/14; sum(a - E a)
+    # = (1 - 10/6) + (2 - 6/14) = 19/21; sum Var a = 2/9 + 198/637 = 3056/5733; CMH =
+    # (19/21)^2 / (3056/5733) = 2069613/1347696.
+    mh = s["stratified"]["applications"][mm]
+    assert mh["strata"] == 2 and mh["odds_ratio_mh"] == pytest.approx(33 / 14, rel=1e-12)
+    assert mh["statistic"] == pytest.approx(2069613 / 1347696, rel=1e-12)
     # Band [0.5, 2.0] per cell: B's 4 is exactly 2 x A's 2 (a peer); in 2023 B's 10 and
     # C's 1 lie outside 1.5-6, so that cell has no peers.
     band = run(loose + '\npeers = "band"')

@@ -140,6 +140,7 @@ def lending_section(page: Page) -> Html:
             table_id="lending-table",
         )
     )
+    parts.append(_stratified_part(as_mapping(s.get("stratified"))))
     denials = as_mapping(s.get("denials"))
     parts.append(
         table(
@@ -183,6 +184,39 @@ def lending_section(page: Page) -> Html:
         )
     )
     return section("lending", TITLE, *parts)
+
+
+def _stratified_part(strat: Mapping[str, Any]) -> Html:
+    items = []
+    for set_name in ("applications", "originations"):
+        entry = as_mapping(as_mapping(strat.get(set_name)).get("majority_minority"))
+        if entry.get("odds_ratio_mh") is None:
+            continue
+        verdict = (
+            "below its peers"
+            if entry.get("below_peers")
+            else "above its peers"
+            if entry.get("above_peers")
+            else "not significantly different"
+        )
+        items.append(
+            f"{SET_LABELS[set_name].split(' (')[0].lower()}: common odds ratio "
+            f"{fmt_fixed(entry.get('odds_ratio_mh'), 2)} over {fmt_count(entry.get('strata'))} "
+            f"years and markets, {_p_text(entry.get('p_value'))} ({verdict})"
+        )
+    if not items:
+        return Html("")
+    return para(
+        "Within each year and market (Mantel-Haenszel), majority-minority tracts: "
+        + "; ".join(items)
+        + ". This compares the lender with its peers inside each market, so markets with "
+        "different shares of minority tracts do not mix."
+    )
+
+
+def _p_text(value: Any) -> str:
+    text = fmt_p(value)
+    return f"p {text}" if text.startswith("<") else f"p = {text}"
 
 
 def _band(value: Any) -> str:
@@ -265,7 +299,7 @@ def _gaps_part(gaps: Mapping[str, Any], name: str) -> Html:
         f"{fmt_count(mm.get('gaps'))} of {fmt_count(mm.get('tracts'))} majority-minority "
         f"tracts ({fmt_percent(cmp.get('lender_share'))}) against "
         f"{fmt_count(other.get('gaps'))} of {fmt_count(other.get('tracts'))} other tracts "
-        f"({fmt_percent(cmp.get('peer_share'))}); p = {fmt_p(cmp.get('p_value'))} "
+        f"({fmt_percent(cmp.get('peer_share'))}); {_p_text(cmp.get('p_value'))} "
         f'({cmp.get("test") or "z"} test). The map\'s layer "Lending gaps" shows them.'
     )
 
