@@ -23,6 +23,7 @@ from .coverage import coverage_by_group, covered_fraction, footprint_fractions
 from .errors import AnalysisError, DegenerateStatisticWarning, InputError
 from .footprint import Footprint, build_footprint, cut_pieces, geodesic_circles
 from .inputs import AreaInputs, InputRecord, ids_as_text, read_table, sha256_file
+from .io.joins import MatchReport, match_ids
 from .spec import AuditSpec
 from .weights import AreaGraph
 
@@ -287,19 +288,61 @@ def change_section(
     ).to_dict()
 
 
-def peers_section(
-    spec: AuditSpec, inputs: AreaInputs, frame: gpd.GeoDataFrame
-) -> tuple[dict[str, Any], InputRecord]:
-    """Each lender's share of activity in majority-minority areas against its peers."""
-    from .compare import peer_comparison
+#: Columns that name a service site, in order of preference.
+SITE_NAME_COLUMNS = ("name", "site_name", "site_id", "id")
 
+
+def _site_names(footprint: Footprint) -> dict[str, tuple[str, float, float]]:
+    """Site key -> (display name, longitude, latitude) of a points footprint.
+
+    The key is the name column when there is one, else the location.
+    """
+    points = footprint.points
+    if points is None or points.empty:
+        return {}
+    column = next((c for c in SITE_NAME_COLUMNS if c in points.columns), None)
+    xy = [f"{p.x:.0f} {p.y:.0f}" for p in points.geometry]
+    names = [str(v) for v in points[column]] if column is not None else xy
+    keys = names if column is not None else xy
+    lonlat = points.geometry.to_crs(4326)
+    places = [
+        (n, round(float(p.x), 6), round(float(p.y), 6)) for n, p in zip(names, lonlat, strict=True)
+    ]
+    return dict(zip(keys, places, strict=True))
+
+
+def site_changes(change: Any, footprints: list[Footprint]) -> dict[str, Any]:
+    """Return the footprints compared and, for points, the sites closed and opened."""
+    by_name = {f.name: f for f in footprints}
+    before, after = by_name.get(change.before), by_name.get(change.after)
+    out: dict[str, Any] = {"before": change.before, "after": change.after}
+    if before is not None and after is not None and before.kind == after.kind == "points":
+        old, new = _site_names(before), _site_names(after)
+        closed = sorted(old[k] for k in old.keys() - new.keys())
+        opened = sorted(new[k] for k in new.keys() - old.keys())
+        out["sites_closed"] = [name for name, _, _ in closed]
+        out["sites_opened"] = [name for name, _, _ in opened]
+        # Positions (longitude, latitude in degrees) for the map's layer of changed sites.
+        out["site_changes"] = [
+            {"name": name, "change": change, "lon": lon, "lat": lat}
+            for change, rows in (("closed", closed), ("opened", opened))
+            for name, lon, lat in rows
+        ]
+    return out
+
+
+def read_activity(
+    spec: AuditSpec, area_ids: list[str]
+) -> tuple[pd.DataFrame, InputRecord, MatchReport]:
+    """Read the ``[activity]`` table with text ids and report its match to the areas.
+
+    Raises
+    ------
+    InputError
+        When the id column is missing or too few rows match the areas.
+    """
     activity = spec.activity
     assert activity is not None
-    if "majority_minority" not in frame.columns:
-        raise InputError(
-            "[activity] needs majority-minority areas: set derive_minority = true or name a "
-            "group minority in [population]"
-        )
     table = read_table(activity.path, id_column=activity.id, role="activity table")
     record = InputRecord("activity", str(activity.path), sha256_file(activity.path), len(table))
     if activity.id not in table.columns:
@@ -313,6 +356,24 @@ def peers_section(
         width=activity.id_width or spec.areas.id_width,
         where=f"activity table '{activity.path}'",
     )
+    match = match_ids("activity table", str(activity.path), list(table[activity.id]), area_ids)
+    return table, record, match
+
+
+def peers_section(
+    spec: AuditSpec, inputs: AreaInputs, frame: gpd.GeoDataFrame
+) -> tuple[dict[str, Any], InputRecord]:
+    """Each lender's share of activity in majority-minority areas against its peers."""
+    from .compare import peer_comparison
+
+    activity = spec.activity
+    assert activity is not None
+    if "majority_minority" not in frame.columns:
+        raise InputError(
+            "[activity] needs majority-minority areas: set derive_minority = true or name a "
+            "group minority in [population]"
+        )
+    table, record, match = read_activity(spec, frame[inputs.id_column].tolist())
     flags = pd.Series(
         frame["majority_minority"].to_numpy(dtype=bool),
         index=frame[inputs.id_column].to_numpy(dtype=object),
@@ -326,4 +387,4 @@ def peers_section(
         lender_columns=list(activity.lender_columns) if activity.lender_columns else None,
         alpha=activity.alpha,
     )
-    return result.to_dict(), record
+    return result.to_dict() | {"match": match.to_dict()}, record

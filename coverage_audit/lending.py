@@ -28,6 +28,7 @@ import numpy as np
 import pandas as pd
 
 from .errors import InputError
+from .findings import Finding, register_finding
 from .inputs import AreaInputs, InputRecord, sha256_file
 from .io.hmda import RecordFilters, RecordReader, open_records
 from .spec import AuditSpec
@@ -699,5 +700,40 @@ def _findings(section: dict[str, Any]) -> list[str]:
             f"Lending gaps (footprint tracts with at most {gaps['max_applications']} "
             f"applications from {name}): {g_mm['gaps']} of {g_mm['tracts']} majority-minority "
             f"tracts against {g_other['gaps']} of {g_other['tracts']} other tracts."
+        )
+    return out
+
+
+@register_finding("lending", order=35)
+def lending_findings(summary: Any) -> list[Finding]:
+    """Return the lending review's headline findings (the sentences of its section)."""
+    section = summary.get("lending")
+    if not isinstance(section, dict) or not section.get("findings"):
+        return []
+    mm = (section.get("by_set") or {}).get("applications", {}).get("majority_minority") or {}
+    gaps = (section.get("gaps") or {}).get("comparison") or {}
+    screen = section.get("screen") or {}
+    salient = [
+        bool(mm.get("below_peers")),
+        bool(screen.get("below_peers")),
+        bool(gaps.get("above_peers")),
+    ]
+    figures = [
+        {k: mm.get(k) for k in ("lender_share", "peer_share", "ratio", "p_value", "test")},
+        {
+            "below_peers": screen.get("below_peers"),
+            "not_below_peers": screen.get("not_below_peers"),
+        },
+        {k: gaps.get(k) for k in ("lender_share", "peer_share", "p_value")},
+    ]
+    out = []
+    for k, sentence in enumerate(section["findings"]):
+        out.append(
+            Finding(
+                "lending",
+                str(sentence),
+                figures[k] if k < len(figures) else {},
+                salient=salient[k] if k < len(salient) else False,
+            )
         )
     return out
