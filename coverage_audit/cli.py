@@ -145,7 +145,8 @@ def _build_parser() -> argparse.ArgumentParser:
         help="run the audits of the fictional demo region Ostmere",
         description=(
             "Run every scenario of the bundled fictional demo region (a delivery zone, a "
-            "branch network, an assessment area) and write each one's outputs."
+            "branch network, an assessment area, clinics with their doctors) and write each "
+            "one's outputs."
         ),
     )
     demo.add_argument(
@@ -157,7 +158,7 @@ def _build_parser() -> argparse.ArgumentParser:
     demo.add_argument(
         "--scenario",
         action="append",
-        choices=["delivery", "branches", "assessment_area"],
+        choices=["delivery", "branches", "assessment_area", "clinics"],
         help="run only this scenario (repeatable; default: all)",
     )
     demo.add_argument(

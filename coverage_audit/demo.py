@@ -325,7 +325,7 @@ def _clinic_sites(cells: gpd.GeoDataFrame, demo: pd.DataFrame, seed: int) -> gpd
     small_weight[large] = 0.0
     small = rng.choice(len(cells), size=4, replace=False, p=small_weight / small_weight.sum())
     chosen = np.r_[large, small]
-    doctors = np.r_[rng.integers(6, 15, size=10), rng.integers(1, 3, size=4)]
+    doctors = np.r_[rng.integers(40, 121, size=10), rng.integers(3, 9, size=4)]
     return gpd.GeoDataFrame(
         {
             "site_id": [f"K{k:02d}" for k in range(1, 15)],

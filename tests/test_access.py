@@ -40,7 +40,13 @@ ORACLE_TOL = 1e-9
 #                  demand 300+50 = 350; R_C = 1/350
 #   A_1 = R_A = 0.005; A_2 = A_3 = R_A + R_B = 7/600; A_4 = R_B + R_C = 1/105; A_5 = 1/350.
 #   Check: sum_i P_i A_i = 0.5 + 14/6 + 7/6 + 20/7 + 1/7 = 7 = total capacity.
-HAND_2SFCA = [0.005, 0.011666666666666667, 0.011666666666666667, 0.009523809523809525, 0.002857142857142857]
+HAND_2SFCA = [
+    0.005,
+    0.011666666666666667,
+    0.011666666666666667,
+    0.009523809523809525,
+    0.002857142857142857,
+]
 #
 # E2SFCA (Luo and Qi 2009) with zones [[3, 1.0], [7, 0.68], [10, 0.22]] km (edges inclusive):
 #   site A: weights 1 (2 km), 1 (2 km), 0.22 (8 km); demand 100 + 200 + 22 = 322; R_A = 2/322
@@ -49,7 +55,13 @@ HAND_2SFCA = [0.005, 0.011666666666666667, 0.011666666666666667, 0.0095238095238
 #   A_1 = 2/322 = 1/161; A_2 = 1/161 + 0.22*4/348 = 1/161 + 11/4350;
 #   A_3 = 0.22*2/322 + 4/348 = 11/8050 + 1/87; A_4 = 0.68*4/348 + 0.22/100 = 34/4350 + 11/5000;
 #   A_5 = 0.68/100.
-HAND_E2SFCA = [0.006211180124223602, 0.00873991575640751, 0.01286071250089241, 0.01001609195402299, 0.0068]
+HAND_E2SFCA = [
+    0.006211180124223602,
+    0.00873991575640751,
+    0.01286071250089241,
+    0.01001609195402299,
+    0.0068,
+]
 HAND_X = np.array([0.0, 4000.0, 10000.0, 16000.0, 30000.0])
 HAND_P = np.array([100.0, 200.0, 100.0, 300.0, 50.0])
 SITES_X = np.array([2000.0, 12000.0, 26000.0])
@@ -204,7 +216,12 @@ def _oracle(demand, sites, catchment, weight_fn=None, cost_df=None):
 
     kwargs = {}
     if cost_df is not None:
-        kwargs = {"cost_df": cost_df, "cost_origin": "origin", "cost_dest": "dest", "cost_name": "cost"}
+        kwargs = {
+            "cost_df": cost_df,
+            "cost_origin": "origin",
+            "cost_dest": "dest",
+            "cost_name": "cost",
+        }
     model = Access(
         demand_df=demand,
         demand_index="geoid",
@@ -333,7 +350,9 @@ def _hand_region(tmp_path: Path, access_table: str, costs: pd.DataFrame | None =
     sites.to_file(tmp_path / "clinics.gpkg", driver="GPKG")
     if costs is not None:
         costs.to_csv(tmp_path / "times.csv", index=False)
-    footprint = 'path = "clinics.gpkg"\nradius = 10\nradius_unit = "km"\n\n[access]\n' + access_table
+    footprint = (
+        'path = "clinics.gpkg"\nradius = 10\nradius_unit = "km"\n\n[access]\n' + access_table
+    )
     return write_spec(tmp_path / "audit.toml", spec_text(footprint))
 
 
@@ -357,7 +376,9 @@ def test_audit_access_by_hand(tmp_path):
     assert s["concentration_index"] == pytest.approx(41 / 490, rel=1e-12)
     # Site D has no capacity: listed, left out.
     ex = result.exclusions
-    assert ((ex["source"] == "footprint:footprint") & ex["reason"].str.contains("capacity")).sum() == 1
+    assert (
+        (ex["source"] == "footprint:footprint") & ex["reason"].str.contains("capacity")
+    ).sum() == 1
     assert "access" in result.areas.columns
 
 
@@ -422,3 +443,33 @@ def test_cost_table_matching_nothing(tmp_path):
     )
     with pytest.raises(InputError, match="no row matches"):
         _run(spec)
+
+
+# --- the demo's clinic scenario -----------------------------------------------------------
+
+DEMO = Path(__file__).resolve().parent.parent / "demo_regions" / "ostmere"
+
+
+def test_demo_clinics_regenerate_identically(tmp_path):
+    from coverage_audit.demo import write_demo_region
+
+    out = write_demo_region(tmp_path / "ostmere")
+    for name in ("clinics.geojson", "clinics.toml"):
+        assert (out / name).read_bytes() == (DEMO / name).read_bytes(), name
+
+
+def test_demo_clinics_show_access_by_group(tmp_path):
+    # Built so (demo.py): the large practices sit in mostly-white, higher-income tracts.
+    result = _run(DEMO / "clinics.toml")
+    acc = result.summary["access"]
+    assert acc["method"] == "E2SFCA" and acc["catchment_m"] == 5000.0
+    assert acc["groups"]["black_nh"]["ratio"] < 0.8
+    assert (
+        acc["groups"]["black_nh"]["share_low_access"]
+        > acc["groups"]["white_nh"]["share_low_access"]
+    )
+    assert acc["concentration_index"] < 0
+    paths = result.write(tmp_path / "out")
+    page = paths["report"].read_text(encoding="utf-8")
+    assert 'id="access"' in page and "Access to capacity (E2SFCA, 5 km): black_nh" in page
+    assert '"key":"access"' in paths["map"].read_text(encoding="utf-8").replace(" ", "")

@@ -50,7 +50,7 @@ class CostTable:
     excluded: int
 
     def summary(self, catchment: float, n_origins: int, n_sites: int) -> dict[str, Any]:
-        """Counts for summary.json: rows used, pairs within and beyond, pairs missing."""
+        """Return the counts for summary.json: rows used, pairs within, beyond and missing."""
         within = int((self.cost <= catchment).sum())
         return {
             "rows": self.rows,
@@ -76,9 +76,7 @@ def site_ids_as_text(values: pd.Series) -> np.ndarray:
             ],
             dtype=object,
         )
-    return np.array(
-        [None if pd.isna(v) else str(v).strip() or None for v in values], dtype=object
-    )
+    return np.array([None if pd.isna(v) else str(v).strip() or None for v in values], dtype=object)
 
 
 def read_costs(
@@ -141,7 +139,9 @@ def read_costs(
     reasons = np.full(n, "", dtype=object)
     bad_cost = ~(np.isfinite(cost) & (cost >= 0))
     reasons[bad_cost] = f"cost in column {cost_column} missing, not a number or negative"
-    reasons[(reasons == "") & (s_idx < 0)] = f"site id in column {site_column} matches no service point"
+    reasons[(reasons == "") & (s_idx < 0)] = (
+        f"site id in column {site_column} matches no service point"
+    )
     reasons[(reasons == "") & (o_idx < 0)] = (
         f"origin id in column {origin_column} matches no analysed area"
     )

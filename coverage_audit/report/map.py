@@ -918,6 +918,11 @@ def build_map(
 
     fields, missing = _fields(frame, id_column, groups, label_column)
     views = _views(frame, fields, missing, groups, reference, summary)
+    from .access_sections import access_map_layer
+
+    if (layer := access_map_layer(frame, summary)) is not None:
+        fields["acc"], view = layer
+        views.append(view)
     overlays = _footprint_overlays(footprint, areas.crs, tolerance, decimals)
     codes: dict[str, list[str]] = {"tier": list(INCOME_TIERS), "lisa": list(LISA_LABELS)}
     if "enclave_id" in frame.columns:

@@ -298,7 +298,9 @@ def fractional_rank(rank_by: np.ndarray, weights: np.ndarray) -> np.ndarray:
     return out
 
 
-def concentration_index(values: np.ndarray, rank_by: np.ndarray, weights: np.ndarray) -> float | None:
+def concentration_index(
+    values: np.ndarray, rank_by: np.ndarray, weights: np.ndarray
+) -> float | None:
     """Concentration index of ``values`` across units ranked by ``rank_by``, weighted.
 
     C = 2 cov_w(h, R) / mu_w(h), with R the weighted fractional rank (Kakwani, Wagstaff
