@@ -950,16 +950,14 @@ def _catchment(value: Any, where: str) -> tuple[float, str, float]:
     return metres, "m", LENGTH_UNITS[unit]
 
 
-def _access_from(
-    value: Any, base: Path, where: str, footprint: FootprintSpec
-) -> AccessSpec | None:
+def _access_from(value: Any, base: Path, where: str, footprint: FootprintSpec) -> AccessSpec | None:
     if value is None:
         return None
     ac_d = _table(value, where, "access")
     _check_keys(ac_d, _ACCESS_KEYS, where, "[access]")
     if footprint.kind != "points":
         raise SpecError(
-            f'{where}: [access] measures access to the footprint\'s points, but footprint '
+            f"{where}: [access] measures access to the footprint's points, but footprint "
             f'"{footprint.name}" is kind = "{footprint.kind}"; give a points footprint first'
         )
     if "catchment" not in ac_d:
