@@ -160,7 +160,9 @@ def pairs_within(origins_xy: np.ndarray, sites_xy: np.ndarray, catchment: float)
     Returns
     -------
     Pairs
-        Sorted by origin, then site; ``cost`` is the Euclidean distance.
+        In the tree's order (the same for the same inputs); ``cost`` is the Euclidean
+        distance, computed here so that the inclusive boundary does not depend on the
+        tree's rounding.
     """
     origins_xy = np.asarray(origins_xy, dtype=float).reshape(-1, 2)
     sites_xy = np.asarray(sites_xy, dtype=float).reshape(-1, 2)
@@ -172,13 +174,11 @@ def pairs_within(origins_xy: np.ndarray, sites_xy: np.ndarray, catchment: float)
     found = cKDTree(origins_xy).sparse_distance_matrix(
         cKDTree(sites_xy), radius, output_type="ndarray"
     )
-    i = found["i"].astype(np.int64)
-    j = found["j"].astype(np.int64)
+    i = np.asarray(found["i"], dtype=np.int64)
+    j = np.asarray(found["j"], dtype=np.int64)
     d = np.hypot(origins_xy[i, 0] - sites_xy[j, 0], origins_xy[i, 1] - sites_xy[j, 1])
     keep = d <= catchment
-    i, j, d = i[keep], j[keep], d[keep]
-    order = np.lexsort((j, i))
-    return Pairs(i[order], j[order], d[order], n, m)
+    return Pairs(i[keep], j[keep], d[keep], n, m)
 
 
 def pairs_from_costs(
