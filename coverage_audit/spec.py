@@ -49,6 +49,7 @@ RESERVED_NAMES = frozenset(
         "nearest_site_m",
         "lisa_cluster",
         "enclave_id",
+        "access",
     }
 )
 _NAME_RE = re.compile(r"^[A-Za-z_][A-Za-z0-9_]*$")

@@ -473,3 +473,25 @@ def test_demo_clinics_show_access_by_group(tmp_path):
     page = paths["report"].read_text(encoding="utf-8")
     assert 'id="access"' in page and "Access to capacity (E2SFCA, 5 km): black_nh" in page
     assert '"key":"access"' in paths["map"].read_text(encoding="utf-8").replace(" ", "")
+
+
+def test_audit_access_travel_time_table(tmp_path):
+    # The hand example's kilometres read as minutes (catchment "10 min"), the table in
+    # hours: the same shares, so the same scores (by hand, above); 10 min stays inclusive.
+    ids = [f"0100100000{k}" for k in range(1, 6)]
+    rows = [
+        (ids[i], s, abs(HAND_X[i] - x) / 1000.0 / 60.0)
+        for i in range(5)
+        for s, x in zip("ABC", SITES_X, strict=True)
+    ]
+    costs = pd.DataFrame(rows, columns=["origin", "site", "hours"])
+    spec = _hand_region(
+        tmp_path,
+        'capacity = "doctors"\ncatchment = "10 min"\nsite_id = "site_id"\ncosts = "times.csv"\n'
+        'cost_column = "hours"\ncost_unit = "h"\n',
+        costs,
+    )
+    result = _run(spec)
+    acc = result.summary["access"]
+    assert acc["catchment_m"] is None and acc["catchment_unit"] == "min"
+    np.testing.assert_allclose(result.areas["access"], HAND_2SFCA, rtol=1e-12)
