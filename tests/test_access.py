@@ -25,6 +25,8 @@ from coverage_audit.stats.access import (
 
 from .conftest import GRID_CRS, spec_text, write_spec
 
+pytest_plugins = ["tests.browser"]
+
 #: Agreement with the oracle (floating-point sums in another order).
 ORACLE_TOL = 1e-9
 
@@ -495,3 +497,70 @@ def test_audit_access_travel_time_table(tmp_path):
     acc = result.summary["access"]
     assert acc["catchment_m"] is None and acc["catchment_unit"] == "min"
     np.testing.assert_allclose(result.areas["access"], HAND_2SFCA, rtol=1e-12)
+
+
+# --- the map's access view ------------------------------------------------------------------
+
+
+def _access_map(tmp_path):
+    from coverage_audit.report.map import build_map
+
+    from .test_map import GROUPS, REFERENCE, make_inputs
+
+    areas, footprint, summary = make_inputs(40)
+    mean = 0.002
+    # Percent of the region's mean: 0 (none in reach), 0.5, 49.9, 50, 79.9, 80, 119.9, 120,
+    # 150 and 300, then missing; classes by the limits 1, 50, 80, 120, 150 (value < limit).
+    percents = [0, 0.5, 49.9, 50, 79.9, 80, 119.9, 120, 150, 300, np.nan]
+    access = np.full(len(areas), mean)
+    access[: len(percents)] = np.array(percents) / 100 * mean
+    areas["access"] = access
+    summary = {
+        **summary,
+        "access": {"method": "2SFCA", "catchment_m": 10_000.0, "region_mean": mean},
+    }
+    info = build_map(
+        areas,
+        id_column="geoid",
+        groups=GROUPS,
+        reference=REFERENCE,
+        footprint=footprint,
+        summary=summary,
+        title="t",
+        path=tmp_path / "m.html",
+    )
+    # Hand classes: 0 -> none; 0.5 and 49.9 -> "< 50%"; 50 and 79.9 -> "50-80%"; 80 and
+    # 119.9 -> "80-120%"; 120 -> "120-150%"; 150 and 300 -> ">= 150%".
+    expected = [0, 1, 1, 2, 2, 3, 3, 4, 5, 5]
+    return info, areas, expected
+
+
+def test_map_offers_an_access_view(tmp_path):
+    from coverage_audit.report.access_sections import ACCESS_COLORS
+
+    from .test_map import page_data, relative_luminance
+
+    info, _, _ = _access_map(tmp_path)
+    assert "access" in info.views
+    data = page_data(Path(info.path).read_text(encoding="utf-8"))
+    assert data["fields"]["acc"][:11] == [0, 1, 49, 50, 79, 80, 119, 120, 150, 300, None]
+    view = next(v for v in data["views"] if v["key"] == "access")
+    assert view["thresholds"] == [1, 50, 80, 120, 150] and view["has_missing"]
+    lum = [relative_luminance(c) for c in ACCESS_COLORS]
+    assert all(a > b for a, b in zip(lum, lum[1:], strict=False))  # light to dark
+
+
+@pytest.mark.browser
+def test_access_view_colours_in_the_browser(tmp_path, browser_page):
+    from coverage_audit.report.access_sections import ACCESS_COLORS
+
+    from .test_map import READY
+
+    info, areas, expected = _access_map(tmp_path)
+    browser_page.open(info.path, ready=READY)
+    colours = browser_page.js(
+        "var out = []; for (var i = 0; i < 10; i++) "
+        "out.push(coverageAuditMap.colourOf('access', i)); return out;"
+    )
+    assert colours == [ACCESS_COLORS[k] for k in expected]
+    assert browser_page.console_errors() == []

@@ -286,7 +286,8 @@ def access_map_layer(
         return None
     values = pd.to_numeric(frame["access"], errors="coerce").to_numpy(dtype=float)
     ok = np.isfinite(values)
-    percent = np.rint(np.where(ok, 100.0 * values / mean, 0.0)).astype(np.int64)
+    # Floored, so that an integer on the page falls in the class its exact value is in.
+    percent = np.floor(np.where(ok, 100.0 * values / mean, 0.0)).astype(np.int64)
     # A score of 0 (no site in reach) is its own class; a tiny positive one is not.
     percent = np.where(ok & (values > 0), np.maximum(percent, 1), percent)
     field = [int(v) if good else None for v, good in zip(percent, ok, strict=True)]
