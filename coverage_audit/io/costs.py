@@ -66,17 +66,23 @@ class CostTable:
 
 
 def site_ids_as_text(values: pd.Series) -> np.ndarray:
-    """Return site ids as text; whole numbers lose a trailing ``.0``."""
+    """Return site ids as text (``None`` where missing); whole numbers lose a trailing ``.0``."""
     if pd.api.types.is_numeric_dtype(values.dtype) and not pd.api.types.is_bool_dtype(values.dtype):
         numbers = pd.to_numeric(values, errors="coerce")
-        return np.array(
-            [
-                None if pd.isna(v) else (str(int(v)) if float(v).is_integer() else str(v))
-                for v in numbers
-            ],
-            dtype=object,
-        )
-    return np.array([None if pd.isna(v) else str(v).strip() or None for v in values], dtype=object)
+        whole = numbers.notna() & (numbers % 1 == 0)
+        text = numbers.astype("string")
+        text = text.where(~whole, numbers.where(whole).astype("Int64").astype("string"))
+        return text.to_numpy(dtype=object, na_value=None)
+    return _stripped(values, None)
+
+
+def _stripped(values: pd.Series, width: int | None) -> np.ndarray:
+    """Return text ids stripped (and zero-padded to ``width``), vectorised."""
+    text = values.astype("string").str.strip()
+    if width is not None:
+        text = text.str.zfill(width)
+    text = text.mask((text == "").fillna(False))
+    return text.to_numpy(dtype=object, na_value=None)
 
 
 def read_costs(
@@ -127,15 +133,19 @@ def read_costs(
         )
     n = len(table)
     record = InputRecord("access_costs", str(path), sha256_file(path), n)
-    origins = ids_as_text(
-        table[origin_column], width=id_width, where=f"{role} '{path}' column {origin_column}"
-    ).to_numpy(dtype=object)
+    raw = table[origin_column]
+    if pd.api.types.is_numeric_dtype(raw.dtype) and not pd.api.types.is_bool_dtype(raw.dtype):
+        origins = ids_as_text(
+            raw, width=id_width, where=f"{role} '{path}' column {origin_column}"
+        ).to_numpy(dtype=object)
+    else:
+        # read_table keeps the id column as text: strip and pad without a Python loop.
+        origins = _stripped(raw, id_width)
     sites = site_ids_as_text(table[site_column])
     cost = pd.to_numeric(table[cost_column], errors="coerce").to_numpy(dtype=float) * factor
-    area_pos = {str(a): k for k, a in enumerate(area_ids)}
-    site_pos = {str(s): k for k, s in enumerate(site_ids)}
-    o_idx = np.array([area_pos.get(o, -1) if o is not None else -1 for o in origins])
-    s_idx = np.array([site_pos.get(s, -1) if s is not None else -1 for s in sites])
+    # Ids are unique on both sides (areas by load_areas, sites checked by the caller).
+    o_idx = pd.Index(np.asarray(area_ids, dtype=object).astype(str)).get_indexer(origins)
+    s_idx = pd.Index(np.asarray(site_ids, dtype=object).astype(str)).get_indexer(sites)
     reasons = np.full(n, "", dtype=object)
     bad_cost = ~(np.isfinite(cost) & (cost >= 0))
     reasons[bad_cost] = f"cost in column {cost_column} missing, not a number or negative"
