@@ -564,3 +564,13 @@ def test_access_view_colours_in_the_browser(tmp_path, browser_page):
     )
     assert colours == [ACCESS_COLORS[k] for k in expected]
     assert browser_page.console_errors() == []
+
+
+def test_cli_prints_one_error_line(tmp_path, capsys):
+    from coverage_audit.cli import main
+
+    spec = _hand_region(tmp_path, 'catchment = "10 km"\ncapacity = "beds"\n')
+    assert main(["run", str(spec), "--out", str(tmp_path / "out"), "--quiet"]) == 2
+    err = capsys.readouterr().err
+    errors = [line for line in err.splitlines() if line.startswith("error: ")]
+    assert len(errors) == 1 and "'beds'" in errors[0] and "Traceback" not in err
