@@ -186,13 +186,13 @@ def test_fractional_rank_ties():
 
 # --- PySAL access as an oracle ----------------------------------------------------------
 
-access_pkg = pytest.importorskip("access")
-
 
 @pytest.fixture(scope="module")
 def columbus():
     """Columbus (bundled in the libpysal wheel): centroids, with a made-up demand."""
     from libpysal.examples import get_path
+
+    pytest.importorskip("access")  # PySAL access, in the test extra
 
     frame = gpd.read_file(get_path("columbus.shp"))
     frame["geoid"] = frame["POLYID"].astype(int)

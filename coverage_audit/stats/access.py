@@ -43,10 +43,6 @@ from .._util import clean_number, safe_ratio
 #: Decay rules: ``none`` (classic 2SFCA: weight 1 inside the catchment), ``gaussian``
 #: (Dai 2010) and ``steps`` (E2SFCA zones with weights, Luo and Qi 2009).
 DECAY_KINDS = ("none", "gaussian", "steps")
-#: The zones and weights of the enhanced form as published by Luo and Qi (2009), in
-#: thirds of the catchment (10, 20 and 30 minutes of a 30-minute catchment; weights from
-#: a Gaussian with a steep decay, as they give them; from memory).
-LUO_QI_WEIGHTS = (1.0, 0.68, 0.22)
 #: Relative slack of the tree query, so that pairs at exactly the catchment (<=) are
 #: never lost to rounding inside the tree; they are then kept on our own distance.
 _QUERY_SLACK = 1e-9
