@@ -118,8 +118,7 @@ capacity = "doctors"
 catchment = "5 km"
 decay = [[2, 1.0], [3.5, 0.68], [5, 0.22]]
 site_id = "site_id"
-low_access_fraction = 0.5
-""",
+low_access_fraction = 0.5""",
 )
 #: Fictional lenders of the activity table; the first is the audited bank.
 LENDERS = (
