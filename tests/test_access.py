@@ -327,6 +327,41 @@ def test_matches_pysal_access_cost_table(columbus, columbus_costs, kind):
     np.testing.assert_allclose(scores.access, expected, rtol=ORACLE_TOL, atol=1e-15)
 
 
+def test_matches_pysal_access_default_luo_qi_zones(columbus, columbus_costs):
+    # PySAL access' enhanced_two_stage_fca without a weight function applies Luo and Qi's
+    # published zones (0-10, 10-20, 20-30 minutes: 1.0, 0.68, 0.22); ours as a spec gives them.
+    from access import Access
+
+    costs = columbus_costs.assign(cost=columbus_costs["cost"] * 7.5)
+    model = Access(
+        demand_df=columbus,
+        demand_index="geoid",
+        demand_value="demand",
+        supply_df=COLUMBUS_SITES,
+        supply_index="site",
+        supply_value="cap",
+        cost_df=costs,
+        cost_origin="origin",
+        cost_dest="dest",
+        cost_name="cost",
+    )
+    out = model.enhanced_two_stage_fca(name="e2", max_cost=30.0)
+    expected = out["e2_cap"].reindex(columbus["geoid"].to_numpy()).fillna(0.0).to_numpy()
+    ids = {g: k for k, g in enumerate(columbus["geoid"])}
+    sites = {s: k for k, s in enumerate(COLUMBUS_SITES["site"])}
+    pairs = pairs_from_costs(
+        costs["origin"].map(ids).to_numpy(),
+        costs["dest"].map(sites).to_numpy(),
+        costs["cost"].to_numpy(),
+        len(columbus),
+        len(sites),
+    )
+    decay = Decay("steps", 30.0, ((10.0, 1.0), (20.0, 0.68), (30.0, 0.22)))
+    scores = _ours(columbus, COLUMBUS_SITES, decay, pairs)
+    assert (expected > 0).sum() > 20
+    np.testing.assert_allclose(scores.access, expected, rtol=ORACLE_TOL, atol=1e-15)
+
+
 # --- through the audit ------------------------------------------------------------------
 
 
