@@ -598,6 +598,10 @@ def test_access_view_colours_in_the_browser(tmp_path, browser_page):
         "out.push(coverageAuditMap.colourOf('access', i)); return out;"
     )
     assert colours == [ACCESS_COLORS[k] for k in expected]
+    text = browser_page.js(
+        "coverageAuditMap.showArea(4); return document.querySelector('[data-area]').textContent"
+    )
+    assert "Access (% of region's mean)79%" in text.replace("\n", "")
     assert browser_page.console_errors() == []
 
 

@@ -374,6 +374,7 @@ window.coverageAuditDraw = function (map, D) {
     if (F.tier) { row(t, "Income tier", F.tier[i] === null ? "n/a" : D.codes.tier[F.tier[i]]); }
     if (F.inc) { row(t, "Income ratio (% of area median)", fmtNum(F.inc[i], 1)); }
     if (F.dist) { row(t, "Nearest site", F.dist[i] === null ? "n/a" : fmtInt(F.dist[i]) + " m"); }
+    if (F.acc) { row(t, "Access (% of region's mean)", F.acc[i] === null ? "n/a" : fmtInt(F.acc[i]) + "%"); }
     if (F.lisa) {
       var lc = F.lisa[i] === null ? "left out" : D.codes.lisa[F.lisa[i]];
       if (F.lisa_p && F.lisa_p[i] !== null) { lc += " (p = " + fmtP(F.lisa_p[i]) + ")"; }
