@@ -10,6 +10,7 @@ statistics themselves are in :mod:`coverage_audit.stats.access`.
 
 from __future__ import annotations
 
+from collections.abc import Mapping
 from typing import Any
 
 import geopandas as gpd
@@ -18,6 +19,7 @@ import pandas as pd
 import shapely
 
 from .errors import InputError
+from .findings import Finding, label, number, pct, register_finding
 from .footprint import Footprint
 from .inputs import AreaInputs
 from .spec import AccessSpec, AuditSpec
@@ -164,3 +166,61 @@ def measure_access(
         costs=costs_info,
     )
     return result.to_dict(), scores.access
+
+
+#: Ratio of mean access under which a group's finding is salient: the four-fifths rule of
+#: thumb borrowed from coverage (29 CFR 1607.4(D) is about selection rates; common
+#: practice for access ratios, no single source).
+ACCESS_FLAG_RATIO = 0.8
+
+
+@register_finding("access", order=40)
+def access_findings(summary: Mapping[str, Any]) -> list[Finding]:
+    """Return the access findings: the groups with the lowest mean access against the reference."""
+    section = summary.get("access")
+    groups = section.get("groups") if isinstance(section, Mapping) else None
+    if not isinstance(section, Mapping) or not isinstance(groups, Mapping):
+        return []
+    ref = str(section.get("reference_group") or "")
+    rows = sorted(
+        (float(r), g)
+        for g, row in groups.items()
+        if g != ref and isinstance(row, Mapping) and (r := number(row.get("ratio"))) is not None
+    )
+    if not rows:
+        return []
+    metres = number(section.get("catchment_m"))
+    reach = (
+        f"{metres / 1000:g} km"
+        if metres is not None
+        else f"{section.get('catchment')} {section.get('catchment_unit')}"
+    )
+    low = number(section.get("low_access_fraction"))
+    unit = str(summary.get("population_unit") or "people")
+    flagged = [(r, g) for r, g in rows if r < ACCESS_FLAG_RATIO] or rows[:1]
+    out = []
+    for ratio, g in flagged[:3]:
+        row = groups[g]
+        sentence = (
+            f"Access to capacity ({section.get('method')}, catchment {reach}): mean access of "
+            f"{label(summary, g)} {unit} is {ratio:.2f} times that of {label(summary, ref)} "
+            f"{unit}; {pct(row.get('share_low_access'))} of them live where access is below "
+            f"{pct(low, 0)} of the region's mean."
+        )
+        figures = {
+            "group": g,
+            "reference_group": ref,
+            "mean_access": row.get("mean_access"),
+            "reference_mean_access": _reference_mean(groups, ref),
+            "ratio": ratio,
+            "share_low_access": row.get("share_low_access"),
+            "method": section.get("method"),
+            "catchment_m": section.get("catchment_m"),
+        }
+        out.append(Finding("access", sentence, figures, salient=ratio < ACCESS_FLAG_RATIO))
+    return out
+
+
+def _reference_mean(groups: Mapping[str, Any], ref: str) -> Any:
+    row = groups.get(ref)
+    return row.get("mean_access") if isinstance(row, Mapping) else None

@@ -508,7 +508,10 @@ def test_demo_clinics_show_access_by_group(tmp_path):
     assert acc["concentration_index"] < 0
     paths = result.write(tmp_path / "out")
     page = paths["report"].read_text(encoding="utf-8")
-    assert 'id="access"' in page and "Access to capacity (E2SFCA, 5 km): black_nh" in page
+    assert 'id="access"' in page and "Access to capacity (E2SFCA, 5 km): non-Hispanic Black" in page
+    (first, *_) = [f for f in result.summary["findings"] if f["kind"] == "access"]
+    assert first["figures"]["group"] == "black_nh" and first["figures"]["ratio"] < 0.8
+    assert first["sentence"] in page.replace("&#x27;", "'")
     assert '"key":"access"' in paths["map"].read_text(encoding="utf-8").replace(" ", "")
 
 
@@ -613,3 +616,32 @@ def test_cli_prints_one_error_line(tmp_path, capsys):
     err = capsys.readouterr().err
     errors = [line for line in err.splitlines() if line.startswith("error: ")]
     assert len(errors) == 1 and "'beds'" in errors[0] and "Traceback" not in err
+
+
+def test_access_finding_sentence():
+    # Literal summary: the finding quotes the ratio and the low-access share as given.
+    from coverage_audit.accessibility import access_findings
+
+    summary = {
+        "group_labels": {"white": "White", "black": "Black"},
+        "access": {
+            "method": "E2SFCA",
+            "catchment_m": 15000.0,
+            "reference_group": "white",
+            "low_access_fraction": 0.5,
+            "groups": {
+                "white": {"mean_access": 0.002, "ratio": 1.0, "share_low_access": 0.1},
+                "black": {"mean_access": 0.0016, "ratio": 0.8, "share_low_access": 0.25},
+            },
+        },
+    }
+    (finding,) = access_findings(summary)
+    assert finding.sentence == (
+        "Access to capacity (E2SFCA, catchment 15 km): mean access of Black people is 0.80 "
+        "times that of White people; 25.0% of them live where access is below 50% of the "
+        "region's mean."
+    )
+    # Exactly four-fifths is not below it: not salient.
+    assert not finding.salient
+    summary["access"]["groups"]["black"]["ratio"] = 0.79
+    assert access_findings(summary)[0].salient

@@ -163,7 +163,7 @@ def access_section(page: Page) -> Html:
         row = as_mapping(data[g])
         rows.append(
             (
-                g + (" (reference)" if g == ref else ""),
+                page.label(g) + (" (reference)" if g == ref else ""),
                 Num(fmt_count(row.get("population"))),
                 Num(_per_thousand(row.get("mean_access"))),
                 Num(fmt_fixed(row.get("ratio"), 2)),
@@ -182,7 +182,7 @@ def access_section(page: Page) -> Html:
                 "Group",
                 Num("People"),
                 Num("Mean access per 1,000"),
-                Num(f"Ratio to {ref}"),
+                Num(f"Ratio to {page.label(ref)}"),
                 Num(low_label.capitalize()),
             ),
             rows,
@@ -194,7 +194,7 @@ def access_section(page: Page) -> Html:
     )
     if rows:
         svg = access_bar_chart(
-            names,
+            [page.label(g) for g in names],
             [as_number(as_mapping(data[g]).get("mean_access")) for g in names],
             region_mean=as_number(acc.get("region_mean")),
             low_line=as_number(acc.get("low_access_threshold")),
@@ -266,9 +266,10 @@ def access_key_figures(page: Page) -> list[Html]:
     return [
         tag(
             "li",
-            f"Access to capacity ({acc.get('method')}, {_catchment_text(acc)}): {group} mean "
-            f"access is {fmt_fixed(ratio, 2)} of {acc.get('reference_group')}'s; "
-            f"{fmt_percent(low)} of {group} live where access is below "
+            f"Access to capacity ({acc.get('method')}, {_catchment_text(acc)}): "
+            f"{page.label(group)} mean access is {fmt_fixed(ratio, 2)} of "
+            f"{page.label(str(acc.get('reference_group')))}'s; "
+            f"{fmt_percent(low)} of them live where access is below "
             f"{fmt_percent(as_number(acc.get('low_access_fraction')), 0)} of the region's mean.",
         )
     ]
