@@ -417,6 +417,11 @@ def compute_statistics(
     frame["enclave_id"] = result.enclave_id
     sections = {**out, "coverage": coverage_section}
     out.update(_further_analyses(spec, inputs, footprint, frame, graph, sections, progress))
+    if spec.access is not None:
+        from .accessibility import measure_access
+
+        with progress.stage("access (two-step floating catchment)"):
+            out["access"], frame["access"] = measure_access(spec, inputs, footprint, frame)
     out["_frame"] = frame
     out["_report"] = (
         {"moran_weights": graph.stats_graph("r"), "moran_mask": graph.stats_mask}

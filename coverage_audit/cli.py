@@ -146,7 +146,8 @@ def _build_parser() -> argparse.ArgumentParser:
         description=(
             "Run every scenario of the bundled fictional demo region (a delivery zone, a "
             "branch network, an assessment area, an outreach program audited with margins of "
-            "error, a mortgage lending review from loan records) and write each one's outputs."
+            "error, a mortgage lending review from loan records, clinics with their doctors) "
+            "and write each one's outputs."
         ),
     )
     demo.add_argument(
@@ -158,7 +159,7 @@ def _build_parser() -> argparse.ArgumentParser:
     demo.add_argument(
         "--scenario",
         action="append",
-        choices=["delivery", "branches", "assessment_area", "outreach", "lending"],
+        choices=["delivery", "branches", "assessment_area", "outreach", "lending", "clinics"],
         help="run only this scenario (repeatable; default: all)",
     )
     demo.add_argument(

@@ -1041,6 +1041,11 @@ def build_map(
 
     fields, missing = _fields(frame, id_column, groups, label_column)
     views = _views(frame, fields, missing, groups, reference, summary)
+    from .access_sections import access_map_layer
+
+    if (layer := access_map_layer(frame, summary)) is not None:
+        fields["acc"], view = layer
+        views.append(view)
     overlays = _footprint_overlays(footprint, areas.crs, tolerance, decimals)
     region_bounds = None
     if outside is not None and len(outside):
