@@ -29,6 +29,7 @@ from scipy.optimize import linprog
 
 from ._util import clean_number, safe_ratio, to_jsonable
 from .errors import AnalysisError, CoverageAuditWarning, SpecError
+from .stats.four_fifths import below_four_fifths
 
 #: Minority share enters the models per 10 percentage points (0.10 as a fraction), so an
 #: odds ratio reads "per 10-point rise in minority share" instead of "from 0 % to 100 %".
@@ -1555,8 +1556,10 @@ def sensitivity_thresholds(
     Notes
     -----
     A group's served-area rate is the share of its population living in served areas.
-    The four-fifths flag is ``ratio < 0.8``, strictly (29 CFR 1607.4(D)); an undefined
-    ratio (comparison rate 0) does not raise the flag. Raising the threshold can only
+    The four-fifths flag is ``ratio < 4/5``, strictly (29 CFR 1607.4(D)), compared
+    exactly on the served and total counts by
+    :func:`~coverage_audit.stats.four_fifths.below_four_fifths`; an undefined ratio
+    (comparison rate 0) does not raise the flag. Raising the threshold can only
     remove areas from the served set, so every served share is non-increasing in it.
     """
     if against not in ("reference", "highest"):
@@ -1582,8 +1585,9 @@ def sensitivity_thresholds(
         raise SpecError(f"thresholds must be numbers in (0, 1]; got {t.tolist()}")
     served = cf[None, :] >= t[:, None]
     totals = matrix.sum(axis=0)
+    served_counts = served.astype(float) @ matrix
     with np.errstate(invalid="ignore", divide="ignore"):
-        rates = (served.astype(float) @ matrix) / totals
+        rates = served_counts / totals
     ref_index = names.index(reference)
     rows = []
     for k, threshold in enumerate(t):
@@ -1595,7 +1599,10 @@ def sensitivity_thresholds(
         for j, g in enumerate(names):
             rate = clean_number(rates[k, j])
             ratio = None if rate is None else safe_ratio(rates[k, j], rates[k, comp])
-            groups[g] = GroupAtThreshold(rate, ratio, bool(ratio is not None and ratio < 0.8))
+            flag = ratio is not None and below_four_fifths(
+                served_counts[k, j], totals[j], served_counts[k, comp], totals[comp]
+            )
+            groups[g] = GroupAtThreshold(rate, ratio, flag)
         rows.append(
             SensitivityRow(
                 threshold=float(threshold),

@@ -723,8 +723,14 @@ def test_four_fifths_is_strict_and_highest_group_option():
         "h": np.array([0, 0, 0, 1.0, 0]),
     }
     (row,) = sensitivity_thresholds(cf, counts, "ref", [0.5])
-    # 29 CFR 1607.4(D): "less than four-fifths"; exactly 0.8 is not flagged.
+    # 29 CFR 1607.4(D): "less than four-fifths"; exactly 4/5 is not flagged. g has 4 of 5
+    # served against 10 of 10; the exact boundary with a float trap is in
+    # test_four_fifths.py (3/5 against 3/4).
     assert row.groups["g"].ratio == pytest.approx(0.8)
+    assert row.groups["g"].below_four_fifths is False
+    trap = {"ref": np.array([3.0, 1.0, 0, 0, 0]), "g": np.array([0, 0, 2.0, 3.0, 0])}
+    (row,) = sensitivity_thresholds(np.array([1.0, 0.0, 0.0, 1.0, 0.0]), trap, "ref", [0.5])
+    assert row.groups["g"].ratio < 0.8  # 0.7999999999999999 in float, 4/5 by hand
     assert row.groups["g"].below_four_fifths is False
     (high,) = sensitivity_thresholds(
         cf, {**counts, "ref": np.array([5.0, 5.0, 5.0, 5.0, 0])}, "ref", [0.5], against="highest"

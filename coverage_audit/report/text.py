@@ -73,7 +73,14 @@ METHODS: dict[str, tuple[tuple[str, str], ...]] = {
         ),
         (
             "Four-fifths screen (29 CFR 1607.4(D))",
-            "A group is flagged when its ratio is strictly less than 0.8. {four_fifths}",
+            "A group is flagged when its ratio is strictly less than 4/5. The comparison is "
+            "made exactly on the counts, not on the rounded ratio: with a of b people covered "
+            "in the group and c of d in the comparison group, the flag is 5&middot;a&middot;d "
+            "&lt; 4&middot;b&middot;c, in exact rational arithmetic, and it is raised only "
+            "when the shortfall exceeds one part in a billion (10<sup>&minus;9</sup>) of the "
+            "right-hand side, so that rounding in the covered counts cannot flag a ratio of "
+            "exactly 4/5 (for example 60,000 of 100,000 against 75,000 of 100,000). The same "
+            "rule applies in the sweeps and comparisons. {four_fifths}",
         ),
     ),
     "area_classes": (
