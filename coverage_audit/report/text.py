@@ -143,7 +143,11 @@ METHODS: dict[str, tuple[tuple[str, str], ...]] = {
             "from the mean, w<sub>ij</sub> the row-standardised contiguity weights and "
             "S<sub>0</sub> their sum (Moran, P. A. P. 1950, Biometrika 37, 17&ndash;23). "
             "Variance and z under randomisation follow Cliff, A. D. and Ord, J. K. 1981, "
-            "Spatial Processes: Models and Applications. p_sim is a pseudo p-value from "
+            "Spatial Processes: Models and Applications. The normal p-values p_norm and "
+            "p_rand are one-sided, in the direction of z: P(Z &ge; |z|); the keys "
+            "p_norm_two_sided and p_rand_two_sided hold 2&nbsp;P(Z &ge; |z|). This is the one "
+            "convention of every Moran p-value in summary.json, the residual Moran's I of "
+            "the models included. p_sim is a pseudo p-value from "
             "random permutations of the values over the areas, (1 + number at least as "
             "extreme) / (permutations + 1).",
         ),
@@ -234,7 +238,9 @@ METHODS: dict[str, tuple[tuple[str, str], ...]] = {
         (
             "Moran's I of the model residuals",
             "Moran's I of each model's Pearson residuals under the contiguity weights, with "
-            "its z-score under randomisation (Cliff and Ord 1981). |z| above 1.96 means that "
+            "its z-score under randomisation (Cliff and Ord 1981), computed by the same code "
+            "as the global Moran's I; p_rand is one-sided and p_rand_two_sided two-sided, as "
+            "there. |z| above 1.96 (two-sided p below 0.05) means that "
             "neighbouring areas' residuals are alike: a spatial pattern the model does not "
             "account for, which also makes its standard errors likely too small.",
         ),
