@@ -24,8 +24,8 @@ import pandas as pd
 import shapely
 from pyproj import CRS, Geod, Transformer
 
-from .geographic import DENSIFY_DEGREES, prepare_geographic  # noqa: F401 (re-export)
 from .errors import InputError, RepairWarning
+from .geographic import DENSIFY_DEGREES, prepare_geographic  # noqa: F401 (re-export)
 from .inputs import (
     AreaInputs,
     Exclusions,

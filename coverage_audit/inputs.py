@@ -26,8 +26,8 @@ import pyogrio
 import shapely
 from pyproj import CRS, Transformer
 
-from .geographic import longitude_span, prepare_geographic, span_centre
 from .errors import IdWarning, InputError, RepairWarning
+from .geographic import longitude_span, prepare_geographic, span_centre
 from .spec import AreasSpec, PopulationSpec
 
 #: Extensions read with pandas/pyarrow rather than GDAL.
