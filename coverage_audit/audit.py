@@ -24,6 +24,7 @@ from . import __version__
 from .coverage import CoverageResult, coverage_by_group, footprint_fractions, nearest_site_distance
 from .footprint import Footprint, build_footprint
 from .inputs import AreaInputs, load_areas
+from .population_notice import population_notice, said_once
 from .progress import SilentProgress
 from .spec import AuditSpec, load_spec, spec_from_dict
 
@@ -229,6 +230,20 @@ def run_audit(
     with progress.stage("reading areas"):
         inputs = load_areas(spec.areas, spec.population, analysis_crs=spec.analysis.analysis_crs)
     frame = inputs.frame
+    notice = population_notice(frame)  # every area without people: said once
+    with said_once(notice):
+        return _run_audit(spec, progress, started, streams, inputs, frame, notice)
+
+
+def _run_audit(
+    spec: AuditSpec,
+    progress: SilentProgress,
+    started: _dt.datetime,
+    streams: dict[str, np.random.Generator],
+    inputs: AreaInputs,
+    frame: gpd.GeoDataFrame,
+    notice: str | None,
+) -> AuditResult:
     with progress.stage(f"building footprint '{spec.footprint.name}'"):
         footprint = build_footprint(
             spec.footprint,
@@ -246,6 +261,7 @@ def run_audit(
     summary: dict[str, Any] = {
         "schema_version": SCHEMA_VERSION,
         "title": spec.title,
+        "population_notice": notice,
         "footprint": footprint.to_dict(),
         "areas": _areas_section(inputs, frame),
     }

@@ -26,6 +26,8 @@ def print_summary(result: Any, paths: dict[str, Path], *, seconds: float, stream
     console.print(
         f"\n[bold]{s['title']}[/bold]  footprint: {s['footprint']['name']} ({s['footprint']['kind']})"
     )
+    if s.get("population_notice"):
+        console.print(f"[bold]note:[/bold] {s['population_notice']}")
     console.print(
         f"areas: {areas['input']} in, {areas['analysed']} analysed, {areas['excluded']} excluded; "
         f"served: {cov['served_areas']} of {cov['areas']} (threshold {cov['served_threshold']:g})"
@@ -33,7 +35,7 @@ def print_summary(result: Any, paths: dict[str, Path], *, seconds: float, stream
     table = Table(show_edge=False, header_style="bold")
     console.print(
         f"[dim]coverage = areal-weighted rate; served = share living in served areas; ratio and "
-        f"diff (percentage points) against {cov['comparison_group']}; <4/5 = ratio below 0.8[/dim]"
+        f"diff (percentage points) against {cov['comparison_group']}; <4/5 = ratio below four-fifths[/dim]"
     )
     for col in ("group", "people", "coverage", "served", "ratio", "diff pp", "<4/5"):
         table.add_column(col, justify="left" if col == "group" else "right")

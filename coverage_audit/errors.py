@@ -46,3 +46,7 @@ class DegenerateStatisticWarning(CoverageAuditWarning):
 
 class IdWarning(CoverageAuditWarning):
     """Ids were stored as numbers, so leading zeros (GEOIDs of states 01-09) may be lost."""
+
+
+class NoPopulationWarning(DegenerateStatisticWarning):
+    """Every analysed area has zero population: no rate, ratio or index by group is defined."""

@@ -25,7 +25,7 @@ import shapely
 from pyproj import CRS, Geod, Transformer
 
 from .errors import InputError, RepairWarning
-from .geographic import DENSIFY_DEGREES, prepare_geographic  # noqa: F401 (re-export)
+from .geographic import unwrap_longitudes
 from .inputs import (
     AreaInputs,
     Exclusions,
@@ -46,6 +46,9 @@ from .spec import LENGTH_UNITS, FootprintSpec
 #: 200,000-vertex zone took 73 s uncut, 2.3 s in pieces of 5,000 and 1.0 s in pieces of
 #: 1,000; smaller pieces add cut lines that cross more areas and gain nothing.
 MAX_PIECE_VERTICES = 1_000
+#: Densify footprint polygons given in degrees so their edges keep their course when
+#: projected (0.005 degree is about 500 m).
+DENSIFY_DEGREES = 0.005
 
 _TRUE = {"1", "true", "t", "yes", "y", "served", "x"}
 _FALSE = {"0", "false", "f", "no", "n", "", "nan", "none"}
@@ -196,9 +199,9 @@ def build_footprint(
         raise InputError(f"footprint '{spec.name}' ('{spec.path}') has no usable polygon")
     polys = fixed[keep]
     if CRS(layer.crs).is_geographic:
-        # Pieces cut at the antimeridian (RFC 7946) are rejoined, edges densified as the
-        # areas' are, before projection.
-        polys = prepare_geographic(polys)
+        # Pieces cut at the antimeridian (RFC 7946) are rejoined before projection.
+        polys, _ = unwrap_longitudes(polys)
+        polys = shapely.segmentize(polys, DENSIFY_DEGREES)
     projected = gpd.GeoSeries(polys, crs=layer.crs).to_crs(crs).to_numpy()
     projected, _ = repair(projected)
     dissolved = shapely.union_all(projected)

@@ -1,11 +1,4 @@
-"""Geometries in longitude/latitude made ready for projection: antimeridian and densifying.
-
-Areas and footprints given in degrees pass through :func:`prepare_geographic` before they
-are projected, so both sides of the coverage overlay read their edges the same way:
-straight in longitude/latitude (as GeoJSON, RFC 7946, section 3.1.1, reads them), kept so
-by densifying every edge to at most :data:`DENSIFY_DEGREES` before projection.
-
-Longitudes across the antimeridian: the data's real extent and geometries made whole.
+"""Longitudes across the antimeridian: the data's real extent and geometries made whole.
 
 GeoJSON (RFC 7946, section 3.1.9) asks that a geometry crossing the antimeridian be cut
 in two at 180 degrees, so an area straddling it arrives as a MultiPolygon with one part
@@ -28,10 +21,6 @@ import shapely
 
 #: Polygon and MultiPolygon type ids of shapely.
 _POLYGONAL = (3, 6)
-#: Densify polygons given in degrees so their edges keep their course when projected
-#: (0.005 degree is about 500 m). Areas and footprints use the same value, so an area edge
-#: and a footprint edge along the same line of the map project to the same vertices.
-DENSIFY_DEGREES = 0.005
 
 
 def longitude_span(lon: np.ndarray) -> tuple[float, float]:
@@ -151,13 +140,3 @@ def unwrap_longitudes(geoms: np.ndarray) -> tuple[np.ndarray, int]:
                 )
         out[k] = g
     return out, int(moved.sum())
-
-
-def prepare_geographic(geoms: np.ndarray) -> np.ndarray:
-    """Return polygons in degrees ready to project: unwrapped, rejoined and densified.
-
-    :func:`unwrap_longitudes`, then :func:`shapely.segmentize` to
-    :data:`DENSIFY_DEGREES`. The inputs are not modified.
-    """
-    unwrapped, _ = unwrap_longitudes(np.asarray(geoms, dtype=object))
-    return np.asarray(shapely.segmentize(unwrapped, DENSIFY_DEGREES), dtype=object)

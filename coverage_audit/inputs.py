@@ -27,7 +27,7 @@ import shapely
 from pyproj import CRS, Transformer
 
 from .errors import IdWarning, InputError, RepairWarning
-from .geographic import longitude_span, prepare_geographic, span_centre
+from .geographic import longitude_span, span_centre, unwrap_longitudes
 from .spec import AreasSpec, PopulationSpec
 
 #: Extensions read with pandas/pyarrow rather than GDAL.
@@ -618,9 +618,8 @@ def load_areas(
 
     kept = geoms[sel]
     if source_crs.is_geographic:
-        # Halves cut at the antimeridian become one area (RFC 7946), and edges are
-        # densified as the footprint's are, before projection.
-        kept = prepare_geographic(kept)
+        # Halves cut at the antimeridian become one area before projection (RFC 7946).
+        kept, _ = unwrap_longitudes(kept)
     analysed = gpd.GeoDataFrame(
         out, geometry=gpd.GeoSeries(kept, crs=layer.crs).values, crs=layer.crs
     )
