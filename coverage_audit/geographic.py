@@ -83,13 +83,32 @@ def _part_longitudes(geoms: np.ndarray) -> np.ndarray:
     return bounds[:, [0, 2]].ravel()
 
 
-def unwrap_longitudes(geoms: np.ndarray) -> tuple[np.ndarray, int]:
+def data_centre(geoms: np.ndarray) -> float:
+    """Return the middle longitude of the geometries' real extent (NaN without any)."""
+    geoms = np.asarray(geoms, dtype=object)
+    west, east = longitude_span(_part_longitudes(geoms))
+    return span_centre(west, east) if np.isfinite(west) else float("nan")
+
+
+def shift_longitudes(lon: np.ndarray, centre: float) -> np.ndarray:
+    """Return longitudes moved by whole turns onto [centre - 180, centre + 180)."""
+    lon = np.asarray(lon, dtype=float)
+    if not np.isfinite(centre):
+        return lon
+    low = centre - 180.0
+    return np.where(lon < low, lon + 360.0, np.where(lon >= low + 360.0, lon - 360.0, lon))
+
+
+def unwrap_longitudes(geoms: np.ndarray, centre: float | None = None) -> tuple[np.ndarray, int]:
     """Shift longitudes by whole turns onto the data's own arc; rejoin split geometries.
 
     Parameters
     ----------
     geoms : numpy.ndarray of shapely geometries
         Geometries in a geographic CRS (longitude first), None allowed.
+    centre : float, optional
+        Longitude to centre on; by default the middle of the geometries' own extent
+        (:func:`data_centre`). Give one centre to several layers that are shown together.
 
     Returns
     -------
@@ -110,10 +129,11 @@ def unwrap_longitudes(geoms: np.ndarray) -> tuple[np.ndarray, int]:
     geoms = np.asarray(geoms, dtype=object)
     if geoms.size == 0:
         return geoms, 0
-    west, east = longitude_span(_part_longitudes(geoms))
-    if not np.isfinite(west):
+    if centre is None:
+        centre = data_centre(geoms)
+    if not np.isfinite(centre):
         return geoms, 0
-    low = span_centre(west, east) - 180.0
+    low = centre - 180.0
     high = low + 360.0
     present = ~shapely.is_missing(geoms)
     bounds = np.full((geoms.size, 4), np.nan)
@@ -124,9 +144,8 @@ def unwrap_longitudes(geoms: np.ndarray) -> tuple[np.ndarray, int]:
         return geoms, 0
 
     def shift(xy: np.ndarray) -> np.ndarray:
-        x = xy[:, 0]
         out = xy.copy()
-        out[:, 0] = np.where(x < low, x + 360.0, np.where(x >= high, x - 360.0, x))
+        out[:, 0] = shift_longitudes(xy[:, 0], float(centre))
         return out
 
     out = geoms.copy()

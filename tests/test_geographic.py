@@ -24,6 +24,8 @@ from coverage_audit import run_audit
 from coverage_audit.geographic import longitude_span, span_centre, unwrap_longitudes
 from coverage_audit.inputs import choose_analysis_crs
 
+from .test_map import decode, page_data
+
 N = 7
 STEP = 0.01
 # Column edges in unwrapped longitude; the middle column runs from 179.995 to 180.005
@@ -154,6 +156,16 @@ def test_region_across_the_antimeridian_is_one_region(tmp_path, west):
     assert len(summary["enclaves"]) == 1
     assert sorted(summary["enclaves"][0]["area_ids"]) == centre_ids
     assert summary["enclaves"][0]["surround_share"] == pytest.approx(1.0, abs=1e-9)
+    # The map draws the region on one side of 180: its bounds span the grid's 0.07 degree
+    # of longitude, not 360, and every drawn vertex lies within the unwrapped extent.
+    result.write(tmp_path / "out")
+    data = page_data((tmp_path / "out" / "map.html").read_text(encoding="utf-8"))
+    (south, west_), (north, east_) = data["bounds"]
+    assert east_ - west_ == pytest.approx(N * STEP, abs=1e-3)
+    rings = [ring for shape in decode(data["areas"]) for part in shape for ring in part]
+    lon = np.concatenate([ring[:, 0] for ring in rings])
+    assert np.ptp(lon) == pytest.approx(N * STEP, abs=1e-3)  # 359.9... before
+    assert west_ - 1e-6 <= lon.min() and lon.max() <= east_ + 1e-6
     # Areas against pyproj's geodesic area of the unwrapped cells (Karney 2013).
     geod = Geod(ellps="WGS84")
     for j, i in [(0, 3), (3, 3), (6, 0)]:

@@ -32,6 +32,7 @@ from jinja2 import Template
 
 from .._util import clean_number, to_jsonable
 from ..errors import InputError, SpecError
+from ..geographic import data_centre, shift_longitudes, unwrap_longitudes
 from . import assets
 
 __all__ = [
@@ -607,6 +608,7 @@ def _footprint_overlays(
     crs: Any,
     tolerance: float,
     decimals: int,
+    centre: float = float("nan"),
 ) -> list[dict[str, Any]]:
     if footprint is None:
         return []
@@ -625,6 +627,7 @@ def _footprint_overlays(
         if tolerance > 0:
             geoms = shapely.simplify(geoms, tolerance, preserve_topology=True)
         lonlat = gpd.GeoSeries(geoms, crs=series.crs).to_crs(4326).values
+        lonlat = unwrap_longitudes(np.asarray(lonlat), centre)[0]  # one side of 180
         lonlat = np.asarray(lonlat)[_has_polygon(np.asarray(lonlat))]
         if lonlat.size:
             label = "Footprint (listed areas)" if kind == "ids" else "Footprint"
@@ -660,7 +663,7 @@ def _footprint_overlays(
                 "key": "points",
                 "label": f"Service points: {name}",
                 "kind": "points",
-                "lon": np.round(pts.x.to_numpy(), 6).tolist(),
+                "lon": np.round(shift_longitudes(pts.x.to_numpy(), centre), 6).tolist(),
                 "lat": np.round(pts.y.to_numpy(), 6).tolist(),
                 "radius_m": radius,
                 "color": "#1f1f1f",
@@ -673,7 +676,7 @@ def _footprint_overlays(
 
 
 def _enclave_overlay(
-    display: gpd.GeoSeries, enclave: pd.Series, decimals: int
+    display: gpd.GeoSeries, enclave: pd.Series, decimals: int, centre: float = float("nan")
 ) -> dict[str, Any] | None:
     ids = enclave.where(enclave.notna(), None)
     mask = ids.notna().to_numpy()
@@ -688,7 +691,7 @@ def _enclave_overlay(
     # Natural order E1, E2, ..., E10 rather than the string order E1, E10, E2.
     keys = sorted(dissolved.index, key=lambda s: (len(s), s))
     dissolved = dissolved.loc[keys].to_crs(4326)
-    geoms = np.asarray(dissolved.geometry.values)
+    geoms = unwrap_longitudes(np.asarray(dissolved.geometry.values), centre)[0]
     has = _has_polygon(geoms)
     return {
         "key": "enclaves",
@@ -912,17 +915,20 @@ def build_map(
     lonlat_has = _has_polygon(lonlat)
     if not lonlat_has.all():  # pragma: no cover - reprojection keeps polygons polygons
         lonlat = np.where(lonlat_has, lonlat, np.asarray(frame.geometry.to_crs(4326).values))
+    # A region across the antimeridian is drawn on one side of it, every layer alike.
+    centre = data_centre(lonlat)
+    lonlat = unwrap_longitudes(lonlat, centre)[0]
     n = int(len(frame))
     xmin, ymin, xmax, ymax = shapely.total_bounds(lonlat) if n else (0.0, 0.0, 0.0, 0.0)
     bounds = [[float(ymin), float(xmin)], [float(ymax), float(xmax)]]
 
     fields, missing = _fields(frame, id_column, groups, label_column)
     views = _views(frame, fields, missing, groups, reference, summary)
-    overlays = _footprint_overlays(footprint, areas.crs, tolerance, decimals)
+    overlays = _footprint_overlays(footprint, areas.crs, tolerance, decimals, centre)
     codes: dict[str, list[str]] = {"tier": list(INCOME_TIERS), "lisa": list(LISA_LABELS)}
     if "enclave_id" in frame.columns:
         enclave = _enclave_overlay(
-            display_series, frame["enclave_id"].reset_index(drop=True), decimals
+            display_series, frame["enclave_id"].reset_index(drop=True), decimals, centre
         )
         if enclave is not None:
             overlays.insert(0, enclave)
