@@ -29,7 +29,7 @@ from .footprint import Footprint
 # percent) of the rate for the group with the highest rate" is regarded as evidence of
 # adverse impact. Strictly less than; a screening rule of thumb in coverage work. One
 # exact comparison serves every stage (stats/four_fifths.py).
-from .stats.four_fifths import FOUR_FIFTHS, below_four_fifths
+from .stats.four_fifths import FOUR_FIFTHS, FOUR_FIFTHS_REL_TOL, below_four_fifths
 
 
 def covered_fraction(areas: np.ndarray, pieces: np.ndarray) -> np.ndarray:
@@ -181,6 +181,8 @@ class CoverageResult:
             "comparison": self.comparison,
             "comparison_group": self.comparison_group,
             "four_fifths_threshold": FOUR_FIFTHS,
+            # The flag compares counts exactly; rounding within this share is not a shortfall.
+            "four_fifths_relative_tolerance": float(FOUR_FIFTHS_REL_TOL),
             "areas": self.areas,
             "served_areas": self.served_areas,
             "population": clean_number(self.population),

@@ -98,6 +98,7 @@ def test_coverage_by_group_exact_boundary_reference_and_highest():
         assert result.groups["a"].covered_population == 60_000.0
         assert result.groups["a"].ratio == pytest.approx(0.8, rel=1e-15)
         assert result.groups["a"].below_four_fifths is False  # 29 CFR 1607.4(D)
+        assert result.to_dict()["four_fifths_relative_tolerance"] == 1e-9
     # 59,999 of 100,000 against 75,000 is below four-fifths (0.79998666..., by hand).
     low = coverage_by_group(
         table,
