@@ -48,5 +48,9 @@ class IdWarning(CoverageAuditWarning):
     """Ids were stored as numbers, so leading zeros (GEOIDs of states 01-09) may be lost."""
 
 
+class MarginWarning(CoverageAuditWarning):
+    """Some margin-of-error cells held no number (annotations or blanks) and were read as 0."""
+
+
 class NoPopulationWarning(DegenerateStatisticWarning):
     """Every analysed area has zero population: no rate, ratio or index by group is defined."""
