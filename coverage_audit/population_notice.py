@@ -13,7 +13,7 @@ from __future__ import annotations
 
 import contextlib
 import warnings
-from collections.abc import Iterator
+from collections.abc import Callable, Iterator
 
 import numpy as np
 import pandas as pd
@@ -39,12 +39,23 @@ def population_notice(frame: pd.DataFrame) -> str | None:
 
 
 @contextlib.contextmanager
-def said_once(notice: str | None) -> Iterator[None]:
-    """Warn the notice once and hold back the warnings that repeat it, inside the block."""
-    if notice is None:
-        yield
-        return
-    warnings.warn(notice, NoPopulationWarning, stacklevel=3)
+def population_scope() -> Iterator[Callable[[pd.DataFrame], str | None]]:
+    """Give, for one audit, a function that says the notice once when it applies.
+
+    Call the function with the analysed areas (after any study-area restriction): when
+    they hold no people it warns :data:`NO_POPULATION_NOTICE` once as a
+    :class:`NoPopulationWarning`, holds back, until the block ends, the warnings that
+    would repeat it, and returns the notice; otherwise it returns None and changes nothing.
+    """
     with warnings.catch_warnings():
-        warnings.filterwarnings("ignore", message=_REPEATS, category=DegenerateStatisticWarning)
-        yield
+
+        def announce(frame: pd.DataFrame) -> str | None:
+            notice = population_notice(frame)
+            if notice is not None:
+                warnings.warn(notice, NoPopulationWarning, stacklevel=3)
+                warnings.filterwarnings(
+                    "ignore", message=_REPEATS, category=DegenerateStatisticWarning
+                )
+            return notice
+
+        yield announce
