@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import datetime as _dt
 import platform
+from collections.abc import Callable
 from dataclasses import dataclass, field
 from importlib import metadata
 from pathlib import Path
@@ -24,6 +25,7 @@ from . import __version__
 from .coverage import CoverageResult, coverage_by_group, footprint_fractions, nearest_site_distance
 from .footprint import Footprint, build_footprint
 from .inputs import AreaInputs, load_areas
+from .population_notice import population_scope
 from .progress import SilentProgress
 from .spec import AuditSpec, load_spec, spec_from_dict
 
@@ -235,6 +237,19 @@ def run_audit(
             tables=spec.tables,
         )
     frame = inputs.frame
+    with population_scope() as announce:  # every area without people: said once
+        return _run_audit(spec, progress, started, streams, inputs, frame, announce)
+
+
+def _run_audit(
+    spec: AuditSpec,
+    progress: SilentProgress,
+    started: _dt.datetime,
+    streams: dict[str, np.random.Generator],
+    inputs: AreaInputs,
+    frame: gpd.GeoDataFrame,
+    announce: Callable[[pd.DataFrame], str | None],
+) -> AuditResult:
     with progress.stage(f"building footprint '{spec.footprint.name}'"):
         footprint = build_footprint(
             spec.footprint,
@@ -245,6 +260,7 @@ def run_audit(
         )
     inputs, study = _study_area(spec, inputs, footprint, progress)
     frame = inputs.frame
+    notice = announce(frame)
     with progress.stage("measuring coverage"):
         coverage, frame = measure_coverage(spec, inputs, footprint, frame)
     from .analyses import add_derived_columns
@@ -254,6 +270,7 @@ def run_audit(
     summary: dict[str, Any] = {
         "schema_version": SCHEMA_VERSION,
         "title": spec.title,
+        "population_notice": notice,
         "footprint": footprint.to_dict(),
         "areas": _areas_section(inputs, frame),
     }

@@ -25,6 +25,7 @@ import shapely
 from pyproj import CRS, Geod, Transformer
 
 from .errors import InputError, RepairWarning
+from .geographic import unwrap_longitudes
 from .inputs import (
     AreaInputs,
     Exclusions,
@@ -50,6 +51,7 @@ MAX_PIECE_VERTICES = 1_000
 #: Densify footprint polygons given in degrees so their edges keep their course when
 #: projected (0.005 degree is about 500 m).
 DENSIFY_DEGREES = 0.005
+
 _TRUE = {"1", "true", "t", "yes", "y", "served", "x"}
 _FALSE = {"0", "false", "f", "no", "n", "", "nan", "none"}
 
@@ -210,6 +212,8 @@ def build_footprint(
         raise InputError(f"footprint '{spec.name}' ('{spec.path}') has no usable polygon")
     polys = fixed[keep]
     if CRS(layer.crs).is_geographic:
+        # Pieces cut at the antimeridian (RFC 7946) are rejoined before projection.
+        polys, _ = unwrap_longitudes(polys)
         polys = shapely.segmentize(polys, DENSIFY_DEGREES)
     projected = gpd.GeoSeries(polys, crs=layer.crs).to_crs(crs).to_numpy()
     projected, _ = repair(projected)

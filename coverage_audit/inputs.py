@@ -27,6 +27,7 @@ import shapely
 from pyproj import CRS, Transformer
 
 from .errors import IdWarning, InputError, MarginWarning, RepairWarning
+from .geographic import longitude_span, span_centre, unwrap_longitudes
 from .io.boundaries import describe_layout, detect_id_column, strip_prefix, water_only
 from .io.census import annotation_reasons
 from .io.joins import MatchReport
@@ -308,6 +309,8 @@ def choose_analysis_crs(geometries: gpd.GeoSeries, override: str | None) -> CRS:
     By default a Lambert azimuthal equal-area projection centred on the middle of the
     areas' extent (rounded to 0.01 degree so that it is stable), on WGS 84:
     areas are exact wherever the region lies; distances are near-true close to the centre.
+    The extent's longitudes are unwrapped (:func:`~coverage_audit.geographic.longitude_span`),
+    so a region cut at the antimeridian (RFC 7946) is centred near 180 degrees, not 0.
     """
     if override is not None:
         try:
@@ -320,13 +323,20 @@ def choose_analysis_crs(geometries: gpd.GeoSeries, override: str | None) -> CRS:
                 "projected equal-area CRS, e.g. EPSG:5070 for the conterminous United States"
             )
         return crs
-    bounds = geometries.total_bounds
     to_geo = Transformer.from_crs(geometries.crs, "EPSG:4326", always_xy=True)
-    xs = np.linspace(bounds[0], bounds[2], 5)
-    ys = np.linspace(bounds[1], bounds[3], 5)
-    gx, gy = np.meshgrid(xs, ys)
+    if CRS(geometries.crs).is_geographic:
+        # Corners of each part's bounds: the bounding box of data cut at the antimeridian
+        # spans the whole globe, each part's does not.
+        parts = shapely.get_parts(np.asarray(geometries.array, dtype=object))
+        corners = shapely.bounds(parts)
+        gx, gy = corners[:, [0, 2, 0, 2]], corners[:, [1, 1, 3, 3]]
+    else:
+        bounds = geometries.total_bounds
+        gx, gy = np.meshgrid(
+            np.linspace(bounds[0], bounds[2], 5), np.linspace(bounds[1], bounds[3], 5)
+        )
     lon, lat = to_geo.transform(gx.ravel(), gy.ravel())
-    lon_c = float(np.round((np.nanmin(lon) + np.nanmax(lon)) / 2, 2))
+    lon_c = float(np.round(span_centre(*longitude_span(np.asarray(lon))), 2))
     lat_c = float(np.round((np.nanmin(lat) + np.nanmax(lat)) / 2, 2))
     return CRS.from_proj4(
         f"+proj=laea +lat_0={lat_c:g} +lon_0={lon_c:g} +x_0=0 +y_0=0 +datum=WGS84 +units=m +no_defs"
@@ -698,8 +708,12 @@ def load_areas(
         out[column] = frame[column].to_numpy()[sel]
     out["source_row"] = frame["_row"].to_numpy()[sel]
 
+    kept = geoms[sel]
+    if source_crs.is_geographic:
+        # Halves cut at the antimeridian become one area before projection (RFC 7946).
+        kept, _ = unwrap_longitudes(kept)
     analysed = gpd.GeoDataFrame(
-        out, geometry=gpd.GeoSeries(geoms[sel], crs=layer.crs).values, crs=layer.crs
+        out, geometry=gpd.GeoSeries(kept, crs=layer.crs).values, crs=layer.crs
     )
     if len(analysed) == 0:
         first = [

@@ -284,7 +284,9 @@ def _header(page: Page) -> Html:
     if m.get("finished"):
         run += f", finished {m['finished']}"
     title = page.summary.get("title") or "Coverage audit"
-    return tag("header", tag("h1", title), para(run), class_="report-head")
+    notice = page.summary.get("population_notice")
+    said = para(f"Note: {notice}.", class_="note population-notice") if notice else ""
+    return tag("header", tag("h1", title), para(run), said, class_="report-head")
 
 
 def _cautions(page: Page) -> tuple[tuple[str, str, str], ...]:
