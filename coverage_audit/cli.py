@@ -402,7 +402,7 @@ def _inline_options_given(parser: argparse.ArgumentParser, args: argparse.Namesp
 def _subparser(parser: argparse.ArgumentParser, name: str) -> argparse.ArgumentParser:
     for action in parser._actions:
         if isinstance(action, argparse._SubParsersAction):
-            return action.choices[name]  # type: ignore[no-any-return]
+            return action.choices[name]
     raise KeyError(name)  # pragma: no cover
 
 

@@ -412,17 +412,18 @@ def claim_output_dir(out_dir: str | Path) -> OutputClaim:
         When the folder cannot be used, holds files this tool did not write (the whole
         folder is replaced at the end), or another run is writing into it.
     """
-    target = Path(out_dir)
-    if target.exists() and not target.is_dir():
-        raise InputError(f"output path '{target}' is a file; name a folder")
+    # Absolute, so that "." or "out/.." still have a name and a parent to write beside.
+    target = Path(os.path.abspath(out_dir))
     created = False
     try:
+        if target.exists() and not target.is_dir():
+            raise InputError(f"output path '{target}' is a file; name a folder")
         if not target.exists():
             target.mkdir(parents=True)
             created = True
+        foreign = _foreign_entries(target)
     except OSError as exc:
         raise InputError(_folder_problem(target, exc)) from None
-    foreign = _foreign_entries(target)
     if foreign:
         if created:
             target.rmdir()
