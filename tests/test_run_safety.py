@@ -24,14 +24,13 @@ import pandas as pd
 import pyogrio
 import pytest
 import shapely
-import tomllib
 
 from coverage_audit import cli
 from coverage_audit.cli import main
 from coverage_audit.errors import IdWarning, InputError, SpecError
 from coverage_audit.inputs import finite_coordinates, ids_as_text, read_layer
 from coverage_audit.outputs import claim_output_dir, neutralise_formula
-from coverage_audit.spec import MAX_DRAWS, load_spec
+from coverage_audit.spec import MAX_DRAWS, load_spec, tomllib
 
 from .conftest import GRID_CRS, digest, grid, spec_text, write_spec
 
