@@ -373,7 +373,9 @@ def _check_degrees(layer: gpd.GeoDataFrame, *, role: str, path: Path) -> None:
     """
     if layer.crs is None or not CRS(layer.crs).is_geographic or len(layer) == 0:
         return
-    xmin, ymin, xmax, ymax = layer.total_bounds
+    geoms = np.asarray(layer.geometry.array, dtype=object)
+    finite = finite_coordinates(geoms)  # rows with NaN/inf are excluded later, by name
+    xmin, ymin, xmax, ymax = shapely.total_bounds(geoms[finite])
     if not np.all(np.isfinite([xmin, ymin, xmax, ymax])):
         return
     if xmin < -360 or xmax > 360 or ymin < -90 or ymax > 90:

@@ -304,6 +304,14 @@ class OutputClaim:
     def commit(self) -> None:
         """Swap the written folder in place of the target, signals held back meanwhile."""
         staging = self.staging()
+        if self.target.is_dir():
+            foreign = _foreign_entries(self.target)
+            if foreign:  # put there while this run was working: never moved or removed
+                raise InputError(
+                    f"output folder '{self.target}' now holds files that coverage-audit did "
+                    f"not write ({', '.join(foreign[:3])}); nothing was written. Move them "
+                    "away or choose another --out, and rerun"
+                )
         with deferred_signals():
             old: Path | None = None
             if self.target.exists() and any(self.target.iterdir()):

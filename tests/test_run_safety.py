@@ -600,3 +600,19 @@ def test_ids_written_as_decimals_get_a_hint():
 def test_grid_fixture_ids_are_text():
     assert grid(1, 1)["geoid"].iloc[0] == "01001000001" and "laea" in GRID_CRS
     assert "permutations" in spec_text('path = "zone.gpkg"')
+
+
+def test_files_put_into_the_folder_during_a_run_are_never_removed(two_by_two, tmp_path, capsys):
+    from coverage_audit import run_audit
+
+    out = tmp_path / "out"
+    claim = claim_output_dir(out)
+    try:
+        result = run_audit(two_by_two / "audit.toml")
+        (out / "notes.txt").write_text("written by hand meanwhile")
+        with pytest.raises(InputError, match="now holds files .* \\(notes.txt\\)"):
+            result.write(out, claim=claim)
+    finally:
+        claim.release()
+    assert [p.name for p in out.iterdir()] == ["notes.txt"]
+    assert _hidden_leftovers(tmp_path) == []
