@@ -446,6 +446,9 @@ def _cmd_demo(args: argparse.Namespace) -> int:
     from .demo import DEMO_NAME, SCENARIOS, write_demo_region
     from .spec import load_spec
 
+    from .outputs import prepare_output_dir
+
+    prepare_output_dir(args.out)  # a parent that cannot be used fails before any work
     bundled = Path(__file__).resolve().parent.parent / "demo_regions" / DEMO_NAME
     if args.regenerate or not (bundled / "delivery.toml").is_file():
         region = write_demo_region(args.out / "region")

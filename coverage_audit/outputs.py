@@ -167,9 +167,9 @@ def areas_for_output(frame: gpd.GeoDataFrame) -> gpd.GeoDataFrame:
 def prepare_output_dir(out_dir: Path) -> Path:
     """Create ``out_dir`` (and parents); refuse a path that is a file."""
     out_dir = Path(out_dir)
-    if out_dir.exists() and not out_dir.is_dir():
-        raise InputError(f"output path '{out_dir}' is a file; name a folder")
     try:
+        if out_dir.exists() and not out_dir.is_dir():
+            raise InputError(f"output path '{out_dir}' is a file; name a folder")
         out_dir.mkdir(parents=True, exist_ok=True)
     except OSError as exc:
         raise InputError(_folder_problem(out_dir, exc)) from None

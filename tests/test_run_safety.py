@@ -616,3 +616,11 @@ def test_files_put_into_the_folder_during_a_run_are_never_removed(two_by_two, tm
         claim.release()
     assert [p.name for p in out.iterdir()] == ["notes.txt"]
     assert _hidden_leftovers(tmp_path) == []
+
+
+def test_demo_below_a_file_is_one_error_line(tmp_path, capsys):
+    (tmp_path / "afile").write_text("x")
+    code, _, err = _run(
+        ["demo", "--regenerate", "--out", tmp_path / "afile" / "demo", "--quiet"], capsys
+    )
+    assert code == 2 and err.startswith("error: ") and "below a file" in err
