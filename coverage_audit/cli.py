@@ -412,9 +412,11 @@ def _cmd_run(args: argparse.Namespace) -> int:
     if args.spec is not None:
         given = _inline_options_given(_build_parser(), args)
         if given:
+            what = "options" if len(given) > 1 else "option"
+            verb = "describe" if len(given) > 1 else "describes"
             raise SpecError(
-                f"{', '.join(given)} describe an audit without a spec file and cannot be "
-                f"combined with the spec '{args.spec}'; change the spec instead (e.g. "
+                f"the {what} {', '.join(given)} {verb} an audit without a spec file and cannot "
+                f"be combined with the spec '{args.spec}'; change the spec instead (e.g. "
                 "[footprint] path or radius), or leave the spec out and describe the whole "
                 "audit with options (see coverage-audit run --help)"
             )
@@ -429,9 +431,10 @@ def _cmd_run(args: argparse.Namespace) -> int:
             try:
                 write_text(args.write_spec, toml_text(relative))
             except OSError as exc:
+                from .outputs import folder_problem
+
                 raise SpecError(
-                    f"--write-spec: '{args.write_spec}' cannot be written ({exc.strerror}); "
-                    "choose another path"
+                    folder_problem(args.write_spec, exc, "--write-spec file", "--write-spec")
                 ) from None
         spec = spec_from_dict(data, base_dir=Path.cwd(), source="options")
         default_out = Path("outputs") / spec.footprint.name
@@ -444,9 +447,8 @@ def _cmd_run(args: argparse.Namespace) -> int:
 
 def _cmd_demo(args: argparse.Namespace) -> int:
     from .demo import DEMO_NAME, SCENARIOS, write_demo_region
-    from .spec import load_spec
-
     from .outputs import prepare_output_dir
+    from .spec import load_spec
 
     prepare_output_dir(args.out)  # a parent that cannot be used fails before any work
     bundled = Path(__file__).resolve().parent.parent / "demo_regions" / DEMO_NAME

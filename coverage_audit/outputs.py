@@ -172,7 +172,7 @@ def prepare_output_dir(out_dir: Path) -> Path:
             raise InputError(f"output path '{out_dir}' is a file; name a folder")
         out_dir.mkdir(parents=True, exist_ok=True)
     except OSError as exc:
-        raise InputError(_folder_problem(out_dir, exc)) from None
+        raise InputError(folder_problem(out_dir, exc)) from None
     return out_dir
 
 
@@ -241,27 +241,29 @@ def _sibling(out_dir: Path, tag: str) -> Path:
     return out_dir.parent / f".{name}.{tag}"
 
 
-def _folder_problem(path: Path, exc: OSError) -> str:
-    """One sentence on why a folder cannot be used, and what to do."""
+def folder_problem(
+    path: Path, exc: OSError, what: str = "output folder", option: str = "--out"
+) -> str:
+    """Return one sentence on why a folder cannot be used, and what to do."""
     code = exc.errno
     if code == errno.ENAMETOOLONG:
         return (
-            f"output folder '{path}': a name is too long for the file system "
+            f"{what} '{path}': a name is too long for the file system "
             f"({len(path.name.encode('utf-8'))} bytes in '{path.name[:40]}...'); choose a "
-            "shorter --out"
+            f"shorter {option}"
         )
     if code in (errno.EACCES, errno.EPERM, errno.EROFS):
         return (
-            f"output folder '{path}' cannot be written ({exc.strerror}); choose a folder you "
-            "may write to with --out"
+            f"{what} '{path}' cannot be written ({exc.strerror}); choose a folder you may "
+            f"write to with {option}"
         )
     if code in (errno.ENOTDIR, errno.EEXIST):
         blocker = next((p for p in [path, *path.parents] if p.exists() and not p.is_dir()), None)
         at = f": '{blocker}' is a file" if blocker is not None else ""
-        return f"output folder '{path}' cannot be created below a file{at}; choose another --out"
+        return f"{what} '{path}' cannot be created below a file{at}; choose another {option}"
     if code == errno.ENOSPC:
-        return f"output folder '{path}': no space left on the device; free some or choose another"
-    return f"output folder '{path}' cannot be used ({exc.strerror or exc}); choose another --out"
+        return f"{what} '{path}': no space left on the device; free some or choose another"
+    return f"{what} '{path}' cannot be used ({exc.strerror or exc}); choose another {option}"
 
 
 def _pid_alive(pid: int) -> bool:
@@ -297,7 +299,7 @@ class OutputClaim:
             try:
                 path.mkdir()
             except OSError as exc:
-                raise InputError(_folder_problem(self.target.parent, exc)) from None
+                raise InputError(folder_problem(self.target.parent, exc)) from None
             self._staging = path
         return self._staging
 
@@ -384,7 +386,7 @@ def _take_lock(lock: Path, target: Path) -> None:
                 f"the lock file '{lock}'"
             ) from None
         except OSError as exc:
-            raise InputError(_folder_problem(target, exc)) from None
+            raise InputError(folder_problem(target, exc)) from None
         with os.fdopen(fd, "w", encoding="utf-8") as handle:
             handle.write(json.dumps(info) + "\n")
         return
@@ -431,7 +433,7 @@ def claim_output_dir(out_dir: str | Path) -> OutputClaim:
             created = True
         foreign = _foreign_entries(target)
     except OSError as exc:
-        raise InputError(_folder_problem(target, exc)) from None
+        raise InputError(folder_problem(target, exc)) from None
     if foreign:
         if created:
             target.rmdir()
@@ -457,7 +459,7 @@ def claim_output_dir(out_dir: str | Path) -> OutputClaim:
         probe.unlink()
     except OSError as exc:
         claim.release()
-        raise InputError(_folder_problem(target, exc)) from None
+        raise InputError(folder_problem(target, exc)) from None
     except BaseException:
         claim.release()
         raise
