@@ -624,3 +624,31 @@ def test_demo_below_a_file_is_one_error_line(tmp_path, capsys):
         ["demo", "--regenerate", "--out", tmp_path / "afile" / "demo", "--quiet"], capsys
     )
     assert code == 2 and err.startswith("error: ") and "below a file" in err
+
+
+@pytest.mark.skipif(os.name != "posix", reason="POSIX signals")
+def test_two_runs_into_one_folder_at_once(two_by_two, tmp_path, capsys):
+    out = tmp_path / "out"
+    script = tmp_path / "slow.py"
+    script.write_text(SLOW_WRITER)
+    child = subprocess.Popen(
+        [sys.executable, str(script), "run", str(two_by_two / "audit.toml"), "--out", str(out)]
+        + QUIET,
+        stdout=subprocess.PIPE,
+        stderr=subprocess.PIPE,
+        text=True,
+        env={**os.environ, "PYTHONPATH": str(REPO)},
+    )
+    try:
+        assert child.stdout is not None
+        assert child.stdout.readline().strip() == "WRITING"  # the first run is writing
+        code, _, err = _run(["run", two_by_two / "audit.toml", "--out", out, *QUIET], capsys)
+        assert code == 2 and "in use by another coverage-audit run" in err
+        assert f"process {child.pid}" in err
+        child.send_signal(signal.SIGTERM)
+        child.communicate(timeout=60)
+    finally:
+        if child.poll() is None:
+            child.kill()
+    assert child.returncode == 143
+    assert not out.exists() and _hidden_leftovers(tmp_path) == []
