@@ -12,13 +12,11 @@ the first line after the header of a CSV file.
 
 from __future__ import annotations
 
-import hashlib
-import re
 import warnings
-from collections.abc import Callable, Iterable
+from collections.abc import Iterable
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any, TypeVar
+from typing import Any
 
 import geopandas as gpd
 import numpy as np
@@ -28,6 +26,14 @@ import shapely
 from pyproj import CRS, Transformer
 
 from .errors import IdWarning, InputError, RepairWarning
+from .io.checks import (
+    bad_feature,
+    check_sums,
+    finite_coordinates,
+    hint_float_ids,
+    read_hashed,
+)
+from .io.checks import sha256_file as sha256_file  # re-exported: readers import it from here
 from .spec import AreasSpec, PopulationSpec
 
 #: Extensions read with pandas/pyarrow rather than GDAL.
@@ -118,56 +124,6 @@ class AreaInputs:
     source_crs: CRS
 
 
-#: Files of a shapefile set read with the .shp (their bytes are part of its digest).
-SHAPEFILE_PARTS = (".shx", ".dbf", ".prj", ".cpg")
-_T = TypeVar("_T")
-
-
-def _digest_files(path: Path) -> list[Path]:
-    files = [path]
-    if path.suffix.lower() == ".shp":
-        for part in SHAPEFILE_PARTS:
-            for candidate in (path.with_suffix(part), path.with_suffix(part.upper())):
-                if candidate.is_file():
-                    files.append(candidate)
-                    break
-    return files
-
-
-def sha256_file(path: Path) -> str:
-    """Return the SHA-256 hex digest of a file (of every file of a shapefile set)."""
-    digest = hashlib.sha256()
-    for file in _digest_files(Path(path)):
-        with open(file, "rb") as handle:
-            for block in iter(lambda: handle.read(1 << 20), b""):
-                digest.update(block)
-    return digest.hexdigest()
-
-
-def read_hashed(path: Path, read: Callable[[], _T], *, role: str) -> tuple[_T, str]:
-    """Read a file with ``read`` and return the result with the SHA-256 of the bytes read.
-
-    The file is hashed before and after it is read: the same digest both times means the
-    bytes read are the bytes hashed, so the manifest's digest is that of the data the
-    figures come from. A file that changed meanwhile (still being written or copied) is
-    refused.
-
-    Raises
-    ------
-    InputError
-        When the file changed while it was being read.
-    """
-    before = sha256_file(path) if Path(path).is_file() else None
-    value = read()
-    after = sha256_file(path) if before is not None else None
-    if before != after:
-        raise InputError(
-            f"{role} file '{path}' changed while it was being read (its SHA-256 before and "
-            "after reading differ); wait until it is no longer being written, then rerun"
-        )
-    return value, after or ""
-
-
 def _require_file(path: Path, role: str) -> None:
     if not path.exists():
         raise InputError(f"{role} file '{path}' was not found; check the path in the spec")
@@ -201,7 +157,7 @@ def read_layer(path: Path, *, layer: str | None, role: str) -> gpd.GeoDataFrame:
     except InputError:
         raise
     except Exception as exc:  # GDAL and pyarrow raise many kinds; all mean "unreadable"
-        feature = _bad_feature(path, layer)
+        feature = bad_feature(path, layer)
         if feature is not None:
             raise InputError(
                 f"{role} file '{path}': {feature} has a geometry that cannot be built ({exc}); "
@@ -211,35 +167,6 @@ def read_layer(path: Path, *, layer: str | None, role: str) -> gpd.GeoDataFrame:
             f"{role} file '{path}' could not be read as a spatial layer ({exc}); "
             "use GeoPackage, GeoJSON, Shapefile or GeoParquet"
         ) from None
-
-
-def _bad_feature(path: Path, layer: str | None) -> str | None:
-    """Name the first feature whose geometry cannot be built (e.g. an unclosed ring)."""
-    try:
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore", RuntimeWarning)
-            meta, fids, wkb, names = pyogrio.raw.read(
-                path, layer=layer, read_geometry=True, return_fids=True
-            )
-            field_names = [str(name) for name in meta["fields"]]
-    except Exception:
-        return None
-    ident = next((k for k, n in enumerate(field_names) if n.lower() in ("id", "geoid")), None)
-    for k, blob in enumerate(wkb):
-        if blob is None:
-            continue
-        try:
-            with warnings.catch_warnings():
-                warnings.simplefilter("ignore", RuntimeWarning)
-                shapely.from_wkb(blob)
-        except Exception:
-            label = f"feature {k + 1}"
-            if ident is not None:
-                label += f" ({field_names[ident]} {names[ident][k]!r})"
-            elif fids is not None and len(fids) > k:
-                label += f" (fid {fids[k]})"
-            return label
-    return None
 
 
 def read_table(path: Path, *, id_column: str, role: str) -> pd.DataFrame:
@@ -291,33 +218,12 @@ def ids_as_text(values: pd.Series, *, width: int | None, where: str) -> pd.Serie
                 None if v is None or (isinstance(v, float) and np.isnan(v)) else str(v).strip()
             )
         )
-        _hint_float_ids(series, where)
+        hint_float_ids(series, where)
     if width is not None:
         series = series.map(lambda v: v if v is None else v.zfill(width))
     series = series.where(~missing, None)
     series = series.map(lambda v: None if v == "" else v)
     return series.astype(object)
-
-
-_FLOAT_ID_RE = re.compile(r"^\d+\.0+$")
-
-
-def _hint_float_ids(series: pd.Series, where: str) -> None:
-    """Warn when text ids look like numbers written out as decimals ("01001000000.0")."""
-    present = series.dropna()
-    if len(present) == 0:
-        return
-    looks = present.map(lambda v: bool(_FLOAT_ID_RE.match(str(v))))
-    if looks.mean() >= 0.5:
-        example = present[looks].iloc[0]
-        warnings.warn(
-            f"{where}: ids such as {example!r} end in a decimal part: the column was read as "
-            "numbers somewhere (a spreadsheet or a script) and written back as decimals, so "
-            "they will not match text ids; save the column as text (and set id_width, 11 for "
-            "tracts or 12 for block groups, if leading zeros were lost)",
-            IdWarning,
-            stacklevel=3,
-        )
 
 
 def crs_text(crs: CRS | None) -> str | None:
@@ -487,40 +393,6 @@ def _numeric_problem(raw: pd.Series) -> tuple[pd.Series, pd.Series]:
     problem[infinite] = "not a finite number"
     problem[(numbers < 0) & (problem == "")] = "negative"
     return numbers.astype(float), problem
-
-
-def finite_coordinates(geoms: np.ndarray) -> np.ndarray:
-    """Return True where every coordinate of a geometry is a finite number (missing: True).
-
-    ``make_valid`` and the overlay fail on NaN or infinite coordinates, so such rows are
-    left out (and listed) before any repair.
-    """
-    geoms = np.asarray(geoms, dtype=object)
-    ok = np.ones(geoms.size, dtype=bool)
-    coords, index = shapely.get_coordinates(geoms, include_z=False, return_index=True)
-    if coords.size:
-        bad = ~np.isfinite(coords).all(axis=1)
-        ok[np.unique(index[bad])] = False
-    return ok
-
-
-def _check_sums(
-    out: pd.DataFrame, columns: list[str], pop_spec: PopulationSpec, where: str
-) -> None:
-    """Refuse counts whose sum is not a finite number (each row finite, the sum overflowed)."""
-    inputs_of = {"population": pop_spec.total, **dict(pop_spec.groups)}
-    for column in columns:
-        values = out[column].to_numpy(dtype=float)
-        with np.errstate(over="ignore", invalid="ignore"):
-            total = float(np.sum(values))
-        if not np.isfinite(total):
-            source = inputs_of.get(column, f"{pop_spec.total} minus {pop_spec.reference}")
-            raise InputError(
-                f"{where} column {source!r}: the counts add up to more than the largest "
-                f"number a computer can hold (the largest value is {np.max(values):g}); "
-                "counts of people, households or loans cannot be this large: check the "
-                "column and its units"
-            )
 
 
 def load_areas(
@@ -750,7 +622,15 @@ def load_areas(
         out[column] = frame[column].to_numpy()[sel]
     out["source_row"] = frame["_row"].to_numpy()[sel]
 
-    _check_sums(out, ["population", *groups], pop_spec, where_counts)
+    check_sums(
+        out,
+        {
+            "population": pop_spec.total,
+            **dict(pop_spec.groups),
+            "minority": f"{pop_spec.total} minus {pop_spec.reference}",
+        },
+        where_counts,
+    )
     analysed = gpd.GeoDataFrame(
         out, geometry=gpd.GeoSeries(geoms[sel], crs=layer.crs).values, crs=layer.crs
     )

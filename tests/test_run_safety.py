@@ -28,7 +28,8 @@ import shapely
 from coverage_audit import cli
 from coverage_audit.cli import main
 from coverage_audit.errors import IdWarning, InputError, SpecError
-from coverage_audit.inputs import finite_coordinates, ids_as_text, read_layer
+from coverage_audit.inputs import ids_as_text, read_layer
+from coverage_audit.io.checks import finite_coordinates
 from coverage_audit.outputs import claim_output_dir, neutralise_formula
 from coverage_audit.spec import MAX_DRAWS, load_spec, tomllib
 
