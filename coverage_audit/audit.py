@@ -139,6 +139,11 @@ class AuditResult:
         try:
             staged = self._write_into(held.staging(), out, progress or SilentProgress())
             held.commit()
+        except OSError as exc:  # disk full, permissions changed meanwhile, ...
+            from .errors import InputError
+            from .outputs import folder_problem
+
+            raise InputError(folder_problem(out, exc) + "; nothing was changed") from None
         finally:
             if own:
                 held.release()

@@ -530,7 +530,11 @@ def main(argv: Sequence[str] | None = None) -> int:
         return _main(argv)
     except KeyboardInterrupt as exc:
         signum = getattr(exc, "signum", signal.SIGINT)
-        print("interrupted; the output folder was left as it was before this run", file=sys.stderr)
+        print(
+            "interrupted; an output folder holds either a run's complete outputs or, "
+            "untouched, the earlier ones",
+            file=sys.stderr,
+        )
         return 128 + int(signum)
     finally:
         for kind, handler in previous.items():

@@ -299,7 +299,11 @@ class OutputClaim:
             try:
                 path.mkdir()
             except OSError as exc:
-                raise InputError(folder_problem(self.target.parent, exc)) from None
+                raise InputError(
+                    f"output folder '{self.target}': the outputs are written beside it and "
+                    "swapped in at the end, but "
+                    + folder_problem(self.target.parent, exc, what="its parent folder")
+                ) from None
             self._staging = path
         return self._staging
 

@@ -653,3 +653,22 @@ def test_two_runs_into_one_folder_at_once(two_by_two, tmp_path, capsys):
             child.kill()
     assert child.returncode == 143
     assert not out.exists() and _hidden_leftovers(tmp_path) == []
+
+
+def test_a_full_disk_while_writing_is_one_error_and_changes_nothing(
+    two_by_two, tmp_path, capsys, monkeypatch
+):
+    out = tmp_path / "out"
+    code, _, err = _run(["run", two_by_two / "audit.toml", "--out", out, *QUIET], capsys)
+    assert code == 0, err
+    before = {p.name: p.read_bytes() for p in out.iterdir()}
+    import coverage_audit.outputs as outputs_module
+
+    def full(*args, **kwargs):
+        raise OSError(errno.ENOSPC, "No space left on device")
+
+    monkeypatch.setattr(outputs_module, "write_gpkg", full)
+    code, _, err = _run(["run", two_by_two / "audit.toml", "--out", out, *QUIET], capsys)
+    assert code == 2 and "no space left" in err and "nothing was changed" in err
+    assert {p.name: p.read_bytes() for p in out.iterdir()} == before
+    assert _hidden_leftovers(tmp_path) == []
