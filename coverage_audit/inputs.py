@@ -131,7 +131,9 @@ def _require_file(path: Path, role: str) -> None:
         raise InputError(f"{role} path '{path}' is a folder; name the file itself")
 
 
-def read_layer(path: Path, *, layer: str | None, role: str) -> gpd.GeoDataFrame:
+def read_layer(
+    path: Path, *, layer: str | None, role: str, id_column: str | None = None
+) -> gpd.GeoDataFrame:
     """Read a vector layer (GeoPackage, GeoJSON, Shapefile, GeoParquet, ...) as is.
 
     Raises
@@ -157,7 +159,7 @@ def read_layer(path: Path, *, layer: str | None, role: str) -> gpd.GeoDataFrame:
     except InputError:
         raise
     except Exception as exc:  # GDAL and pyarrow raise many kinds; all mean "unreadable"
-        feature = bad_feature(path, layer)
+        feature = bad_feature(path, layer, id_column)
         if feature is not None:
             raise InputError(
                 f"{role} file '{path}': {feature} has a geometry that cannot be built ({exc}); "
@@ -415,7 +417,9 @@ def load_areas(
     records: list[InputRecord] = []
     path = areas_spec.path
     layer, layer_digest = read_hashed(
-        path, lambda: read_layer(path, layer=areas_spec.layer, role="areas"), role="areas"
+        path,
+        lambda: read_layer(path, layer=areas_spec.layer, role="areas", id_column=areas_spec.id),
+        role="areas",
     )
     layer = resolve_crs(layer, areas_spec.crs, role="areas", path=path, key="[areas] crs")
     source_crs = CRS(layer.crs)

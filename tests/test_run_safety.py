@@ -583,6 +583,10 @@ def test_an_unclosed_ring_names_the_feature(two_by_two, capsys):
     ]
     path = two_by_two / "areas.geojson"
     path.write_text(json.dumps({"type": "FeatureCollection", "features": features}))
+    renamed = json.loads(path.read_text().replace('"geoid"', '"tract_code"'))
+    (two_by_two / "named.geojson").write_text(json.dumps(renamed))
+    with pytest.raises(InputError, match="feature 2 \\(tract_code '01001000002'\\)"):
+        read_layer(two_by_two / "named.geojson", layer=None, role="areas", id_column="tract_code")
     with pytest.raises(InputError, match="feature 2 \\(geoid '01001000002'\\)"):
         read_layer(path, layer=None, role="areas")
     text = (two_by_two / "audit.toml").read_text().replace("areas.gpkg", "areas.geojson")

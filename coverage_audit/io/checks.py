@@ -72,8 +72,12 @@ def read_hashed(path: Path, read: Callable[[], _T], *, role: str) -> tuple[_T, s
     return value, after or ""
 
 
-def bad_feature(path: Path, layer: str | None) -> str | None:
-    """Name the first feature whose geometry cannot be built (e.g. an unclosed ring)."""
+def bad_feature(path: Path, layer: str | None, id_column: str | None = None) -> str | None:
+    """Name the first feature whose geometry cannot be built (e.g. an unclosed ring).
+
+    The feature is named by its 1-based number and, when the layer has it, its value in
+    ``id_column`` (else a field called ``id`` or ``geoid``, else its feature id).
+    """
     try:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", RuntimeWarning)
@@ -83,7 +87,10 @@ def bad_feature(path: Path, layer: str | None) -> str | None:
             field_names = [str(name) for name in meta["fields"]]
     except Exception:
         return None
-    ident = next((k for k, n in enumerate(field_names) if n.lower() in ("id", "geoid")), None)
+    if id_column in field_names:
+        ident: int | None = field_names.index(str(id_column))
+    else:
+        ident = next((k for k, n in enumerate(field_names) if n.lower() in ("id", "geoid")), None)
     for k, blob in enumerate(wkb):
         if blob is None:
             continue
