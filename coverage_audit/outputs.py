@@ -326,7 +326,12 @@ class OutputClaim:
                     shutil.rmtree(old)
                 os.replace(self.target, old)
             # An empty target folder (made by the claim) is replaced in one step.
-            os.replace(staging, self.target)
+            try:
+                os.replace(staging, self.target)
+            except OSError:
+                if old is not None:  # put the earlier outputs back
+                    os.replace(old, self.target)
+                raise
             self._staging = None
             self.committed = True
             if old is not None:
