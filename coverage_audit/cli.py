@@ -66,7 +66,7 @@ def _build_parser() -> argparse.ArgumentParser:
         "--out",
         type=Path,
         default=None,
-        help="folder for the outputs (default: outputs/<spec name>)",
+        help="folder for the outputs, replaced as a whole when the run ends; a folder holding other files is refused (default: outputs/<spec name>)",
     )
     run.add_argument(
         "--open",
