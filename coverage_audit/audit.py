@@ -65,7 +65,7 @@ LIBRARIES = (
 )
 
 #: Child-stream names, in a fixed order, so each statistic has its own seeded stream.
-RNG_STREAMS = ("segregation", "clustering", "enclaves", "explain", "sensitivity")
+RNG_STREAMS = ("segregation", "clustering", "enclaves", "explain", "sensitivity", "uncertainty")
 
 
 def library_versions() -> dict[str, str | None]:
@@ -294,10 +294,13 @@ def run_audit(
     frame = statistics.pop("_frame")
     statistics_extras = statistics.pop("_report")
     summary.update(statistics)
+    from .margins import cautions, survey_error
+
+    survey_error(summary, frame, inputs, spec, streams["uncertainty"])
 
     exclusions = inputs.exclusions
     summary["exclusions"] = {"count": exclusions.count(), "by_reason": exclusions.by_reason()}
-    summary["cautions"] = list(CAUTIONS)
+    summary["cautions"] = cautions(CAUTIONS, summary)
     finished = _dt.datetime.now(_dt.timezone.utc)
     manifest = build_manifest(spec, inputs, footprint, started, finished)
     frame = _order_columns(frame, inputs)

@@ -153,7 +153,8 @@ def _build_parser() -> argparse.ArgumentParser:
         help="run the audits of the fictional demo region Ostmere",
         description=(
             "Run every scenario of the bundled fictional demo region (a delivery zone, a "
-            "branch network, an assessment area) and write each one's outputs."
+            "branch network, an assessment area, an outreach program audited with margins of "
+            "error) and write each one's outputs."
         ),
     )
     demo.add_argument(
@@ -165,7 +166,7 @@ def _build_parser() -> argparse.ArgumentParser:
     demo.add_argument(
         "--scenario",
         action="append",
-        choices=["delivery", "branches", "assessment_area"],
+        choices=["delivery", "branches", "assessment_area", "outreach"],
         help="run only this scenario (repeatable; default: all)",
     )
     demo.add_argument(
@@ -446,7 +447,7 @@ def _cmd_run(args: argparse.Namespace) -> int:
 
 
 def _cmd_demo(args: argparse.Namespace) -> int:
-    from .demo import DEMO_NAME, SCENARIOS, write_demo_region
+    from .demo import DEMO_NAME, MARGIN_SCENARIO, SCENARIOS, write_demo_region
     from .outputs import prepare_output_dir
     from .spec import load_spec
 
@@ -456,7 +457,7 @@ def _cmd_demo(args: argparse.Namespace) -> int:
         region = write_demo_region(args.out / "region")
     else:
         region = bundled
-    scenarios = args.scenario or list(SCENARIOS)
+    scenarios = args.scenario or [*SCENARIOS, MARGIN_SCENARIO]
     for name in scenarios:
         spec = load_spec(region / f"{name}.toml")
         overrides = _overrides(args)

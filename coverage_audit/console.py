@@ -14,6 +14,10 @@ def _num(value: float | None, digits: int = 2) -> str:
     return "n/a" if value is None else f"{value:.{digits}f}"
 
 
+def _interval(ci: Any, fmt: Any) -> str:
+    return "n/a" if not ci else f"{fmt(ci[0])}-{fmt(ci[1])}"
+
+
 def print_summary(result: Any, paths: dict[str, Path], *, seconds: float, stream: IO[str]) -> None:
     """Print the coverage table, key statistics and output paths with rich."""
     from rich.console import Console
@@ -35,19 +39,35 @@ def print_summary(result: Any, paths: dict[str, Path], *, seconds: float, stream
         f"[dim]coverage = areal-weighted rate; served = share living in served areas; ratio and "
         f"diff (percentage points) against {cov['comparison_group']}; <4/5 = ratio below 0.8[/dim]"
     )
-    for col in ("group", "people", "coverage", "served", "ratio", "diff pp", "<4/5"):
-        table.add_column(col, justify="left" if col == "group" else "right")
+    margins = cov.get("uncertainty") in ("delta", "replicates")
+    columns = ["group", "people", "coverage", "served", "ratio", "diff pp", "<4/5"]
+    if margins:
+        console.print(
+            "[dim]ratio 90% = interval from the survey margins; <4/5 with ? = the interval "
+            "straddles 0.8 (four-fifths flag uncertain)[/dim]"
+        )
+        columns[5:5] = ["ratio 90%"]
+    for col in columns:
+        table.add_column(
+            col, justify="left" if col == "group" else "right", no_wrap=col == "ratio 90%"
+        )
     for g, row in cov["groups"].items():
         diff = row["difference"]
-        table.add_row(
+        flag = "yes" if row["below_four_fifths"] else ""
+        if margins and row.get("four_fifths_confidence") == "uncertain":
+            flag = "yes?" if flag else "?"
+        cells = [
             g,
             f"{row['population']:,.0f}",
             _pct(row["rate"]),
             _pct(row["served_area_rate"]),
             _num(row["ratio"]),
             "n/a" if diff is None else f"{100 * diff:+.1f}",
-            "yes" if row["below_four_fifths"] else "",
-        )
+            flag,
+        ]
+        if margins:
+            cells[5:5] = [_interval(row.get("ratio_ci90"), _num)]
+        table.add_row(*cells)
     console.print(table)
     seg = s.get("segregation")
     if seg:

@@ -286,8 +286,109 @@ def write_demo_region(folder: str | Path, seed: int = DEMO_SEED) -> Path:
             ),
             encoding="utf-8",
         )
+    write_margin_scenario(out, cells, demo, seed)
     (out / "README.md").write_text(_readme(len(cells)), encoding="utf-8")
     return out
+
+
+#: The scenario whose demographics carry margins of error (a table of its own, so the
+#: other scenarios' files stay as they are).
+MARGIN_SCENARIO = "outreach"
+#: Count columns of the demo and their margin columns.
+_MARGIN_COLUMNS = {
+    "pop_total": "moe_total",
+    "pop_white_nh": "moe_white_nh",
+    "pop_black_nh": "moe_black_nh",
+    "pop_hispanic": "moe_hispanic",
+    "pop_asian_nh": "moe_asian_nh",
+}
+
+
+def demo_margins(demo: pd.DataFrame, seed: int = DEMO_SEED) -> pd.DataFrame:
+    """Fictional 90% margins of error for the demo counts, plausible in size.
+
+    A count x of a tract with total t gets SE = sqrt(deff x (1 - x/t) (1/s - 1)) with a
+    sampling rate s of 8% (five years of a survey) and a design effect of 1.5, times a
+    little noise; the total gets the same without the (1 - x/t) factor. Small groups so
+    get large relative margins (about 45% for 200 people of 4,000), large ones small (about
+    10%). A zero estimate gets a margin of 12. MOE = 1.645 SE, rounded.
+    """
+    rng = np.random.default_rng(seed + 3)
+    total = demo["pop_total"].to_numpy(float)
+    out = pd.DataFrame(index=demo.index)
+    for column, moe in _MARGIN_COLUMNS.items():
+        x = demo[column].to_numpy(float)
+        keep = 1.0 if column == "pop_total" else np.clip(1 - x / np.maximum(total, 1), 0, 1)
+        se = np.sqrt(1.5 * x * keep * (1 / 0.08 - 1)) * rng.lognormal(0.0, 0.15, x.size)
+        out[moe] = np.where(x > 0, np.round(1.645 * se), 12).astype(np.int64)
+    return out
+
+
+def _outreach_area(cells: gpd.GeoDataFrame, demo: pd.DataFrame, margins: pd.DataFrame) -> list[str]:
+    """Return the tracts a home-repair outreach program visited: 30 neighbouring tracts.
+
+    Chosen, deterministically, as the first neighbourhood (the 30 tracts nearest a tract,
+    tracts taken in id order) where the Asian residents' coverage ratio to the white
+    residents' is under 0.8 but its 90% interval reaches past 0.8, so the scenario shows a
+    four-fifths flag the survey error cannot confirm.
+    """
+    from .stats.uncertainty import Z90, four_fifths_confidence, interval90
+
+    x, y = cells["x"].to_numpy(), cells["y"].to_numpy()
+    g, r = demo["pop_asian_nh"].to_numpy(float), demo["pop_white_nh"].to_numpy(float)
+    se_g = margins["moe_asian_nh"].to_numpy(float) / Z90
+    se_r = margins["moe_white_nh"].to_numpy(float) / Z90
+    for k in range(len(cells)):
+        near = np.argsort(np.hypot(x - x[k], y - y[k]), kind="stable")[:30]
+        f = np.zeros(len(cells))
+        f[near] = 1.0
+        pg, pr = f @ g / g.sum(), f @ r / r.sum()
+        ratio = pg / pr
+        if not 0.7 < ratio < 0.78:
+            continue
+        # Delta method for R = p_g / p_r with independent groups (stats.uncertainty).
+        grad_g, grad_r = (f - pg) / g.sum() / pr, -(f - pr) / r.sum() * pg / pr**2
+        se = float(np.sqrt(np.sum(grad_g**2 * se_g**2) + np.sum(grad_r**2 * se_r**2)))
+        if four_fifths_confidence(interval90(ratio, se)) == "uncertain":
+            return sorted(cells["geoid"].to_numpy()[near].tolist())
+    raise AssertionError("no neighbourhood fits the outreach scenario")  # pragma: no cover
+
+
+def write_margin_scenario(
+    folder: Path, cells: gpd.GeoDataFrame, demo: pd.DataFrame, seed: int
+) -> None:
+    """Write the counts with margins, the outreach area and its spec into ``folder``."""
+    margins = demo_margins(demo, seed)
+    table = pd.concat([cells[["geoid"]], demo, margins], axis=1)
+    table.to_csv(folder / "demographics_margins.csv", index=False, lineterminator="\n")
+    pd.DataFrame({"geoid": _outreach_area(cells, demo, margins)}).to_csv(
+        folder / "outreach_area.csv", index=False, lineterminator="\n"
+    )
+    (folder / f"{MARGIN_SCENARIO}.toml").write_text(_margin_spec(seed), encoding="utf-8")
+
+
+def _margin_spec(seed: int) -> str:
+    """Return the outreach spec: the scenarios' template with the margin table and columns."""
+    text = SPEC_TEMPLATE.format(
+        title="Home-repair outreach, Ostmere",
+        footprint='[footprint]\nname = "outreach_2026"\nserved_ids = "outreach_area.csv"\n'
+        'served_ids_column = "geoid"',
+        seed=seed,
+        analysis_extra="",
+    )
+    text = text.replace('table = "demographics.csv"', 'table = "demographics_margins.csv"')
+    text = text.replace(
+        'total = "pop_total"', f'total = "pop_total"\ntotal_moe = "{_MARGIN_COLUMNS["pop_total"]}"'
+    )
+    for column, moe in _MARGIN_COLUMNS.items():
+        if column != "pop_total":
+            text = text.replace(f'= "{column}"', f'= {{ column = "{column}", moe = "{moe}" }}')
+    return text.replace(
+        "see README.md beside this file.\n",
+        "see README.md beside this file.\n# The counts carry margins of error (90%), as "
+        "American Community Survey tables do.\n",
+        1,
+    )
 
 
 def _write_geojson(frame: gpd.GeoDataFrame, path: Path) -> None:
@@ -333,7 +434,13 @@ Two areas have no residents: Ostmere Lake and Heron Commons Park.
   (`assessment_area.csv`). It leaves out a run of low- and moderate-income tracts on its
   eastern edge.
 
-Run all three with `coverage-audit demo`; outputs go to `outputs/demo/<scenario>/`.
+- `outreach.toml`: the tracts a city home-repair outreach program visited
+  (`outreach_area.csv`), audited with the survey's margins of error
+  (`demographics_margins.csv`: the same counts with a `moe_` column for each). The Asian
+  residents' coverage ratio falls under 0.8, but its 90% interval reaches past 0.8: the
+  four-fifths flag is "uncertain", a gap the survey error cannot confirm.
+
+Run them all with `coverage-audit demo`; outputs go to `outputs/demo/<scenario>/`.
 """
 
 

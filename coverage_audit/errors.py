@@ -46,3 +46,7 @@ class DegenerateStatisticWarning(CoverageAuditWarning):
 
 class IdWarning(CoverageAuditWarning):
     """Ids were stored as numbers, so leading zeros (GEOIDs of states 01-09) may be lost."""
+
+
+class MarginWarning(CoverageAuditWarning):
+    """Some margin-of-error cells held no number (annotations or blanks) and were read as 0."""

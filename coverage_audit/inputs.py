@@ -25,7 +25,7 @@ import pyogrio
 import shapely
 from pyproj import CRS, Transformer
 
-from .errors import IdWarning, InputError, RepairWarning
+from .errors import IdWarning, InputError, MarginWarning, RepairWarning
 from .io.checks import (
     bad_feature,
     check_sums,
@@ -122,6 +122,10 @@ class AreaInputs:
     repaired: int
     income_unknown: int
     source_crs: CRS
+    #: Group name (and "population" for the total) -> per-area margin column of ``frame``.
+    margin_columns: dict[str, str] = field(default_factory=dict)
+    #: Margin cells that were blank or annotated without a number, by margin column.
+    margins_missing: dict[str, int] = field(default_factory=dict)
 
 
 def _require_file(path: Path, role: str) -> None:
@@ -397,6 +401,30 @@ def _numeric_problem(raw: pd.Series) -> tuple[pd.Series, pd.Series]:
     return numbers.astype(float), problem
 
 
+#: Census Bureau annotation of a controlled estimate: the margin is not applicable, i.e. 0.
+CONTROLLED_MARGIN = "*****"
+#: Census API sentinel of a controlled estimate's margin (annotation value, treat as 0).
+CONTROLLED_SENTINEL = -555555555.0
+
+
+def margin_numbers(raw: pd.Series) -> tuple[np.ndarray, np.ndarray]:
+    """Return margins of error as numbers and a mask of cells without a usable margin.
+
+    Cells may carry the Census Bureau's annotations instead of numbers: ``*****`` (and the
+    API's ``-555555555``) mark a controlled estimate whose margin is not applicable, read
+    as 0; ``**``, ``***``, ``-``, ``N``, ``(X)``, blanks and other negative sentinels give
+    no margin and are read as 0 but flagged in the mask, so the caller can count and
+    report them. Thousands separators and a leading ``+/-`` are ignored.
+    """
+    text = raw.astype(str).str.strip().str.replace(",", "", regex=False)
+    text = text.str.replace(r"^(\+/-|±)", "", regex=True)
+    numbers = pd.to_numeric(text, errors="coerce").to_numpy(dtype=float)
+    controlled = (text == CONTROLLED_MARGIN).to_numpy() | (numbers == CONTROLLED_SENTINEL)
+    usable = np.isfinite(numbers) & (numbers >= 0)
+    values = np.where(usable, numbers, 0.0)
+    return values, ~usable & ~controlled
+
+
 def load_areas(
     areas_spec: AreasSpec, pop_spec: PopulationSpec, *, analysis_crs: str | None = None
 ) -> AreaInputs:
@@ -600,6 +628,7 @@ def load_areas(
         out[name] = numbers[name].to_numpy()[sel]
     if pop_spec.derive_minority:
         out["minority"] = np.clip(out["population"] - out[pop_spec.reference], 0.0, None)
+    margin_columns, margins_missing = _add_margins(out, frame, sel, pop_spec, where_counts)
     pop = out["population"].to_numpy()
     with np.errstate(divide="ignore", invalid="ignore"):
         for name in groups:
@@ -620,6 +649,7 @@ def load_areas(
         out["income_tier"] = income_tier(ratio)
         income_unknown = int((out["income_tier"] == "unknown").sum())
     used = {id_col, pop_spec.total, pop_spec.income_ratio, *[c for _, c in pop_spec.groups]}
+    used |= {*pop_spec.group_moes.values(), pop_spec.total_moe}
     for column in frame.columns:
         if column in used or column.startswith("_") or column in out.columns:
             continue
@@ -662,4 +692,47 @@ def load_areas(
         repaired=repaired,
         income_unknown=income_unknown,
         source_crs=source_crs,
+        margin_columns=margin_columns,
+        margins_missing=margins_missing,
     )
+
+
+def _add_margins(
+    out: pd.DataFrame, frame: pd.DataFrame, sel: np.ndarray, pop_spec: PopulationSpec, where: str
+) -> tuple[dict[str, str], dict[str, int]]:
+    """Add a ``<group>_moe`` column (90% margin) to ``out`` for each group that names one.
+
+    The total's margin becomes ``population_moe``. The derived minority count (total minus
+    reference) gets ``minority_moe`` = sqrt(MOE_total^2 + MOE_reference^2): the Census
+    Bureau's approximation for a sum or difference of estimates (ACS General Handbook,
+    chapter on calculating measures of error), which treats the two as independent.
+    """
+    named = dict(pop_spec.group_moes)
+    if pop_spec.total_moe is not None:
+        named = {"population": pop_spec.total_moe, **named}
+    missing_cols = [c for c in named.values() if c not in frame.columns]
+    if missing_cols:
+        raise InputError(
+            f"{where} has no margin-of-error column {missing_cols[0]!r} named in [population]; "
+            f"its columns are {[c for c in frame.columns if not c.startswith('_')]}"
+        )
+    columns: dict[str, str] = {}
+    missing: dict[str, int] = {}
+    for name, column in named.items():
+        values, absent = margin_numbers(frame[column])
+        out[f"{name}_moe"] = values[sel]
+        columns[name] = f"{name}_moe"
+        if absent[sel].any():
+            missing[column] = int(absent[sel].sum())
+    ref = pop_spec.reference
+    if pop_spec.derive_minority and "population" in columns and ref in columns:
+        out["minority_moe"] = np.hypot(out["population_moe"], out[f"{ref}_moe"])
+        columns["minority"] = "minority_moe"
+    if missing:
+        warnings.warn(
+            f"{where}: margin-of-error cells without a number (annotations such as ** or "
+            f"blanks) were read as 0, so intervals there understate the survey error: {missing}",
+            MarginWarning,
+            stacklevel=3,
+        )
+    return columns, missing

@@ -98,6 +98,10 @@ class PopulationSpec:
     total_moe: str | None = None
     #: What is counted ("people", "households", "births", "loans" ...), used in sentences.
     unit: str = "people"
+    #: Variance replicate table (80 replicate estimates per count), when given.
+    replicates: Path | None = None
+    #: Parametric-bootstrap draws for the segregation indices and enclave shares.
+    margin_draws: int = 200
 
     @property
     def group_columns(self) -> dict[str, str]:
@@ -273,6 +277,10 @@ class AuditSpec:
             pop.pop(key)
         if pop["total_moe"] is None:
             pop.pop("total_moe")
+        if pop["replicates"] is None:
+            pop.pop("replicates")
+        if pop["margin_draws"] == 200:
+            pop.pop("margin_draws")
         out["population"] = pop
         out["footprint"] = [_dataclass_dict(f) for f in self.footprints]
         out["analysis"] = _dataclass_dict(self.analysis)
@@ -387,6 +395,8 @@ _POP_KEYS = (
     "majority_minority_rule",
     "total_moe",
     "unit",
+    "replicates",
+    "margin_draws",
 )
 #: Keys of a group given as a table: { column = "...", label = "...", moe = "..." }.
 _GROUP_KEYS = ("column", "label", "moe")
@@ -453,7 +463,11 @@ def spec_from_dict(
 
     pop_d = _table(data["population"], where, "population")
     _check_keys(pop_d, _POP_KEYS, where, "[population]")
-    population = _population_from(pop_d, where)
+    population = replace(
+        _population_from(pop_d, where),
+        replicates=_path(pop_d, "replicates", base, where, "population"),
+        margin_draws=_int(pop_d, "margin_draws", where, "population", minimum=19) or 200,
+    )
 
     raw_fp = data["footprint"]
     fp_list = list(raw_fp) if isinstance(raw_fp, list) else [raw_fp]

@@ -22,6 +22,9 @@ def test_region_regenerates_identically(tmp_path):
         "branches.toml",
         "delivery.toml",
         "assessment_area.toml",
+        "demographics_margins.csv",
+        "outreach_area.csv",
+        "outreach.toml",
     ):
         assert (out / name).read_bytes() == (BUNDLED / name).read_bytes(), name
 

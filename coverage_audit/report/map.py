@@ -594,11 +594,36 @@ def _texts(title: str, summary: Mapping[str, Any], n: int, footprint: Mapping | 
         subtitle.append(f"{int(excluded):,} input rows excluded (see exclusions.csv)")
     if footprint is not None and footprint.get("name"):
         subtitle.append(f"Footprint: {footprint['name']}")
+    subtitle.extend(_interval_lines(summary))
     return {
         "title": str(title),
         "subtitle": subtitle,
         "hover_hint": "Point at an area to see its figures.",
     }
+
+
+def _interval_lines(summary: Mapping[str, Any]) -> list[str]:
+    """Each group's coverage rate and ratio with 90% intervals, when margins were carried."""
+    coverage = summary.get("coverage") or {}
+    if coverage.get("uncertainty") not in ("delta", "replicates"):
+        return []
+
+    def pct(v: Any) -> str:
+        return "n/a" if clean_number(v) is None else f"{100 * v:.1f}%"
+
+    def num(v: Any) -> str:
+        return "n/a" if clean_number(v) is None else f"{v:.2f}"
+
+    lines = ["Coverage with 90% intervals (survey margins):"]
+    for g, row in (coverage.get("groups") or {}).items():
+        rate_ci = row.get("rate_ci90") or [None, None]
+        ratio_ci = row.get("ratio_ci90") or [None, None]
+        lines.append(
+            f"{g}: {pct(row.get('rate'))} ({pct(rate_ci[0])} to {pct(rate_ci[1])}), ratio "
+            f"{num(row.get('ratio'))} ({num(ratio_ci[0])} to {num(ratio_ci[1])}), four-fifths "
+            f"{row.get('four_fifths_confidence') or 'n/a'}"
+        )
+    return lines
 
 
 def _footprint_overlays(

@@ -27,7 +27,7 @@ import pandas as pd
 import scipy.sparse as sp
 
 from ..errors import InputError
-from . import further
+from . import further, uncertainty_section
 from .markup import (
     NA,
     Html,
@@ -538,11 +538,17 @@ def render_report(
     if isinstance(summary.get("enclaves"), list):
         present.add("enclaves")
     present |= further.present(summary)
+    present |= {uncertainty_section.ANCHOR} if uncertainty_section.has_margins(summary) else set()
     sections = [
         (anchor, title, render)
         for anchor, title, render in (
             ("audited", "What was audited", audited_section),
             ("coverage", "Coverage by group", coverage_section),
+            (
+                uncertainty_section.ANCHOR,
+                uncertainty_section.TITLE,
+                uncertainty_section.survey_error_section,
+            ),
             ("segregation", "Segregation", segregation_section),
             ("clustering", "Spatial clustering", clustering_section),
             ("enclaves", "Enclaves", enclaves_section),
