@@ -287,6 +287,49 @@ def change_section(
     ).to_dict()
 
 
+#: Columns that name a service site, in order of preference.
+SITE_NAME_COLUMNS = ("name", "site_name", "site_id", "id")
+
+
+def _site_names(footprint: Footprint) -> dict[str, tuple[str, float, float]]:
+    """Site key -> (display name, longitude, latitude) of a points footprint.
+
+    The key is the name column when there is one, else the location.
+    """
+    points = footprint.points
+    if points is None or points.empty:
+        return {}
+    column = next((c for c in SITE_NAME_COLUMNS if c in points.columns), None)
+    xy = [f"{p.x:.0f} {p.y:.0f}" for p in points.geometry]
+    names = [str(v) for v in points[column]] if column is not None else xy
+    keys = names if column is not None else xy
+    lonlat = points.geometry.to_crs(4326)
+    places = [
+        (n, round(float(p.x), 6), round(float(p.y), 6)) for n, p in zip(names, lonlat, strict=True)
+    ]
+    return dict(zip(keys, places, strict=True))
+
+
+def site_changes(change: Any, footprints: list[Footprint]) -> dict[str, Any]:
+    """Return the footprints compared and, for points, the sites closed and opened."""
+    by_name = {f.name: f for f in footprints}
+    before, after = by_name.get(change.before), by_name.get(change.after)
+    out: dict[str, Any] = {"before": change.before, "after": change.after}
+    if before is not None and after is not None and before.kind == after.kind == "points":
+        old, new = _site_names(before), _site_names(after)
+        closed = sorted(old[k] for k in old.keys() - new.keys())
+        opened = sorted(new[k] for k in new.keys() - old.keys())
+        out["sites_closed"] = [name for name, _, _ in closed]
+        out["sites_opened"] = [name for name, _, _ in opened]
+        # Positions (longitude, latitude in degrees) for the map's layer of changed sites.
+        out["site_changes"] = [
+            {"name": name, "change": change, "lon": lon, "lat": lat}
+            for change, rows in (("closed", closed), ("opened", opened))
+            for name, lon, lat in rows
+        ]
+    return out
+
+
 def peers_section(
     spec: AuditSpec, inputs: AreaInputs, frame: gpd.GeoDataFrame
 ) -> tuple[dict[str, Any], InputRecord]:

@@ -177,6 +177,7 @@ class AuditResult:
                         title=self.spec.title,
                         path=out / "map.html",
                         tiles=self.spec.output.tiles,
+                        outside=self.extras.get("outside_study_area"),
                     )
                 paths["map"] = out / "map.html"
                 extra["map"] = to_plain(info)
@@ -272,6 +273,8 @@ def run_audit(
             circle_vertices=spec.analysis.circle_vertices,
             id_width=spec.areas.id_width,
         )
+    inputs, study = _study_area(spec, inputs, footprint, progress)
+    frame = inputs.frame
     with progress.stage("measuring coverage"):
         coverage, frame = measure_coverage(spec, inputs, footprint, frame)
     from .analyses import add_derived_columns
@@ -284,6 +287,9 @@ def run_audit(
         "footprint": footprint.to_dict(),
         "areas": _areas_section(inputs, frame),
     }
+    if study is not None:
+        summary["areas"]["outside_study_area"] = study[0].areas_outside
+        summary["study_area"] = study[0].to_dict()
     table_section = _table_section(inputs)
     if table_section:
         summary["inputs"] = table_section
@@ -294,6 +300,8 @@ def run_audit(
     frame = statistics.pop("_frame")
     statistics_extras = statistics.pop("_report")
     summary.update(statistics)
+    if footprint.kind == "ids":
+        summary["assessment_area"] = _assessment_area(frame, inputs.id_column, footprint)
     from .margins import cautions, survey_error
 
     survey_error(summary, frame, inputs, spec, streams["uncertainty"])
@@ -301,6 +309,11 @@ def run_audit(
     exclusions = inputs.exclusions
     summary["exclusions"] = {"count": exclusions.count(), "by_reason": exclusions.by_reason()}
     summary["cautions"] = cautions(CAUTIONS, summary)
+    from .findings import build_findings
+
+    summary["group_labels"] = spec.population.group_labels
+    summary["population_unit"] = spec.population.unit
+    summary["findings"] = build_findings(summary)
     finished = _dt.datetime.now(_dt.timezone.utc)
     manifest = build_manifest(spec, inputs, footprint, started, finished)
     frame = _order_columns(frame, inputs)
@@ -318,8 +331,41 @@ def run_audit(
             "inputs": inputs,
             "coverage": coverage,
             "moran": statistics_extras,
+            "outside_study_area": None if study is None else study[1],
         },
     )
+
+
+def _assessment_area(
+    frame: gpd.GeoDataFrame, id_column: str, footprint: Footprint
+) -> dict[str, Any]:
+    """Return the assessment-area review of a footprint of whole areas (12 CFR 228.41)."""
+    from .stats.assessment_area import review_assessment_area
+
+    ids = frame[id_column].astype(str).to_numpy()
+    return review_assessment_area(
+        ids,
+        np.asarray(frame.geometry.array, dtype=object),
+        np.isin(ids, sorted(footprint.served_ids or ())),
+        frame["income_tier"].to_numpy(dtype=object) if "income_tier" in frame else None,
+        frame["majority_minority"].to_numpy(dtype=bool) if "majority_minority" in frame else None,
+        frame["population"].to_numpy(dtype=float),
+    ).to_dict()
+
+
+def _study_area(
+    spec: AuditSpec, inputs: AreaInputs, footprint: Footprint, progress: SilentProgress
+) -> tuple[AreaInputs, tuple[Any, gpd.GeoSeries] | None]:
+    """Keep the areas inside ``[study_area]`` (all of them without one)."""
+    if spec.study_area is None:
+        return inputs, None
+    from .study_area import apply_study_area
+
+    with progress.stage(f"study area '{spec.study_area.name}'"):
+        kept, study, outside = apply_study_area(
+            spec.study_area, inputs, footprint, id_width=spec.areas.id_width
+        )
+    return kept, (study, outside)
 
 
 def compute_statistics(
@@ -491,6 +537,7 @@ def _further_analyses(
         inputs.inputs.extend(r for f in built for r in f.records)
         if spec.change is not None:
             out["change"] = analyses.change_section(spec, inputs, frame, fractions)
+            out["change"].update(analyses.site_changes(spec.change, [footprint, *built]))
     if spec.activity is not None:
         with progress.stage("peer comparison"):
             out["peers"], record = analyses.peers_section(spec, inputs, frame)

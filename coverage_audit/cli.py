@@ -478,7 +478,7 @@ def _cmd_check(args: argparse.Namespace) -> int:
 
     spec = load_spec(args.spec)
     inputs = load_areas(spec.areas, spec.population, analysis_crs=spec.analysis.analysis_crs)
-    for fp in spec.footprints:
+    built = [
         build_footprint(
             fp,
             inputs,
@@ -486,8 +486,22 @@ def _cmd_check(args: argparse.Namespace) -> int:
             circle_vertices=spec.analysis.circle_vertices,
             id_width=spec.areas.id_width,
         )
+        for fp in spec.footprints
+    ]
+    study = None
+    if spec.study_area is not None:
+        from .study_area import apply_study_area
+
+        inputs, study, _ = apply_study_area(
+            spec.study_area, inputs, built[0], id_width=spec.areas.id_width
+        )
     ex = inputs.exclusions
     print(f"spec {args.spec}: readable")
+    if study is not None:
+        print(
+            f"study area '{study.name}' ({study.kind}): {study.areas_inside} areas inside, "
+            f"{study.areas_outside} outside"
+        )
     print(
         f"areas: {inputs.input_rows} rows, {len(inputs.frame)} would be analysed, {ex.count('areas')} excluded"
     )

@@ -69,6 +69,11 @@ def print_summary(result: Any, paths: dict[str, Path], *, seconds: float, stream
             cells[5:5] = [_interval(row.get("ratio_ci90"), _num)]
         table.add_row(*cells)
     console.print(table)
+    findings = s.get("findings") or []
+    if findings:
+        console.print("[bold]Findings[/bold]")
+        for item in findings:
+            console.print(f"- {item['sentence']}")
     seg = s.get("segregation")
     if seg:
         d = ", ".join(f"{g} {_num(v)}" for g, v in seg.get("dissimilarity", {}).items())

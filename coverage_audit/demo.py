@@ -48,10 +48,10 @@ derive_minority = true
 income_ratio = "income_ratio"
 
 [population.groups]
-white_nh = "pop_white_nh"
-black_nh = "pop_black_nh"
-hispanic = "pop_hispanic"
-asian_nh = "pop_asian_nh"
+white_nh = {{ column = "pop_white_nh", label = "non-Hispanic White" }}
+black_nh = {{ column = "pop_black_nh", label = "non-Hispanic Black" }}
+hispanic = {{ column = "pop_hispanic", label = "Hispanic" }}
+asian_nh = {{ column = "pop_asian_nh", label = "non-Hispanic Asian" }}
 
 {footprint}
 
@@ -105,6 +105,13 @@ hub_name = "downtown"
         'served_ids_column = "geoid"',
     ),
 }
+#: The delivery scenario compares the zone within the city it is drawn around.
+DELIVERY_EXTRA = """contrast_group = "black_nh"
+
+[study_area]
+name = "Ostmere city limits"
+path = "city_limits.geojson"
+"""
 #: Fictional lenders of the activity table; the first is the audited bank.
 LENDERS = (
     "Ostmere Savings",
@@ -144,7 +151,56 @@ def build_region(seed: int = DEMO_SEED) -> tuple[gpd.GeoDataFrame, pd.DataFrame]
     names[park] = "Heron Commons Park"
     cells["name"] = names
     cells["_r"] = r
+    cells["_skipped"] = _skipped_neighbourhood(cells, demo)
     return cells, demo
+
+
+def _skipped_neighbourhood(cells: gpd.GeoDataFrame, demo: pd.DataFrame) -> np.ndarray:
+    """Return the neighbourhood the delivery zone goes around.
+
+    It lies near the central tract with the highest Black share, far enough inside the
+    zone (radius 0.4 of the span) to be enclosed.
+    """
+    x, y = cells["x"].to_numpy(), cells["y"].to_numpy()
+    span = float(np.ptp(x))
+    total = demo["pop_total"].to_numpy(float)
+    black = np.where(total > 0, demo["pop_black_nh"].to_numpy(float) / np.maximum(total, 1), 0.0)
+    inner = np.hypot(x, y) < 0.15 * span
+    pivot = int(np.argmax(np.where(inner, black, -1)))
+    return np.asarray(np.hypot(x - x[pivot], y - y[pivot]) < 2.6 * _CELL_M)
+
+
+#: Group shares of the skipped neighbourhood: predominantly Black, while the streets
+#: around it are mixed, so the contrast shows at once.
+_NEIGHBOURHOOD_SHARES = {
+    "pop_black_nh": 0.76,
+    "pop_white_nh": 0.12,
+    "pop_hispanic": 0.07,
+    "pop_asian_nh": 0.03,
+    "pop_other_nh": 0.02,
+}
+
+
+def _concentrate(demo: pd.DataFrame, skipped: np.ndarray) -> None:
+    """Give the skipped neighbourhood its group shares (totals kept)."""
+    rows = demo.index[skipped]
+    total = demo.loc[rows, "pop_total"].to_numpy(float)
+    assigned = np.zeros_like(total)
+    columns = list(_NEIGHBOURHOOD_SHARES)
+    for column in columns[1:]:
+        counts = np.floor(total * _NEIGHBOURHOOD_SHARES[column])
+        demo.loc[rows, column] = counts.astype(demo[column].dtype)
+        assigned += counts
+    demo.loc[rows, columns[0]] = (total - assigned).astype(demo[columns[0]].dtype)
+
+
+def _city_limits(cells: gpd.GeoDataFrame) -> shapely.Geometry:
+    """Return the fictional city limits: the tracts within 0.45 of the span of the centre."""
+    x, y = cells["x"].to_numpy(), cells["y"].to_numpy()
+    city = np.hypot(x, y) < 0.45 * float(np.ptp(x))
+    limits = shapely.union_all(cells.geometry.values[city])
+    limits = shapely.buffer(shapely.buffer(limits, 200.0), -200.0)
+    return shapely.simplify(limits, 60.0)
 
 
 def _minority_share(demo: pd.DataFrame) -> np.ndarray:
@@ -156,13 +212,7 @@ def _delivery_zone(cells: gpd.GeoDataFrame, demo: pd.DataFrame) -> shapely.Polyg
     x, y = cells["x"].to_numpy(), cells["y"].to_numpy()
     span = float(np.ptp(x))
     central = np.hypot(x, y) < 0.4 * span
-    total = demo["pop_total"].to_numpy(float)
-    black = np.where(total > 0, demo["pop_black_nh"].to_numpy(float) / np.maximum(total, 1), 0.0)
-    # The skipped neighbourhood: around the central tract with the highest Black share.
-    # Far enough inside the zone (radius 0.4 of the span) for the pocket to be enclosed.
-    inner = np.hypot(x, y) < 0.15 * span
-    pivot = int(np.argmax(np.where(inner, black, -1)))
-    skipped = np.hypot(x - x[pivot], y - y[pivot]) < 2.6 * _CELL_M
+    skipped = cells["_skipped"].to_numpy(dtype=bool)
     zone = shapely.union_all(cells.geometry.values[central])
     zone = shapely.buffer(shapely.buffer(zone, 400.0), -400.0)
     hole = shapely.union_all(cells.geometry.values[skipped])
@@ -200,7 +250,8 @@ def _closed_branches(
     return gpd.GeoDataFrame(
         {
             "site_id": [f"C{k:02d}" for k in range(1, 6)],
-            "name": [f"Ostmere Savings branch {k:02d} (closed 2025)" for k in range(17, 22)],
+            "name": [f"Ostmere Savings branch {k:02d}" for k in range(17, 22)],
+            "closed": ["2025"] * 5,
         },
         geometry=points,
         crs=cells.crs,
@@ -245,7 +296,8 @@ def write_demo_region(folder: str | Path, seed: int = DEMO_SEED) -> Path:
     """Generate the Ostmere demo region and its audit specs into ``folder``.
 
     Returns the folder. Files: areas.gpkg (layer ``tracts``, EPSG:4326),
-    demographics.csv, branches.geojson, delivery_zone.geojson, assessment_area.csv,
+    demographics.csv, branches.geojson, delivery_zone.geojson, city_limits.geojson,
+    assessment_area.csv,
     one ``<scenario>.toml`` spec per scenario, and README.md.
     """
     out = Path(folder)
@@ -258,21 +310,28 @@ def write_demo_region(folder: str | Path, seed: int = DEMO_SEED) -> Path:
     if path.exists():
         path.unlink()
     geo.to_file(path, layer="tracts", driver="GPKG")
+    # Sites and applications are drawn from the demographics as generated; the skipped
+    # neighbourhood is then given its shares (the sites stay where they were drawn).
+    branches = _branch_sites(cells, demo, rng)
+    closed = _closed_branches(cells, demo, rng)
+    applications = _applications(cells, demo, rng)
+    _concentrate(demo, cells["_skipped"].to_numpy(dtype=bool))
     table = pd.concat([cells[["geoid"]], demo], axis=1)
     table.to_csv(out / "demographics.csv", index=False, lineterminator="\n")
     zone = gpd.GeoDataFrame(
         {"zone": ["same-day"]}, geometry=[_delivery_zone(cells, demo)], crs=FICTIONAL_CRS
     )
     _write_geojson(zone.to_crs("EPSG:4326"), out / "delivery_zone.geojson")
-    branches = _branch_sites(cells, demo, rng)
+    city = gpd.GeoDataFrame(
+        {"name": ["Ostmere city limits"]}, geometry=[_city_limits(cells)], crs=FICTIONAL_CRS
+    )
+    _write_geojson(city.to_crs("EPSG:4326"), out / "city_limits.geojson")
     _write_geojson(branches.to_crs("EPSG:4326"), out / "branches.geojson")
-    before = pd.concat([branches, _closed_branches(cells, demo, rng)], ignore_index=True)
+    before = pd.concat([branches, closed], ignore_index=True)
     _write_geojson(
         gpd.GeoDataFrame(before, crs=cells.crs).to_crs("EPSG:4326"), out / "branches_2024.geojson"
     )
-    _applications(cells, demo, rng).to_csv(
-        out / "applications.csv", index=False, lineterminator="\n"
-    )
+    applications.to_csv(out / "applications.csv", index=False, lineterminator="\n")
     pd.DataFrame({"geoid": _assessment_area(cells, demo)}).to_csv(
         out / "assessment_area.csv", index=False, lineterminator="\n"
     )
@@ -282,7 +341,7 @@ def write_demo_region(folder: str | Path, seed: int = DEMO_SEED) -> Path:
                 title=title,
                 footprint=footprint,
                 seed=seed,
-                analysis_extra='contrast_group = "black_nh"\n' if key == "delivery" else "",
+                analysis_extra=DELIVERY_EXTRA if key == "delivery" else "",
             ),
             encoding="utf-8",
         )
@@ -382,7 +441,7 @@ def _margin_spec(seed: int) -> str:
     )
     for column, moe in _MARGIN_COLUMNS.items():
         if column != "pop_total":
-            text = text.replace(f'= "{column}"', f'= {{ column = "{column}", moe = "{moe}" }}')
+            text = text.replace(f'column = "{column}"', f'column = "{column}", moe = "{moe}"')
     return text.replace(
         "see README.md beside this file.\n",
         "see README.md beside this file.\n# The counts carry margins of error (90%), as "
@@ -422,8 +481,10 @@ Two areas have no residents: Ostmere Lake and Heron Commons Park.
 
 ## Scenarios
 - `delivery.toml`: a same-day delivery zone (`delivery_zone.geojson`) drawn around the
-  central city. The zone goes around one neighbourhood, a pocket surrounded by served
-  streets. Is it the sort of gap a reporter should ask about?
+  central city, compared within the city limits (`city_limits.geojson`, the spec's
+  `[study_area]`). The zone goes around one neighbourhood, a pocket surrounded by served
+  streets, where most residents are Black while the streets around it are mixed. Is it
+  the sort of gap a reporter should ask about?
 - `branches.toml`: the branch network of a fictional bank, Ostmere Savings
   (`branches.geojson`, 16 branches, reach 2 km). Branches sit mostly in higher-income,
   mostly-white tracts. The spec also compares the 2024 network (`branches_2024.geojson`,

@@ -726,12 +726,14 @@ def test_formatting_helpers() -> None:
 
 def test_other_sections_numbers(report_html: str) -> None:
     gap = element(report_html, "table", "gap-table")
+    # Issue 12 item 5: one sign convention, group minus reference (the gap of +35.3 pp
+    # and null mean of +0.1 pp are shown as differences).
     assert cells(row_of_text(gap, "black_nh")) == [
         "black_nh",
-        "+35.3 pp",
+        "\u221235.3 pp",
         "< 0.001",
         "0.001",
-        "+0.1 pp",
+        "\u22120.1 pp",
         "+8.1 pp",
         "999",
     ]

@@ -108,6 +108,7 @@ MAP_CSS = """
   box-shadow: 0 1px 4px rgba(0,0,0,0.3); color: #1f1f1f; max-width: 320px; }
 .ca-title h1 { font-size: 15px; margin: 0 0 2px 0; }
 .ca-title p { margin: 0; color: #444; font-size: 12px; }
+.ca-title p.ca-finding { max-width: 360px; margin-top: 4px; color: #222; font-weight: 600; }
 .ca-legend h2, .ca-hover h2 { font-size: 13px; margin: 0 0 4px 0; }
 .ca-legend .ca-note { font-size: 11px; color: #555; margin: 2px 0 4px 0; }
 .ca-legend ul { list-style: none; margin: 0 0 6px 0; padding: 0; }
@@ -213,6 +214,23 @@ window.coverageAuditDraw = function (map, D) {
   var S = D.style;
   var bounds = L.latLngBounds(D.bounds);
   map.fitBounds(bounds, {padding: [10, 10]});
+  if (D.region_bounds) {
+    // The view opens on the study area; this control shows the whole region.
+    var regionCtl = L.control({position: "topleft"});
+    regionCtl.onAdd = function () {
+      var box = el("div", "ca-panel ca-region");
+      var whole = el("button", null, "Whole region");
+      var study = el("button", null, "Study area");
+      whole.type = study.type = "button";
+      whole.onclick = function () { map.fitBounds(L.latLngBounds(D.region_bounds)); };
+      study.onclick = function () { map.fitBounds(bounds, {padding: [10, 10]}); };
+      box.appendChild(whole);
+      box.appendChild(study);
+      L.DomEvent.disableClickPropagation(box);
+      return box;
+    };
+    regionCtl.addTo(map);
+  }
 
   // Areas: drawn once on one canvas; a view change only restyles them.
   var shapes = decodeShapes(D.areas);
@@ -376,7 +394,12 @@ window.coverageAuditDraw = function (map, D) {
     if (F.dist) { row(t, "Nearest site", F.dist[i] === null ? "n/a" : fmtInt(F.dist[i]) + " m"); }
     if (F.lisa) {
       var lc = F.lisa[i] === null ? "left out" : D.codes.lisa[F.lisa[i]];
-      if (F.lisa_p && F.lisa_p[i] !== null) { lc += " (p = " + fmtP(F.lisa_p[i]) + ")"; }
+      if (D.lisa_fdr && F.lisa_q && F.lisa_q[i] !== null) {
+        lc += " (q = " + fmtP(F.lisa_q[i]) + " after false-discovery-rate correction" +
+          (F.lisa_p && F.lisa_p[i] !== null ? "; pseudo p = " + fmtP(F.lisa_p[i]) + " before" : "") + ")";
+      } else if (F.lisa_p && F.lisa_p[i] !== null) {
+        lc += " (pseudo p = " + fmtP(F.lisa_p[i]) + ", no false-discovery-rate correction)";
+      }
       row(t, "LISA cluster", lc);
     }
     if (F.enc) {
@@ -461,8 +484,17 @@ window.coverageAuditDraw = function (map, D) {
             radius: o.radius_m,
             color: o.reach_color, weight: 1, fillColor: o.reach_color, fillOpacity: 0.06}));
         }
-        lg.addLayer(L.circleMarker(ll, {renderer: overlayRenderer, interactive: false, radius: dot,
-          color: "#ffffff", weight: 1, fillColor: o.color, fillOpacity: 1}));
+        var marker = L.circleMarker(ll, {renderer: overlayRenderer, interactive: !!o.names,
+          radius: dot, color: "#ffffff", weight: 1, fillColor: o.color, fillOpacity: 1});
+        if (o.names) { marker.bindTooltip(el("span", null, o.names[q]), {direction: "top"}); }
+        lg.addLayer(marker);
+      }
+    } else if (o.kind === "sites") {
+      for (var m = 0; m < o.lat.length; m++) {
+        var site = L.circleMarker(L.latLng(o.lat[m], o.lon[m]), {renderer: overlayRenderer,
+          radius: 6, color: "#ffffff", weight: 2, fillColor: o.colors[m], fillOpacity: 1});
+        site.bindTooltip(el("span", null, o.names[m]), {direction: "top"});
+        lg.addLayer(site);
       }
     }
     lg._caOverlay = o.key;
@@ -494,6 +526,13 @@ window.coverageAuditDraw = function (map, D) {
   var titleBox = el("div", "ca-panel ca-title");
   titleBox.appendChild(el("h1", null, D.texts.title));
   D.texts.subtitle.forEach(function (line) { titleBox.appendChild(el("p", null, line)); });
+  if (D.texts.finding) {
+    var finding = el("p", "ca-finding", D.texts.finding + " ");
+    var link = el("a", null, D.texts.findings_link.text);
+    link.href = D.texts.findings_link.href;
+    finding.appendChild(link);
+    titleBox.appendChild(finding);
+  }
   titleCtl.onAdd = function () { return titleBox; };
   titleCtl.addTo(map);
 

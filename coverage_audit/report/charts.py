@@ -158,31 +158,52 @@ def coverage_bar_chart(
     values = np.array([np.nan if r is None else 100.0 * float(r) for r in rates], dtype=float)
     colours = [FLAG_TONE if f else BAR_TONE for f in flagged]
     hatches = ["///" if f else "" for f in flagged]
-    bars = ax.barh(y, np.nan_to_num(values, nan=0.0), color=colours, height=0.62)
+    bars = ax.barh(y, np.nan_to_num(values, nan=0.0), color=colours, height=0.62, zorder=2)
     for bar, hatch in zip(bars, hatches, strict=True):
         bar.set_hatch(hatch)
         bar.set_edgecolor("white")
+    ref = (
+        100.0 * comparison_rate
+        if comparison_rate is not None and np.isfinite(comparison_rate)
+        else np.nan
+    )
+    # The axis fits the data: the largest bar or comparison line, with room for the value
+    # labels, on a round number of percent (never past 100% plus that room).
+    top = float(np.nanmax(np.append(values, [ref, 1.0])))
+    step = 5.0 if top <= 40 else 10.0
+    xmax = min(np.ceil(top * 1.18 / step) * step, 118.0)
     for yi, value in zip(y, values, strict=True):
         text = "n/a" if np.isnan(value) else f"{value:.1f}%"
+        # A white box under each value label: the comparison lines pass behind it, never
+        # through the digits.
         ax.text(
-            (0.0 if np.isnan(value) else value) + 1.0,
+            (0.0 if np.isnan(value) else value) + 0.01 * xmax,
             yi,
             text,
             va="center",
             fontsize=9,
             color=TEXT_TONE,
+            zorder=4,
+            bbox={"facecolor": "white", "edgecolor": "none", "pad": 1.0},
         )
-    if comparison_rate is not None and np.isfinite(comparison_rate):
-        ref = 100.0 * comparison_rate
+    if np.isfinite(ref):
         # matplotlib leaves out legend entries whose label starts with "_" (a group name
         # may); a leading space keeps them.
         legend_label = mpl_text(comparison_label)
         legend_label = " " + legend_label if legend_label.startswith("_") else legend_label
-        ax.axvline(ref, color=TEXT_TONE, linewidth=1.4, label=legend_label)
-        ax.axvline(0.8 * ref, color=TEXT_TONE, linewidth=1.0, linestyle=":", label="four-fifths")
-        ax.legend(loc="lower right", fontsize=8, frameon=True, framealpha=0.9)
+        ax.axvline(ref, color=TEXT_TONE, linewidth=1.4, label=legend_label, zorder=3)
+        ax.axvline(
+            0.8 * ref, color=TEXT_TONE, linewidth=1.0, linestyle=":", label="four-fifths", zorder=3
+        )
+        ax.legend(
+            loc="upper center",
+            bbox_to_anchor=(0.5, -0.22 - 0.5 / max(n, 1)),
+            ncol=2,
+            fontsize=8,
+            frameon=False,
+        )
     ax.set_yticks(y, [mpl_text(label) for label in labels])
-    ax.set_xlim(0, 112)
+    ax.set_xlim(0, xmax)
     ax.set_xlabel("Coverage rate (% of group population)")
     ax.spines[["top", "right"]].set_visible(False)
     ax.tick_params(axis="y", length=0)
@@ -222,43 +243,46 @@ def moran_scatter_chart(
     str
         Inline SVG markup.
     """
-    fig = _new_figure(5.2, 4.6)
+    from .palette import MORAN_LINE_COLOR, MORAN_QUADRANT_COLORS
+
+    fig = _new_figure(5.2, 5.2)
     ax = fig.add_subplot()
     many = z.size > RASTERISE_SCATTER_ABOVE
-    ax.scatter(
-        z,
-        lag,
-        s=9 if many else 16,
-        color=BAR_TONE,
-        alpha=0.55,
-        linewidths=0,
-        rasterized=many,
+    # Points take the tone of their quadrant (palette.py); the quadrants are named in a
+    # legend under the plot, so no label sits on the points.
+    quadrants = (
+        ("high-high", (z >= 0) & (lag >= 0), "high value, high-valued neighbours"),
+        ("low-low", (z < 0) & (lag < 0), "low value, low-valued neighbours"),
+        ("high-low", (z >= 0) & (lag < 0), "high value, low-valued neighbours"),
+        ("low-high", (z < 0) & (lag >= 0), "low value, high-valued neighbours"),
     )
-    ax.axhline(0, color="#888888", linewidth=0.8)
-    ax.axvline(0, color="#888888", linewidth=0.8)
+    for name, mask, words in quadrants:
+        ax.scatter(
+            z[mask],
+            lag[mask],
+            s=9 if many else 16,
+            color=MORAN_QUADRANT_COLORS[name],
+            edgecolors="#555555" if name in ("high-low", "low-high") else "none",
+            linewidths=0.3,
+            alpha=0.85,
+            rasterized=many,
+            label=f"{name}: {words}",
+        )
+    ax.axhline(0, color="#9a9a9a", linewidth=0.7, linestyle=":")
+    ax.axvline(0, color="#9a9a9a", linewidth=0.7, linestyle=":")
     denom = float(np.dot(z, z))
     slope = float(np.dot(z, lag) / denom) if denom > 0 else np.nan
     lim = float(max(np.max(np.abs(z), initial=1.0), np.max(np.abs(lag), initial=1.0)) * 1.08)
     if np.isfinite(slope):
         xs = np.array([-lim, lim])
-        ax.plot(xs, slope * xs, color=FLAG_TONE, linewidth=1.5, label=f"slope {slope:.3f}")
-        ax.legend(loc="lower right", fontsize=8)
-    for x, yv, text in (
-        (0.97, 0.97, "high-high"),
-        (0.03, 0.03, "low-low"),
-        (0.97, 0.03, "high-low"),
-        (0.03, 0.97, "low-high"),
-    ):
-        ax.text(
-            x,
-            yv,
-            text,
-            transform=ax.transAxes,
-            ha="right" if x > 0.5 else "left",
-            va="top" if yv > 0.5 else "bottom",
-            fontsize=8,
-            color="#555555",
-        )
+        ax.plot(xs, slope * xs, color=MORAN_LINE_COLOR, linewidth=1.4, label=f"slope {slope:.3f}")
+    ax.legend(
+        loc="upper center",
+        bbox_to_anchor=(0.5, -0.16),
+        ncol=1,
+        fontsize=7.5,
+        frameon=False,
+    )
     ax.set_xlim(-lim, lim)
     ax.set_ylim(-lim, lim)
     ax.set_aspect("equal")

@@ -117,14 +117,19 @@ def key_figures(page: Page) -> list[Html]:
     if thresholds and not skipped_reason(sens):
         _, drawn = sweep_groups(thresholds, page)
         steady = all(len(set(flags_of(thresholds, g))) == 1 for g in drawn)
+        any_flag = any(any(flags_of(thresholds, g)) for g in drawn)
         items.append(
             tag(
                 "li",
-                "Four-fifths flags "
-                + (
-                    "hold at every served threshold tried"
-                    if steady
-                    else "change with the served threshold"
+                (
+                    "No group is flagged at any served threshold tried"
+                    if not any_flag
+                    else "Four-fifths flags "
+                    + (
+                        "hold at every served threshold tried"
+                        if steady
+                        else "change with the served threshold"
+                    )
                 )
                 + f" ({fmt_percent(thresholds[0].get('threshold'))} to "
                 f"{fmt_percent(thresholds[-1].get('threshold'))}).",

@@ -31,7 +31,8 @@ from jinja2 import Template
 
 from .._util import clean_number, to_jsonable
 from ..errors import InputError, SpecError
-from . import assets
+from . import assets, palette
+from .map_context import group_label, outside_overlay, site_change_overlay
 
 __all__ = [
     "COVERED_COLORS",
@@ -70,11 +71,12 @@ SHARE_THRESHOLDS: tuple[int, ...] = (100, 250, 500, 750)
 SERVED_COLORS: tuple[str, ...] = ("#e6a03b", "#2b7186")  # unserved, served
 MAJORITY_MINORITY_COLORS: tuple[str, ...] = ("#e4e1d8", "#7a3f8f")  # no, yes
 
-INCOME_TIERS: tuple[str, ...] = ("low", "moderate", "middle", "upper", "unknown")
-INCOME_COLORS: tuple[str, ...] = ("#9a4a0b", "#df8f3a", "#c7d3e0", "#4b6c9c", "#d0d0d0")
+# Income tiers and LISA clusters: the project's palette, documented in palette.py.
+INCOME_TIERS: tuple[str, ...] = palette.INCOME_TIERS
+INCOME_COLORS: tuple[str, ...] = palette.INCOME_COLORS
 
-LISA_LABELS: tuple[str, ...] = ("high-high", "low-low", "high-low", "low-high", "not significant")
-LISA_COLORS: tuple[str, ...] = ("#c2423b", "#2f67a8", "#eda39b", "#9cc0e3", "#f1f0ec")
+LISA_LABELS: tuple[str, ...] = palette.LISA_LABELS
+LISA_COLORS: tuple[str, ...] = palette.LISA_COLORS
 
 MISSING_COLOR = "#bdbdbd"
 FOOTPRINT_KINDS: tuple[str, ...] = ("polygons", "points", "ids")
@@ -514,8 +516,8 @@ def _views(
         views.append(
             View(
                 key=f"share:{group}",
-                label=f"Share: {group}",
-                title=f"Share of population: {group}",
+                label=f"Share: {group_label(summary, group)}",
+                title=f"Share of population: {group_label(summary, group)}",
                 field=field,
                 type="bins",
                 colors=SHARE_COLORS,
@@ -595,11 +597,16 @@ def _texts(title: str, summary: Mapping[str, Any], n: int, footprint: Mapping | 
     if footprint is not None and footprint.get("name"):
         subtitle.append(f"Footprint: {footprint['name']}")
     subtitle.extend(_interval_lines(summary))
-    return {
+    out: dict[str, Any] = {
         "title": str(title),
         "subtitle": subtitle,
         "hover_hint": "Point at an area to see its figures.",
     }
+    findings = summary.get("findings")
+    if isinstance(findings, list) and findings and isinstance(findings[0], Mapping):
+        out["finding"] = str(findings[0].get("sentence") or "")
+        out["findings_link"] = {"href": "report.html#findings", "text": "All findings"}
+    return out
 
 
 def _interval_lines(summary: Mapping[str, Any]) -> list[str]:
@@ -679,11 +686,16 @@ def _footprint_overlays(
             legend.append(
                 {"color": "#5a3d8a", "kind": "line", "label": f"reach: {radius:,.0f} m radius"}
             )
+        named = next((c for c in ("name", "site_name", "site_id") if c in points.columns), None)
         out.append(
             {
                 "key": "points",
                 "label": f"Service points: {name}",
                 "kind": "points",
+                # Site names show when pointing at a site.
+                "names": (
+                    [str(v) for v in points.loc[pts.index, named]] if named is not None else None
+                ),
                 "lon": np.round(pts.x.to_numpy(), 6).tolist(),
                 "lat": np.round(pts.y.to_numpy(), 6).tolist(),
                 "radius_m": radius,
@@ -841,6 +853,7 @@ def build_map(
     tiles: bool = False,
     label_column: str | None = None,
     simplify_tolerance: float | None = None,
+    outside: gpd.GeoSeries | None = None,
 ) -> MapInfo:
     """Write a self-contained, offline interactive map of the analysed areas.
 
@@ -877,6 +890,9 @@ def build_map(
     simplify_tolerance : float, optional
         Display simplification tolerance in CRS units; ``None`` picks one from the
         region's extent (:func:`display_tolerance`), ``0`` keeps the geometry as is.
+    outside : geopandas.GeoSeries, optional
+        Areas outside the study area: drawn greyed, without figures; the initial view
+        fits the analysed areas.
 
     Returns
     -------
@@ -930,6 +946,17 @@ def build_map(
     fields, missing = _fields(frame, id_column, groups, label_column)
     views = _views(frame, fields, missing, groups, reference, summary)
     overlays = _footprint_overlays(footprint, areas.crs, tolerance, decimals)
+    region_bounds = None
+    if outside is not None and len(outside):
+        overlays.insert(0, outside_overlay(outside, tolerance, decimals))
+        oxmin, oymin, oxmax, oymax = outside.to_crs(4326).total_bounds
+        region_bounds = [
+            [float(min(ymin, oymin)), float(min(xmin, oxmin))],
+            [float(max(ymax, oymax)), float(max(xmax, oxmax))],
+        ]
+    changed = site_change_overlay(summary)
+    if changed is not None:
+        overlays.append(changed)
     codes: dict[str, list[str]] = {"tier": list(INCOME_TIERS), "lisa": list(LISA_LABELS)}
     if "enclave_id" in frame.columns:
         enclave = _enclave_overlay(
@@ -946,18 +973,21 @@ def build_map(
     data = {
         "n": n,
         "bounds": bounds,
+        "region_bounds": region_bounds,
         "areas": encode_shapes(lonlat, decimals) if n else _empty_shapes(),
         "fields": fields,
         "scales": {"cf": CF_SCALE, "share": SHARE_SCALE},
         "codes": codes,
         "groups": [
-            {"label": str(g), "field": f"s{k}", "reference": g == reference}
+            {"label": group_label(summary, g), "field": f"s{k}", "reference": g == reference}
             for k, g in enumerate(groups)
         ],
         "views": [v.to_dict() for v in views],
         "overlays": overlays,
         "enclave_info": to_jsonable(_enclave_info(summary)),
         "texts": _texts(title, summary, n, footprint),
+        # Hover texts say when a p-value is after false-discovery-rate correction.
+        "lisa_fdr": ((summary.get("clustering") or {}).get("local_moran") or {}).get("fdr") == "bh",
         "typical_size_m": _typical_size_m(geoms[drawable], metres_per_unit),
         "style": {
             "edge": "#ffffff",
@@ -1096,4 +1126,8 @@ def _fields(
         lp = pd.to_numeric(frame["lisa_p"], errors="coerce").to_numpy(dtype=float)
         ok = np.isfinite(lp)
         fields["lisa_p"] = _nullable(np.round(np.where(ok, lp, 0.0), 4), ok)
+    if "lisa_q" in frame.columns:
+        lq = pd.to_numeric(frame["lisa_q"], errors="coerce").to_numpy(dtype=float)
+        ok = np.isfinite(lq)
+        fields["lisa_q"] = _nullable(np.round(np.where(ok, lq, 0.0), 4), ok)
     return fields, missing

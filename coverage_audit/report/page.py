@@ -28,6 +28,10 @@ import scipy.sparse as sp
 
 from ..errors import InputError
 from . import further, uncertainty_section
+from .assessment_section import ANCHOR as ASSESSMENT_ANCHOR
+from .assessment_section import TITLE as ASSESSMENT_TITLE
+from .assessment_section import assessment_area_section
+from .findings_section import findings_section
 from .markup import (
     NA,
     Html,
@@ -327,7 +331,7 @@ def _key_figures(page: Page) -> Html:
         flagged = [g for g in ordered(page.groups, cov) if get_in(cov, g, "below_four_fifths")]
         if flagged:
             parts = "; ".join(
-                f"{g} {fmt_percent(get_in(cov, g, 'rate'))} (ratio "
+                f"{page.label(g)} {fmt_percent(get_in(cov, g, 'rate'))} (ratio "
                 f"{fmt_fixed(get_in(cov, g, 'ratio'))})"
                 for g in flagged
             )
@@ -538,11 +542,11 @@ def render_report(
     if isinstance(summary.get("enclaves"), list):
         present.add("enclaves")
     present |= further.present(summary)
+    present |= {"assessment_area"} if isinstance(summary.get("assessment_area"), Mapping) else set()
     present |= {uncertainty_section.ANCHOR} if uncertainty_section.has_margins(summary) else set()
     sections = [
         (anchor, title, render)
         for anchor, title, render in (
-            ("audited", "What was audited", audited_section),
             ("coverage", "Coverage by group", coverage_section),
             (
                 uncertainty_section.ANCHOR,
@@ -552,20 +556,26 @@ def render_report(
             ("segregation", "Segregation", segregation_section),
             ("clustering", "Spatial clustering", clustering_section),
             ("enclaves", "Enclaves", enclaves_section),
+            (ASSESSMENT_ANCHOR, ASSESSMENT_TITLE, assessment_area_section),
             *further.FURTHER_SECTIONS,
         )
-        if anchor == "audited" or anchor in present
+        if anchor in present
     ]
     methods = _methods_section(page, present)
-    toc = [(a, t) for a, t, _ in sections] + ([("methods", "Methods")] if methods else [])
+    toc = (
+        [("findings", "Findings"), *((a, t) for a, t, _ in sections)]
+        + ([("methods", "Methods")] if methods else [])
+        + [("cautions", "Cautions"), ("audited", "Appendix: inputs and provenance")]
+    )
     body = [
         _header(page),
+        findings_section(page),
         _cautions_box(page),
         _key_figures(page),
-        _toc([*toc, ("cautions", "Cautions")]),
+        _toc(toc),
     ]
     body.extend(render(page) for _, _, render in sections)
-    body.extend([methods, _cautions_section(page)])
+    body.extend([methods, _cautions_section(page), audited_section(page)])
     title = f"{summary.get('title') or 'Coverage audit'}: coverage audit report"
     head = "\n".join(
         [

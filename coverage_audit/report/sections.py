@@ -48,6 +48,7 @@ from .markup import (
     table,
     tag,
 )
+from .provenance import DIGEST_SHOWN, PARAMETER_ROWS_IN_ONE, digest_cell, parameter_rows
 from .text import FOUR_FIFTHS_NOTE
 
 #: Exclusion rows listed in the page; beyond this the page links to exclusions.csv.
@@ -88,6 +89,11 @@ class Page:
             self._layers = charts.RegionLayers.build(self.areas.geometry.to_numpy(), served)
         return self._layers
 
+    def label(self, group: str) -> str:
+        """Return a group's display label (``summary["group_labels"]``; its name without)."""
+        labels = self.summary.get("group_labels")
+        return str(labels.get(group, group)) if isinstance(labels, Mapping) else group
+
     @property
     def comparison_label(self) -> str:
         """The group every ratio divides by, in words ("the reference group (white_nh)")."""
@@ -126,19 +132,6 @@ def _footprint_text(page: Page) -> str:
     return "Footprint: not described."
 
 
-def _flatten(mapping: Mapping[str, Any], prefix: str = "") -> list[tuple[str, Any]]:
-    out: list[tuple[str, Any]] = []
-    for key, value in mapping.items():
-        if isinstance(value, Mapping) and value:
-            out.extend(_flatten(value, f"{prefix}{key}."))
-        elif isinstance(value, list) and value and all(isinstance(v, Mapping) for v in value):
-            for k, item in enumerate(value):
-                out.extend(_flatten(item, f"{prefix}{key}[{k}]."))
-        else:
-            out.append((f"{prefix}{key}", value))
-    return out
-
-
 def _to_crs(frame: Any, crs: Any) -> gpd.GeoSeries | gpd.GeoDataFrame:
     if not isinstance(frame, (gpd.GeoSeries, gpd.GeoDataFrame)):
         frame = gpd.GeoSeries(frame, crs=crs)
@@ -147,7 +140,8 @@ def _to_crs(frame: Any, crs: Any) -> gpd.GeoSeries | gpd.GeoDataFrame:
     return frame
 
 
-def _overview(page: Page) -> Html:
+def overview_figure(page: Page) -> Html:
+    """Return the small region map: served areas, footprint outline, service points."""
     if not len(page.areas):
         return Html("")
     fp = page.footprint
@@ -168,7 +162,10 @@ def _overview(page: Page) -> Html:
 
 
 def audited_section(page: Page) -> Html:
-    """Return "What was audited": areas, footprint, inputs, parameters, exclusions."""
+    """Return the appendix "What was audited", placed after the cautions.
+
+    Areas, footprint, inputs with their digests, parameters, exclusions and versions.
+    """
     m = page.manifest
     areas = page.summary.get("areas") or {}
     parts: list[Any] = [
@@ -187,7 +184,7 @@ def audited_section(page: Page) -> Html:
             (
                 i.get("role") or NA,
                 tag("span", i.get("path") or NA, class_="mono"),
-                tag("span", i.get("sha256") or NA, class_="digest"),
+                digest_cell(i.get("sha256")),
                 Num(fmt_count(i.get("rows"))),
                 i.get("crs") or NA,
             )
@@ -207,19 +204,47 @@ def audited_section(page: Page) -> Html:
                 tag("code", m["analysis_crs"]),
             )
         )
-    parts.append(_overview(page))
-    params = _flatten(m["spec"]) if isinstance(m.get("spec"), Mapping) else []
+    params = parameter_rows(m["spec"]) if isinstance(m.get("spec"), Mapping) else []
     if m.get("seed") is not None and not any(k.endswith("seed") for k, _ in params):
         params.append(("seed", m["seed"]))
     if params:
         rows: list[tuple[Any, ...]] = [(tag("code", k), fmt_param(v)) for k, v in params]
-        parts.append(table(("Parameter", "Value"), rows, caption="Parameters (resolved spec)"))
+        # Two tables side by side: a long list of settings fills half the printed pages.
+        half = (len(rows) + 1) // 2 if len(rows) > PARAMETER_ROWS_IN_ONE else len(rows)
+        halves = [rows[:half], rows[half:]] if half < len(rows) else [rows]
+        parts.append(
+            tag(
+                "div",
+                *(
+                    table(
+                        ("Parameter", "Value"),
+                        chunk,
+                        caption="Parameters (resolved spec)" + (" continued" if k else ""),
+                    )
+                    for k, chunk in enumerate(halves)
+                ),
+                class_="table-pair",
+            )
+        )
     parts.append(_exclusions_part(page))
     libraries = m.get("libraries") or {}
     if isinstance(libraries, Mapping) and libraries:
-        rows = [(name, Num(cell_text(v))) for name, v in libraries.items()]
-        parts.append(table(("Library", Num("Version")), rows, caption="Software versions"))
-    return section("audited", "What was audited", *parts)
+        parts.append(tag("h3", "Software versions"))
+        parts.append(
+            para(
+                "; ".join(f"{name} {cell_text(v)}" for name, v in libraries.items()) + ".",
+                class_="versions",
+            )
+        )
+    parts.insert(
+        1,
+        para(
+            "Digests are shortened to their first "
+            f"{DIGEST_SHOWN} characters; the full values are in manifest.json.",
+            class_="muted",
+        ),
+    )
+    return section("audited", "Appendix: what was audited, inputs and provenance", *parts)
 
 
 def _exclusions_part(page: Page) -> Html:
@@ -297,7 +322,12 @@ def coverage_section(page: Page) -> Html:
         item = as_mapping(data.get(g))
         flagged = bool(item.get("below_four_fifths"))
         is_comparison = g == page.comparison_group
-        label = g + (" (highest rate)" if page.highest else " (reference)") if is_comparison else g
+        name = page.label(g)
+        label = (
+            name + (" (highest rate)" if page.highest else " (reference)")
+            if is_comparison
+            else name
+        )
         rows.append(
             (
                 label,
@@ -347,12 +377,12 @@ def coverage_section(page: Page) -> Html:
         if page.highest and comparison_rate is None:
             comparison_rate = max((r for r in rates if r is not None), default=None)
         svg = charts.coverage_bar_chart(
-            order,
+            [page.label(g) for g in order],
             rates,
             comparison_rate=comparison_rate,
             salt="report-coverage-bars",
             comparison_label=(
-                f"{page.comparison_group or 'highest rate'} "
+                f"{page.label(page.comparison_group) if page.comparison_group else 'highest rate'} "
                 f"({'highest rate' if page.highest else 'reference'})"
             ),
             flagged=[bool(get_in(data, g, "below_four_fifths")) for g in order],
@@ -418,7 +448,7 @@ def _distance_part(distance: Any, page: Page) -> Html:
     unit = str(distance.get("unit") or "m")
     rows = [
         (
-            g,
+            page.label(g),
             Num(fmt_distance(get_in(data, g, "mean"), unit)),
             Num(fmt_distance(get_in(data, g, "median"), unit)),
         )
@@ -444,11 +474,21 @@ _SEGREGATION_COLUMNS: tuple[tuple[str, str], ...] = (
     ("coverage_dissimilarity", "Coverage dissimilarity"),
     ("areal_coverage_dissimilarity", "Areal coverage dissimilarity"),
 )
+
+
+def _negated_points(value: Any) -> str:
+    """Format a gap (reference minus group) as a difference (group minus reference)."""
+    number = as_number(value)
+    return fmt_points(None if number is None else -number)
+
+
+#: The gap test is shown with the sign convention of every difference in the report:
+#: the group's rate minus the comparison rate (negative: the group is less served).
 _GAP_COLUMNS: tuple[tuple[str, str, Callable[[Any], str]], ...] = (
-    ("gap", "Gap", fmt_points),
+    ("gap", "Difference", _negated_points),
     ("p_value", "p (two-sided)", fmt_p),
     ("p_value_one_sided", "p (one-sided)", fmt_p),
-    ("null_mean", "Null mean", fmt_points),
+    ("null_mean", "Null mean", _negated_points),
     ("null_sd", "Null sd", fmt_points),
     ("permutations", "Permutations", fmt_count),
 )
@@ -471,7 +511,7 @@ def segregation_section(page: Page) -> Html:
     ]
     if columns:
         rows = [
-            (g, *(Num(fmt_fixed(get_in(seg, k, g))) for k, _ in columns))
+            (page.label(g), *(Num(fmt_fixed(get_in(seg, k, g))) for k, _ in columns))
             for g in ordered(page.groups, present)
         ]
         parts.append(
@@ -485,7 +525,7 @@ def segregation_section(page: Page) -> Html:
     gap = seg.get("coverage_gap_test")
     if isinstance(gap, Mapping) and gap:
         rows = [
-            (g, *(Num(f(get_in(gap, g, k))) for k, _, f in _GAP_COLUMNS))
+            (page.label(g), *(Num(f(get_in(gap, g, k))) for k, _, f in _GAP_COLUMNS))
             for g in ordered(page.groups, gap)
         ]
         parts.append(
@@ -494,7 +534,7 @@ def segregation_section(page: Page) -> Html:
                 rows,
                 table_id="gap-table",
                 caption="Permutation test of the served-area "
-                f"rate gap, {ref} rate minus the group's, in percentage points",
+                f"rate difference, the group's rate minus {ref}'s, in percentage points",
             )
         )
     return section("segregation", "Segregation", *parts)
@@ -830,7 +870,7 @@ def _enclave_shares_part(enclaves: Sequence[Mapping[str, Any]], page: Page) -> H
                 diff = None if a is None or b is None else a - b
             rows.append(
                 (
-                    f"{e.get('id') or NA}: {g}",
+                    f"{e.get('id') or NA}: {page.label(g)}",
                     Num(fmt_percent(get_in(e, "group_shares", g))),
                     Num(fmt_percent(get_in(e, "ring_group_shares", g))),
                     Num(fmt_points(diff)),

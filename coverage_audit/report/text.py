@@ -120,10 +120,13 @@ METHODS: dict[str, tuple[tuple[str, str], ...]] = {
     "gap_test": (
         (
             "Permutation test of the coverage gap",
-            "The gap is the reference group's served-area rate minus the group's. The served "
+            "The difference is the group's served-area rate minus the reference group's "
+            "(negative when the group is less served), the sign used for every difference in "
+            "this report. The served "
             "status is dealt at random to the same number of areas, {permutations} times; "
-            "two-sided p = (1 + number of |simulated gap| &ge; |gap|) / (permutations + 1), "
-            "one-sided p counts simulated gaps &ge; gap (Hope, A. C. A. 1968, Journal of the "
+            "two-sided p = (1 + number of |simulated difference| &ge; |difference|) / "
+            "(permutations + 1), one-sided p counts simulated differences &le; the observed "
+            "one (Hope, A. C. A. 1968, Journal of the "
             "Royal Statistical Society B 30(3), 582&ndash;598).",
         ),
     ),
