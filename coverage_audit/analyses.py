@@ -23,6 +23,7 @@ from .coverage import coverage_by_group, covered_fraction, footprint_fractions
 from .errors import AnalysisError, DegenerateStatisticWarning, InputError
 from .footprint import Footprint, build_footprint, cut_pieces, geodesic_circles
 from .inputs import AreaInputs, InputRecord, ids_as_text, read_hashed, read_table
+from .io.joins import MatchReport, match_ids
 from .spec import AuditSpec
 from .weights import AreaGraph
 
@@ -330,19 +331,18 @@ def site_changes(change: Any, footprints: list[Footprint]) -> dict[str, Any]:
     return out
 
 
-def peers_section(
-    spec: AuditSpec, inputs: AreaInputs, frame: gpd.GeoDataFrame
-) -> tuple[dict[str, Any], InputRecord]:
-    """Each lender's share of activity in majority-minority areas against its peers."""
-    from .compare import peer_comparison
+def read_activity(
+    spec: AuditSpec, area_ids: list[str]
+) -> tuple[pd.DataFrame, InputRecord, MatchReport]:
+    """Read the ``[activity]`` table with text ids and report its match to the areas.
 
+    Raises
+    ------
+    InputError
+        When the id column is missing or too few rows match the areas.
+    """
     activity = spec.activity
     assert activity is not None
-    if "majority_minority" not in frame.columns:
-        raise InputError(
-            "[activity] needs majority-minority areas: set derive_minority = true or name a "
-            "group minority in [population]"
-        )
     table, digest = read_hashed(
         activity.path,
         lambda: read_table(activity.path, id_column=activity.id, role="activity table"),
@@ -360,6 +360,24 @@ def peers_section(
         width=activity.id_width or spec.areas.id_width,
         where=f"activity table '{activity.path}'",
     )
+    match = match_ids("activity table", str(activity.path), list(table[activity.id]), area_ids)
+    return table, record, match
+
+
+def peers_section(
+    spec: AuditSpec, inputs: AreaInputs, frame: gpd.GeoDataFrame
+) -> tuple[dict[str, Any], InputRecord]:
+    """Each lender's share of activity in majority-minority areas against its peers."""
+    from .compare import peer_comparison
+
+    activity = spec.activity
+    assert activity is not None
+    if "majority_minority" not in frame.columns:
+        raise InputError(
+            "[activity] needs majority-minority areas: set derive_minority = true or name a "
+            "group minority in [population]"
+        )
+    table, record, match = read_activity(spec, frame[inputs.id_column].tolist())
     flags = pd.Series(
         frame["majority_minority"].to_numpy(dtype=bool),
         index=frame[inputs.id_column].to_numpy(dtype=object),
@@ -373,4 +391,4 @@ def peers_section(
         lender_columns=list(activity.lender_columns) if activity.lender_columns else None,
         alpha=activity.alpha,
     )
-    return result.to_dict(), record
+    return result.to_dict() | {"match": match.to_dict()}, record

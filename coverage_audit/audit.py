@@ -263,7 +263,12 @@ def run_audit(
     started = _dt.datetime.now(_dt.timezone.utc)
     streams = random_streams(spec.analysis.seed)
     with progress.stage("reading areas"):
-        inputs = load_areas(spec.areas, spec.population, analysis_crs=spec.analysis.analysis_crs)
+        inputs = load_areas(
+            spec.areas,
+            spec.population,
+            analysis_crs=spec.analysis.analysis_crs,
+            tables=spec.tables,
+        )
     frame = inputs.frame
     with progress.stage(f"building footprint '{spec.footprint.name}'"):
         footprint = build_footprint(
@@ -417,7 +422,7 @@ def compute_statistics(
         out["clustering"] = _clustering(frame, graph, an, streams["clustering"])
     with progress.stage("enclaves"):
         holes: tuple[Any, ...] = ()
-        if footprint.kind != "ids":
+        if footprint.kind not in ("ids", "zips"):
             holes = footprint_holes(footprint.geometry, geoms, ids, population, counts)
         result = find_enclaves(
             geoms,
@@ -556,7 +561,7 @@ def measure_coverage(
 ) -> tuple[CoverageResult, gpd.GeoDataFrame]:
     """Covered fraction, served flag and (points) nearest-site distance of each area."""
     geoms = np.asarray(frame.geometry.array, dtype=object)
-    if spec.analysis.engine == "dask" and footprint.kind != "ids":
+    if spec.analysis.engine == "dask" and footprint.kind not in ("ids", "zips"):
         fraction = _dask_fractions(spec, frame, footprint)
     else:
         fraction = footprint_fractions(footprint, geoms, frame[inputs.id_column].tolist())
@@ -616,7 +621,7 @@ def _areas_section(inputs: AreaInputs, frame: gpd.GeoDataFrame) -> dict[str, Any
         "repaired_geometries": inputs.repaired,
         "zero_population": int((frame["population"] <= 0).sum()),
         "income_unknown": inputs.income_unknown,
-    }
+    } | ({"water_only": list(inputs.water_only)} if inputs.water_only else {})
 
 
 def _table_section(inputs: AreaInputs) -> dict[str, Any] | None:
@@ -624,8 +629,14 @@ def _table_section(inputs: AreaInputs) -> dict[str, Any] | None:
     if not table:
         return None
     rows = table[0].rows
-    excluded = inputs.exclusions.count("table")
-    return {"table": {"rows": rows, "matched": rows - excluded, "excluded": excluded}}
+    excluded = (
+        inputs.exclusions.count("table") if len(table) == 1 else (rows - inputs.matches[0].matched)
+    )
+    out: dict[str, Any] = {
+        "table": {"rows": rows, "matched": rows - excluded, "excluded": excluded}
+    }
+    out["tables"] = [m.to_dict() for m in inputs.matches]
+    return out
 
 
 def _order_columns(frame: gpd.GeoDataFrame, inputs: AreaInputs) -> gpd.GeoDataFrame:

@@ -472,39 +472,86 @@ def _cmd_demo(args: argparse.Namespace) -> int:
 
 
 def _cmd_check(args: argparse.Namespace) -> int:
+    """Read every input as ``run`` would and say, per input, what was read and matched.
+
+    Lines are printed as each input is read, so a failing join (an error, exit 2) comes
+    after the inputs that were fine.
+    """
+    from .analyses import read_activity
     from .footprint import build_footprint
     from .inputs import load_areas
     from .spec import load_spec
 
     spec = load_spec(args.spec)
-    inputs = load_areas(spec.areas, spec.population, analysis_crs=spec.analysis.analysis_crs)
-    built = [
-        build_footprint(
+    print(f"spec {args.spec}: readable")
+    inputs = load_areas(
+        spec.areas,
+        spec.population,
+        analysis_crs=spec.analysis.analysis_crs,
+        tables=spec.tables,
+    )
+    source_crs = inputs.source_crs.to_authority()
+    crs_name = ":".join(source_crs) if source_crs else inputs.source_crs.name
+    print(
+        f"areas: {spec.areas.path} ({inputs.layout}, {crs_name}), id column {inputs.id_column}: "
+        f"{inputs.input_rows} rows, {len(inputs.frame)} would be analysed, "
+        f"{inputs.exclusions.count('areas')} excluded"
+    )
+    if inputs.water_only:
+        print(
+            f"  {len(inputs.water_only)} water-only areas (ALAND = 0), kept: "
+            f"{', '.join(inputs.water_only[:5])}{' ...' if len(inputs.water_only) > 5 else ''}"
+        )
+    for match in inputs.matches:
+        print(match.line())
+    pop = inputs.population or spec.population
+    labels = pop.group_labels
+    moes = pop.group_moes
+    print(
+        f"population: total {pop.total} ({pop.unit}); groups "
+        + "; ".join(
+            f"{labels[g]} = {c}" + (f" (margin {moes[g]})" if g in moes else "")
+            for g, c in pop.groups
+        )
+    )
+    built = []
+    for fp in spec.footprints:
+        footprint = build_footprint(
             fp,
             inputs,
             inputs.exclusions,
             circle_vertices=spec.analysis.circle_vertices,
             id_width=spec.areas.id_width,
         )
-        for fp in spec.footprints
-    ]
-    study = None
+        built.append(footprint)
+        line = f"footprint '{fp.name}' ({fp.kind}): {footprint.features} features"
+        if fp.kind == "zips" and footprint.match is not None:
+            line = (
+                f"footprint '{fp.name}' (ZIP codes, "
+                f"{footprint.match.layout or 'relationship file'}): {footprint.features} ZIP "
+                f"codes with a ZCTA or crosswalk row; {footprint.match.matched} areas reached"
+            )
+        elif footprint.match is not None:
+            rate = footprint.match.match_rate
+            line += f"; {footprint.match.matched} of {footprint.match.rows} ids matched" + (
+                "" if rate is None else f" ({rate:.1%})"
+            )
+        print(line)
     if spec.study_area is not None:
         from .study_area import apply_study_area
 
         inputs, study, _ = apply_study_area(
             spec.study_area, inputs, built[0], id_width=spec.areas.id_width
         )
-    ex = inputs.exclusions
-    print(f"spec {args.spec}: readable")
-    if study is not None:
         print(
             f"study area '{study.name}' ({study.kind}): {study.areas_inside} areas inside, "
-            f"{study.areas_outside} outside"
+            f"{study.areas_outside} outside; {len(inputs.frame)} would be analysed"
         )
-    print(
-        f"areas: {inputs.input_rows} rows, {len(inputs.frame)} would be analysed, {ex.count('areas')} excluded"
-    )
+    if spec.activity is not None:
+        _, _, match = read_activity(spec, inputs.frame[inputs.id_column].tolist())
+        print(match.line())
+    ex = inputs.exclusions
+    print(f"exclusions: {ex.count()} rows would be left out")
     for reason, n in ex.by_reason().items():
         print(f"  {n:6d}  {reason}")
     print(f"analysis CRS: {inputs.analysis_crs.srs}")

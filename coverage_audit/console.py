@@ -34,13 +34,24 @@ def print_summary(result: Any, paths: dict[str, Path], *, seconds: float, stream
         f"areas: {areas['input']} in, {areas['analysed']} analysed, {areas['excluded']} excluded; "
         f"served: {cov['served_areas']} of {cov['areas']} (threshold {cov['served_threshold']:g})"
     )
+    for entry in (s.get("inputs") or {}).get("tables") or []:
+        rate = entry.get("match_rate")
+        console.print(
+            f"table {Path(entry['path']).name}"
+            + (f" ({entry['layout']})" if entry.get("layout") else "")
+            + f": {entry['matched']} of {entry['rows']} rows matched the areas"
+            + ("" if rate is None else f" ({100 * rate:.1f}%)")
+        )
+    labels = s.get("group_labels") or {}
+    unit = s.get("population_unit") or "people"
     table = Table(show_edge=False, header_style="bold")
+    comparison = labels.get(cov["comparison_group"], cov["comparison_group"])
     console.print(
         f"[dim]coverage = areal-weighted rate; served = share living in served areas; ratio and "
-        f"diff (percentage points) against {cov['comparison_group']}; <4/5 = ratio below 0.8[/dim]"
+        f"diff (percentage points) against {comparison}; <4/5 = ratio below 0.8[/dim]"
     )
     margins = cov.get("uncertainty") in ("delta", "replicates")
-    columns = ["group", "people", "coverage", "served", "ratio", "diff pp", "<4/5"]
+    columns = ["group", unit, "coverage", "served", "ratio", "diff pp", "<4/5"]
     if margins:
         console.print(
             "[dim]ratio 90% = interval from the survey margins; <4/5 with ? = the interval "
@@ -49,7 +60,11 @@ def print_summary(result: Any, paths: dict[str, Path], *, seconds: float, stream
         columns[5:5] = ["ratio 90%"]
     for col in columns:
         table.add_column(
-            col, justify="left" if col == "group" else "right", no_wrap=col == "ratio 90%"
+            col,
+            justify="left" if col == "group" else "right",
+            no_wrap=col in ("ratio 90%", unit),
+            # Labels such as "Black alone, not Hispanic" wrap in two lines, not five.
+            min_width=22 if col == "group" else None,
         )
     for g, row in cov["groups"].items():
         diff = row["difference"]
@@ -57,7 +72,7 @@ def print_summary(result: Any, paths: dict[str, Path], *, seconds: float, stream
         if margins and row.get("four_fifths_confidence") == "uncertain":
             flag = "yes?" if flag else "?"
         cells = [
-            g,
+            labels.get(g, g),
             f"{row['population']:,.0f}",
             _pct(row["rate"]),
             _pct(row["served_area_rate"]),
@@ -76,8 +91,11 @@ def print_summary(result: Any, paths: dict[str, Path], *, seconds: float, stream
             console.print(f"- {item['sentence']}")
     seg = s.get("segregation")
     if seg:
-        d = ", ".join(f"{g} {_num(v)}" for g, v in seg.get("dissimilarity", {}).items())
-        console.print(f"dissimilarity vs {seg.get('reference_group')}: {d}")
+        d = ", ".join(
+            f"{labels.get(g, g)} {_num(v)}" for g, v in seg.get("dissimilarity", {}).items()
+        )
+        ref = seg.get("reference_group")
+        console.print(f"dissimilarity vs {labels.get(ref, ref)}: {d}")
     clu = s.get("clustering")
     if clu and clu.get("moran"):
         m = clu["moran"]
@@ -86,7 +104,7 @@ def print_summary(result: Any, paths: dict[str, Path], *, seconds: float, stream
         )
     enclaves = s.get("enclaves")
     if enclaves is not None:
-        top = ", ".join(f"{e['id']} ({e['population']:,.0f} people)" for e in enclaves[:3])
+        top = ", ".join(f"{e['id']} ({e['population']:,.0f} {unit})" for e in enclaves[:3])
         console.print(f"enclaves: {len(enclaves)}" + (f"; largest {top}" if top else ""))
     comparison = s.get("comparison")
     if comparison:
@@ -100,7 +118,7 @@ def print_summary(result: Any, paths: dict[str, Path], *, seconds: float, stream
         lost, gained = change.get("lost_service", {}), change.get("gained_service", {})
         console.print(
             f"change: {lost.get('count', 0)} areas lost service ({lost.get('population', 0):,.0f} "
-            f"people), {gained.get('count', 0)} gained"
+            f"{unit}), {gained.get('count', 0)} gained"
         )
     peers = s.get("peers")
     if peers:

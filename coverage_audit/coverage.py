@@ -99,6 +99,8 @@ def _intersection_areas(
 
 def footprint_fractions(footprint: Footprint, areas: np.ndarray, ids: Sequence[str]) -> np.ndarray:
     """Covered fraction of each area under any kind of footprint (listed ids: 1 or 0)."""
+    if footprint.fractions is not None:
+        return np.array([footprint.fractions.get(i, 0.0) for i in ids], dtype=float)
     if footprint.kind == "ids":
         served = footprint.served_ids or frozenset()
         return np.array([1.0 if i in served else 0.0 for i in ids], dtype=float)

@@ -25,6 +25,7 @@ import numpy as np
 import pandas as pd
 import shapely
 
+from .demo_downloads import write_download_files
 from .synthetic import FICTIONAL_CRS, demographics, tessellation
 
 DEMO_SEED = 20_261_201
@@ -105,6 +106,39 @@ hub_name = "downtown"
         'served_ids_column = "geoid"',
     ),
 }
+#: The scenario that starts from Census-layout downloads (demo_downloads.py).
+SCENARIOS["zip_delivery"] = ("Grocery delivery by ZIP code, from Census downloads, Ostmere", "")
+DOWNLOADS_SPEC = """# Ostmere demo audit: {title}. A fictional region; see README.md beside this file.
+# Every input is in a Census Bureau layout, read as downloaded: a TIGER/Line tract zip,
+# a data.census.gov table zip, Census API JSON and the ZCTA-to-tract relationship file.
+title = "{title}"
+
+[areas]
+path = "tl_2099_99_tract.zip"
+
+[[table]]
+path = "ACSDT5Y2099.B03002.zip"
+
+[[table]]
+path = "b19113_api.json"
+
+[population]
+preset = "acs_b03002"
+groups = ["black_nh", "asian_nh", "hispanic"]
+unit = "people"
+
+[footprint]
+name = "delivery_zips"
+zips = "delivery_zips.csv"
+zcta_relationship = "tab20_zcta520_tract20_natl.txt"
+
+[analysis]
+served_threshold = 0.5
+permutations = 999
+enclave_draws = 999
+transparent_zero_population = true
+seed = {seed}
+"""
 #: The delivery scenario compares the zone within the city it is drawn around.
 DELIVERY_EXTRA = """contrast_group = "black_nh"
 
@@ -335,7 +369,13 @@ def write_demo_region(folder: str | Path, seed: int = DEMO_SEED) -> Path:
     pd.DataFrame({"geoid": _assessment_area(cells, demo)}).to_csv(
         out / "assessment_area.csv", index=False, lineterminator="\n"
     )
+    write_download_files(out, cells, demo, seed)
     for key, (title, footprint) in SCENARIOS.items():
+        if key == "zip_delivery":
+            (out / f"{key}.toml").write_text(
+                DOWNLOADS_SPEC.format(title=title, seed=seed), encoding="utf-8"
+            )
+            continue
         (out / f"{key}.toml").write_text(
             SPEC_TEMPLATE.format(
                 title=title,
@@ -500,6 +540,14 @@ Two areas have no residents: Ostmere Lake and Heron Commons Park.
   (`demographics_margins.csv`: the same counts with a `moe_` column for each). The Asian
   residents' coverage ratio falls under 0.8, but its 90% interval reaches past 0.8: the
   four-fifths flag is "uncertain", a gap the survey error cannot confirm.
+- `zip_delivery.toml`: a grocer's delivery area given as ZIP codes (`delivery_zips.csv`),
+  starting from files in Census Bureau layouts, as a user downloads them: tracts as a
+  TIGER/Line zip (`tl_2099_99_tract.zip`, NAD83; the lake is water only), table B03002 as
+  a data.census.gov zip (`ACSDT5Y2099.B03002.zip`, read with the `acs_b03002` preset,
+  margins kept beside estimates), median family income as Census API JSON
+  (`b19113_api.json`) and the ZCTA-to-tract relationship file
+  (`tab20_zcta520_tract20_natl.txt`, fictional ZCTAs). One listed ZIP is a PO-box ZIP
+  with no ZCTA: it is listed in exclusions.csv. All values are made up.
 
 Run them all with `coverage-audit demo`; outputs go to `outputs/demo/<scenario>/`.
 """

@@ -1,4 +1,4 @@
-"""Footprint: service polygons, points with a reach, or listed area ids -> one footprint.
+"""Footprint: service polygons, points with a reach, listed ids or ZIP codes -> one footprint.
 
 Takes a ``[footprint]`` spec and the analysed areas (already in the analysis CRS) and gives
 a :class:`Footprint`: the dissolved service geometry in the analysis CRS, cut into disjoint
@@ -40,6 +40,8 @@ from .inputs import (
     repair,
     resolve_crs,
 )
+from .io.joins import MatchReport, match_ids
+from .io.zcta import crosswalk_fractions, read_zip_list, relationship_fractions
 from .spec import LENGTH_UNITS, FootprintSpec
 
 #: Largest number of vertices of a footprint piece; bigger pieces are cut in quarters so
@@ -61,7 +63,7 @@ class Footprint:
     Attributes
     ----------
     name, kind : str
-        From the spec; kind is "polygons", "points" or "ids".
+        From the spec; kind is "polygons", "points", "ids" or "zips".
     geometry : shapely geometry
         The dissolved footprint (may be empty).
     pieces : numpy.ndarray
@@ -86,6 +88,10 @@ class Footprint:
     features: int = 0
     records: list[InputRecord] = field(default_factory=list)
     unread_flags: int = 0
+    #: Covered fraction by area id (kind "zips": ZIP-code zones through ZCTAs or a crosswalk).
+    fractions: dict[str, float] | None = None
+    #: Match report of the ids the footprint was given by (listed ids, ZIPs, chosen polygons).
+    match: MatchReport | None = None
 
     def to_dict(self) -> dict[str, Any]:
         """Describe the footprint for summary.json."""
@@ -104,6 +110,8 @@ class Footprint:
             out["radius_m_range"] = [float(radii.min()), float(radii.max())] if radii.size else None
         if self.kind == "ids":
             out["served_ids"] = len(self.served_ids or ())
+        if self.match is not None:
+            out["match"] = self.match.to_dict()
         return out
 
     def manifest(self) -> dict[str, Any]:
@@ -151,6 +159,8 @@ def build_footprint(
     crs = areas.analysis_crs
     if spec.kind == "ids":
         return _ids_footprint(spec, areas, exclusions, id_width=id_width)
+    if spec.kind == "zips":
+        return _zips_footprint(spec, areas, exclusions)
     assert spec.path is not None
     source = f"footprint:{spec.name}"
     path = spec.path
@@ -167,8 +177,11 @@ def build_footprint(
         crs_text(layer.crs),
         spec.layer,
     )
+    match = None
+    if spec.id is not None:
+        layer, match = _chosen_polygons(spec, layer, exclusions, id_width)
     geoms = np.asarray(layer.geometry.array, dtype=object)
-    rows = np.arange(1, len(layer) + 1)
+    rows = np.asarray(layer["_row"]) if "_row" in layer.columns else np.arange(1, len(layer) + 1)
     missing = shapely.is_missing(geoms) | shapely.is_empty(geoms)
     exclusions.add(source, rows[missing], [None] * int(missing.sum()), "null or empty geometry")
     not_finite = ~finite_coordinates(geoms)
@@ -221,6 +234,121 @@ def build_footprint(
         crs=crs,
         features=int(keep.sum()),
         records=[record],
+        match=match,
+    )
+
+
+def _chosen_polygons(
+    spec: FootprintSpec, layer: gpd.GeoDataFrame, exclusions: Exclusions, id_width: int | None
+) -> tuple[gpd.GeoDataFrame, MatchReport]:
+    """Keep the polygons of ``layer`` whose ``spec.id`` is listed in ``ids`` or ``ids_path``."""
+    assert spec.id is not None
+    role = f"footprint '{spec.name}'"
+    if spec.id not in layer.columns:
+        raise InputError(
+            f"{role} file '{spec.path}' has no id column {spec.id!r}; its columns are "
+            f"{[c for c in layer.columns if c != 'geometry']}"
+        )
+    if spec.ids_path is not None:
+        listed = _read_ids_file(spec.ids_path, role, id_width)
+        where = str(spec.ids_path)
+    else:
+        listed = ids_as_text(
+            pd.Series(list(spec.ids or ()), dtype=object), width=id_width, where=f"{role} ids"
+        )
+        where = "[footprint] ids"
+    layer_ids = ids_as_text(layer[spec.id], width=id_width, where=f"{role} column {spec.id}")
+    values = [None if v is None else str(v) for v in listed]
+    match = match_ids(f"{role} ids", where, values, list(layer_ids.dropna()))
+    known = set(layer_ids.dropna())
+    unknown = [k for k, v in enumerate(values, start=1) if v is not None and v not in known]
+    exclusions.add(
+        f"footprint:{spec.name}",
+        unknown,
+        [values[k - 1] for k in unknown],
+        f"listed id is not in column {spec.id} of the footprint layer",
+    )
+    chosen = layer_ids.isin(set(values)).to_numpy()
+    out = layer.loc[chosen].copy()
+    out["_row"] = np.flatnonzero(chosen) + 1
+    return out, match
+
+
+def _read_ids_file(path: Any, role: str, id_width: int | None) -> pd.Series:
+    if not path.exists():
+        raise InputError(f"{role} ids file '{path}' was not found; check the path in the spec")
+    if path.suffix.lower() in (".csv", ".tsv"):
+        table = read_table(path, id_column="__none__", role=f"{role} ids")
+        column = str(table.columns[0])
+        table = read_table(path, id_column=column, role=f"{role} ids")
+        values = table[column]
+    else:
+        lines = path.read_text(encoding="utf-8").splitlines()
+        values = pd.Series([ln.strip() or None for ln in lines], dtype=object)
+    return ids_as_text(values, width=id_width, where=f"{role} ids file '{path}'")
+
+
+def _zips_footprint(spec: FootprintSpec, areas: AreaInputs, exclusions: Exclusions) -> Footprint:
+    """ZIP-code zones: covered fractions from the ZCTA relationship file or a crosswalk."""
+    assert spec.zips is not None
+    role = f"footprint '{spec.name}'"
+    zip_path = spec.zips
+    zips, zips_digest = read_hashed(
+        zip_path, lambda: read_zip_list(zip_path, role=f"{role} zips"), role=f"{role} zips"
+    )
+    records = [InputRecord(f"zips:{spec.name}", str(spec.zips), zips_digest, len(zips))]
+    if spec.zcta_relationship is not None:
+        source_path = spec.zcta_relationship
+        result, source_digest = read_hashed(
+            source_path,
+            lambda: relationship_fractions(zips, source_path, role=f"{role} zcta_relationship"),
+            role=f"{role} zcta_relationship",
+        )
+    else:
+        assert spec.crosswalk is not None and spec.crosswalk_ratio is not None
+        source_path, ratio = spec.crosswalk, spec.crosswalk_ratio
+        result, source_digest = read_hashed(
+            source_path,
+            lambda: crosswalk_fractions(
+                zips,
+                source_path,
+                ratio,
+                role=f"{role} crosswalk",
+                id_candidates=(areas.id_column, "tract", "geoid", "GEOID", "GEOID20"),
+            ),
+            role=f"{role} crosswalk",
+        )
+    records.append(InputRecord(f"zcta:{spec.name}", str(source_path), source_digest, 0))
+    exclusions.add(
+        f"zips:{spec.name}",
+        [k for k, _ in result.unknown],
+        [z for _, z in result.unknown],
+        f"ZIP code has no ZCTA or row in '{source_path.name}' (PO-box or single-address ZIP "
+        "codes have none); it adds no coverage",
+    )
+    frame = areas.frame
+    ids = frame[areas.id_column].tolist()
+    touched = [a for a, f in result.fractions.items() if f > 0]
+    match = match_ids(
+        f"{role} areas of the listed ZIP codes",
+        str(source_path),
+        touched,
+        ids,
+        layout=result.layout,
+        min_share=0.0,
+    )
+    fractions = {i: float(result.fractions.get(i, 0.0)) for i in ids}
+    dissolved = _dissolve_areas(frame, np.array([fractions[i] > 0 for i in ids], dtype=bool))
+    return Footprint(
+        name=spec.name,
+        kind="zips",
+        geometry=dissolved,
+        pieces=np.array([], dtype=object),
+        crs=areas.analysis_crs,
+        features=len(zips) - len(result.unknown),
+        records=records,
+        fractions=fractions,
+        match=match,
     )
 
 
@@ -377,6 +505,17 @@ def cut_pieces(geometry: Any, max_vertices: int = MAX_PIECE_VERTICES) -> np.ndar
     return np.array(done, dtype=object)
 
 
+def _dissolve_areas(frame: gpd.GeoDataFrame, mask: np.ndarray) -> Any:
+    """Union of the areas where ``mask`` (fast coverage union, exact union as fallback)."""
+    geoms = np.asarray(frame.geometry.array, dtype=object)[mask]
+    if not geoms.size:
+        return shapely.Polygon()
+    try:
+        return shapely.coverage_union_all(geoms)
+    except shapely.errors.GEOSException:
+        return shapely.union_all(geoms)
+
+
 def _ids_footprint(
     spec: FootprintSpec, areas: AreaInputs, exclusions: Exclusions, *, id_width: int | None
 ) -> Footprint:
@@ -387,6 +526,7 @@ def _ids_footprint(
     records: list[InputRecord] = []
     source = f"served_ids:{spec.name}"
     unread = 0
+    match = None
     if spec.served_column is not None:
         column = spec.served_column
         if column not in frame.columns:
@@ -407,6 +547,12 @@ def _ids_footprint(
             records.append(record)
         missing = listed.isna().to_numpy()
         exclusions.add(source, rows[missing], [None] * int(missing.sum()), "missing id")
+        match = match_ids(
+            f"served ids of footprint '{spec.name}'",
+            str(spec.served_ids or "[footprint] ids"),
+            [None if v is None else str(v) for v in listed],
+            analysed | {i for i in excluded_ids if i is not None},
+        )
         known = listed.isin(analysed).to_numpy()
         unknown = ~known & ~missing
         exclusions.add(
@@ -421,15 +567,7 @@ def _ids_footprint(
             ],
         )
         served = frozenset(listed[known])
-    mask = frame[id_col].isin(served).to_numpy()
-    geoms = np.asarray(frame.geometry.array, dtype=object)[mask]
-    if geoms.size:
-        try:
-            dissolved = shapely.coverage_union_all(geoms)
-        except shapely.errors.GEOSException:
-            dissolved = shapely.union_all(geoms)
-    else:
-        dissolved = shapely.Polygon()
+    dissolved = _dissolve_areas(frame, frame[id_col].isin(served).to_numpy())
     return Footprint(
         name=spec.name,
         kind="ids",
@@ -440,6 +578,7 @@ def _ids_footprint(
         features=len(served),
         records=records,
         unread_flags=unread,
+        match=match,
     )
 
 

@@ -13,8 +13,8 @@ the first line after the header of a CSV file.
 from __future__ import annotations
 
 import warnings
-from collections.abc import Iterable
-from dataclasses import dataclass, field
+from collections.abc import Callable, Iterable
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Any
 
@@ -26,6 +26,8 @@ import shapely
 from pyproj import CRS, Transformer
 
 from .errors import IdWarning, InputError, MarginWarning, RepairWarning
+from .io.boundaries import describe_layout, detect_id_column, strip_prefix, water_only
+from .io.census import annotation_reasons
 from .io.checks import (
     bad_feature,
     check_sums,
@@ -34,7 +36,9 @@ from .io.checks import (
     read_hashed,
 )
 from .io.checks import sha256_file as sha256_file  # re-exported: readers import it from here
-from .spec import AreasSpec, PopulationSpec
+from .io.joins import MatchReport
+from .io.tables import join_tables, numeric_estimates
+from .spec import AreasSpec, PopulationSpec, TableSpec
 
 #: Extensions read with pandas/pyarrow rather than GDAL.
 PARQUET_SUFFIXES = (".parquet", ".geoparquet", ".pq")
@@ -122,6 +126,17 @@ class AreaInputs:
     repaired: int
     income_unknown: int
     source_crs: CRS
+    #: The population spec as resolved: margins paired from downloads filled in.
+    population: PopulationSpec | None = None
+    #: Match report of every table joined on the id.
+    matches: list[MatchReport] = field(default_factory=list)
+    #: Detected layout of the areas file.
+    layout: str | None = None
+    #: Ids of water-only areas (``ALAND = 0``), kept in the analysis and listed.
+    water_only: list[str] = field(default_factory=list)
+    #: Every estimate column of the tables with its margin column (``X_E`` -> ``X_M``); the
+    #: margins are numbers in ``frame`` (``*****`` read as 0, other annotations missing).
+    margins: dict[str, str] = field(default_factory=dict)
     #: Group name (and "population" for the total) -> per-area margin column of ``frame``.
     margin_columns: dict[str, str] = field(default_factory=dict)
     #: Margin cells that were blank or annotated without a number, by margin column.
@@ -388,17 +403,71 @@ def income_tier(ratio: np.ndarray | pd.Series) -> np.ndarray:
 
 
 def _numeric_problem(raw: pd.Series) -> tuple[pd.Series, pd.Series]:
-    """Return numbers and a per-row problem text ('' where fine)."""
+    """Return numbers and a per-row problem text ('' where fine).
+
+    Census annotation values (``-``, ``N``, ``(X)``, ``250,000+``, API sentinels ...) are
+    never read as numbers: each gets its meaning as the problem.
+    """
     numbers = pd.to_numeric(raw, errors="coerce")
-    problem = pd.Series("", index=raw.index, dtype=object)
-    missing = raw.isna() | (raw.astype(str).str.strip() == "")
-    bad = numbers.isna() & ~missing
-    problem[missing] = "missing"
-    problem[bad] = "not a number"
-    infinite = ~np.isfinite(numbers.fillna(0.0))
-    problem[infinite] = "not a finite number"
-    problem[(numbers < 0) & (problem == "")] = "negative"
+    if pd.api.types.is_bool_dtype(raw.dtype):
+        numbers = numbers.astype(float)
+    notes = annotation_reasons(raw, numbers)
+    noted = notes.notna().to_numpy()
+    if noted.any():
+        numbers = numbers.astype(float).mask(noted)
+    if pd.api.types.is_numeric_dtype(raw.dtype):
+        missing = raw.isna().to_numpy()  # numbers: no blank text to look for
+    else:
+        missing = (raw.isna() | (raw.astype(str).str.strip() == "")).to_numpy()
+    flags = np.full(len(raw), "", dtype=object)
+    flags[missing & ~noted] = "missing"
+    flags[numbers.isna().to_numpy() & ~missing & ~noted] = "not a number"
+    flags[noted] = notes.to_numpy()[noted]
+    values = numbers.to_numpy(dtype=float, na_value=np.nan)
+    with np.errstate(invalid="ignore"):
+        flags[np.isinf(values)] = "not a finite number"
+        flags[(values < 0) & (flags == "")] = "negative"
+    problem = pd.Series(flags, index=raw.index, dtype=object)
     return numbers.astype(float), problem
+
+
+def _pair_margins(
+    pop_spec: PopulationSpec, margins: dict[str, str], frame: pd.DataFrame
+) -> PopulationSpec:
+    """Fill each group's and the total's margin column from a download's ``_E``/``_M`` pairs.
+
+    Margins named by the convention (``X_E`` -> ``X_M``, as the preset does) but absent
+    from the tables are dropped; a margin the spec names explicitly must exist.
+    """
+    moes = dict(pop_spec.moes)
+    for name, column in pop_spec.groups:
+        if name not in moes and column in margins:
+            moes[name] = margins[column]
+    for name, moe in list(moes.items()):
+        if moe not in frame.columns:
+            if moe == pop_spec.group_columns[name][:-1] + "M":
+                del moes[name]
+            else:
+                raise InputError(
+                    f"margin column {moe!r} of group {name!r} is in no demographics table; "
+                    "name an existing column or remove moe"
+                )
+    total_moe = pop_spec.total_moe
+    if total_moe is None and pop_spec.total in margins:
+        total_moe = margins[pop_spec.total]
+    if total_moe is not None and total_moe not in frame.columns:
+        if total_moe == pop_spec.total[:-1] + "M":
+            total_moe = None
+        else:
+            raise InputError(
+                f"total_moe column {total_moe!r} is in no demographics table; name an existing "
+                "column or remove total_moe"
+            )
+    return replace(
+        pop_spec,
+        moes=tuple((n, moes[n]) for n, _ in pop_spec.groups if n in moes),
+        total_moe=total_moe,
+    )
 
 
 #: Census Bureau annotation of a controlled estimate: the margin is not applicable, i.e. 0.
@@ -426,7 +495,11 @@ def margin_numbers(raw: pd.Series) -> tuple[np.ndarray, np.ndarray]:
 
 
 def load_areas(
-    areas_spec: AreasSpec, pop_spec: PopulationSpec, *, analysis_crs: str | None = None
+    areas_spec: AreasSpec,
+    pop_spec: PopulationSpec,
+    *,
+    analysis_crs: str | None = None,
+    tables: tuple[TableSpec, ...] = (),
 ) -> AreaInputs:
     """Read, join, validate, repair and project the areas.
 
@@ -436,6 +509,8 @@ def load_areas(
         The spec's ``[areas]`` and ``[population]``.
     analysis_crs : str, optional
         Projected CRS to use instead of the automatic local equal-area one.
+    tables : tuple of TableSpec
+        Further demographics tables (``[[table]]``) joined on the id.
 
     Returns
     -------
@@ -462,7 +537,8 @@ def load_areas(
         )
     )
     n_input = len(layer)
-    id_col = areas_spec.id
+    matches: list[MatchReport] = []
+    id_col = areas_spec.id or detect_id_column([str(c) for c in layer.columns], path)
     if id_col not in layer.columns:
         raise InputError(
             f"areas file '{path}' has no id column \"{id_col}\"; its columns are "
@@ -473,16 +549,23 @@ def load_areas(
     frame[id_col] = ids_as_text(
         frame[id_col], width=areas_spec.id_width, where=f"areas file '{path}' column {id_col}"
     )
+    if areas_spec.id is None:
+        frame[id_col] = strip_prefix(frame[id_col])
+    water = water_only(frame)
     geoms = np.asarray(layer.geometry.array, dtype=object)
     keep = np.ones(n_input, dtype=bool)
 
-    def drop(mask: np.ndarray, reason: str | list[str], source: str = "areas") -> None:
+    def drop(
+        mask: np.ndarray,
+        reason: str | Callable[[np.ndarray], list[str]],
+        source: str = "areas",
+    ) -> None:
+        # ``reason``: one text, or a function giving one text per row from the rows'
+        # positions, so that only excluded rows are worded (85,000 f-strings cost seconds).
         nonlocal keep
         mask = mask & keep
         if mask.any():
-            reasons = (
-                reason if isinstance(reason, str) else list(np.asarray(reason, dtype=object)[mask])
-            )
+            reasons = reason if isinstance(reason, str) else reason(np.flatnonzero(mask))
             exclusions.add(source, frame.loc[mask, "_row"], frame.loc[mask, id_col], reasons)
             keep &= ~mask
 
@@ -492,14 +575,20 @@ def load_areas(
     dup_mask = ids.map(dup_counts).fillna(0).to_numpy() > 1
     drop(
         dup_mask,
-        [f"duplicate id: appears {int(dup_counts.get(v, 0))} times in the areas file" for v in ids],
+        lambda at: [
+            f"duplicate id: appears {int(dup_counts.get(v, 0))} times in the areas file"
+            for v in ids.to_numpy()[at]
+        ],
     )
     missing_geom = shapely.is_missing(geoms) | shapely.is_empty(geoms)
     drop(missing_geom, "null or empty geometry")
     drop(~finite_coordinates(geoms), "a coordinate is not a finite number (NaN or infinite)")
     type_ids = shapely.get_type_id(geoms)
     wrong_type = ~np.isin(type_ids, (3, 6, 7)) & ~missing_geom
-    drop(wrong_type, [f"not a polygon: {'' if g is None else g.geom_type}" for g in geoms])
+    drop(
+        wrong_type,
+        lambda at: [f"not a polygon: {'' if g is None else g.geom_type}" for g in geoms[at]],
+    )
     repaired_geoms, repaired_mask = repair(kept_geometries(geoms, keep))
     collection = keep & (type_ids == 7)
     if collection.any():
@@ -515,69 +604,27 @@ def load_areas(
         )
     geoms = repaired_geoms
 
-    if areas_spec.table is not None:
-        table_id = areas_spec.table_id or id_col
-        table_path = areas_spec.table
-        table, table_digest = read_hashed(
-            table_path,
-            lambda: read_table(table_path, id_column=table_id, role="demographics table"),
-            role="demographics table",
+    table_list = ([(areas_spec.table, areas_spec.table_id)] if areas_spec.table else []) + [
+        (t.path, t.id) for t in tables
+    ]
+    joined = None
+    if table_list:
+        joined = join_tables(
+            frame,
+            id_column=id_col,
+            keep=keep,
+            tables=table_list,
+            id_width=areas_spec.id_width,
+            exclusions=exclusions,
+            ids_as_text=ids_as_text,
         )
-        records.append(InputRecord("table", str(table_path), table_digest, len(table)))
-        if table_id not in table.columns:
-            raise InputError(
-                f"demographics table '{areas_spec.table}' has no id column \"{table_id}\"; its columns "
-                f"are {list(table.columns)}"
-            )
-        table = table.copy()
-        table["_trow"] = np.arange(1, len(table) + 1)
-        table[table_id] = ids_as_text(
-            table[table_id],
-            width=areas_spec.id_width,
-            where=f"demographics table column {table_id}",
-        )
-        tkeep = table[table_id].notna().to_numpy().copy()
-        exclusions.add(
-            "table", table.loc[~tkeep, "_trow"], table.loc[~tkeep, table_id], "missing id"
-        )
-        tcounts = table.loc[tkeep, table_id].value_counts()
-        tdup = table[table_id].map(tcounts).fillna(0).to_numpy() > 1
-        tdup &= tkeep
-        exclusions.add(
-            "table",
-            table.loc[tdup, "_trow"],
-            table.loc[tdup, table_id],
-            [
-                f"duplicate id: appears {int(tcounts[v])} times in the table"
-                for v in table.loc[tdup, table_id]
-            ],
-        )
-        tkeep &= ~tdup
-        layer_ids = set(ids[keep].dropna())
-        only_table = tkeep & ~table[table_id].isin(layer_ids).to_numpy()
-        all_layer_ids = set(ids.dropna())
-        exclusions.add(
-            "table",
-            table.loc[only_table, "_trow"],
-            table.loc[only_table, table_id],
-            [
-                "no area with this id in the areas file"
-                if v not in all_layer_ids
-                else "its area was excluded (see the areas rows)"
-                for v in table.loc[only_table, table_id]
-            ],
-        )
-        tkeep &= ~only_table
-        good_table = table.loc[tkeep].set_index(table_id)
-        overlap = [c for c in good_table.columns if c in frame.columns and c not in ("_trow",)]
-        # Columns present in both: the table's values are the demographics; say so by suffix.
-        frame = frame.rename(columns={c: f"{c}_areas" for c in overlap})
-        joined = frame.join(good_table, on=id_col)
-        no_table_row = keep & joined["_trow"].isna().to_numpy()
-        drop(
-            no_table_row, f"no row with this id in the demographics table '{areas_spec.table.name}'"
-        )
-        frame = joined.drop(columns=["_trow"])
+        for tpath, rows in joined.rows:
+            records.append(InputRecord("table", str(tpath), joined.digests[tpath], rows))
+        for mask, reason in joined.missing:
+            drop(mask & keep, reason)
+        frame = joined.frame
+        matches.extend(joined.reports)
+        pop_spec = _pair_margins(pop_spec, joined.margins, frame)
 
     # Count columns: the total, each group and the optional income ratio.
     where_counts = (
@@ -600,20 +647,32 @@ def load_areas(
         values, problem = _numeric_problem(frame[column])
         numbers[label] = values
         bad = (problem != "").to_numpy()
-        reasons = [
-            f"{p} count in column {column}: {v!r}"
-            for p, v in zip(problem, frame[column], strict=True)
-        ]
-        drop(bad, reasons)
+
+        def numeric_reasons(
+            at: np.ndarray, problem: pd.Series = problem, column: str = column
+        ) -> list[str]:
+            return [
+                f"{p} in column {column} instead of a count"
+                if p.startswith("annotation")
+                else f"{p} count in column {column}: {v!r}"
+                for p, v in zip(problem.iloc[at], frame[column].iloc[at].tolist(), strict=True)
+            ]
+
+        drop(bad, numeric_reasons)
     total = numbers["total"]
     for name, column in pop_spec.groups:
         above = (numbers[name] > total + 1e-9).to_numpy()
-        reasons = [
-            f"group count above the total: {column} = {g:g} > {pop_spec.total} = {t:g}"
-            for g, t in zip(numbers[name].fillna(0), total.fillna(0), strict=True)
-        ]
-        drop(above, reasons)
+
+        def above_reasons(at: np.ndarray, name: str = name, column: str = column) -> list[str]:
+            return [
+                f"group count above the total: {column} = {g:g} > {pop_spec.total} = {t:g}"
+                for g, t in zip(numbers[name].to_numpy()[at], total.to_numpy()[at], strict=True)
+            ]
+
+        drop(above, above_reasons)
     income_unknown = 0
+    if joined is not None:
+        numeric_estimates(frame, joined.reads, {pop_spec.total, *pop_spec.group_columns.values()})
     if pop_spec.income_ratio is not None:
         ratio = pd.to_numeric(frame[pop_spec.income_ratio], errors="coerce")
         negative = (ratio < 0).to_numpy()
@@ -669,9 +728,14 @@ def load_areas(
         out, geometry=gpd.GeoSeries(geoms[sel], crs=layer.crs).values, crs=layer.crs
     )
     if len(analysed) == 0:
+        first = [
+            f"row {r['row']} ({r['source']}, id {r['id']}): {r['reason']}"
+            for r in exclusions.records[:3]
+        ]
         raise InputError(
             f"no area of '{path}' can be analysed: all {n_input} rows were excluded "
-            f"({exclusions.by_reason()}); see the reasons above and fix the inputs"
+            f"({exclusions.by_reason()}); for example {'; '.join(first)}. Fix the inputs "
+            "(exclusions.csv of a partial run lists every row)"
         )
     crs = choose_analysis_crs(analysed.geometry, analysis_crs)
     analysed = analysed.to_crs(crs)
@@ -692,6 +756,11 @@ def load_areas(
         repaired=repaired,
         income_unknown=income_unknown,
         source_crs=source_crs,
+        population=pop_spec,
+        matches=matches,
+        layout=describe_layout(path),
+        water_only=[str(i) for i in frame.loc[water & keep, id_col]],
+        margins=dict(joined.margins) if joined is not None else {},
         margin_columns=margin_columns,
         margins_missing=margins_missing,
     )

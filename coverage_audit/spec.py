@@ -17,6 +17,7 @@ from pathlib import Path
 from typing import Any
 
 from .errors import SpecError
+from .presets import preset_population
 
 if sys.version_info >= (3, 11):
     import tomllib
@@ -26,7 +27,7 @@ else:  # pragma: no cover - exercised only on Python 3.10
 #: Seed used when a spec names none, so that reruns are identical by default.
 DEFAULT_SEED = 20_261_201
 
-FOOTPRINT_KINDS = ("polygons", "points", "ids")
+FOOTPRINT_KINDS = ("polygons", "points", "ids", "zips")
 COMPARISONS = ("reference", "highest")
 FDR_METHODS = ("bh", "none")
 #: Where covered fractions are computed: in this process, or on dask (threads, or the
@@ -71,7 +72,8 @@ class AreasSpec:
     """Where the areas and their demographics come from."""
 
     path: Path
-    id: str
+    #: Id column of the layer; None to find ``GEOID``/``GEOID20``/``GEOID10`` by itself.
+    id: str | None
     layer: str | None = None
     crs: str | None = None
     table: Path | None = None
@@ -142,6 +144,27 @@ class FootprintSpec:
     served_ids_column: str | None = None
     served_column: str | None = None
     ids: tuple[str, ...] | None = None
+    #: Id column of a polygon layer from which ``ids``/``ids_path`` choose the footprint.
+    id: str | None = None
+    #: A file of ids (one a line, or a CSV whose first column holds them) choosing polygons.
+    ids_path: Path | None = None
+    #: ZIP codes served (one a line, or a CSV with a ``zip`` column), kind "zips".
+    zips: Path | None = None
+    #: Census ZCTA-to-tract relationship file (pipe-delimited) for ``zips``.
+    zcta_relationship: Path | None = None
+    #: A ZIP-to-area crosswalk with a ratio column, instead of the relationship file.
+    crosswalk: Path | None = None
+    #: Ratio column of ``crosswalk`` (share of each area that a ZIP holds).
+    crosswalk_ratio: str | None = None
+
+
+@dataclass(frozen=True)
+class TableSpec:
+    """One demographics table joined to the areas on the id (``[[table]]``)."""
+
+    path: Path
+    #: Id column; None to detect ``GEO_ID``, ``GEOID``, ``GEOID20`` or geography columns.
+    id: str | None = None
 
 
 @dataclass(frozen=True)
@@ -268,6 +291,8 @@ class AuditSpec:
     base_dir: Path = field(default_factory=Path.cwd)
     source: Path | None = None
     study_area: StudyAreaSpec | None = None
+    #: Demographics tables joined on the id (``[[table]]``), beside ``[areas] table``.
+    tables: tuple[TableSpec, ...] = ()
 
     @property
     def footprint(self) -> FootprintSpec:
@@ -310,13 +335,21 @@ class AuditSpec:
         if pop["margin_draws"] == 200:
             pop.pop("margin_draws")
         out["population"] = pop
-        out["footprint"] = [_dataclass_dict(f) for f in self.footprints]
+        out["footprint"] = []
+        for f in self.footprints:
+            fd = _dataclass_dict(f)
+            ids_path = fd.pop("ids_path")
+            if ids_path is not None:
+                fd["ids"] = ids_path
+            out["footprint"].append(fd)
         out["analysis"] = _dataclass_dict(self.analysis)
         out["output"] = _dataclass_dict(self.output)
         for key in ("explain", "change", "activity", "study_area"):
             value = getattr(self, key)
             if value is not None:
                 out[key] = _dataclass_dict(value)
+        if self.tables:
+            out["table"] = [_dataclass_dict(t) for t in self.tables]
         return out
 
 
@@ -409,7 +442,9 @@ _TOP_KEYS = (
     "change",
     "activity",
     "study_area",
+    "table",
 )
+_TABLE_KEYS = ("path", "id")
 _EXPLAIN_KEYS = tuple(f.name for f in fields(ExplainSpec))
 _CHANGE_KEYS = ("before", "after")
 _ACTIVITY_KEYS = tuple(f.name for f in fields(ActivitySpec))
@@ -424,6 +459,7 @@ _POP_KEYS = (
     "majority_minority_rule",
     "total_moe",
     "unit",
+    "preset",
     "replicates",
     "margin_draws",
 )
@@ -442,6 +478,11 @@ _FOOT_KEYS = (
     "served_ids_column",
     "served_column",
     "ids",
+    "id",
+    "zips",
+    "zcta_relationship",
+    "crosswalk",
+    "crosswalk_ratio",
 )
 _ANALYSIS_KEYS = tuple(f.name for f in fields(AnalysisSpec))
 _OUTPUT_KEYS = tuple(f.name for f in fields(OutputSpec))
@@ -482,7 +523,7 @@ def spec_from_dict(
     _check_keys(areas_d, _AREAS_KEYS, where, "[areas]")
     areas = AreasSpec(
         path=_path(areas_d, "path", base, where, "areas", required=True),  # type: ignore[arg-type]
-        id=_str(areas_d, "id", where, "areas", required=True),  # type: ignore[arg-type]
+        id=_str(areas_d, "id", where, "areas"),
         layer=_str(areas_d, "layer", where, "areas"),
         crs=_str(areas_d, "crs", where, "areas"),
         table=_path(areas_d, "table", base, where, "areas"),
@@ -544,6 +585,7 @@ def spec_from_dict(
         change = ChangeSpec(before=str(before), after=str(after))
     activity = _activity_from(data.get("activity"), base, where)
     study_area = _study_area_from(data.get("study_area"), base, where)
+    tables = _tables_from(data.get("table"), base, where)
     title = data.get("title", "Coverage audit")
     if not isinstance(title, str) or not title.strip():
         raise SpecError(f"{where}: title must be a non-empty string")
@@ -560,10 +602,28 @@ def spec_from_dict(
         base_dir=base,
         source=Path(source) if source else None,
         study_area=study_area,
+        tables=tables,
     )
 
 
+def _tables_from(value: Any, base: Path, where: str) -> tuple[TableSpec, ...]:
+    if value is None:
+        return ()
+    items = list(value) if isinstance(value, list) else [value]
+    out = []
+    for k, item in enumerate(items):
+        label = f"table #{k + 1}"
+        t_d = _table(item, where, label)
+        _check_keys(t_d, _TABLE_KEYS, where, f"[[table]] #{k + 1}")
+        path = _path(t_d, "path", base, where, label, required=True)
+        assert path is not None
+        out.append(TableSpec(path=path, id=_str(t_d, "id", where, label)))
+    return tuple(out)
+
+
 def _population_from(pop_d: Mapping[str, Any], where: str) -> PopulationSpec:
+    if "preset" in pop_d:
+        pop_d = preset_population(pop_d, where)
     total = _str(pop_d, "total", where, "population", required=True)
     assert total is not None  # required=True raised otherwise
     groups_raw = pop_d.get("groups")
@@ -646,15 +706,50 @@ def _footprint_from(
     served_column = _str(fp_d, "served_column", where, label)
     ids_raw = fp_d.get("ids")
     ids: tuple[str, ...] | None = None
-    if ids_raw is not None:
+    ids_path: Path | None = None
+    layer_id = _str(fp_d, "id", where, label)
+    if isinstance(ids_raw, str) and layer_id is not None:
+        ids_path = _path(fp_d, "ids", base, where, label)
+    elif ids_raw is not None:
         if not isinstance(ids_raw, list) or not all(isinstance(i, (str, int)) for i in ids_raw):
-            raise SpecError(f"{where}: [{label}] ids must be a list of area ids (strings)")
+            raise SpecError(
+                f"{where}: [{label}] ids must be a list of area ids (strings), or with id and "
+                "path a file of ids"
+            )
         ids = tuple(str(i) for i in ids_raw)
+    zips = _path(fp_d, "zips", base, where, label)
+    relationship = _path(fp_d, "zcta_relationship", base, where, label)
+    crosswalk = _path(fp_d, "crosswalk", base, where, label)
+    crosswalk_ratio = _str(fp_d, "crosswalk_ratio", where, label)
+    if layer_id is not None:
+        if path is None or (ids is None and ids_path is None):
+            raise SpecError(
+                f"{where}: [{label}] id chooses polygons of a layer: give path = the layer and "
+                'ids = ["...", ...] (or ids = "a file of ids") beside it'
+            )
+        if fp_d.get("kind", "polygons") != "polygons":
+            raise SpecError(f'{where}: [{label}] id and ids with path need kind = "polygons"')
+    if zips is not None or relationship is not None or crosswalk is not None:
+        if zips is None or (relationship is None) == (crosswalk is None):
+            raise SpecError(
+                f'{where}: [{label}] ZIP-code zones need zips = "FILE" and exactly one of '
+                'zcta_relationship = "FILE" (the Census ZCTA-to-tract relationship file) or '
+                'crosswalk = "FILE" (with crosswalk_ratio = "COLUMN")'
+            )
+        if crosswalk is not None and crosswalk_ratio is None:
+            raise SpecError(
+                f'{where}: [{label}] crosswalk needs crosswalk_ratio = "COLUMN", the share of '
+                "each area held by the ZIP code (for example a residential-address ratio)"
+            )
     radius = fp_d.get("radius")
     radius_column = _str(fp_d, "radius_column", where, label)
     kind = fp_d.get("kind")
     if kind is None:
-        if served_ids is not None or served_column is not None or ids is not None:
+        if zips is not None:
+            kind = "zips"
+        elif layer_id is not None:
+            kind = "polygons"
+        elif served_ids is not None or served_column is not None or ids is not None:
             kind = "ids"
         elif radius is not None or radius_column is not None:
             kind = "points"
@@ -694,7 +789,7 @@ def _footprint_from(
                 f"{where}: [{label}] a list of served areas needs exactly one of served_ids "
                 f"(a file of ids), served_column (a flag column of the areas) or ids; got {given}"
             )
-    elif served_ids is not None or served_column is not None or ids is not None:
+    elif served_ids is not None or served_column is not None or (ids is not None and not layer_id):
         raise SpecError(
             f'{where}: [{label}] served_ids/served_column/ids apply only to kind = "ids"'
         )
@@ -711,6 +806,12 @@ def _footprint_from(
         served_ids_column=_str(fp_d, "served_ids_column", where, label),
         served_column=served_column,
         ids=ids,
+        id=layer_id,
+        ids_path=ids_path,
+        zips=zips,
+        zcta_relationship=relationship,
+        crosswalk=crosswalk,
+        crosswalk_ratio=crosswalk_ratio,
     )
 
 

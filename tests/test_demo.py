@@ -22,6 +22,12 @@ def test_region_regenerates_identically(tmp_path):
         "branches.toml",
         "delivery.toml",
         "assessment_area.toml",
+        "zip_delivery.toml",
+        "tl_2099_99_tract.zip",
+        "ACSDT5Y2099.B03002.zip",
+        "b19113_api.json",
+        "tab20_zcta520_tract20_natl.txt",
+        "delivery_zips.csv",
         "demographics_margins.csv",
         "outreach_area.csv",
         "outreach.toml",
@@ -62,3 +68,49 @@ def test_assessment_area_leaves_out_lmi_tracts():
     assert len(s["enclaves"]) >= 1
     for e in s["enclaves"]:
         assert set(e["income_tiers"]) <= {"low", "moderate"}
+
+
+def test_zip_delivery_from_downloads_equals_the_tidy_files():
+    # The scenario reads Census layouts; the same counts in the tidy demographics.csv with
+    # the same ZIP footprint give exactly the same rates (ZIP coverage needs no geometry).
+    downloads = _quick("zip_delivery")
+    spec = load_spec(BUNDLED / "zip_delivery.toml")
+    tidy = {
+        "title": "tidy",
+        "areas": {
+            "path": str(BUNDLED / "areas.gpkg"),
+            "layer": "tracts",
+            "id": "geoid",
+            "table": str(BUNDLED / "demographics.csv"),
+        },
+        "population": {
+            "total": "pop_total",
+            "reference": "white_nh",
+            "derive_minority": True,
+            "groups": {
+                "white_nh": "pop_white_nh",
+                "black_nh": "pop_black_nh",
+                "asian_nh": "pop_asian_nh",
+                "hispanic": "pop_hispanic",
+            },
+        },
+        "footprint": {
+            "name": "delivery_zips",
+            "zips": str(spec.footprint.zips),
+            "zcta_relationship": str(spec.footprint.zcta_relationship),
+        },
+        "analysis": {
+            "permutations": 49,
+            "enclave_draws": 49,
+            "sensitivity": False,
+            "transparent_zero_population": True,
+        },
+    }
+    expected = run_audit(tidy).summary["coverage"]["groups"]
+    got = downloads.summary["coverage"]["groups"]
+    # The downloads carry margins, so their groups gain intervals; the rest is the same.
+    assert {g: {k: v[k] for k in expected[g]} for g, v in got.items()} == expected
+    assert got["black_nh"]["below_four_fifths"]
+    assert downloads.summary["areas"]["water_only"] == ["99017030400"]
+    ex = downloads.exclusions
+    assert list(ex.loc[ex["source"] == "zips:delivery_zips", "id"]) == ["00099"]

@@ -168,7 +168,7 @@ def test_a_file_changed_while_being_read_is_refused(
 
 
 def test_a_table_changed_while_being_read_is_refused(two_by_two, tmp_path, capsys, monkeypatch):
-    import coverage_audit.inputs as inputs_module
+    import coverage_audit.io.tables as tables_module
 
     areas = gpd.read_file(two_by_two / "areas.gpkg")
     areas[["geoid", "total", "white", "black"]].to_csv(two_by_two / "table.csv", index=False)
@@ -176,14 +176,14 @@ def test_a_table_changed_while_being_read_is_refused(two_by_two, tmp_path, capsy
     text = (two_by_two / "audit.toml").read_text()
     text = text.replace('path = "areas.gpkg"', 'path = "shapes.gpkg"\ntable = "table.csv"', 1)
     spec = write_spec(two_by_two / "table.toml", text)
-    original = inputs_module.read_table
+    original = tables_module.read_census_table
 
     def read_then_change(path, **kwargs):
         frame = original(path, **kwargs)
         Path(path).write_text(Path(path).read_text().replace("100", "999"))
         return frame
 
-    monkeypatch.setattr(inputs_module, "read_table", read_then_change)
+    monkeypatch.setattr(tables_module, "read_census_table", read_then_change)
     code, _, err = _run(["run", spec, "--out", tmp_path / "o", *QUIET], capsys)
     assert code == 2 and "table.csv" in err and "changed while it was being read" in err
 

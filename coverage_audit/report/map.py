@@ -79,7 +79,7 @@ LISA_LABELS: tuple[str, ...] = palette.LISA_LABELS
 LISA_COLORS: tuple[str, ...] = palette.LISA_COLORS
 
 MISSING_COLOR = "#bdbdbd"
-FOOTPRINT_KINDS: tuple[str, ...] = ("polygons", "points", "ids")
+FOOTPRINT_KINDS: tuple[str, ...] = ("polygons", "points", "ids", "zips")
 
 #: Display simplification tolerance as a fraction of the region's larger extent: a
 #: quarter of a pixel on a 1,250-pixel wide view of the whole region.
@@ -644,7 +644,7 @@ def _footprint_overlays(
     kind = footprint["kind"]
     name = str(footprint.get("name") or "footprint")
     out: list[dict[str, Any]] = []
-    if kind in ("polygons", "ids") and footprint.get("geometry") is not None:
+    if kind in ("polygons", "ids", "zips") and footprint.get("geometry") is not None:
         geo = footprint["geometry"]
         series = geo.geometry if isinstance(geo, gpd.GeoDataFrame) else gpd.GeoSeries(geo)
         if series.crs is None:
@@ -658,7 +658,10 @@ def _footprint_overlays(
         lonlat = gpd.GeoSeries(geoms, crs=series.crs).to_crs(4326).values
         lonlat = np.asarray(lonlat)[_has_polygon(np.asarray(lonlat))]
         if lonlat.size:
-            label = "Footprint (listed areas)" if kind == "ids" else "Footprint"
+            label = {
+                "ids": "Footprint (listed areas)",
+                "zips": "Footprint (areas of the ZIP codes)",
+            }.get(kind, "Footprint")
             out.append(
                 {
                     "key": "footprint",

@@ -370,7 +370,7 @@ def _key_figures(page: Page) -> Html:
                     "li",
                     f"{len(enclaves)} enclave{plural} of unserved areas enclosed "
                     f"by served ones; the most populous, {top.get('id') or NA}, has "
-                    f"{fmt_count(top.get('population'))} residents.",
+                    f"{fmt_count(top.get('population'))} {page.residents}.",
                 )
             )
         else:

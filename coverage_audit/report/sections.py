@@ -20,6 +20,7 @@ import pandas as pd
 import shapely
 
 from . import charts
+from .inputs_sections import joins_part
 from .markup import (
     NA,
     Html,
@@ -95,12 +96,22 @@ class Page:
         return str(labels.get(group, group)) if isinstance(labels, Mapping) else group
 
     @property
+    def unit(self) -> str:
+        """What is counted ("people", "households" ...)."""
+        return str(self.summary.get("population_unit") or "people")
+
+    @property
+    def residents(self) -> str:
+        """The word for what is counted in sentences ("residents" when people are)."""
+        return "residents" if self.unit == "people" else self.unit
+
+    @property
     def comparison_label(self) -> str:
         """The group every ratio divides by, in words ("the reference group (white_nh)")."""
         if self.highest:
-            named = f" ({self.comparison_group})" if self.comparison_group else ""
+            named = f" ({self.label(self.comparison_group)})" if self.comparison_group else ""
             return f"the highest-rate group{named}"
-        return f"the reference group ({self.comparison_group})"
+        return f"the reference group ({self.label(self.comparison_group or '')})"
 
 
 # --- what was audited ------------------------------------------------------------------
@@ -129,6 +140,11 @@ def _footprint_text(page: Page) -> str:
         return f"Footprint: service-area polygons from {name}, dissolved into one footprint."
     if kind == "ids":
         return f"Footprint: the areas listed as served in {name}."
+    if kind == "zips":
+        return (
+            f"Footprint: the ZIP codes listed in {name}; each area's covered fraction is the "
+            "share of its land (ZCTA relationship file) or of its addresses (crosswalk) in them."
+        )
     return "Footprint: not described."
 
 
@@ -197,6 +213,7 @@ def audited_section(page: Page) -> Html:
                 caption="Input files and their SHA-256 digests",
             )
         )
+    parts.append(joins_part(page.summary))
     if m.get("analysis_crs"):
         parts.append(
             para(
@@ -310,7 +327,7 @@ def coverage_section(page: Page) -> Html:
     if cov.get("rate") is not None:
         parts.append(
             para(
-                f"Whole population: {fmt_percent(cov.get('rate'))} covered "
+                f"Whole population ({page.unit}): {fmt_percent(cov.get('rate'))} covered "
                 f"({fmt_count(cov.get('covered_population'))} of "
                 f"{fmt_count(cov.get('population'))}); {fmt_count(cov.get('served_areas'))}"
                 f" of {fmt_count(cov.get('areas'))} areas served."
@@ -350,8 +367,8 @@ def coverage_section(page: Page) -> Html:
         attrs.append({"class_": classes or None, "data_group": g})
     headers = (
         "Group",
-        Num("Population"),
-        Num("Covered population"),
+        Num("Population" if page.unit == "people" else f"Count ({page.unit})"),
+        Num("Covered population" if page.unit == "people" else f"Covered ({page.unit})"),
         Num("Coverage rate"),
         Num("Served-area rate"),
         Num("Ratio"),
@@ -504,7 +521,7 @@ def segregation_section(page: Page) -> Html:
         present.extend(g for g in seg[key] if g not in present)
     parts: list[Any] = [
         para(
-            f"Indices over the analysed areas; the reference group is {ref}. "
+            f"Indices over the analysed areas; the reference group is {page.label(ref)}. "
             "Dissimilarity runs from 0 (the same spread over the areas) to 1 "
             "(no area shared)."
         )
@@ -911,7 +928,7 @@ def _enclave_figures(enclaves: Sequence[Mapping[str, Any]], page: Page) -> Html:
             figure(
                 svg,
                 f"Enclave {label}: {plural(members.size, 'area')}, "
-                f"{fmt_count(e.get('population'))} residents. Left: its place in "
+                f"{fmt_count(e.get('population'))} {page.residents}. Left: its place in "
                 "the region (the box marks the close-up). Right: the enclave "
                 "highlighted, its ring outlined.",
             )
