@@ -101,33 +101,17 @@ def explain_section(
     return out
 
 
-def _enclave_count(
-    geoms: np.ndarray,
-    ids: np.ndarray,
-    served: np.ndarray,
-    frame: gpd.GeoDataFrame,
-    groups: list[str],
-    reference: str,
-    graph: AreaGraph,
-    spec: AuditSpec,
-) -> int:
+def _enclave_counts(
+    served_sets: list[np.ndarray], frame: gpd.GeoDataFrame, graph: AreaGraph, spec: AuditSpec
+) -> list[int]:
+    """Enclave count for each served set, in one pass over the edge table."""
     from .audit import enclave_options
-    from .enclaves import find_enclaves
+    from .enclaves import count_enclaves
 
-    an = spec.analysis
     population = frame["population"].to_numpy(dtype=float)
-    result = find_enclaves(
-        geoms,
-        ids,
-        served,
-        population,
-        {g: frame[g].to_numpy(dtype=float) for g in groups},
-        graph,
-        **enclave_options(an, population),
-        reference_group=reference,
-        mc_draws=0,
+    return count_enclaves(
+        served_sets, population, graph, **enclave_options(spec.analysis, population)
     )
-    return len(result.enclaves)
 
 
 def sensitivity_section(
@@ -144,9 +128,6 @@ def sensitivity_section(
     fraction = frame["covered_fraction"].to_numpy(dtype=float)
     counts = {g: frame[g].to_numpy(dtype=float) for g in groups}
     geoms = np.asarray(frame.geometry.array, dtype=object)
-    ids = frame[inputs.id_column].to_numpy(dtype=object)
-    # Seventeen enclave passes over the same areas: measure every shared edge once.
-    graph.shared_lengths()
     rows = sensitivity_thresholds(
         fraction,
         counts,
@@ -155,11 +136,10 @@ def sensitivity_section(
         against="highest" if spec.analysis.comparison == "highest" else "reference",
     )
     threshold_rows = []
-    for t, row in zip(SWEEP_THRESHOLDS, rows, strict=True):
+    counts_at = _enclave_counts([fraction >= t for t in SWEEP_THRESHOLDS], frame, graph, spec)
+    for row, count in zip(rows, counts_at, strict=True):
         entry = row.to_dict()
-        entry["enclaves"] = _enclave_count(
-            geoms, ids, fraction >= t, frame, groups, reference, graph, spec
-        )
+        entry["enclaves"] = count
         threshold_rows.append(entry)
     out: dict[str, Any] = {"thresholds": threshold_rows}
     if footprint.kind == "points" and footprint.points is not None:
@@ -168,6 +148,7 @@ def sensitivity_section(
         lat = points.geometry.y.to_numpy()
         base = footprint.points["radius_m"].to_numpy(dtype=float)
         radius_rows = []
+        radius_served = []
         for factor in SWEEP_RADII:
             circles, _ = geodesic_circles(
                 lon, lat, base * factor, footprint.crs, spec.analysis.circle_vertices
@@ -196,18 +177,13 @@ def sensitivity_section(
                         }
                         for g, c in cov.groups.items()
                     },
-                    "enclaves": _enclave_count(
-                        geoms,
-                        ids,
-                        cf >= spec.analysis.served_threshold,
-                        frame,
-                        groups,
-                        reference,
-                        graph,
-                        spec,
-                    ),
                 }
             )
+            radius_served.append(cf >= spec.analysis.served_threshold)
+        for entry, count in zip(
+            radius_rows, _enclave_counts(radius_served, frame, graph, spec), strict=True
+        ):
+            entry["enclaves"] = count
         out["radius"] = radius_rows
     return out
 
@@ -250,9 +226,7 @@ def other_footprints(
         ).to_dict()
         results[fp.name] = {
             "coverage": cov,
-            "enclave_count": _enclave_count(
-                geoms, ids, cf >= threshold, frame, inputs.groups, inputs.reference, graph, spec
-            ),
+            "enclave_count": _enclave_counts([cf >= threshold], frame, graph, spec)[0],
         }
     return results, fractions, built
 

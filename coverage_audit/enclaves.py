@@ -25,7 +25,7 @@ from scipy.sparse.csgraph import connected_components
 
 from ._util import clean_number, safe_ratio, to_jsonable
 from .errors import AnalysisError, SpecError
-from .weights import AreaGraph, SharedBoundaries, shared_boundary_lengths
+from .weights import AreaGraph, SharedBoundaries
 
 #: Name of the group whose share the Monte Carlo contrast tests; derived as population minus
 #: the reference group when the counts do not include it.
@@ -306,7 +306,7 @@ def find_enclaves(
         data.served,
         n_comp,
         n_body,
-        cache=graph.cached_shared_lengths(),
+        cache=graph.shared_lengths(),
         min_surround=min_surround,
     )
 
@@ -367,6 +367,56 @@ def find_enclaves(
         enclave_id=enclave_id,
         component=comp,
     )
+
+
+def count_enclaves(
+    served_sets: Sequence[np.ndarray],
+    population: np.ndarray | Sequence[float],
+    graph: AreaGraph,
+    *,
+    min_surround: float = 0.75,
+    min_population: float = 0.0,
+    transparent: np.ndarray | Sequence[bool] | None = None,
+) -> list[int]:
+    """Count the enclaves for each of several served flags, in one pass over the graph.
+
+    Gives ``len(find_enclaves(...).enclaves)`` for each entry of ``served_sets`` (same
+    components, surround shares and thresholds), without describing or testing them: the
+    shared-edge table, the population and the transparent bodies are prepared once and
+    each served set costs one component labelling and a few sums over the edge table.
+    Used by the sensitivity sweeps.
+    """
+    min_surround = _check_fraction("min_surround", min_surround)
+    if not _is_finite_number(min_population) or float(min_population) < 0:
+        raise SpecError(f"min_population was {min_population!r} but must be a number >= 0")
+    n = graph.n
+    pop = _as_numbers(population, n, "population")
+    clear = (
+        np.zeros(n, dtype=bool) if transparent is None else _as_mask(transparent, n, "transparent")
+    )
+    adjacency = graph.adjacency.tocsr()
+    cache = graph.shared_lengths()
+    body, n_body = _masked_components(adjacency, clear)
+    counts = []
+    for served in served_sets:
+        served_arr = _as_mask(np.asarray(served), n, "served")
+        unserved = ~served_arr & ~clear
+        comp, n_comp = _masked_components(adjacency, unserved)
+        lengths = _boundary_budget(
+            np.empty(0, dtype=object),
+            adjacency,
+            comp,
+            body,
+            served_arr,
+            n_comp,
+            n_body,
+            cache=cache,
+            min_surround=min_surround,
+        )
+        pop_c = np.bincount(comp[unserved], pop[unserved], n_comp)
+        flagged = (lengths.surround >= min_surround - _SHARE_ATOL) & (pop_c > min_population)
+        counts.append(int(np.count_nonzero(flagged)))
+    return counts
 
 
 def footprint_holes(
@@ -721,74 +771,59 @@ def _boundary_budget(
     cache: SharedBoundaries | None = None,
     min_surround: float | None = None,
 ) -> _Lengths:
-    """Split each component's outer boundary into served, transparent and edge lengths.
+    """Split each component's exterior boundary into served, transparent and edge lengths.
 
-    With ``cache`` (every pair's length, from :meth:`AreaGraph.shared_lengths`) nothing is
-    measured again; without it only the pairs touching unserved areas are measured.
-
-    The outer boundary is the exterior of the component's union: where a component
-    surrounds something (a served island, a park, an area left out of the analysis), that
-    ring is its inner boundary and counts neither way, so a large unserved background
-    around scattered served sites is never taken for an enclave. Components that could
-    reach ``min_surround`` are measured with their holes left out (a hole's boundary is
-    almost always served, so the first, hole-inclusive share is an upper bound).
+    Everything comes from the shared-edge table (``cache``, from
+    :meth:`AreaGraph.shared_lengths`, measured once): a component's exterior is the sum
+    of its members' edges to non-members plus their stretches of the region's outer edge;
+    no union of a component's geometry is ever formed. Edges facing holes of the region
+    (gaps inside it, areas left out of the analysis) count neither way. Where a component
+    surrounds other areas (a served island), the edges along them are its inner boundary
+    and count neither way too, so a large unserved background around scattered served
+    sites is never taken for an enclave: such enclosed areas are found on the contiguity
+    graph (the areas outside the component that cannot reach the region's outer edge
+    without crossing it), only for the components that could reach ``min_surround`` (with
+    enclosed areas counted as served the share is an upper bound).
     """
+    del geoms  # lengths come from the table
     if n_comp == 0:
         empty = np.zeros(0)
         return _Lengths(empty, empty, empty, empty, empty)
+    if cache is None:
+        raise AnalysisError("the enclave stage needs the shared-edge table of the graph")
+    n = comp.size
     in_comp = comp >= 0
     in_body = body >= 0
-    relevant = in_comp | in_body
-    if cache is not None:
-        ci = cache.pairs["i"].to_numpy(dtype=np.int64)
-        cj = cache.pairs["j"].to_numpy(dtype=np.int64)
-        keep = relevant[ci] | relevant[cj]
-        a, b = ci[keep], cj[keep]
-        length = cache.pairs["length"].to_numpy(dtype=np.float64)[keep]
-        perimeter = np.asarray(cache.perimeter, dtype=np.float64)
-    else:
-        upper = sp.triu(adjacency, k=1).tocoo()
-        keep = relevant[upper.row] | relevant[upper.col]
-        a_all, b_all = upper.row[keep].astype(np.int64), upper.col[keep].astype(np.int64)
-        # Measure only the areas involved, so the cost follows the unserved part of the region.
-        nodes = np.union1d(np.union1d(a_all, b_all), np.flatnonzero(relevant))
-        local = np.column_stack([np.searchsorted(nodes, a_all), np.searchsorted(nodes, b_all)])
-        shared = shared_boundary_lengths(geoms[nodes], local)
-        perimeter = np.zeros(comp.size)
-        perimeter[nodes] = shared.perimeter
-        a = nodes[shared.pairs["i"].to_numpy(dtype=np.int64)]
-        b = nodes[shared.pairs["j"].to_numpy(dtype=np.int64)]
-        length = shared.pairs["length"].to_numpy(dtype=np.float64)
+    a = cache.pairs["i"].to_numpy(dtype=np.int64)
+    b = cache.pairs["j"].to_numpy(dtype=np.int64)
+    length = cache.pairs["length"].to_numpy(dtype=np.float64)
+    outer_edge = (
+        np.zeros(n) if cache.outer_edge is None else np.asarray(cache.outer_edge, dtype=float)
+    )
     is_served = served & ~in_body
+    x = np.concatenate([a, b])
+    y = np.concatenate([b, a])
+    both = np.concatenate([length, length])
 
-    perim_c = np.bincount(comp[in_comp], perimeter[in_comp], n_comp)
-    same_c = in_comp[a] & (comp[a] == comp[b])
-    outer_c = perim_c - 2.0 * np.bincount(comp[a[same_c]], length[same_c], n_comp)
-
-    # Transparent bodies: how much of each one's own outer boundary is served.
+    # Transparent bodies: their exterior, and how much of it is served.
     outer_b: np.ndarray = np.zeros(0)
     served_b: np.ndarray = np.zeros(0)
     if n_body:
-        perim_b = np.bincount(body[in_body], perimeter[in_body], n_body)
-        same_b = in_body[a] & (body[a] == body[b])
-        outer_b = perim_b - 2.0 * np.bincount(body[a[same_b]], length[same_b], n_body)
-        xb = np.concatenate([a, b])
-        yb = np.concatenate([b, a])
-        lb = np.concatenate([length, length])
-        sel_b = in_body[xb] & is_served[yb]
-        served_b = np.bincount(body[xb[sel_b]], lb[sel_b], n_body)
+        leave = in_body[x] & (body[x] != body[y])
+        outer_b = np.bincount(body[x[leave]], both[leave], n_body) + np.bincount(
+            body[in_body], outer_edge[in_body], n_body
+        )
+        sel_b = in_body[x] & is_served[y]
+        served_b = np.bincount(body[x[sel_b]], both[sel_b], n_body)
+    edge_c = np.bincount(comp[in_comp], outer_edge[in_comp], n_comp)
 
-    def budget(drop: np.ndarray, outer: np.ndarray) -> _Lengths:
-        # ``drop``: oriented pairs (x in a component, y outside) on a hole's boundary.
-        x = np.concatenate([a, b])
-        y = np.concatenate([b, a])
-        both = np.concatenate([length, length])
+    def budget(drop: np.ndarray) -> _Lengths:
+        # ``drop``: oriented pairs (x in a component, y outside) along an enclosed area.
         use = ~drop
         sel = use & in_comp[x] & is_served[y]
         served_c = np.bincount(comp[x[sel]], both[sel], n_comp)
         look_through: np.ndarray = np.zeros(n_comp)
         along_body: np.ndarray = np.zeros(n_comp)
-        left_out: np.ndarray = np.zeros(n_comp)
         sel = use & in_comp[x] & in_body[y]
         if n_body and sel.any():
             key = comp[x[sel]] * n_body + body[y[sel]]
@@ -799,14 +834,12 @@ def _boundary_budget(
             alone = beyond <= _LENGTH_RTOL * np.maximum(outer_b[b_of], 1.0)
             fraction = np.where(alone, 0.0, served_b[b_of] / np.where(alone, 1.0, beyond))
             look_through = np.bincount(c_of, shared_cb * fraction, n_comp)
+            # A body touching nothing but the component (a lake inside a pocket) is
+            # left out of both sides.
             along_body = np.bincount(c_of[~alone], shared_cb[~alone], n_comp)
-            left_out = np.bincount(c_of[alone], shared_cb[alone], n_comp)
-        edge = outer - served_c - along_body - left_out
-        edge = np.where(edge <= _LENGTH_RTOL * np.maximum(outer, 1.0), 0.0, edge)
-        boundary = outer - left_out
+        boundary = served_c + along_body + edge_c
         served_total = served_c + look_through
         with np.errstate(divide="ignore", invalid="ignore"):
-            # Rounding in the subtractions can push a whole served boundary a hair past 1.
             surround = np.where(
                 boundary > 0,
                 np.minimum(served_total / np.where(boundary > 0, boundary, 1.0), 1.0),
@@ -815,63 +848,70 @@ def _boundary_budget(
         return _Lengths(
             boundary=boundary,
             served=served_total,
-            edge=edge,
+            edge=edge_c,
             transparent=along_body,
             surround=surround,
         )
 
-    no_drop = np.zeros(2 * a.size, dtype=bool)
-    first = budget(no_drop, outer_c)
+    first = budget(np.zeros(x.size, dtype=bool))
     threshold = 0.0 if min_surround is None else min_surround - _SHARE_ATOL
     candidates = np.flatnonzero(np.nan_to_num(first.surround, nan=0.0) >= threshold)
-    drop, outer = _hole_boundaries(geoms, comp, candidates, a, b, outer_c)
-    if not drop.any() and np.array_equal(outer, outer_c):
+    drop = _enclosed_pairs(comp, candidates, x, y, outer_edge)
+    if not drop.any():
         return first
-    return budget(drop, outer)
+    return budget(drop)
 
 
-def _hole_boundaries(
-    geoms: np.ndarray,
+def _enclosed_pairs(
     comp: np.ndarray,
     candidates: np.ndarray,
-    a: np.ndarray,
-    b: np.ndarray,
-    outer_c: np.ndarray,
-) -> tuple[np.ndarray, np.ndarray]:
-    """Find the oriented pairs that lie on a component's holes, and its exterior length.
+    x: np.ndarray,
+    y: np.ndarray,
+    outer_edge: np.ndarray,
+) -> np.ndarray:
+    """Mark the oriented pairs (x in C, y outside C) where y is enclosed by component C.
 
-    A neighbour y of component C lies in a hole of C when y's representative point is
-    inside C's union with its holes filled. Returns the mask over ``concat(a, b) ->
-    concat(b, a)`` pairs and each component's outer length (the exterior rings of its
-    union; unchanged for components that are not candidates or have no hole).
+    An area outside C is enclosed by C when, on the graph of shared edges with C's areas
+    removed, it cannot reach any area on the region's outer edge. The areas outside every
+    component (served and transparent ones) are first grouped into pieces, once: a piece
+    on the outer edge is enclosed by nothing, and a piece off it that borders a single
+    component is enclosed by that one. Only a piece bordering several components needs
+    a search of its own, for each candidate among them.
     """
-    x = np.concatenate([a, b])
-    y = np.concatenate([b, a])
     drop = np.zeros(x.size, dtype=bool)
-    outer = outer_c.copy()
-    if candidates.size == 0:
-        return drop, outer
-    comp_x = np.where(x >= 0, comp[x], -1)
-    comp_y = comp[y]
-    for c in candidates:
-        members = np.flatnonzero(comp == c)
-        try:
-            union = shapely.coverage_union_all(geoms[members])
-        except shapely.errors.GEOSException:
-            union = shapely.union_all(geoms[members])
-        parts = shapely.get_parts(union)
-        parts = parts[shapely.get_type_id(parts) == 3]
-        if parts.size == 0 or not shapely.get_num_interior_rings(parts).any():
-            continue
-        exteriors = shapely.get_exterior_ring(parts)
-        outer[c] = float(shapely.length(exteriors).sum())
-        filled = shapely.union_all(shapely.polygons(exteriors))
-        shapely.prepare(filled)
-        across = (comp_x == c) & (comp_y != c)
-        others = np.unique(y[across])
-        inside = others[shapely.contains(filled, shapely.point_on_surface(geoms[others]))]
-        drop |= across & np.isin(y, inside)
-    return drop, outer
+    n = comp.size
+    if candidates.size == 0 or x.size == 0:
+        return drop
+    in_comp = comp >= 0
+    on_edge = outer_edge > 0
+    rest = ~in_comp[x] & ~in_comp[y]
+    graph = sp.csr_matrix((np.ones(int(rest.sum())), (x[rest], y[rest])), shape=(n, n))
+    _, piece = connected_components(graph, directed=False)
+    n_piece = int(piece.max()) + 1
+    piece_on_edge = np.bincount(piece[~in_comp & on_edge], minlength=n_piece) > 0
+    across = in_comp[x] & ~in_comp[y]
+    key = np.unique(piece[y[across]] * (int(comp.max()) + 1) + comp[x[across]])
+    key_piece = key // (int(comp.max()) + 1)
+    borders = np.bincount(key_piece, minlength=n_piece)
+    single = (borders == 1) & ~piece_on_edge
+    drop |= across & single[piece[y]]
+    shared_pieces = np.flatnonzero((borders > 1) & ~piece_on_edge)
+    if shared_pieces.size == 0:
+        return drop
+    key_comp = key % (int(comp.max()) + 1)
+    involved = np.intersect1d(key_comp[np.isin(key_piece, shared_pieces)], candidates)
+    for c in involved:
+        inside = comp == c
+        keep = ~inside[x] & ~inside[y]
+        # Node n stands for the world beyond the region's outer edge.
+        edge_nodes = np.flatnonzero(on_edge & ~inside)
+        rows = np.concatenate([x[keep], edge_nodes])
+        cols = np.concatenate([y[keep], np.full(edge_nodes.size, n)])
+        full = sp.csr_matrix((np.ones(rows.size), (rows, cols)), shape=(n + 1, n + 1))
+        _, label = connected_components(full, directed=False)
+        enclosed = label[:n] != label[n]
+        drop |= (comp[x] == c) & across & enclosed[y]
+    return drop
 
 
 def _id_ranks(ids: np.ndarray) -> np.ndarray:

@@ -170,3 +170,55 @@ def service_points(
         geometry=shapely.points(x, y),
         crs=cells.crs,
     )
+
+
+def densify_independently(geometries: np.ndarray, *, vertices: int = 100, seed: int) -> np.ndarray:
+    """Add vertices to every polygon on its own, so that neighbours' vertices differ.
+
+    Each edge of each polygon gets the same number of extra vertices at random positions
+    drawn for that polygon alone, until the polygon has about ``vertices`` vertices. Two
+    neighbours keep the same shared line but no longer share the vertices along it, as in
+    generalised, reprojected or re-cut boundary files (a coverage that is not clean).
+
+    Parameters
+    ----------
+    geometries : numpy.ndarray of shapely Polygons
+        Polygons without holes (the cells of :func:`tessellation`).
+    vertices : int
+        Target number of vertices per polygon.
+    seed : int
+        Seed of the vertex positions.
+
+    Returns
+    -------
+    numpy.ndarray of shapely Polygons
+        Same shapes (up to floating-point rounding), more vertices.
+    """
+    rng = np.random.default_rng(seed)
+    geoms = np.asarray(geometries, dtype=object)
+    rings = shapely.get_exterior_ring(geoms)
+    coords, owner = shapely.get_coordinates(rings, return_index=True)
+    last = np.r_[owner[1:] != owner[:-1], True]
+    start = ~last  # a segment starts at every vertex but the closing one
+    p0 = coords[:-1][start[:-1]]
+    p1 = coords[1:][start[:-1]]
+    seg_owner = owner[:-1][start[:-1]]
+    n_seg = np.bincount(seg_owner, minlength=geoms.size)
+    extra = np.maximum(vertices // np.maximum(n_seg, 1) - 1, 0)[seg_owner]
+    width = int(extra.max()) if extra.size else 0
+    t = np.sort(rng.uniform(0.02, 0.98, (p0.shape[0], width)), axis=1)
+    use = np.arange(width)[None, :] < extra[:, None]
+    # Each segment contributes its start vertex, then its extra vertices in order.
+    t_full = np.concatenate([np.zeros((p0.shape[0], 1)), t], axis=1)
+    use_full = np.concatenate([np.ones((p0.shape[0], 1), dtype=bool), use], axis=1)
+    d = p1 - p0
+    xs = p0[:, 0:1] + t_full * d[:, 0:1]
+    ys = p0[:, 1:2] + t_full * d[:, 1:2]
+    pts = np.column_stack([xs[use_full], ys[use_full]])
+    pts_owner = np.repeat(seg_owner, use_full.sum(axis=1))
+    # Close each ring on its first vertex.
+    first = np.r_[0, np.flatnonzero(pts_owner[1:] != pts_owner[:-1]) + 1]
+    ends = np.r_[first[1:], pts_owner.size]
+    closed = np.insert(pts, ends, pts[first], axis=0)
+    closed_owner = np.insert(pts_owner, ends, pts_owner[first])
+    return shapely.polygons(shapely.linearrings(closed, indices=closed_owner))

@@ -31,6 +31,7 @@ import shapely
 from libpysal.graph import Graph
 from scipy.sparse.csgraph import connected_components
 
+from .edges import EDGE_TOLERANCE_M, EdgeTable, edge_table
 from .errors import AnalysisError, IslandWarning, SpecError
 
 ContiguityKind = Literal["queen", "rook"]
@@ -131,12 +132,25 @@ class AreaGraph:
         """
         cached = self.__dict__.get("_shared_lengths")
         if cached is None:
+            table = self.edges()
+            frame = table.pairs
+            # Only pairs that are neighbours under this graph's rule.
+            i, j = frame["i"].to_numpy(), frame["j"].to_numpy()
+            linked = np.zeros(i.size)
+            if i.size:
+                linked = np.asarray(self.adjacency[i, j]).ravel()
+            cached = _from_table(table, frame[linked != 0].reset_index(drop=True))
+            self.__dict__["_shared_lengths"] = cached
+        return cached
+
+    def edges(self) -> EdgeTable:
+        """Return the shared-edge table of the areas (measured once, within the tolerance)."""
+        cached = self.__dict__.get("_edges")
+        if cached is None:
             if self._geometries is None:
                 raise AnalysisError("this AreaGraph was built without its geometries")
-            upper = sp.triu(self.adjacency, k=1).tocoo()
-            pairs = np.column_stack([upper.row, upper.col]).astype(np.int64)
-            cached = shared_boundary_lengths(self._geometries, pairs)
-            self.__dict__["_shared_lengths"] = cached
+            cached = edge_table(self._geometries)
+            self.__dict__["_edges"] = cached
         return cached
 
     def cached_shared_lengths(self) -> SharedBoundaries | None:
@@ -154,6 +168,7 @@ class AreaGraph:
         sizes = np.bincount(self.component_labels) if self.n else np.array([], dtype=int)
         return {
             "contiguity": self.kind,
+            "edge_tolerance_m": self.edges().tolerance if self.n > 1 else EDGE_TOLERANCE_M,
             "transform": "row-standardised",
             "areas": self.n,
             "links": int(self.adjacency.nnz // 2),
@@ -198,11 +213,10 @@ def build_area_graph(
 
     Notes
     -----
-    When the polygons form a valid GEOS coverage (``shapely.coverage_is_valid``: shared
-    edges match vertex for vertex, as in a clean tract layer or a Voronoi tessellation),
-    neighbours are found by comparing vertices and edges, which is exact there. Otherwise
-    libpysal's strict topological method is used, so neighbours are found even when two
-    areas' shared boundary does not have identical vertices. An
+    Neighbours come from :func:`coverage_audit.edges.edge_table`: areas whose boundaries share a
+    stretch of line within a tolerance (:func:`~coverage_audit.edges.default_tolerance`:
+    0.1 m, or a millionth of the layer's extent when smaller; longer than twice it) are rook neighbours, areas whose boundaries come within it are queen
+    neighbours, whether or not their vertices coincide. An
     :class:`~coverage_audit.errors.IslandWarning` is issued when there are islands or
     several components.
     """
@@ -223,7 +237,12 @@ def build_area_graph(
         raise AnalysisError(f"{len(ids_t)} ids were given for {n} geometries")
     if n == 0:
         raise AnalysisError("no areas to build contiguity from")
-    adjacency = _contiguity_matrix(geoms, rook=(kind == "rook"))
+    table: EdgeTable | None = None
+    if n > 1:
+        table = edge_table(geoms)
+        adjacency = _table_contiguity(table, n, rook=(kind == "rook"))
+    else:
+        adjacency = sp.csr_matrix((1, 1), dtype=np.float64)
     island_mask = np.asarray(adjacency.sum(axis=1)).ravel() == 0
     _, labels = connected_components(adjacency, directed=False)
     labels = _relabel_in_order(labels)
@@ -244,6 +263,8 @@ def build_area_graph(
         _knn_links=knn_links,
         _geometries=geoms,
     )
+    if table is not None:
+        graph.__dict__["_edges"] = table
     if islands or graph.n_components > 1:
         shown = ", ".join(islands[:10]) + (" ..." if len(islands) > 10 else "")
         warnings.warn(
@@ -336,6 +357,20 @@ def _pairs_sharing_key(keys: np.ndarray, owners: np.ndarray) -> tuple[np.ndarray
     return np.concatenate(left), np.concatenate(right)
 
 
+def _table_contiguity(table: EdgeTable, n: int, *, rook: bool) -> sp.csr_matrix:
+    """Contiguity from the edge table: shared edges (rook) or any contact (queen)."""
+    if rook:
+        left = table.pairs["i"].to_numpy(dtype=np.int64)
+        right = table.pairs["j"].to_numpy(dtype=np.int64)
+    else:
+        left, right = table.touching[:, 0], table.touching[:, 1]
+    data = np.ones(left.size, dtype=np.float64)
+    matrix = sp.csr_matrix((data, (left, right)), shape=(n, n))
+    matrix = ((matrix + matrix.T) > 0).astype(np.float64).tocsr()
+    matrix.sort_indices()
+    return matrix
+
+
 def _strict_contiguity(geoms: np.ndarray, *, rook: bool) -> sp.csr_matrix:
     n = geoms.size
     series = gpd.GeoSeries(geoms, index=pd.RangeIndex(n))
@@ -383,19 +418,39 @@ def _island_knn_links(geoms: np.ndarray, island_mask: np.ndarray, k: int) -> sp.
 
 @dataclass(frozen=True)
 class SharedBoundaries:
-    """Exact shared-edge lengths between pairs of areas, and each area's perimeter.
+    """Shared-edge lengths between pairs of areas, and each area's perimeter.
 
     Attributes
     ----------
     pairs : pandas.DataFrame
         Columns ``i``, ``j`` (positions, ``i < j``) and ``length`` (metres in the
-        analysis CRS) for every requested pair with a shared edge of positive length.
+        analysis CRS) for every pair with a shared edge of positive length.
     perimeter : numpy.ndarray
         Length of each area's whole boundary (exterior and interior rings).
+    outer_edge : numpy.ndarray or None
+        Length of each area's boundary on the region's outer edge.
+    hole_edge : numpy.ndarray or None
+        Length of each area's boundary along holes of the region (gaps inside it, such
+        as areas left out of the analysis).
+    tolerance : float
+        Distance (metres) within which two boundaries were taken for one line.
     """
 
     pairs: pd.DataFrame
     perimeter: np.ndarray
+    outer_edge: np.ndarray | None = None
+    hole_edge: np.ndarray | None = None
+    tolerance: float = EDGE_TOLERANCE_M
+
+
+def _from_table(table: EdgeTable, pairs: pd.DataFrame) -> SharedBoundaries:
+    return SharedBoundaries(
+        pairs=pairs,
+        perimeter=table.perimeter,
+        outer_edge=table.outer_edge,
+        hole_edge=table.hole_edge,
+        tolerance=table.tolerance,
+    )
 
 
 def shared_boundary_lengths(
@@ -408,8 +463,7 @@ def shared_boundary_lengths(
     geometries : numpy.ndarray of shapely geometries
         Area polygons in a projected (metric) CRS.
     pairs : numpy.ndarray of shape (m, 2), optional
-        Positions of the pairs to measure; by default every pair of areas whose
-        boundaries intersect.
+        Positions of the pairs to keep; by default every pair sharing an edge.
 
     Returns
     -------
@@ -417,35 +471,17 @@ def shared_boundary_lengths(
 
     Notes
     -----
-    The length is that of ``boundary(a) ∩ boundary(b)`` computed with GEOS, so it is exact
-    for a clean coverage and still right where the two boundaries do not share vertices.
-    Point contacts (queen-only neighbours) have length 0 and are dropped.
+    Lengths come from :func:`coverage_audit.edges.edge_table`: the stretch of each
+    boundary that runs within the tolerance of the other, measured along each side and
+    averaged, so it is exact for a clean coverage and still right where the two
+    boundaries do not share vertices. Point contacts (queen-only neighbours) are dropped.
     """
-    geoms = np.asarray(geometries, dtype=object)
-    boundaries = shapely.boundary(geoms)
-    perimeter = shapely.length(boundaries)
-    if pairs is None:
-        tree = shapely.STRtree(boundaries)
-        left, right = tree.query(boundaries, predicate="intersects")
-        keep = left < right
-        pair_arr = np.column_stack([left[keep], right[keep]])
-    else:
+    table = edge_table(np.asarray(geometries, dtype=object))
+    frame = table.pairs
+    if pairs is not None:
         pair_arr = np.asarray(pairs, dtype=np.int64).reshape(-1, 2)
-        pair_arr = np.column_stack([pair_arr.min(axis=1), pair_arr.max(axis=1)])
-        pair_arr = np.unique(pair_arr[pair_arr[:, 0] != pair_arr[:, 1]], axis=0)
-    if pair_arr.size == 0:
-        empty = pd.DataFrame(
-            {
-                "i": np.array([], dtype=np.int64),
-                "j": np.array([], dtype=np.int64),
-                "length": np.array([], dtype=np.float64),
-            }
-        )
-        return SharedBoundaries(pairs=empty, perimeter=perimeter)
-    shapely.prepare(boundaries)
-    lengths = shapely.length(
-        shapely.intersection(boundaries[pair_arr[:, 0]], boundaries[pair_arr[:, 1]])
-    )
-    keep = lengths > 0
-    frame = pd.DataFrame({"i": pair_arr[keep, 0], "j": pair_arr[keep, 1], "length": lengths[keep]})
-    return SharedBoundaries(pairs=frame.reset_index(drop=True), perimeter=perimeter)
+        lo, hi = pair_arr.min(axis=1), pair_arr.max(axis=1)
+        n = max(len(table.perimeter), 1)
+        wanted = np.unique((lo * n + hi)[lo != hi])
+        frame = frame[np.isin(frame["i"].to_numpy() * n + frame["j"].to_numpy(), wanted)]
+    return _from_table(table, frame.reset_index(drop=True))

@@ -898,3 +898,69 @@ def test_donut_pocket_is_measured_on_its_exterior():
     assert e.boundary_m == pytest.approx(12.0, abs=1e-9)
     assert e.served_boundary_m == pytest.approx(12.0, abs=1e-9)
     assert e.surround_share == pytest.approx(1.0)
+
+
+# --------------------------------------------------------------------------- issue 9 item 2
+
+
+def _ring_around_excluded_core():
+    """7 x 7 grid of 1 km cells without the centre 3 x 3; the 16 cells around it unserved."""
+    cells, ids, served = [], [], []
+    for r in range(7):
+        for c in range(7):
+            if 2 <= r <= 4 and 2 <= c <= 4:
+                continue  # left out of the analysis (absent from the demographics)
+            cells.append(shapely.box(c * 1000.0, r * 1000.0, (c + 1) * 1000.0, (r + 1) * 1000.0))
+            ids.append(f"g{r}{c}")
+            served.append(not (1 <= r <= 5 and 1 <= c <= 5))
+    return np.array(cells), np.array(ids, dtype=object), np.array(served)
+
+
+def test_ring_around_excluded_areas_is_an_enclave_at_every_threshold_up_to_one():
+    # By hand: the ring's exterior is the 5 x 5 km square, 20 km, all of it along served
+    # cells, so the surround share is 1.0; its 12 km inner edge faces the excluded centre
+    # and counts neither way. So the ring is an enclave at every threshold up to 1.0
+    # (monotone), in particular at the default 0.75 and at 0.62 / 0.63, where it used to
+    # appear and vanish.
+    geoms, ids, served = _ring_around_excluded_core()
+    graph = build_area_graph(geoms, ids)
+    population = np.full(ids.size, 1000.0)
+    white = np.full(ids.size, 600.0)
+    ring = set(ids[~served].tolist())
+    assert len(ring) == 16
+    for threshold in (0.5, 0.62, 0.63, 0.75, 0.9, 1.0):
+        result = find_enclaves(
+            geoms, ids, served, population, {"white": white}, graph,
+            min_surround=threshold, reference_group="white", mc_draws=0,
+        )  # fmt: skip
+        assert area_sets(result) == [ring], threshold
+        e = result.enclaves[0]
+        assert e.surround_share == pytest.approx(1.0, abs=1e-12)
+        assert e.boundary_m == pytest.approx(20_000.0, abs=1e-6)
+        assert e.served_boundary_m == pytest.approx(20_000.0, abs=1e-6)
+        assert e.edge_boundary_m == pytest.approx(0.0, abs=1e-6)
+
+
+def test_ring_on_the_region_edge_is_not_enclosed():
+    # Same grid, but the served cells of the left column removed from the analysis: the
+    # ring's left side (5 km of its 20 km exterior) now lies on the region's outer edge,
+    # so by hand the share is 15 / 20 = 0.75 exactly: an enclave at 0.75, not at 0.76.
+    geoms, ids, served = _ring_around_excluded_core()
+    keep = np.array([not i.endswith("0") for i in ids])  # column 0 left out
+    geoms, ids, served = geoms[keep], ids[keep], served[keep]
+    graph = build_area_graph(geoms, ids)
+    population = np.full(ids.size, 1000.0)
+    white = np.full(ids.size, 600.0)
+    # Column 0 gone: the ring's left cells (column 1) are on the outer edge.
+    found = find_enclaves(
+        geoms, ids, served, population, {"white": white}, graph,
+        min_surround=0.75, reference_group="white", mc_draws=0,
+    )  # fmt: skip
+    assert len(found.enclaves) == 1
+    assert found.enclaves[0].surround_share == pytest.approx(0.75, abs=1e-12)
+    assert found.enclaves[0].edge_boundary_m == pytest.approx(5_000.0, abs=1e-6)
+    missed = find_enclaves(
+        geoms, ids, served, population, {"white": white}, graph,
+        min_surround=0.76, reference_group="white", mc_draws=0,
+    )  # fmt: skip
+    assert missed.enclaves == ()

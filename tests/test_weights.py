@@ -12,8 +12,9 @@ from libpysal.examples import get_path
 from libpysal.graph import Graph
 
 from coverage_audit import weights as weights_module
+from coverage_audit.edges import EDGE_TOLERANCE_M, edge_table
 from coverage_audit.errors import AnalysisError, IslandWarning, SpecError
-from coverage_audit.synthetic import tessellation
+from coverage_audit.synthetic import densify_independently, tessellation
 from coverage_audit.weights import (
     CONTIGUITY_KINDS,
     ISLAND_POLICIES,
@@ -270,3 +271,89 @@ def test_shared_boundary_lengths_with_no_pairs():
     result = shared_boundary_lengths(lattice(1, 1))
     assert result.pairs.empty
     assert list(result.pairs.columns) == ["i", "j", "length"]
+
+
+# --------------------------------------------------------------------------- tolerant edges
+
+
+@pytest.fixture(scope="module")
+def densified_layer():
+    """A small tessellation and the same cells densified each on its own (no shared vertices)."""
+    cells = tessellation(300, seed=SEED)
+    clean = np.asarray(cells.geometry.array)
+    loose = densify_independently(clean, vertices=100, seed=SEED + 1)
+    return clean, loose
+
+
+@pytest.mark.parametrize("kind", CONTIGUITY_KINDS)
+def test_densified_layer_has_libpysal_contiguity_of_the_clean_layer(densified_layer, kind):
+    # Oracle: libpysal's strict contiguity on the clean cells (same shapes, shared
+    # vertices). On the densified cells vertices never coincide and the shared lines only
+    # agree to rounding, so exact methods miss links; the tolerant one must not.
+    clean, loose = densified_layer
+    assert not weights_module._is_clean_coverage(loose)
+    oracle = weights_module._strict_contiguity(clean, rook=kind == "rook")
+    graph = build_quietly(loose, ids_for(loose.size), kind=kind)
+    assert (graph.adjacency != oracle).nnz == 0
+    assert graph.adjacency.nnz > 4 * loose.size  # Voronoi cells have about 6 neighbours
+
+
+def test_densified_layer_shared_lengths_match_geos_on_the_clean_layer(densified_layer):
+    # Oracle: GEOS length of boundary(a) ∩ boundary(b) on the clean cells.
+    clean, loose = densified_layer
+    result = shared_boundary_lengths(loose)
+    i = result.pairs["i"].to_numpy()
+    j = result.pairs["j"].to_numpy()
+    bounds = shapely.boundary(clean)
+    expected = shapely.length(shapely.intersection(bounds[i], bounds[j]))
+    assert np.allclose(result.pairs["length"].to_numpy(), expected, rtol=0, atol=1e-6)
+    oracle = weights_module._strict_contiguity(clean, rook=True)
+    assert len(result.pairs) == oracle.nnz // 2
+
+
+def test_densified_layer_outer_edge_is_the_frame(densified_layer):
+    # The cells tile a rectangle of cols x rows cells of 2 km (tessellation's grid): the
+    # outer edge adds up to its perimeter, and there are no holes.
+    _, loose = densified_layer
+    table = edge_table(loose)
+    xmin, ymin, xmax, ymax = shapely.total_bounds(loose)
+    assert table.outer_edge.sum() == pytest.approx(2 * ((xmax - xmin) + (ymax - ymin)), abs=1e-4)
+    assert table.hole_edge.sum() == pytest.approx(0.0, abs=1e-6)
+    # Every metre of boundary is shared, outer edge or hole (by construction of a tiling).
+    shared = np.bincount(
+        np.r_[table.pairs["i"], table.pairs["j"]],
+        np.r_[table.pairs["length"], table.pairs["length"]],
+        loose.size,
+    )
+    assert np.allclose(shared + table.outer_edge + table.hole_edge, table.perimeter, atol=1e-3)
+
+
+def test_edge_table_separates_holes_from_the_outer_edge():
+    # 3 x 3 unit-km squares without the centre: by hand the outer edge is 12 km and the
+    # hole's edge 4 km; 8 shared unit edges, and the four side-middle cells also meet
+    # their neighbours at the hole's corners (4 queen-only contacts): 12 contacts.
+    cells = [
+        shapely.box(c * 1000.0, r * 1000.0, (c + 1) * 1000.0, (r + 1) * 1000.0)
+        for r in range(3)
+        for c in range(3)
+        if (r, c) != (1, 1)
+    ]
+    table = edge_table(np.array(cells))
+    assert table.outer_edge.sum() == pytest.approx(12_000.0, abs=1e-6)
+    assert table.hole_edge.sum() == pytest.approx(4_000.0, abs=1e-6)
+    assert len(table.pairs) == 8 and len(table.touching) == 12
+    assert table.pairs["length"].tolist() == [1000.0] * 8
+
+
+def test_point_contact_within_tolerance_is_a_queen_link_only():
+    # Two squares whose corners are 5 cm apart (under a 0.1 m tolerance): queen, not rook;
+    # with the default tolerance of this 2 km layer (2 mm) they do not touch.
+    geoms = np.array([shapely.box(0, 0, 1000, 1000), shapely.box(1000.05, 1000, 2000, 2000)])
+    assert edge_table(geoms).touching.size == 0
+    table = edge_table(geoms, tolerance=0.1)
+    assert table.touching.tolist() == [[0, 1]]
+    assert table.pairs.empty
+    graph = build_quietly(lattice(2, 2), ids_for(4), kind="queen")
+    # A 2-unit layer: a millionth of its extent is below 0.1 (default_tolerance).
+    assert graph.to_dict()["edge_tolerance_m"] == pytest.approx(2e-6)
+    assert EDGE_TOLERANCE_M == 0.1

@@ -60,6 +60,11 @@ RASTERISE_SCATTER_ABOVE = 1500
 #: every map figure megabytes long; outlines stay vector.
 RASTERISE_VERTICES_ABOVE = 20_000
 RASTER_DPI = 150
+#: Above this many areas the overview panels are drawn from a raster of the areas made
+#: once (no union of the region's geometry, no patch per area).
+RASTER_OVERVIEW_ABOVE = 5_000
+#: Width in pixels of that raster.
+RASTER_OVERVIEW_PIXELS = 1_000
 #: Decimals kept in SVG path coordinates (points of 1/72 inch): a tenth of a point is
 #: below what print or screen can show, and it halves the size of map figures.
 PATH_DECIMALS = 1
@@ -351,6 +356,12 @@ class RegionLayers:
         The same, simplified further for the small overview panels of the locators.
     tree : shapely.STRtree
         Spatial index of ``geometries``.
+    image : numpy.ndarray or None
+        For large regions (over :data:`RASTER_OVERVIEW_ABOVE` areas), an RGBA raster of
+        the areas (grey, served in the served tone) over ``bounds``, drawn once; the
+        overview panels show it instead of the unions, which are then the region's box.
+    bounds : tuple of float
+        The region's bounds (xmin, ymin, xmax, ymax).
     """
 
     geometries: np.ndarray
@@ -360,6 +371,8 @@ class RegionLayers:
     region_small: object
     served_small: object
     tree: shapely.STRtree
+    image: np.ndarray | None = None
+    bounds: tuple[float, float, float, float] = (0.0, 0.0, 1.0, 1.0)
 
     @classmethod
     def build(cls, geometries: np.ndarray, served: np.ndarray) -> RegionLayers:
@@ -371,8 +384,22 @@ class RegionLayers:
         """
         geoms = np.asarray(geometries, dtype=object)
         served = np.asarray(served, dtype=bool)
-        region = shapely.union_all(geoms)
         xmin, ymin, xmax, ymax = shapely.total_bounds(geoms)
+        bounds = (float(xmin), float(ymin), float(xmax), float(ymax))
+        if geoms.size > RASTER_OVERVIEW_ABOVE:
+            frame = shapely.box(*bounds)
+            return cls(
+                geometries=geoms,
+                served=served,
+                region=frame,
+                served_union=frame,
+                region_small=frame,
+                served_small=frame,
+                tree=shapely.STRtree(geoms),
+                image=_raster_overview(geoms, served, bounds),
+                bounds=bounds,
+            )
+        region = shapely.union_all(geoms)
         served_union = shapely.union_all(geoms[served])
         side = max(xmax - xmin, ymax - ymin, 1.0)
         fine, coarse = side / 1500.0, side / 400.0
@@ -384,6 +411,7 @@ class RegionLayers:
             region_small=shapely.simplify(region, coarse, preserve_topology=True),
             served_small=shapely.simplify(served_union, coarse, preserve_topology=True),
             tree=shapely.STRtree(geoms),
+            bounds=bounds,
         )
 
     def neighbours(self, members: np.ndarray) -> np.ndarray:
@@ -396,11 +424,65 @@ class RegionLayers:
         return np.flatnonzero(mask)
 
 
+def _raster_overview(
+    geoms: np.ndarray, served: np.ndarray, bounds: tuple[float, float, float, float]
+) -> np.ndarray:
+    """Draw the areas once into an RGBA array: grey, served ones in the served tone.
+
+    Each polygon is simplified within half a pixel first; each is drawn with a thin edge
+    of its own colour so that no crack shows between neighbours.
+    """
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+
+    xmin, ymin, xmax, ymax = bounds
+    width, height = max(xmax - xmin, 1.0), max(ymax - ymin, 1.0)
+    px = RASTER_OVERVIEW_PIXELS
+    py = max(int(round(px * height / width)), 1)
+    fig = Figure(figsize=(px / 100.0, py / 100.0), dpi=100)
+    fig.patch.set_alpha(0.0)
+    canvas = FigureCanvasAgg(fig)
+    ax = fig.add_axes((0.0, 0.0, 1.0, 1.0))
+    ax.set_xlim(xmin, xmax)
+    ax.set_ylim(ymin, ymax)
+    ax.set_axis_off()
+    ax.patch.set_alpha(0.0)
+    simple = shapely.simplify(geoms, width / px / 2.0, preserve_topology=False)
+    for mask, tone in ((~served, REGION_GREY), (served, SERVED_TONE)):
+        path = polygon_path(simple[mask])
+        if path is not None:
+            # add_artist, not add_patch: no data limits to walk through (set above).
+            ax.add_artist(PathPatch(path, facecolor=tone, edgecolor=tone, linewidth=0.3))
+    canvas.draw()
+    return np.asarray(canvas.buffer_rgba()).copy()
+
+
+def _for_display(geoms: np.ndarray, tolerance: float) -> np.ndarray:
+    """Simplify polygons each on its own within ``tolerance`` (0: unchanged) for drawing."""
+    if tolerance <= 0 or geoms.size == 0:
+        return geoms
+    simple = shapely.simplify(geoms, tolerance, preserve_topology=False)
+    lost = shapely.is_empty(simple) | ~np.isin(shapely.get_type_id(simple), (3, 6))
+    return np.where(lost, geoms, simple)
+
+
+def _show_raster(ax, layers: RegionLayers) -> None:
+    xmin, ymin, xmax, ymax = layers.bounds
+    ax.imshow(
+        layers.image,
+        extent=(xmin, xmax, ymin, ymax),
+        origin="upper",
+        interpolation="nearest",
+        rasterized=True,
+    )
+
+
 def _add_path(ax, path: Path | None, **style) -> None:
     if path is not None:
         filled = style.get("facecolor", "none") != "none"
         heavy = filled and np.shape(path.vertices)[0] > RASTERISE_VERTICES_ABOVE
-        ax.add_patch(PathPatch(path, rasterized=heavy, **style))
+        # add_artist, not add_patch: the limits are always set by _frame, and walking a
+        # path of many vertices for data limits is slow.
+        ax.add_artist(PathPatch(path, rasterized=heavy, **style))
 
 
 def _frame(ax, bounds: Sequence[float], pad: float = 0.02) -> None:
@@ -442,8 +524,11 @@ def overview_chart(
     """
     fig = _new_figure(6.4, 4.6)
     ax = fig.add_subplot()
-    _add_path(ax, polygon_path([layers.region]), facecolor=REGION_GREY, edgecolor="none")
-    _add_path(ax, polygon_path([layers.served_union]), facecolor=SERVED_TONE, edgecolor="none")
+    if layers.image is not None:
+        _show_raster(ax, layers)
+    else:
+        _add_path(ax, polygon_path([layers.region]), facecolor=REGION_GREY, edgecolor="none")
+        _add_path(ax, polygon_path([layers.served_union]), facecolor=SERVED_TONE, edgecolor="none")
     handles = [
         Rectangle((0, 0), 1, 1, facecolor=REGION_GREY, label="not served"),
         Rectangle((0, 0), 1, 1, facecolor=SERVED_TONE, label="served"),
@@ -508,12 +593,20 @@ def enclave_locator_chart(
     """
     fig = _new_figure(6.4, 2.9)
     overview, close = fig.subplots(1, 2, width_ratios=[1, 1.25])
-    _add_path(
-        overview, polygon_path([layers.region_small]), facecolor=REGION_GREY, edgecolor="none"
+    if layers.image is not None:
+        _show_raster(overview, layers)
+    else:
+        _add_path(
+            overview, polygon_path([layers.region_small]), facecolor=REGION_GREY, edgecolor="none"
+        )
+        served_path = polygon_path([layers.served_small])
+        _add_path(overview, served_path, facecolor=SERVED_TONE, edgecolor="none")
+    large = layers.image is not None
+    rx0, ry0, rx1, ry1 = layers.bounds if large else shapely.bounds(layers.region)
+    region_side = max(rx1 - rx0, ry1 - ry0, 1.0)
+    enclave_path = polygon_path(
+        _for_display(layers.geometries[members], region_side / 400.0 if large else 0.0)
     )
-    served_path = polygon_path([layers.served_small])
-    _add_path(overview, served_path, facecolor=SERVED_TONE, edgecolor="none")
-    enclave_path = polygon_path(layers.geometries[members])
     _add_path(overview, enclave_path, facecolor=ENCLAVE_TONE, edgecolor=ENCLAVE_TONE, linewidth=0.8)
     focus = np.concatenate([members, ring])
     xmin, ymin, xmax, ymax = shapely.total_bounds(layers.geometries[focus])
@@ -542,10 +635,14 @@ def enclave_locator_chart(
     nearby = np.sort(nearby)
     colours = np.where(layers.served[nearby], SERVED_TONE, REGION_GREY).astype(object)
     colours[np.isin(nearby, members)] = ENCLAVE_TONE
+    # Large regions: each polygon simplified within about a pixel of the close-up.
+    close_tolerance = side / 1500.0 if large else 0.0
     patches = []
     facecolors = []
     for tone in (REGION_GREY, SERVED_TONE, ENCLAVE_TONE):
-        path = polygon_path(layers.geometries[nearby[colours == tone]])
+        path = polygon_path(
+            _for_display(layers.geometries[nearby[colours == tone]], close_tolerance)
+        )
         if path is not None:
             patches.append(PathPatch(path))
             facecolors.append(tone)
@@ -554,7 +651,7 @@ def enclave_locator_chart(
     )
     _add_path(
         close,
-        polygon_path(layers.geometries[ring]),
+        polygon_path(_for_display(layers.geometries[ring], close_tolerance)),
         facecolor="none",
         edgecolor=RING_EDGE,
         linewidth=1.3,

@@ -263,11 +263,57 @@ def _simplify(geoms: np.ndarray, tolerance: float) -> tuple[np.ndarray, str]:
     """Simplify areas for display, keeping shared edges when they form a valid coverage."""
     if tolerance <= 0:
         return geoms, "none"
-    if shapely.coverage_is_valid(geoms):
+    if _may_be_coverage(geoms) and shapely.coverage_is_valid(geoms):
         return shapely.coverage_simplify(geoms, tolerance), "coverage"
     # Overlapping or misaligned areas: simplifying each alone may open slivers between
     # neighbours on screen, which is acceptable for display and is reported in MapInfo.
-    return shapely.simplify(geoms, tolerance, preserve_topology=True), "per_area"
+    # The fast simplification first; the topology-preserving one only where it failed.
+    fast = shapely.simplify(geoms, tolerance, preserve_topology=False)
+    bad = shapely.is_empty(fast) | ~shapely.is_valid(fast)
+    bad &= ~shapely.is_empty(geoms)
+    if bad.any():
+        fast = fast.copy()
+        fast[bad] = shapely.simplify(geoms[bad], tolerance, preserve_topology=True)
+    return fast, "per_area"
+
+
+#: Below this share of vertices shared with another area, the areas cannot be a tiling
+#: whose shared edges match vertex for vertex (GEOS' check of that is skipped).
+_SHARED_VERTEX_SHARE = 0.3
+#: Areas looked at by that test.
+_SAMPLE_AREAS = 400
+
+
+def _may_be_coverage(geoms: np.ndarray) -> bool:
+    """Tell cheaply whether most vertices appear in more than one area (a clean tiling).
+
+    Looks at up to :data:`_SAMPLE_AREAS` areas spread through the layer and their
+    neighbours (by bounding box): the share of the sampled areas' vertices that are also
+    vertices of another area.
+    """
+    if geoms.size < 2:
+        return True
+    sample = np.unique(np.linspace(0, geoms.size - 1, min(geoms.size, _SAMPLE_AREAS)).astype(int))
+    _, near = shapely.STRtree(geoms).query(geoms[sample])
+    near = np.union1d(near, sample)
+    parts, part_owner = shapely.get_parts(geoms[near], return_index=True)
+    rings, ring_part = shapely.get_rings(parts, return_index=True)
+    coords, coord_ring = shapely.get_coordinates(rings, return_index=True)
+    if coords.shape[0] == 0:
+        return True
+    keep = np.r_[coord_ring[1:] == coord_ring[:-1], False]  # drop each closing vertex
+    owner = near[part_owner[ring_part[coord_ring[keep]]]]
+    x, y = coords[keep, 0], coords[keep, 1]
+    order = np.lexsort((owner, y, x))
+    x, y, owner = x[order], y[order], owner[order]
+    start = np.r_[True, (x[1:] != x[:-1]) | (y[1:] != y[:-1])]
+    first = np.flatnonzero(start)
+    several = np.minimum.reduceat(owner, first) != np.maximum.reduceat(owner, first)
+    shared = np.repeat(several, np.diff(np.r_[first, x.size]))
+    sampled = np.isin(owner, sample)
+    if not sampled.any():
+        return True
+    return bool(shared[sampled].mean() >= _SHARED_VERTEX_SHARE)
 
 
 def _coordinate_decimals(tolerance_m: float) -> int:
