@@ -314,6 +314,7 @@ def run_audit(
     exclusions = inputs.exclusions
     summary["exclusions"] = {"count": exclusions.count(), "by_reason": exclusions.by_reason()}
     summary["cautions"] = cautions(CAUTIONS, summary)
+    from . import lending as _lending  # noqa: F401  (registers the lending findings)
     from .findings import build_findings
 
     summary["group_labels"] = spec.population.group_labels
@@ -451,6 +452,11 @@ def compute_statistics(
     frame["enclave_id"] = result.enclave_id
     sections = {**out, "coverage": coverage_section}
     out.update(_further_analyses(spec, inputs, footprint, frame, graph, sections, progress))
+    if spec.access is not None:
+        from .accessibility import measure_access
+
+        with progress.stage("access (two-step floating catchment)"):
+            out["access"], frame["access"] = measure_access(spec, inputs, footprint, frame)
     out["_frame"] = frame
     out["_report"] = (
         {"moran_weights": graph.stats_graph("r"), "moran_mask": graph.stats_mask}
@@ -547,6 +553,12 @@ def _further_analyses(
         with progress.stage("peer comparison"):
             out["peers"], record = analyses.peers_section(spec, inputs, frame)
         inputs.inputs.append(record)
+    if spec.lending is not None:
+        from .lending import lending_section
+
+        with progress.stage("lending records"):
+            out["lending"], lending_inputs = lending_section(spec, inputs, frame)
+        inputs.inputs.extend(lending_inputs)
     if spec.explain is not None:
         with progress.stage("exclusion models and rules"):
             out["explain"] = analyses.explain_section(frame, spec, inputs.id_column, graph)

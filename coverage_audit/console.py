@@ -126,6 +126,12 @@ def print_summary(result: Any, paths: dict[str, Path], *, seconds: float, stream
         console.print(
             f"lenders below peers in majority-minority tracts: {', '.join(flagged) or 'none'}"
         )
+    access = s.get("access")
+    if access:
+        ratios = ", ".join(f"{g} {_num(row.get('ratio'))}" for g, row in access["groups"].items())
+        console.print(
+            f"access ({access['method']}), mean ratio to {access['reference_group']}: {ratios}"
+        )
     models = (s.get("explain") or {}).get("models") or {}
     for row in models.get("minority_change", []):
         if row.get("kind") == "logit":

@@ -100,6 +100,32 @@ hub = [-135.0, -32.0]
 hub_name = "downtown"
 """,
     ),
+    "lending": (
+        "Mortgage lending review, Ostmere Savings",
+        """[footprint]
+name = "branches_2026"
+path = "branches.geojson"
+radius = 2
+radius_unit = "km"
+
+[lending]
+path = "hmda_records.txt"
+lender = "9999OSTMERESAVINGS01"
+lender_name = "Ostmere Savings"
+years = [2022, 2023, 2024]
+markets = ["90010"]
+peers = "market"
+band = [0.5, 2.0]
+alpha = 0.05
+
+[lending.lender_names]
+9999HARBORMUTUAL0001 = "Harbor Mutual"
+9999TIDEWATERCREDI01 = "Tidewater Credit Union"
+9999COPPERLINEBANK01 = "Copperline Bank"
+9999SALTMARSHFEDER01 = "Saltmarsh Federal"
+9999LANTERNFISHLEN01 = "Lanternfish Lending"
+""",
+    ),
     "assessment_area": (
         "Assessment area, Ostmere Savings",
         '[footprint]\nname = "assessment_area"\nserved_ids = "assessment_area.csv"\n'
@@ -146,6 +172,21 @@ DELIVERY_EXTRA = """contrast_group = "black_nh"
 name = "Ostmere city limits"
 path = "city_limits.geojson"
 """
+SCENARIOS["clinics"] = (
+    "Primary care clinics, Ostmere Health Cooperative",
+    """[footprint]
+name = "clinics"
+path = "clinics.geojson"
+radius = 5
+radius_unit = "km"
+
+[access]
+capacity = "doctors"
+catchment = "5 km"
+decay = [[2, 1.0], [3.5, 0.68], [5, 0.22]]
+site_id = "site_id"
+low_access_fraction = 0.5""",
+)
 #: Fictional lenders of the activity table; the first is the audited bank.
 LENDERS = (
     "Ostmere Savings",
@@ -370,6 +411,7 @@ def write_demo_region(folder: str | Path, seed: int = DEMO_SEED) -> Path:
         out / "assessment_area.csv", index=False, lineterminator="\n"
     )
     write_download_files(out, cells, demo, seed)
+    write_lending_records(out / "hmda_records.txt", cells, demo, seed)
     for key, (title, footprint) in SCENARIOS.items():
         if key == "zip_delivery":
             (out / f"{key}.toml").write_text(
@@ -386,8 +428,88 @@ def write_demo_region(folder: str | Path, seed: int = DEMO_SEED) -> Path:
             encoding="utf-8",
         )
     write_margin_scenario(out, cells, demo, seed)
+    _write_geojson(_clinic_sites(cells, demo, seed).to_crs("EPSG:4326"), out / "clinics.geojson")
     (out / "README.md").write_text(_readme(len(cells)), encoding="utf-8")
     return out
+
+
+#: Yearly applications and tilt in majority-minority tracts of each fictional lender of
+#: the record file: Ostmere Savings draws less than half as much from those tracts.
+_RECORD_LENDERS = (
+    ("Ostmere Savings", 260, 0.45, 20),
+    ("Harbor Mutual", 215, 1.05, 0),
+    ("Tidewater Credit Union", 130, 1.0, 0),
+    ("Copperline Bank", 170, 0.95, 30),
+    ("Saltmarsh Federal", 90, 1.1, 0),
+    ("Lanternfish Lending", 60, 1.0, 0),
+)
+
+
+def write_lending_records(
+    path: Path, cells: gpd.GeoDataFrame, demo: pd.DataFrame, seed: int
+) -> Path:
+    """Write the fictional HMDA-layout record file of the demo region (pipe-delimited).
+
+    Six made-up lenders (LEI-like codes starting 9999), 2022-2024, one fictional MSA/MD
+    (90010); a few records per lender and year have an ``NA`` tract, as published files
+    do. Drawn from its own seeded stream, so the other demo files do not change.
+    """
+    from .synthetic_lending import FictionalLender, fictional_lei, lending_records
+
+    total = demo["pop_total"].to_numpy(dtype=float)
+    tracts = pd.DataFrame(
+        {
+            "geoid": cells["geoid"].to_numpy(),
+            "minority_pct": np.round(100.0 * _minority_share(demo), 2),
+            "income_pct": demo["income_ratio"].fillna(0.0).to_numpy(dtype=float),
+            "population": total,
+            "households": demo["households"].to_numpy(dtype=float),
+        }
+    )
+    lenders = [
+        FictionalLender(
+            lei=fictional_lei(name.replace(" ", ""), 1),
+            name=name,
+            applications_per_year=volume,
+            minority_tilt=tilt,
+            purchased_per_year=bought,
+        )
+        for name, volume, tilt, bought in _RECORD_LENDERS
+    ]
+    rng = np.random.default_rng([seed, 15])
+    records = lending_records(tracts, lenders, (2022, 2023, 2024), rng, na_tracts=2)
+    records.to_csv(path, sep="|", index=False, lineterminator="\n")
+    return path
+
+
+def _clinic_sites(cells: gpd.GeoDataFrame, demo: pd.DataFrame, seed: int) -> gpd.GeoDataFrame:
+    """Fourteen clinics of a fictional health cooperative, with their doctors.
+
+    Larger practices sit in higher-income, mostly-white tracts; the few clinics in
+    minority neighbourhoods are small, so access (doctors within reach per resident,
+    2SFCA) is lower there even where a clinic is close. Own random stream, so the other
+    demo files do not change.
+    """
+    rng = np.random.default_rng(seed + 17)
+    share = _minority_share(demo)
+    income = demo["income_ratio"].fillna(0).to_numpy(float)
+    populated = demo["pop_total"].to_numpy() > 0
+    weight = np.where(populated, (income / 100.0) ** 2 * (1.0 - share) ** 2, 0.0)
+    large = rng.choice(len(cells), size=10, replace=False, p=weight / weight.sum())
+    small_weight = np.where(populated, share**3, 0.0)
+    small_weight[large] = 0.0
+    small = rng.choice(len(cells), size=4, replace=False, p=small_weight / small_weight.sum())
+    chosen = np.r_[large, small]
+    doctors = np.r_[rng.integers(40, 121, size=10), rng.integers(3, 9, size=4)]
+    return gpd.GeoDataFrame(
+        {
+            "site_id": [f"K{k:02d}" for k in range(1, 15)],
+            "name": [f"Ostmere Health Cooperative clinic {k:02d}" for k in range(1, 15)],
+            "doctors": doctors.astype(int),
+        },
+        geometry=shapely.point_on_surface(cells.geometry.values[chosen]),
+        crs=cells.crs,
+    )
 
 
 #: The scenario whose demographics carry margins of error (a table of its own, so the

@@ -12,8 +12,11 @@ from __future__ import annotations
 from collections.abc import Callable, Mapping
 from typing import Any
 
+from .access_sections import access_key_figures, access_section
 from .compare_sections import change_section, comparison_section, peers_section, ranked_rate
 from .explain_sections import explain_section, flags_of, sensitivity_section, sweep_groups
+from .lending_sections import key_figures as lending_key_figures
+from .lending_sections import lending_section
 from .markup import (
     NA,
     Html,
@@ -34,8 +37,10 @@ FURTHER_SECTIONS: tuple[tuple[str, str, Callable[[Page], Html]], ...] = (
     ("comparison", "Footprints compared", comparison_section),
     ("change", "Change between footprints", change_section),
     ("peers", "Lending activity against peers", peers_section),
+    ("lending", "Lending patterns from loan records", lending_section),
     ("explain", "Is the gap explained by other factors?", explain_section),
     ("sensitivity", "Does the finding hold?", sensitivity_section),
+    ("access", "Access to service capacity", access_section),
 )
 
 
@@ -100,7 +105,7 @@ def method_values(page: Page) -> dict[str, str]:
 def key_figures(page: Page) -> list[Html]:
     """Return the further analyses' lines of the page's "Key figures"."""
     summary = page.summary
-    items: list[Html] = []
+    items: list[Html] = access_key_figures(page) if "access" in summary else []
     peers = as_mapping(summary.get("peers"))
     if peers and not skipped_reason(peers):
         flagged = [str(f) for f in peers.get("flagged") or []]
@@ -112,6 +117,7 @@ def key_figures(page: Page) -> list[Html]:
                 + ".",
             )
         )
+    items.extend(lending_key_figures(page))
     sens = as_mapping(summary.get("sensitivity"))
     thresholds = records(sens.get("thresholds"))
     if thresholds and not skipped_reason(sens):
