@@ -26,6 +26,7 @@ from .coverage import CoverageResult, coverage_by_group, footprint_fractions, ne
 from .footprint import Footprint, build_footprint
 from .inputs import AreaInputs, load_areas
 from .population_notice import population_scope
+from .outputs import OutputClaim
 from .progress import SilentProgress
 from .spec import AuditSpec, load_spec, spec_from_dict
 
@@ -118,17 +119,49 @@ class AuditResult:
     extras: dict[str, Any] = field(default_factory=dict)
 
     def write(
-        self, out_dir: str | Path, *, progress: SilentProgress | None = None
+        self,
+        out_dir: str | Path,
+        *,
+        progress: SilentProgress | None = None,
+        claim: OutputClaim | None = None,
     ) -> dict[str, Path]:
-        """Write the output folder (see DESIGN.md's output contract); return the paths."""
+        """Write the output folder (see DESIGN.md's output contract); return the paths.
+
+        Everything is written into a fresh folder beside ``out_dir`` and swapped in at the
+        end (see :mod:`coverage_audit.outputs`), so the folder never mixes this run's
+        outputs with an earlier run's. ``claim`` is the folder already checked and locked
+        by :func:`~coverage_audit.outputs.claim_output_dir` (the CLI claims it before the
+        analysis); without it the folder is claimed here.
+        """
+        from .outputs import claim_output_dir
+
+        out = Path(out_dir)
+        own = claim is None
+        held = claim_output_dir(out) if claim is None else claim
+        try:
+            staged = self._write_into(held.staging(), out, progress or SilentProgress())
+            held.commit()
+        except OSError as exc:  # disk full, permissions changed meanwhile, ...
+            from .errors import InputError
+            from .outputs import folder_problem
+
+            raise InputError(folder_problem(out, exc) + "; nothing was changed") from None
+        finally:
+            if own:
+                held.release()
+        return {key: out / path.name for key, path in staged.items()}
+
+    def _write_into(self, out: Path, final: Path, progress: SilentProgress) -> dict[str, Path]:
         from .outputs import write_all, write_json
 
-        progress = progress or SilentProgress()
-        out = Path(out_dir)
         extra: dict[str, Any] = {}
         with progress.stage("writing tables"):
             paths = write_all(
-                out, summary=self.summary, areas=self.areas, exclusions=self.exclusions
+                out,
+                summary=self.summary,
+                areas=self.areas,
+                exclusions=self.exclusions,
+                id_columns=(self.id_column,),
             )
         if self.spec.output.map or self.spec.output.report:
             from .report import build_map, build_report
@@ -150,6 +183,8 @@ class AuditResult:
                     )
                 paths["map"] = out / "map.html"
                 extra["map"] = to_plain(info)
+                if isinstance(extra["map"], dict) and "path" in extra["map"]:
+                    extra["map"]["path"] = str(final / "map.html")  # where it ends up
             if self.spec.output.report:
                 with progress.stage("writing the report"):
                     build_report(

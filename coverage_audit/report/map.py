@@ -16,7 +16,6 @@ import html
 import json
 import math
 import os
-import tempfile
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from pathlib import Path
@@ -918,22 +917,9 @@ def _render_page(title: str, bounds: list[list[float]], data_json: str) -> str:
 
 
 def _write_atomic(path: Path, text: str) -> int:
-    path.parent.mkdir(parents=True, exist_ok=True)
-    payload = text.encode("utf-8")
-    fd, tmp = tempfile.mkstemp(prefix=".map-", suffix=".html.tmp", dir=path.parent)
-    try:
-        with os.fdopen(fd, "wb") as fh:
-            fh.write(payload)
-        # mkstemp makes the file private (0600); a map is for sharing, so give it the
-        # permissions an ordinary open() would.
-        umask = os.umask(0)
-        os.umask(umask)
-        os.chmod(tmp, 0o666 & ~umask)
-        os.replace(tmp, path)
-    except BaseException:
-        Path(tmp).unlink(missing_ok=True)
-        raise
-    return len(payload)
+    from ..outputs import write_bytes
+
+    return write_bytes(path, text.encode("utf-8"))
 
 
 # --------------------------------------------------------------------------- public

@@ -679,9 +679,6 @@ def build_report(
         moran_weights=moran_weights,
         moran_mask=moran_mask,
     )
-    temporary = target.with_name(f".{target.name}.{os.getpid()}.tmp")
-    try:
-        temporary.write_text(text, encoding="utf-8")
-        os.replace(temporary, target)
-    finally:
-        temporary.unlink(missing_ok=True)
+    from ..outputs import write_bytes
+
+    write_bytes(target, text.encode("utf-8"))
