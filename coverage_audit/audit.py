@@ -25,8 +25,8 @@ from . import __version__
 from .coverage import CoverageResult, coverage_by_group, footprint_fractions, nearest_site_distance
 from .footprint import Footprint, build_footprint
 from .inputs import AreaInputs, load_areas
-from .population_notice import population_scope
 from .outputs import OutputClaim
+from .population_notice import population_scope
 from .progress import SilentProgress
 from .spec import AuditSpec, load_spec, spec_from_dict
 
