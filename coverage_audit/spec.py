@@ -35,6 +35,18 @@ FDR_METHODS = ("bh", "none")
 #: cluster at ``dask_scheduler``), for regions past one machine.
 ENGINES = ("local", "dask")
 MAJORITY_RULES = ("above", "at_or_above")
+#: Largest number of random permutations or Monte Carlo draws a spec may ask for: p-values
+#: then resolve 1/100,000, and the largest draws stay within memory and hours, not days
+#: (one billion permutations would need terabytes).
+MAX_DRAWS = 99_999
+#: Largest number of vertices of a reach circle (the area error at 128 is already 1e-4).
+MAX_CIRCLE_VERTICES = 4_096
+#: Largest number of nearest neighbours given to an island.
+MAX_KNN = 100
+#: Longest rule (conditions joined by "and") searched; the search grows combinatorially.
+MAX_RULE_LENGTH = 5
+#: Most dask partitions of the areas.
+MAX_PARTITIONS = 100_000
 #: Length units accepted for a reach radius, in metres.
 LENGTH_UNITS = {"m": 1.0, "km": 1000.0, "mi": 1609.344, "ft": 0.3048}
 #: Names a group may not take because the per-area output uses them.
@@ -466,12 +478,49 @@ def load_spec(path: str | Path) -> AuditSpec:
     if not spec_path.is_file():
         raise SpecError(f"spec file '{spec_path}' was not found; check the path")
     try:
-        data = tomllib.loads(spec_path.read_text(encoding="utf-8"))
-    except tomllib.TOMLDecodeError as exc:
-        raise SpecError(f"{spec_path}: not valid TOML ({exc}); fix the line it names") from None
+        text = spec_path.read_bytes().decode("utf-8")
     except UnicodeDecodeError:
         raise SpecError(f"{spec_path}: not a UTF-8 text file") from None
+    except OSError as exc:
+        raise SpecError(f"spec file '{spec_path}' could not be read ({exc.strerror})") from None
+    # A byte-order mark (some Windows editors write one) is not part of the TOML: skip it.
+    text = text.removeprefix("\ufeff")
+    try:
+        data = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        raise SpecError(f"{spec_path}: {toml_error_text(text, exc)}") from None
     return spec_from_dict(data, base_dir=spec_path.resolve().parent, source=spec_path)
+
+
+_TOML_AT_RE = re.compile(r"\(at line (\d+), column (\d+)\)")
+
+
+def toml_error_text(text: str, exc: Exception) -> str:
+    """Return a TOML parse error as a sentence; a repeated key is named with its table.
+
+    ``tomllib`` says only "Cannot overwrite a value (at line 3, column 6)" when a key is
+    given twice; the key is read back from that line of the text.
+    """
+    message = str(exc)
+    match = _TOML_AT_RE.search(message)
+    if match and message.startswith("Cannot overwrite a value"):
+        lineno = int(match.group(1))
+        lines = text.splitlines()
+        line = lines[lineno - 1] if 0 < lineno <= len(lines) else ""
+        key = line.split("=", 1)[0].strip() if "=" in line else ""
+        table = ""
+        for previous in reversed(lines[: lineno - 1]):
+            stripped = previous.strip()
+            if stripped.startswith("["):
+                table = stripped.split("#", 1)[0].strip()
+                break
+        if key:
+            where = f" in {table}" if table else " at the top level"
+            return (
+                f'the key "{key}"{where} is given twice (the second time at line {lineno}); '
+                "keep one of them"
+            )
+    return f"not valid TOML ({message}); fix the line it names"
 
 
 _TOP_KEYS = (
@@ -1019,7 +1068,9 @@ def _explain_from(value: Any, where: str) -> ExplainSpec | None:
         models=_bool(ex_d, "models", where, "explain", True),
         rules=_bool(ex_d, "rules", where, "explain", True),
         rule_conditions=_str_list(ex_d, "rule_conditions", where, "explain"),
-        rule_max_length=_int_default(ex_d, "rule_max_length", where, "explain", 2, minimum=1),
+        rule_max_length=_int_default(
+            ex_d, "rule_max_length", where, "explain", 2, minimum=1, maximum=MAX_RULE_LENGTH
+        ),
         rule_min_support=float(support),
     )
 
@@ -1134,22 +1185,28 @@ def _analysis_from(an_d: Mapping[str, Any], where: str) -> AnalysisSpec:
         comparison=_choice(an_d, "comparison", where, t, COMPARISONS, "reference"),
         contiguity=_choice(an_d, "contiguity", where, t, ("queen", "rook"), "queen"),
         islands=_choice(an_d, "islands", where, t, ("exclude", "knn"), "exclude"),
-        knn_k=_int(an_d, "knn_k", where, t, minimum=1) or 1,
-        permutations=_int_default(an_d, "permutations", where, t, 999, minimum=1),
+        knn_k=_int(an_d, "knn_k", where, t, minimum=1, maximum=MAX_KNN) or 1,
+        permutations=_int_default(
+            an_d, "permutations", where, t, 999, minimum=1, maximum=MAX_DRAWS
+        ),
         seed=_int_default(an_d, "seed", where, t, DEFAULT_SEED, minimum=0),
         fdr=_choice(an_d, "fdr", where, t, FDR_METHODS, "bh"),
         alpha=_float(an_d, "alpha", where, t, 0.05, 0.0, 1.0, open_low=True),
         enclave_min_surround=_float(an_d, "enclave_min_surround", where, t, 0.75, 0.0, 1.0),
         enclave_min_population=_float(an_d, "enclave_min_population", where, t, 0.0, 0.0, None),
-        enclave_draws=_int_default(an_d, "enclave_draws", where, t, 999, minimum=0),
+        enclave_draws=_int_default(
+            an_d, "enclave_draws", where, t, 999, minimum=0, maximum=MAX_DRAWS
+        ),
         contrast_group=_str(an_d, "contrast_group", where, t),
         transparent_zero_population=_bool(an_d, "transparent_zero_population", where, t, False),
-        circle_vertices=_int_default(an_d, "circle_vertices", where, t, 128, minimum=16),
+        circle_vertices=_int_default(
+            an_d, "circle_vertices", where, t, 128, minimum=16, maximum=MAX_CIRCLE_VERTICES
+        ),
         analysis_crs=_str(an_d, "analysis_crs", where, t),
         sensitivity=_bool(an_d, "sensitivity", where, t, True),
         engine=_choice(an_d, "engine", where, t, ENGINES, "local"),
         dask_scheduler=_str(an_d, "dask_scheduler", where, t),
-        partitions=_int(an_d, "partitions", where, t, minimum=1),
+        partitions=_int(an_d, "partitions", where, t, minimum=1, maximum=MAX_PARTITIONS),
     )
 
 
@@ -1226,7 +1283,14 @@ def _float(
     return value
 
 
-def _int(d: Mapping[str, Any], key: str, where: str, label: str, minimum: int = 0) -> int | None:
+def _int(
+    d: Mapping[str, Any],
+    key: str,
+    where: str,
+    label: str,
+    minimum: int = 0,
+    maximum: int | None = None,
+) -> int | None:
     if key not in d:
         return None
     value = d[key]
@@ -1234,13 +1298,24 @@ def _int(d: Mapping[str, Any], key: str, where: str, label: str, minimum: int = 
         raise SpecError(f"{where}: [{label}] {key} must be a whole number, got {value!r}")
     if value < minimum:
         raise SpecError(f"{where}: [{label}] {key} was {value} but must be at least {minimum}")
+    if maximum is not None and value > maximum:
+        raise SpecError(
+            f"{where}: [{label}] {key} was {value} but must be at most {maximum:,} "
+            f"(the largest this tool accepts); use a smaller number"
+        )
     return value
 
 
 def _int_default(
-    d: Mapping[str, Any], key: str, where: str, label: str, default: int, minimum: int = 0
+    d: Mapping[str, Any],
+    key: str,
+    where: str,
+    label: str,
+    default: int,
+    minimum: int = 0,
+    maximum: int | None = None,
 ) -> int:
-    value = _int(d, key, where, label, minimum)
+    value = _int(d, key, where, label, minimum, maximum)
     return default if value is None else value
 
 
