@@ -14,7 +14,7 @@ import platform
 from dataclasses import dataclass, field
 from importlib import metadata
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import geopandas as gpd
 import numpy as np
@@ -24,8 +24,12 @@ from . import __version__
 from .coverage import CoverageResult, coverage_by_group, footprint_fractions, nearest_site_distance
 from .footprint import Footprint, build_footprint
 from .inputs import AreaInputs, load_areas
+from .outputs import write_all, write_json
 from .progress import SilentProgress
 from .spec import AuditSpec, load_spec, spec_from_dict
+
+if TYPE_CHECKING:
+    from .report.folder import Display
 
 SCHEMA_VERSION = 1
 
@@ -119,53 +123,45 @@ class AuditResult:
         self, out_dir: str | Path, *, progress: SilentProgress | None = None
     ) -> dict[str, Path]:
         """Write the output folder (see DESIGN.md's output contract); return the paths."""
-        from .outputs import write_all, write_json
+        # The drawing modules (matplotlib, the map) load only when an audit is written.
+        from .report.folder import render, write_display
 
         progress = progress or SilentProgress()
         out = Path(out_dir)
-        extra: dict[str, Any] = {}
         with progress.stage("writing tables"):
             paths = write_all(
                 out, summary=self.summary, areas=self.areas, exclusions=self.exclusions
             )
-        if self.spec.output.map or self.spec.output.report:
-            from .report import build_map, build_report
-
-            footprint = self.footprint_for_display()
-            if self.spec.output.map:
-                with progress.stage("drawing the map"):
-                    info = build_map(
-                        self.areas,
-                        id_column=self.id_column,
-                        groups=self.groups,
-                        reference=self.spec.population.reference,
-                        footprint=footprint,
-                        summary=self.summary,
-                        title=self.spec.title,
-                        path=out / "map.html",
-                        tiles=self.spec.output.tiles,
-                        outside=self.extras.get("outside_study_area"),
-                    )
-                paths["map"] = out / "map.html"
-                extra["map"] = to_plain(info)
-            if self.spec.output.report:
-                with progress.stage("writing the report"):
-                    build_report(
-                        self.summary,
-                        self.manifest,
-                        self.areas,
-                        exclusions=self.exclusions,
-                        id_column=self.id_column,
-                        groups=self.groups,
-                        reference=self.spec.population.reference,
-                        footprint=footprint,
-                        path=out / "report.html",
-                        **self.extras.get("moran", {}),
-                    )
-                paths["report"] = out / "report.html"
+            display = self.display()
+            paths.update(write_display(out, display, self.areas))
+        drawn, extra = render(
+            out,
+            summary=self.summary,
+            manifest=self.manifest,
+            areas=self.areas,
+            exclusions=self.exclusions,
+            display=display,
+            progress=progress,
+        )
+        paths.update(drawn)
         # Written last and once, so it can say what the map and report hold.
-        write_json(paths["manifest"], {**self.manifest, "outputs": extra})
+        outputs = {key: to_plain(value) for key, value in extra.items()}
+        write_json(paths["manifest"], {**self.manifest, "outputs": outputs})
         return paths
+
+    def display(self) -> Display:
+        """Return what the map and the report draw besides the summary and tables."""
+        from .report.folder import Display, moran_lag
+
+        moran = self.extras.get("moran", {})
+        return Display(
+            id_column=self.id_column,
+            groups=tuple(self.groups),
+            reference=self.spec.population.reference,
+            footprint=self.footprint_for_display(),
+            outside=self.extras.get("outside_study_area"),
+            moran_lag=moran_lag(self.areas, moran.get("moran_weights"), moran.get("moran_mask")),
+        )
 
     def footprint_for_display(self) -> dict[str, Any]:
         """Return the footprint as the map and report take it."""
@@ -652,6 +648,11 @@ def build_manifest(
         "analysis_crs_wkt": inputs.analysis_crs.to_wkt(),
         "seed": spec.analysis.seed,
         "footprint": footprint.manifest(),
+        "display": {
+            "id_column": inputs.id_column,
+            "groups": list(inputs.groups),
+            "reference": inputs.reference,
+        },
         "started": started.isoformat(timespec="seconds"),
         "finished": finished.isoformat(timespec="seconds"),
     }

@@ -180,7 +180,23 @@ def _build_parser() -> argparse.ArgumentParser:
     )
     check.add_argument("spec", type=Path, help="the audit spec, a TOML file")
     check.add_argument("--debug", action="store_true", help="show a traceback on errors")
+
+    report = sub.add_parser(
+        "report",
+        help="draw report.html and map.html again from a written output folder",
+        description="Read an output folder written by 'run' and draw its report.html and map.html again from its files alone.",
+    )
+    report.add_argument("folder", type=Path, help="an output folder written by 'run'")
+    report.add_argument("--debug", action="store_true", help="show a traceback on errors")
     return parser
+
+
+def _cmd_report(args: argparse.Namespace) -> int:
+    from .report.folder import render_folder
+
+    for path in render_folder(args.folder).values():
+        print(f"wrote {path}")
+    return EXIT_OK
 
 
 def _add_common(p: argparse.ArgumentParser) -> None:
@@ -496,7 +512,7 @@ def main(argv: Sequence[str] | None = None) -> int:
     if args.command is None:
         parser.print_help()
         return EXIT_USER_ERROR
-    handlers = {"run": _cmd_run, "demo": _cmd_demo, "check": _cmd_check}
+    handlers = {"run": _cmd_run, "demo": _cmd_demo, "check": _cmd_check, "report": _cmd_report}
     debug = getattr(args, "debug", False)
     try:
         with warnings.catch_warnings():
