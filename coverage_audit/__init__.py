@@ -7,9 +7,8 @@ reads and validates a spec file.
 
 from __future__ import annotations
 
-__version__ = "0.1.0"
-
-from .audit import AuditResult, run_audit  # noqa: E402
-from .spec import AuditSpec, load_spec, spec_from_dict  # noqa: E402
+from ._version import __version__
+from .audit import AuditResult, run_audit
+from .spec import AuditSpec, load_spec, spec_from_dict
 
 __all__ = ["AuditResult", "AuditSpec", "__version__", "load_spec", "run_audit", "spec_from_dict"]

@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import datetime as _dt
 import platform
+import warnings
 from dataclasses import dataclass, field
 from importlib import metadata
 from pathlib import Path
@@ -20,13 +21,26 @@ import geopandas as gpd
 import numpy as np
 import pandas as pd
 
-from . import __version__
+from . import analyses
+from ._util import to_jsonable
+from ._version import __version__
+from .analyses import FurtherInputs, add_derived_columns, read_further_inputs
+from .clustering import clustering_summary
 from .coverage import CoverageResult, coverage_by_group, footprint_fractions, nearest_site_distance
+from .enclaves import find_enclaves, footprint_holes
+from .errors import AnalysisError, DegenerateStatisticWarning
+from .findings import build_findings
 from .footprint import Footprint, build_footprint
-from .inputs import AreaInputs, load_areas
+from .inputs import AreaInputs, Exclusions, InputRecord, load_areas
+from .margins import cautions, survey_error
+from .options import enclave_options
 from .outputs import write_all, write_json
 from .progress import SilentProgress
-from .spec import AuditSpec, load_spec, spec_from_dict
+from .segregation import segregation_summary
+from .spec import AnalysisSpec, AuditSpec, load_spec, spec_from_dict
+from .stats.assessment_area import review_assessment_area
+from .study_area import apply_study_area
+from .weights import ISLAND_REASON, AreaGraph, build_area_graph
 
 if TYPE_CHECKING:
     from .report.folder import Display
@@ -181,8 +195,6 @@ class AuditResult:
 
 def to_plain(value: Any) -> Any:
     """Return a dataclass or object as plain data for the manifest."""
-    from ._util import to_jsonable
-
     if hasattr(value, "__dataclass_fields__"):
         return to_jsonable(value)
     return str(value)
@@ -240,11 +252,10 @@ def run_audit(
             id_width=spec.areas.id_width,
         )
     inputs, study = _study_area(spec, inputs, footprint, progress)
+    further = read_further_inputs(spec, inputs)
     frame = inputs.frame
     with progress.stage("measuring coverage"):
         coverage, frame = measure_coverage(spec, inputs, footprint, frame)
-    from .analyses import add_derived_columns
-
     frame = add_derived_columns(frame, spec, inputs.analysis_crs)
 
     summary: dict[str, Any] = {
@@ -261,27 +272,26 @@ def run_audit(
         summary["inputs"] = table_section
     summary["coverage"] = coverage.to_dict()
     statistics = compute_statistics(
-        spec, inputs, footprint, frame, streams, progress, summary["coverage"]
+        spec, inputs, footprint, frame, streams, progress, summary["coverage"], further
     )
     frame = statistics.pop("_frame")
     statistics_extras = statistics.pop("_report")
+    # The stages return what they left out; the pipeline gathers it, in stage order.
+    inputs.exclusions.records.extend(statistics.pop("_exclusions").records)
+    inputs.exclusions.records.extend(further.exclusions.records)
     summary.update(statistics)
     if footprint.kind == "ids":
         summary["assessment_area"] = _assessment_area(frame, inputs.id_column, footprint)
-    from .margins import cautions, survey_error
-
     survey_error(summary, frame, inputs, spec, streams["uncertainty"])
 
     exclusions = inputs.exclusions
     summary["exclusions"] = {"count": exclusions.count(), "by_reason": exclusions.by_reason()}
     summary["cautions"] = cautions(CAUTIONS, summary)
-    from .findings import build_findings
-
     summary["group_labels"] = spec.population.group_labels
     summary["population_unit"] = spec.population.unit
     summary["findings"] = build_findings(summary)
     finished = _dt.datetime.now(_dt.timezone.utc)
-    manifest = build_manifest(spec, inputs, footprint, started, finished)
+    manifest = build_manifest(spec, inputs, footprint, started, finished, further.records)
     frame = _order_columns(frame, inputs)
     return AuditResult(
         areas=frame,
@@ -306,8 +316,6 @@ def _assessment_area(
     frame: gpd.GeoDataFrame, id_column: str, footprint: Footprint
 ) -> dict[str, Any]:
     """Return the assessment-area review of a footprint of whole areas (12 CFR 228.41)."""
-    from .stats.assessment_area import review_assessment_area
-
     ids = frame[id_column].astype(str).to_numpy()
     return review_assessment_area(
         ids,
@@ -325,8 +333,6 @@ def _study_area(
     """Keep the areas inside ``[study_area]`` (all of them without one)."""
     if spec.study_area is None:
         return inputs, None
-    from .study_area import apply_study_area
-
     with progress.stage(f"study area '{spec.study_area.name}'"):
         kept, study, outside = apply_study_area(
             spec.study_area, inputs, footprint, id_width=spec.areas.id_width
@@ -342,16 +348,15 @@ def compute_statistics(
     streams: dict[str, np.random.Generator],
     progress: SilentProgress,
     coverage_section: dict[str, Any],
+    further: FurtherInputs | None = None,
 ) -> dict[str, Any]:
     """Segregation, contiguity, clustering and enclaves over the analysed areas.
 
-    Returns the summary sections keyed as in summary.json, and under ``"_frame"`` the
-    per-area frame with the statistics' columns added.
+    Returns the summary sections keyed as in summary.json, under ``"_frame"`` the per-area
+    frame with the statistics' columns added and under ``"_exclusions"`` the areas the
+    spatial statistics leave out. ``inputs`` is read, never changed.
     """
-    from .enclaves import find_enclaves, footprint_holes
-    from .segregation import segregation_summary
-    from .weights import ISLAND_REASON, build_area_graph
-
+    further = further or FurtherInputs()
     an = spec.analysis
     frame = frame.copy()
     ids = frame[inputs.id_column].to_numpy(dtype=object)
@@ -375,9 +380,10 @@ def compute_statistics(
         graph = build_area_graph(
             geoms, ids, kind=an.contiguity, island_policy=an.islands, knn_k=an.knn_k
         )
+    left_out = Exclusions()
     if graph.islands and an.islands == "exclude":
         rows = frame.loc[graph.island_mask, "source_row"]
-        inputs.exclusions.add("spatial_statistics", rows, list(graph.islands), ISLAND_REASON)
+        left_out.add("spatial_statistics", rows, list(graph.islands), ISLAND_REASON)
     out["weights"] = graph.to_dict()
     with progress.stage("clustering"):
         out["clustering"] = _clustering(frame, graph, an, streams["clustering"])
@@ -411,8 +417,11 @@ def compute_statistics(
     }
     frame["enclave_id"] = result.enclave_id
     sections = {**out, "coverage": coverage_section}
-    out.update(_further_analyses(spec, inputs, footprint, frame, graph, sections, progress))
+    out.update(
+        _further_analyses(spec, inputs, footprint, frame, graph, sections, progress, further)
+    )
     out["_frame"] = frame
+    out["_exclusions"] = left_out
     out["_report"] = (
         {"moran_weights": graph.stats_graph("r"), "moran_mask": graph.stats_mask}
         if "skipped" not in out["clustering"] and graph.stats_mask.sum() >= 3
@@ -422,14 +431,9 @@ def compute_statistics(
 
 
 def _clustering(
-    frame: gpd.GeoDataFrame, graph: Any, an: Any, rng: np.random.Generator
+    frame: gpd.GeoDataFrame, graph: AreaGraph, an: AnalysisSpec, rng: np.random.Generator
 ) -> dict[str, Any]:
     """Moran, join counts, bivariate and local Moran; LISA columns added to ``frame``."""
-    import warnings
-
-    from .clustering import clustering_summary
-    from .errors import AnalysisError, DegenerateStatisticWarning
-
     n = len(frame)
     minority = (
         frame["minority_share"].to_numpy(dtype=float)
@@ -472,20 +476,23 @@ def _further_analyses(
     inputs: AreaInputs,
     footprint: Footprint,
     frame: gpd.GeoDataFrame,
-    graph: Any,
+    graph: AreaGraph,
     sections: dict[str, Any],
     progress: SilentProgress,
+    further: FurtherInputs,
 ) -> dict[str, Any]:
     """Comparisons, change, peers, controls and sensitivity, as the spec asks.
 
     Adds per-area columns to ``frame`` in place (other footprints' covered fractions).
+    The other footprints and the activity table come read, in ``further``.
     """
-    from . import analyses
-
     out: dict[str, Any] = {}
+    built = list(further.footprints)
     if len(spec.footprints) > 1:
         with progress.stage("other footprints"):
-            others, fractions, built = analyses.other_footprints(spec, inputs, frame, graph)
+            others, fractions = analyses.other_footprints(
+                spec, inputs, frame, graph, further.footprints
+            )
         for name, cf in fractions.items():
             if name != spec.footprint.name:
                 frame[f"covered_fraction_{name}"] = cf
@@ -500,14 +507,12 @@ def _further_analyses(
             spec.footprint.name: footprint.to_dict(),
             **{f.name: f.to_dict() for f in built},
         }
-        inputs.inputs.extend(r for f in built for r in f.records)
         if spec.change is not None:
             out["change"] = analyses.change_section(spec, inputs, frame, fractions)
             out["change"].update(analyses.site_changes(spec.change, [footprint, *built]))
-    if spec.activity is not None:
+    if further.activity is not None:
         with progress.stage("peer comparison"):
-            out["peers"], record = analyses.peers_section(spec, inputs, frame)
-        inputs.inputs.append(record)
+            out["peers"] = analyses.peers_section(spec, inputs, frame, further.activity)
     if spec.explain is not None:
         with progress.stage("exclusion models and rules"):
             out["explain"] = analyses.explain_section(frame, spec, inputs.id_column, graph)
@@ -545,15 +550,6 @@ def measure_coverage(
         distance_m=distance,
     )
     return coverage, frame
-
-
-def enclave_options(an: Any, population: np.ndarray) -> dict[str, Any]:
-    """Return the enclave settings of the spec, as :func:`~coverage_audit.enclaves.find_enclaves` takes them."""
-    return {
-        "min_surround": an.enclave_min_surround,
-        "min_population": an.enclave_min_population,
-        "transparent": (population <= 0) if an.transparent_zero_population else None,
-    }
 
 
 def _dask_fractions(spec: AuditSpec, frame: gpd.GeoDataFrame, footprint: Footprint) -> np.ndarray:
@@ -632,9 +628,15 @@ def build_manifest(
     footprint: Footprint,
     started: _dt.datetime,
     finished: _dt.datetime,
+    later: tuple[InputRecord, ...] = (),
 ) -> dict[str, Any]:
-    """Provenance of an audit: everything needed to rerun it and check its inputs."""
-    records = [r.to_dict() for r in inputs.inputs] + [r.to_dict() for r in footprint.records]
+    """Provenance of an audit: everything needed to rerun it and check its inputs.
+
+    ``later`` are the records of the inputs read for the further analyses (other
+    footprints, the activity table), listed after the areas' and before the footprint's.
+    """
+    records = [r.to_dict() for r in (*inputs.inputs, *later)]
+    records += [r.to_dict() for r in footprint.records]
     return {
         "tool": "coverage_audit",
         "version": __version__,

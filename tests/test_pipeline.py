@@ -7,9 +7,14 @@ and the report depend on the written findings alone.
 
 from __future__ import annotations
 
+import ast
+import importlib
+from pathlib import Path
+
 import geopandas as gpd
 import shapely
 
+import coverage_audit
 from coverage_audit.cli import main
 
 from .conftest import GRID_CRS, grid, spec_text, write_spec
@@ -57,3 +62,77 @@ def test_report_command_names_a_folder_without_outputs(tmp_path, capsys):
     assert main(["report", str(tmp_path)]) == 2
     err = capsys.readouterr().err
     assert err.startswith("error:") and "summary.json" in err
+
+
+def _imports(tree: ast.AST) -> list[ast.Import | ast.ImportFrom]:
+    """Every import statement, also inside functions, but not under ``if TYPE_CHECKING:``.
+
+    A cycle through a function-local import is still a cycle (it only fails later, at
+    call time); imports for type checkers alone never run.
+    """
+    out: list[ast.Import | ast.ImportFrom] = []
+    for node in ast.iter_child_nodes(tree):
+        if isinstance(node, ast.If) and "TYPE_CHECKING" in ast.unparse(node.test):
+            continue
+        if isinstance(node, (ast.Import, ast.ImportFrom)):
+            out.append(node)
+        out.extend(_imports(node))
+    return out
+
+
+def _import_graph() -> dict[str, set[str]]:
+    """Return ``module -> package modules it imports``, from the source text."""
+    root = Path(coverage_audit.__file__).parent
+    graph: dict[str, set[str]] = {}
+    for path in sorted(root.rglob("*.py")):
+        parts = path.relative_to(root.parent).with_suffix("").parts
+        name = ".".join(parts[:-1] if parts[-1] == "__init__" else parts)
+        package = name if path.name == "__init__.py" else name.rpartition(".")[0]
+        edges: set[str] = set()
+        for node in _imports(ast.parse(path.read_text(encoding="utf-8"))):
+            if isinstance(node, ast.Import):
+                edges.update(a.name for a in node.names if a.name.startswith("coverage_audit"))
+                continue
+            if not node.level:
+                if (node.module or "").startswith("coverage_audit"):
+                    edges.add(str(node.module))
+                continue
+            base = package.rsplit(".", node.level - 1)[0] if node.level > 1 else package
+            target = f"{base}.{node.module}" if node.module else base
+            for alias in node.names:
+                sub = f"{target}.{alias.name}"
+                is_module = (root.parent / Path(*sub.split("."))).with_suffix(".py").exists()
+                edges.add(sub if is_module else target)
+        graph[name] = edges - {name}
+    return graph
+
+
+def _cycles(graph: dict[str, set[str]]) -> list[list[str]]:
+    """Return one cycle through each strongly connected part of more than one module."""
+    out: list[list[str]] = []
+    state: dict[str, int] = {}
+    stack: list[str] = []
+
+    def visit(node: str) -> None:
+        state[node] = 1
+        stack.append(node)
+        for nxt in sorted(graph.get(node, ())):
+            if state.get(nxt) == 1:
+                out.append([*stack[stack.index(nxt) :], nxt])
+            elif nxt not in state:
+                visit(nxt)
+        stack.pop()
+        state[node] = 2
+
+    for node in sorted(graph):
+        if node not in state:
+            visit(node)
+    return out
+
+
+def test_every_module_imports_and_the_package_has_no_import_cycle():
+    graph = _import_graph()
+    for name in graph:
+        importlib.import_module(name)
+    assert "coverage_audit.audit" in graph["coverage_audit"]  # the graph is read at all
+    assert _cycles(graph) == []
