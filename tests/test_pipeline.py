@@ -16,6 +16,7 @@ import shapely
 
 import coverage_audit
 from coverage_audit.cli import main
+from coverage_audit.report import assets
 
 from .conftest import GRID_CRS, grid, spec_text, write_spec
 
@@ -136,3 +137,16 @@ def test_every_module_imports_and_the_package_has_no_import_cycle():
         importlib.import_module(name)
     assert "coverage_audit.audit" in graph["coverage_audit"]  # the graph is read at all
     assert _cycles(graph) == []
+
+
+def test_map_script_is_package_data_inlined_verbatim(two_by_two, tmp_path, capsys):
+    # Consistency check: the drawing script ships as report/map.js (pyproject's
+    # package-data lists report/*.js) and reaches map.html unchanged, once.
+    script = (Path(assets.__file__).parent / "map.js").read_text(encoding="utf-8")
+    assert assets.MAP_JS == script and "coverageAuditDraw" in script
+    out = tmp_path / "out"
+    code = main(["run", str(two_by_two / "audit.toml"), "--out", str(out), "--no-report"])
+    assert code == 0, capsys.readouterr().err
+    page = (out / "map.html").read_text(encoding="utf-8")
+    assert page.count(script) == 1
+    assert page.count("<script>\n" + script + "\n</script>") == 1
