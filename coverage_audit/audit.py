@@ -9,10 +9,11 @@ statistic gets its own child stream, so adding a statistic does not change the o
 
 from __future__ import annotations
 
+import dataclasses
 import datetime as _dt
 import platform
 import warnings
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from importlib import metadata
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
@@ -32,6 +33,7 @@ from .errors import AnalysisError, DegenerateStatisticWarning
 from .findings import build_findings
 from .footprint import Footprint, build_footprint
 from .inputs import AreaInputs, Exclusions, InputRecord, load_areas
+from .lending import lending_section  # also registers the lending findings
 from .margins import cautions, survey_error
 from .options import enclave_options
 from .outputs import write_all, write_json
@@ -156,6 +158,7 @@ class AuditResult:
             exclusions=self.exclusions,
             display=display,
             progress=progress,
+            output=dataclasses.asdict(self.spec.output),
         )
         paths.update(drawn)
         # Written last and once, so it can say what the map and report hold.
@@ -279,6 +282,8 @@ def run_audit(
     # The stages return what they left out; the pipeline gathers it, in stage order.
     inputs.exclusions.records.extend(statistics.pop("_exclusions").records)
     inputs.exclusions.records.extend(further.exclusions.records)
+    inputs.exclusions.records.extend(statistics.pop("_later_exclusions", Exclusions()).records)
+    later_records = (*further.records, *statistics.pop("_records", ()))
     summary.update(statistics)
     if footprint.kind == "ids":
         summary["assessment_area"] = _assessment_area(frame, inputs.id_column, footprint)
@@ -291,7 +296,7 @@ def run_audit(
     summary["population_unit"] = spec.population.unit
     summary["findings"] = build_findings(summary)
     finished = _dt.datetime.now(_dt.timezone.utc)
-    manifest = build_manifest(spec, inputs, footprint, started, finished, further.records)
+    manifest = build_manifest(spec, inputs, footprint, started, finished, later_records)
     frame = _order_columns(frame, inputs)
     return AuditResult(
         areas=frame,
@@ -353,8 +358,10 @@ def compute_statistics(
     """Segregation, contiguity, clustering and enclaves over the analysed areas.
 
     Returns the summary sections keyed as in summary.json, under ``"_frame"`` the per-area
-    frame with the statistics' columns added and under ``"_exclusions"`` the areas the
-    spatial statistics leave out. ``inputs`` is read, never changed.
+    frame with the statistics' columns added, under ``"_exclusions"`` the areas the
+    spatial statistics leave out and under ``"_records"`` the input records of files the
+    further analyses read (the lending records) with, under ``"_later_exclusions"``, the
+    rows they leave out. ``inputs`` is read, never changed.
     """
     further = further or FurtherInputs()
     an = spec.analysis
@@ -513,6 +520,16 @@ def _further_analyses(
     if further.activity is not None:
         with progress.stage("peer comparison"):
             out["peers"] = analyses.peers_section(spec, inputs, frame, further.activity)
+    if spec.lending is not None:
+        # The lending review reads its own files here and lists the records it leaves out
+        # in an Exclusions of its own; run_audit gathers them after the other stages'.
+        lending_left_out = Exclusions()
+        with progress.stage("lending records"):
+            out["lending"], lending_inputs = lending_section(
+                spec, replace(inputs, exclusions=lending_left_out), frame
+            )
+        out["_records"] = tuple(lending_inputs)
+        out["_later_exclusions"] = lending_left_out
     if spec.explain is not None:
         with progress.stage("exclusion models and rules"):
             out["explain"] = analyses.explain_section(frame, spec, inputs.id_column, graph)

@@ -18,6 +18,18 @@ from typing import Any
 
 from .errors import SpecError
 from .presets import preset_population
+from .spec_lending import LendingSpec, lending_from
+from .spec_values import (
+    _bool,
+    _check_keys,
+    _choice,
+    _float,
+    _int,
+    _int_default,
+    _path,
+    _str,
+    _table,
+)
 
 if sys.version_info >= (3, 11):
     import tomllib
@@ -281,6 +293,7 @@ class AuditSpec:
     study_area: StudyAreaSpec | None = None
     #: Demographics tables joined on the id (``[[table]]``), beside ``[areas] table``.
     tables: tuple[TableSpec, ...] = ()
+    lending: LendingSpec | None = None
 
     @property
     def footprint(self) -> FootprintSpec:
@@ -338,6 +351,8 @@ class AuditSpec:
                 out[key] = _dataclass_dict(value)
         if self.tables:
             out["table"] = [_dataclass_dict(t) for t in self.tables]
+        if self.lending is not None:
+            out["lending"] = self.lending.to_dict()
         return out
 
 
@@ -394,6 +409,7 @@ _TOP_KEYS = (
     "activity",
     "study_area",
     "table",
+    "lending",
 )
 _TABLE_KEYS = ("path", "id")
 _EXPLAIN_KEYS = tuple(f.name for f in fields(ExplainSpec))
@@ -554,6 +570,7 @@ def spec_from_dict(
         source=Path(source) if source else None,
         study_area=study_area,
         tables=tables,
+        lending=lending_from(data.get("lending"), base, where),
     )
 
 
@@ -974,108 +991,6 @@ def _analysis_from(an_d: Mapping[str, Any], where: str) -> AnalysisSpec:
         dask_scheduler=_str(an_d, "dask_scheduler", where, t),
         partitions=_int(an_d, "partitions", where, t, minimum=1),
     )
-
-
-def _check_keys(table: Mapping[str, Any], allowed: tuple[str, ...], where: str, label: str) -> None:
-    unknown = [k for k in table if k not in allowed]
-    if unknown:
-        raise SpecError(
-            f'{where}: unknown key "{unknown[0]}" in {label}; allowed keys are {list(allowed)}'
-        )
-
-
-def _table(value: Any, where: str, label: str) -> Mapping[str, Any]:
-    if not isinstance(value, Mapping):
-        raise SpecError(f"{where}: [{label}] must be a table of settings, got {value!r}")
-    return value
-
-
-def _str(
-    d: Mapping[str, Any], key: str, where: str, label: str, required: bool = False
-) -> str | None:
-    value = d.get(key)
-    if value is None:
-        if required:
-            raise SpecError(f"{where}: [{label}] {key} is required")
-        return None
-    if not isinstance(value, str) or not value.strip():
-        raise SpecError(f"{where}: [{label}] {key} must be a non-empty string, got {value!r}")
-    return value
-
-
-def _path(
-    d: Mapping[str, Any], key: str, base: Path, where: str, label: str, required: bool = False
-) -> Path | None:
-    value = _str(d, key, where, label, required)
-    if value is None:
-        return None
-    p = Path(value).expanduser()
-    return p if p.is_absolute() else (base / p)
-
-
-def _bool(d: Mapping[str, Any], key: str, where: str, label: str, default: bool) -> bool:
-    value = d.get(key, default)
-    if not isinstance(value, bool):
-        raise SpecError(f"{where}: [{label}] {key} must be true or false, got {value!r}")
-    return value
-
-
-def _number(value: Any, key: str, where: str, label: str) -> float:
-    if isinstance(value, bool) or not isinstance(value, (int, float)) or not math.isfinite(value):
-        raise SpecError(f"{where}: [{label}] {key} must be a number, got {value!r}")
-    return float(value)
-
-
-def _float(
-    d: Mapping[str, Any],
-    key: str,
-    where: str,
-    label: str,
-    default: float,
-    low: float | None,
-    high: float | None,
-    open_low: bool = False,
-) -> float:
-    if key not in d:
-        return default
-    value = _number(d[key], key, where, label)
-    bad_low = low is not None and (value <= low if open_low else value < low)
-    bad_high = high is not None and value > high
-    if bad_low or bad_high:
-        lo = "" if low is None else (f"above {low}" if open_low else f"at least {low}")
-        hi = "" if high is None else f"at most {high}"
-        rng = " and ".join(s for s in (lo, hi) if s)
-        raise SpecError(f"{where}: [{label}] {key} was {value} but must be {rng}")
-    return value
-
-
-def _int(d: Mapping[str, Any], key: str, where: str, label: str, minimum: int = 0) -> int | None:
-    if key not in d:
-        return None
-    value = d[key]
-    if isinstance(value, bool) or not isinstance(value, int):
-        raise SpecError(f"{where}: [{label}] {key} must be a whole number, got {value!r}")
-    if value < minimum:
-        raise SpecError(f"{where}: [{label}] {key} was {value} but must be at least {minimum}")
-    return value
-
-
-def _int_default(
-    d: Mapping[str, Any], key: str, where: str, label: str, default: int, minimum: int = 0
-) -> int:
-    value = _int(d, key, where, label, minimum)
-    return default if value is None else value
-
-
-def _choice(
-    d: Mapping[str, Any], key: str, where: str, label: str, allowed: tuple[str, ...], default: str
-) -> str:
-    value = d.get(key, default)
-    if value not in allowed:
-        raise SpecError(
-            f'{where}: [{label}] {key} was "{value}" but is expected to be one of {list(allowed)}'
-        )
-    return str(value)
 
 
 def replace_output(spec: AuditSpec, **changes: bool) -> AuditSpec:

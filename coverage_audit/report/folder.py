@@ -126,12 +126,15 @@ def render(
     exclusions: pd.DataFrame,
     display: Display,
     progress: Any,
+    output: Mapping[str, Any] | None = None,
 ) -> tuple[dict[str, Path], dict[str, Any]]:
-    """Draw map.html and report.html as the spec's ``[output]`` asks.
+    """Draw map.html and report.html as ``output`` (the spec's ``[output]``) asks.
 
-    Returns the paths written and the map's description for the manifest.
+    Without ``output``, the manifest's resolved spec says. Returns the paths written and
+    the map's description for the manifest.
     """
-    output = manifest.get("spec", {}).get("output", {})
+    if output is None:
+        output = manifest.get("spec", {}).get("output", {})
     paths: dict[str, Path] = {}
     extra: dict[str, Any] = {}
     if output.get("map", True):
@@ -205,8 +208,12 @@ def read_folder(
     id_column = str(settings["id_column"])
     areas = pyogrio.read_dataframe(folder / "areas.gpkg", layer="areas")
     areas[id_column] = areas[id_column].astype(str)
+    # Only an empty cell is missing: ids such as HMDA's "NA" stay text.
     exclusions = pd.read_csv(
-        folder / "exclusions.csv", dtype={"source": str, "id": str, "reason": str}
+        folder / "exclusions.csv",
+        dtype={"source": str, "id": str, "reason": str},
+        keep_default_na=False,
+        na_values=[""],
     )
     exclusions["row"] = exclusions["row"].astype("Int64")
     layers = {str(name) for name, _ in pyogrio.list_layers(folder / FOOTPRINT_FILE)}
