@@ -233,7 +233,12 @@ def read_folder(
         ).geometry
     lag = None
     if (folder / MORAN_FILE).is_file():
-        table = pd.read_csv(folder / MORAN_FILE, dtype={"id": str}, float_precision="round_trip")
+        table = pd.read_csv(
+            folder / MORAN_FILE,
+            dtype={"id": str},
+            keep_default_na=False,
+            float_precision="round_trip",
+        )
         lag = np.full(len(areas), np.nan)
         where = pd.Index(areas[id_column]).get_indexer(table["id"])
         if (where < 0).any():
