@@ -13,6 +13,7 @@ import dataclasses
 import datetime as _dt
 import platform
 import warnings
+from collections.abc import Callable
 from dataclasses import dataclass, field, replace
 from importlib import metadata
 from pathlib import Path
@@ -25,18 +26,20 @@ import pandas as pd
 from . import analyses
 from ._util import to_jsonable
 from ._version import __version__
+from .accessibility import measure_access
 from .analyses import FurtherInputs, add_derived_columns, read_further_inputs
 from .clustering import clustering_summary
 from .coverage import CoverageResult, coverage_by_group, footprint_fractions, nearest_site_distance
 from .enclaves import find_enclaves, footprint_holes
-from .errors import AnalysisError, DegenerateStatisticWarning
+from .errors import AnalysisError, DegenerateStatisticWarning, InputError
 from .findings import build_findings
 from .footprint import Footprint, build_footprint
 from .inputs import AreaInputs, Exclusions, InputRecord, load_areas
 from .lending import lending_section  # also registers the lending findings
 from .margins import cautions, survey_error
 from .options import enclave_options
-from .outputs import write_all, write_json
+from .outputs import OutputClaim, claim_output_dir, folder_problem, write_all, write_json
+from .population_notice import population_scope
 from .progress import SilentProgress
 from .segregation import segregation_summary
 from .spec import AnalysisSpec, AuditSpec, load_spec, spec_from_dict
@@ -136,17 +139,44 @@ class AuditResult:
     extras: dict[str, Any] = field(default_factory=dict)
 
     def write(
-        self, out_dir: str | Path, *, progress: SilentProgress | None = None
+        self,
+        out_dir: str | Path,
+        *,
+        progress: SilentProgress | None = None,
+        claim: OutputClaim | None = None,
     ) -> dict[str, Path]:
-        """Write the output folder (see DESIGN.md's output contract); return the paths."""
+        """Write the output folder (see DESIGN.md's output contract); return the paths.
+
+        Everything is written into a fresh folder beside ``out_dir`` and swapped in at the
+        end (see :mod:`coverage_audit.outputs`), so the folder never mixes this run's
+        outputs with an earlier run's. ``claim`` is the folder already checked and locked
+        by :func:`~coverage_audit.outputs.claim_output_dir` (the CLI claims it before the
+        analysis); without it the folder is claimed here.
+        """
+        out = Path(out_dir)
+        own = claim is None
+        held = claim_output_dir(out) if claim is None else claim
+        try:
+            staged = self._write_into(held.staging(), out, progress or SilentProgress())
+            held.commit()
+        except OSError as exc:  # disk full, permissions changed meanwhile, ...
+            raise InputError(folder_problem(out, exc) + "; nothing was changed") from None
+        finally:
+            if own:
+                held.release()
+        return {key: out / path.name for key, path in staged.items()}
+
+    def _write_into(self, out: Path, final: Path, progress: SilentProgress) -> dict[str, Path]:
         # The drawing modules (matplotlib, the map) load only when an audit is written.
         from .report.folder import render, write_display
 
-        progress = progress or SilentProgress()
-        out = Path(out_dir)
         with progress.stage("writing tables"):
             paths = write_all(
-                out, summary=self.summary, areas=self.areas, exclusions=self.exclusions
+                out,
+                summary=self.summary,
+                areas=self.areas,
+                exclusions=self.exclusions,
+                id_columns=(self.id_column,),
             )
             display = self.display()
             paths.update(write_display(out, display, self.areas))
@@ -161,8 +191,10 @@ class AuditResult:
             output=dataclasses.asdict(self.spec.output),
         )
         paths.update(drawn)
-        # Written last and once, so it can say what the map and report hold.
         outputs = {key: to_plain(value) for key, value in extra.items()}
+        if isinstance(outputs.get("map"), dict) and "path" in outputs["map"]:
+            outputs["map"]["path"] = str(final / "map.html")  # where it ends up
+        # Written last and once, so it can say what the map and report hold.
         write_json(paths["manifest"], {**self.manifest, "outputs": outputs})
         return paths
 
@@ -246,6 +278,19 @@ def run_audit(
             tables=spec.tables,
         )
     frame = inputs.frame
+    with population_scope() as announce:  # every area without people: said once
+        return _run_audit(spec, progress, started, streams, inputs, frame, announce)
+
+
+def _run_audit(
+    spec: AuditSpec,
+    progress: SilentProgress,
+    started: _dt.datetime,
+    streams: dict[str, np.random.Generator],
+    inputs: AreaInputs,
+    frame: gpd.GeoDataFrame,
+    announce: Callable[[pd.DataFrame], str | None],
+) -> AuditResult:
     with progress.stage(f"building footprint '{spec.footprint.name}'"):
         footprint = build_footprint(
             spec.footprint,
@@ -257,6 +302,7 @@ def run_audit(
     inputs, study = _study_area(spec, inputs, footprint, progress)
     further = read_further_inputs(spec, inputs)
     frame = inputs.frame
+    notice = announce(frame)
     with progress.stage("measuring coverage"):
         coverage, frame = measure_coverage(spec, inputs, footprint, frame)
     frame = add_derived_columns(frame, spec, inputs.analysis_crs)
@@ -264,6 +310,7 @@ def run_audit(
     summary: dict[str, Any] = {
         "schema_version": SCHEMA_VERSION,
         "title": spec.title,
+        "population_notice": notice,
         "footprint": footprint.to_dict(),
         "areas": _areas_section(inputs, frame),
     }
@@ -427,6 +474,9 @@ def compute_statistics(
     out.update(
         _further_analyses(spec, inputs, footprint, frame, graph, sections, progress, further)
     )
+    if spec.access is not None:
+        with progress.stage("access (two-step floating catchment)"):
+            out["access"], frame["access"] = measure_access(spec, inputs, footprint, frame)
     out["_frame"] = frame
     out["_exclusions"] = left_out
     out["_report"] = (

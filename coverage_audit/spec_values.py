@@ -89,7 +89,14 @@ def _float(
     return value
 
 
-def _int(d: Mapping[str, Any], key: str, where: str, label: str, minimum: int = 0) -> int | None:
+def _int(
+    d: Mapping[str, Any],
+    key: str,
+    where: str,
+    label: str,
+    minimum: int = 0,
+    maximum: int | None = None,
+) -> int | None:
     if key not in d:
         return None
     value = d[key]
@@ -97,13 +104,24 @@ def _int(d: Mapping[str, Any], key: str, where: str, label: str, minimum: int = 
         raise SpecError(f"{where}: [{label}] {key} must be a whole number, got {value!r}")
     if value < minimum:
         raise SpecError(f"{where}: [{label}] {key} was {value} but must be at least {minimum}")
+    if maximum is not None and value > maximum:
+        raise SpecError(
+            f"{where}: [{label}] {key} was {value} but must be at most {maximum:,} "
+            f"(the largest this tool accepts); use a smaller number"
+        )
     return value
 
 
 def _int_default(
-    d: Mapping[str, Any], key: str, where: str, label: str, default: int, minimum: int = 0
+    d: Mapping[str, Any],
+    key: str,
+    where: str,
+    label: str,
+    default: int,
+    minimum: int = 0,
+    maximum: int | None = None,
 ) -> int:
-    value = _int(d, key, where, label, minimum)
+    value = _int(d, key, where, label, minimum, maximum)
     return default if value is None else value
 
 

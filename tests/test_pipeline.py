@@ -135,7 +135,7 @@ def test_every_module_imports_and_the_package_has_no_import_cycle():
     graph = _import_graph()
     for name in graph:
         importlib.import_module(name)
-    assert "coverage_audit.audit" in graph["coverage_audit"]  # the graph is read at all
+    assert "coverage_audit.weights" in graph["coverage_audit.audit"]  # the graph is read at all
     assert _cycles(graph) == []
 
 

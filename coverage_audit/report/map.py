@@ -16,7 +16,6 @@ import html
 import json
 import math
 import os
-import tempfile
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from pathlib import Path
@@ -32,11 +31,13 @@ from jinja2 import Template
 
 from .._util import clean_number, to_jsonable
 from ..errors import InputError, SpecError
+from ..geographic import data_centre, shift_longitudes, unwrap_longitudes
 from . import assets, palette
 from .map_context import group_label, outside_overlay, site_change_overlay
 from .shapes import empty_shapes as _empty_shapes
 from .shapes import encode_shapes
 from .shapes import has_polygon as _has_polygon
+from .view import MISSING_COLOR, View
 
 __all__ = [
     "COVERED_COLORS",
@@ -82,7 +83,6 @@ INCOME_COLORS: tuple[str, ...] = palette.INCOME_COLORS
 LISA_LABELS: tuple[str, ...] = palette.LISA_LABELS
 LISA_COLORS: tuple[str, ...] = palette.LISA_COLORS
 
-MISSING_COLOR = "#bdbdbd"
 FOOTPRINT_KINDS: tuple[str, ...] = ("polygons", "points", "ids", "zips")
 
 #: Display simplification tolerance as a fraction of the region's larger extent: a
@@ -97,66 +97,6 @@ _TILES = {
     "url": "https://tile.openstreetmap.org/{z}/{x}/{y}.png",
     "attribution": "(c) OpenStreetMap contributors",
 }
-
-
-@dataclass(frozen=True)
-class View:
-    """One way of colouring the areas, chosen in the layer control.
-
-    Attributes
-    ----------
-    key : str
-        Stable identifier (``covered``, ``share:<group>``, ``served`` ...).
-    label : str
-        Name in the layer control.
-    title : str
-        Legend heading.
-    field : str
-        Name of the per-area value array on the page that drives the colour.
-    type : {"bins", "codes"}
-        ``bins``: the class is the first ``k`` with ``value < thresholds[k]`` (else the
-        last class); ``codes``: the value is the class index.
-    colors, labels : tuple of str
-        One colour and one legend label per class.
-    thresholds : tuple of int
-        Class limits on the page's integer scale (``bins`` only).
-    has_missing : bool
-        Whether some area has no value (drawn in ``missing_color``).
-    missing_label : str
-        Legend label of areas with no value.
-    note : str or None
-        One line under the legend heading.
-    """
-
-    key: str
-    label: str
-    title: str
-    field: str
-    type: str
-    colors: tuple[str, ...]
-    labels: tuple[str, ...]
-    thresholds: tuple[int, ...] = ()
-    has_missing: bool = False
-    missing_label: str = "no data"
-    missing_color: str = MISSING_COLOR
-    note: str | None = None
-
-    def to_dict(self) -> dict[str, Any]:
-        """Return the view as JSON-safe data, as the page reads it."""
-        return {
-            "key": self.key,
-            "label": self.label,
-            "title": self.title,
-            "field": self.field,
-            "type": self.type,
-            "colors": list(self.colors),
-            "labels": list(self.labels),
-            "thresholds": list(self.thresholds),
-            "has_missing": self.has_missing,
-            "missing_label": self.missing_label,
-            "missing_color": self.missing_color,
-            "note": self.note,
-        }
 
 
 @dataclass(frozen=True)
@@ -630,6 +570,7 @@ def _footprint_overlays(
     crs: Any,
     tolerance: float,
     decimals: int,
+    centre: float = float("nan"),
 ) -> list[dict[str, Any]]:
     if footprint is None:
         return []
@@ -648,6 +589,7 @@ def _footprint_overlays(
         if tolerance > 0:
             geoms = shapely.simplify(geoms, tolerance, preserve_topology=True)
         lonlat = gpd.GeoSeries(geoms, crs=series.crs).to_crs(4326).values
+        lonlat = unwrap_longitudes(np.asarray(lonlat), centre)[0]  # one side of 180
         lonlat = np.asarray(lonlat)[_has_polygon(np.asarray(lonlat))]
         if lonlat.size:
             label = {
@@ -691,7 +633,7 @@ def _footprint_overlays(
                 "names": (
                     [str(v) for v in points.loc[pts.index, named]] if named is not None else None
                 ),
-                "lon": np.round(pts.x.to_numpy(), 6).tolist(),
+                "lon": np.round(shift_longitudes(pts.x.to_numpy(), centre), 6).tolist(),
                 "lat": np.round(pts.y.to_numpy(), 6).tolist(),
                 "radius_m": radius,
                 "color": "#1f1f1f",
@@ -704,7 +646,7 @@ def _footprint_overlays(
 
 
 def _enclave_overlay(
-    display: gpd.GeoSeries, enclave: pd.Series, decimals: int
+    display: gpd.GeoSeries, enclave: pd.Series, decimals: int, centre: float = float("nan")
 ) -> dict[str, Any] | None:
     ids = enclave.where(enclave.notna(), None)
     mask = ids.notna().to_numpy()
@@ -719,7 +661,7 @@ def _enclave_overlay(
     # Natural order E1, E2, ..., E10 rather than the string order E1, E10, E2.
     keys = sorted(dissolved.index, key=lambda s: (len(s), s))
     dissolved = dissolved.loc[keys].to_crs(4326)
-    geoms = np.asarray(dissolved.geometry.values)
+    geoms = unwrap_longitudes(np.asarray(dissolved.geometry.values), centre)[0]
     has = _has_polygon(geoms)
     return {
         "key": "enclaves",
@@ -827,22 +769,9 @@ def _render_page(title: str, bounds: list[list[float]], data_json: str) -> str:
 
 
 def _write_atomic(path: Path, text: str) -> int:
-    path.parent.mkdir(parents=True, exist_ok=True)
-    payload = text.encode("utf-8")
-    fd, tmp = tempfile.mkstemp(prefix=".map-", suffix=".html.tmp", dir=path.parent)
-    try:
-        with os.fdopen(fd, "wb") as fh:
-            fh.write(payload)
-        # mkstemp makes the file private (0600); a map is for sharing, so give it the
-        # permissions an ordinary open() would.
-        umask = os.umask(0)
-        os.umask(umask)
-        os.chmod(tmp, 0o666 & ~umask)
-        os.replace(tmp, path)
-    except BaseException:
-        Path(tmp).unlink(missing_ok=True)
-        raise
-    return len(payload)
+    from ..outputs import write_bytes
+
+    return write_bytes(path, text.encode("utf-8"))
 
 
 # --------------------------------------------------------------------------- public
@@ -947,13 +876,21 @@ def build_map(
     lonlat_has = _has_polygon(lonlat)
     if not lonlat_has.all():  # pragma: no cover - reprojection keeps polygons polygons
         lonlat = np.where(lonlat_has, lonlat, np.asarray(frame.geometry.to_crs(4326).values))
+    # A region across the antimeridian is drawn on one side of it, every layer alike.
+    centre = data_centre(lonlat)
+    lonlat = unwrap_longitudes(lonlat, centre)[0]
     n = int(len(frame))
     xmin, ymin, xmax, ymax = shapely.total_bounds(lonlat) if n else (0.0, 0.0, 0.0, 0.0)
     bounds = [[float(ymin), float(xmin)], [float(ymax), float(xmax)]]
 
     fields, missing = _fields(frame, id_column, groups, label_column)
     views = _views(frame, fields, missing, groups, reference, summary)
-    overlays = _footprint_overlays(footprint, areas.crs, tolerance, decimals)
+    from .access_sections import access_map_layer
+
+    if (layer := access_map_layer(frame, summary)) is not None:
+        fields["acc"], view = layer
+        views.append(view)
+    overlays = _footprint_overlays(footprint, areas.crs, tolerance, decimals, centre)
     region_bounds = None
     if outside is not None and len(outside):
         overlays.insert(0, outside_overlay(outside, tolerance, decimals))
@@ -968,7 +905,7 @@ def build_map(
     codes: dict[str, list[str]] = {"tier": list(INCOME_TIERS), "lisa": list(LISA_LABELS)}
     if "enclave_id" in frame.columns:
         enclave = _enclave_overlay(
-            display_series, frame["enclave_id"].reset_index(drop=True), decimals
+            display_series, frame["enclave_id"].reset_index(drop=True), decimals, centre
         )
         if enclave is not None:
             overlays.insert(0, enclave)
