@@ -179,7 +179,8 @@ class AuditResult:
                 id_columns=(self.id_column,),
             )
             display = self.display()
-            paths.update(write_display(out, display, self.areas))
+            if self.spec.output.map or self.spec.output.report:  # what the pages draw
+                paths.update(write_display(out, display, self.areas))
         drawn, extra = render(
             out,
             summary=self.summary,
