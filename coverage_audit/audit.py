@@ -279,6 +279,7 @@ def run_audit(
     exclusions = inputs.exclusions
     summary["exclusions"] = {"count": exclusions.count(), "by_reason": exclusions.by_reason()}
     summary["cautions"] = cautions(CAUTIONS, summary)
+    from . import lending as _lending  # noqa: F401  (registers the lending findings)
     from .findings import build_findings
 
     summary["group_labels"] = spec.population.group_labels
@@ -515,6 +516,12 @@ def _further_analyses(
         with progress.stage("peer comparison"):
             out["peers"], record = analyses.peers_section(spec, inputs, frame)
         inputs.inputs.append(record)
+    if spec.lending is not None:
+        from .lending import lending_section
+
+        with progress.stage("lending records"):
+            out["lending"], lending_inputs = lending_section(spec, inputs, frame)
+        inputs.inputs.extend(lending_inputs)
     if spec.explain is not None:
         with progress.stage("exclusion models and rules"):
             out["explain"] = analyses.explain_section(frame, spec, inputs.id_column, graph)

@@ -146,7 +146,7 @@ def _build_parser() -> argparse.ArgumentParser:
         description=(
             "Run every scenario of the bundled fictional demo region (a delivery zone, a "
             "branch network, an assessment area, an outreach program audited with margins of "
-            "error) and write each one's outputs."
+            "error, a mortgage lending review from loan records) and write each one's outputs."
         ),
     )
     demo.add_argument(
@@ -158,7 +158,7 @@ def _build_parser() -> argparse.ArgumentParser:
     demo.add_argument(
         "--scenario",
         action="append",
-        choices=["delivery", "branches", "assessment_area", "outreach"],
+        choices=["delivery", "branches", "assessment_area", "outreach", "lending"],
         help="run only this scenario (repeatable; default: all)",
     )
     demo.add_argument(
@@ -486,6 +486,12 @@ def _cmd_check(args: argparse.Namespace) -> int:
     for reason, n in ex.by_reason().items():
         print(f"  {n:6d}  {reason}")
     print(f"analysis CRS: {inputs.analysis_crs.srs}")
+    if spec.lending is not None:
+        from .io.hmda import read_header
+
+        for path in spec.lending.path:
+            delimiter, names = read_header(path)
+            print(f"lending records {path.name}: header of {len(names)} fields, '{delimiter}'")
     return EXIT_OK
 
 

@@ -100,6 +100,32 @@ hub = [-135.0, -32.0]
 hub_name = "downtown"
 """,
     ),
+    "lending": (
+        "Mortgage lending review, Ostmere Savings",
+        """[footprint]
+name = "branches_2026"
+path = "branches.geojson"
+radius = 2
+radius_unit = "km"
+
+[lending]
+path = "hmda_records.txt"
+lender = "9999OSTMERESAVINGS01"
+lender_name = "Ostmere Savings"
+years = [2022, 2023, 2024]
+markets = ["90010"]
+peers = "market"
+band = [0.5, 2.0]
+alpha = 0.05
+
+[lending.lender_names]
+9999HARBORMUTUAL0001 = "Harbor Mutual"
+9999TIDEWATERCREDI01 = "Tidewater Credit Union"
+9999COPPERLINEBANK01 = "Copperline Bank"
+9999SALTMARSHFEDER01 = "Saltmarsh Federal"
+9999LANTERNFISHLEN01 = "Lanternfish Lending"
+""",
+    ),
     "assessment_area": (
         "Assessment area, Ostmere Savings",
         '[footprint]\nname = "assessment_area"\nserved_ids = "assessment_area.csv"\n'
@@ -370,6 +396,7 @@ def write_demo_region(folder: str | Path, seed: int = DEMO_SEED) -> Path:
         out / "assessment_area.csv", index=False, lineterminator="\n"
     )
     write_download_files(out, cells, demo, seed)
+    write_lending_records(out / "hmda_records.txt", cells, demo, seed)
     for key, (title, footprint) in SCENARIOS.items():
         if key == "zip_delivery":
             (out / f"{key}.toml").write_text(
@@ -388,6 +415,55 @@ def write_demo_region(folder: str | Path, seed: int = DEMO_SEED) -> Path:
     write_margin_scenario(out, cells, demo, seed)
     (out / "README.md").write_text(_readme(len(cells)), encoding="utf-8")
     return out
+
+
+#: Yearly applications and tilt in majority-minority tracts of each fictional lender of
+#: the record file: Ostmere Savings draws less than half as much from those tracts.
+_RECORD_LENDERS = (
+    ("Ostmere Savings", 260, 0.45, 20),
+    ("Harbor Mutual", 215, 1.05, 0),
+    ("Tidewater Credit Union", 130, 1.0, 0),
+    ("Copperline Bank", 170, 0.95, 30),
+    ("Saltmarsh Federal", 90, 1.1, 0),
+    ("Lanternfish Lending", 60, 1.0, 0),
+)
+
+
+def write_lending_records(
+    path: Path, cells: gpd.GeoDataFrame, demo: pd.DataFrame, seed: int
+) -> Path:
+    """Write the fictional HMDA-layout record file of the demo region (pipe-delimited).
+
+    Six made-up lenders (LEI-like codes starting 9999), 2022-2024, one fictional MSA/MD
+    (90010); a few records per lender and year have an ``NA`` tract, as published files
+    do. Drawn from its own seeded stream, so the other demo files do not change.
+    """
+    from .synthetic_lending import FictionalLender, fictional_lei, lending_records
+
+    total = demo["pop_total"].to_numpy(dtype=float)
+    tracts = pd.DataFrame(
+        {
+            "geoid": cells["geoid"].to_numpy(),
+            "minority_pct": np.round(100.0 * _minority_share(demo), 2),
+            "income_pct": demo["income_ratio"].fillna(0.0).to_numpy(dtype=float),
+            "population": total,
+            "households": demo["households"].to_numpy(dtype=float),
+        }
+    )
+    lenders = [
+        FictionalLender(
+            lei=fictional_lei(name.replace(" ", ""), 1),
+            name=name,
+            applications_per_year=volume,
+            minority_tilt=tilt,
+            purchased_per_year=bought,
+        )
+        for name, volume, tilt, bought in _RECORD_LENDERS
+    ]
+    rng = np.random.default_rng([seed, 15])
+    records = lending_records(tracts, lenders, (2022, 2023, 2024), rng, na_tracts=2)
+    records.to_csv(path, sep="|", index=False, lineterminator="\n")
+    return path
 
 
 #: The scenario whose demographics carry margins of error (a table of its own, so the

@@ -18,6 +18,7 @@ from typing import Any
 
 from .errors import SpecError
 from .presets import preset_population
+from .spec_lending import LendingSpec, lending_from
 
 if sys.version_info >= (3, 11):
     import tomllib
@@ -281,6 +282,7 @@ class AuditSpec:
     study_area: StudyAreaSpec | None = None
     #: Demographics tables joined on the id (``[[table]]``), beside ``[areas] table``.
     tables: tuple[TableSpec, ...] = ()
+    lending: LendingSpec | None = None
 
     @property
     def footprint(self) -> FootprintSpec:
@@ -338,6 +340,8 @@ class AuditSpec:
                 out[key] = _dataclass_dict(value)
         if self.tables:
             out["table"] = [_dataclass_dict(t) for t in self.tables]
+        if self.lending is not None:
+            out["lending"] = self.lending.to_dict()
         return out
 
 
@@ -394,6 +398,7 @@ _TOP_KEYS = (
     "activity",
     "study_area",
     "table",
+    "lending",
 )
 _TABLE_KEYS = ("path", "id")
 _EXPLAIN_KEYS = tuple(f.name for f in fields(ExplainSpec))
@@ -554,6 +559,7 @@ def spec_from_dict(
         source=Path(source) if source else None,
         study_area=study_area,
         tables=tables,
+        lending=lending_from(data.get("lending"), base, where),
     )
 
 

@@ -75,6 +75,24 @@ def spec_text(
     )
 
 
+def write_two_by_two(folder: Path, **columns: list) -> Path:
+    """Write the 2 x 2 grid (areas.gpkg, with any extra ``columns``) and zone.gpkg."""
+    areas = grid(2, 2)
+    areas["total"] = [100, 200, 300, 400]
+    areas["white"] = [80, 50, 30, 100]
+    areas["black"] = [10, 150, 250, 300]
+    for name, values in columns.items():
+        areas[name] = values
+    areas.to_file(folder / "areas.gpkg", layer="areas", driver="GPKG")
+    footprint = gpd.GeoDataFrame(
+        {"zone": ["a", "b"]},
+        geometry=[shapely.box(0, 0, 500, 1000), shapely.box(0, 1000, 1000, 2000)],
+        crs=GRID_CRS,
+    )
+    footprint.to_file(folder / "zone.gpkg", driver="GPKG")
+    return folder
+
+
 @pytest.fixture
 def two_by_two(tmp_path: Path) -> Path:
     """A 2 x 2 grid with hand-picked counts and a footprint covering the left half of
@@ -82,17 +100,7 @@ def two_by_two(tmp_path: Path) -> Path:
 
     Cells: 1 (0,0)  2 (1,0)  3 (0,1)  4 (1,1), each 1 km x 1 km.
     """
-    areas = grid(2, 2)
-    areas["total"] = [100, 200, 300, 400]
-    areas["white"] = [80, 50, 30, 100]
-    areas["black"] = [10, 150, 250, 300]
-    areas.to_file(tmp_path / "areas.gpkg", layer="areas", driver="GPKG")
-    footprint = gpd.GeoDataFrame(
-        {"zone": ["a", "b"]},
-        geometry=[shapely.box(0, 0, 500, 1000), shapely.box(0, 1000, 1000, 2000)],
-        crs=GRID_CRS,
-    )
-    footprint.to_file(tmp_path / "zone.gpkg", driver="GPKG")
+    write_two_by_two(tmp_path)
     write_spec(tmp_path / "audit.toml", spec_text('path = "zone.gpkg"'))
     return tmp_path
 

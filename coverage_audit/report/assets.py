@@ -392,6 +392,9 @@ window.coverageAuditDraw = function (map, D) {
     if (F.tier) { row(t, "Income tier", F.tier[i] === null ? "n/a" : D.codes.tier[F.tier[i]]); }
     if (F.inc) { row(t, "Income ratio (% of area median)", fmtNum(F.inc[i], 1)); }
     if (F.dist) { row(t, "Nearest site", F.dist[i] === null ? "n/a" : fmtInt(F.dist[i]) + " m"); }
+    if (F.lapp) { row(t, "Lender's applications", F.lapp[i] === null ? "n/a" : fmtInt(F.lapp[i])); }
+    if (F.lsh) { row(t, "Lender's share of applications", F.lsh[i] === null ? "no applications" : fmtPct(F.lsh[i], D.scales.share)); }
+    if (F.lgap) { row(t, "Lending gap", F.lgap[i] === null ? "n/a" : (F.lgap[i] ? "yes" : "no")); }
     if (F.lisa) {
       var lc = F.lisa[i] === null ? "left out" : D.codes.lisa[F.lisa[i]];
       if (D.lisa_fdr && F.lisa_q && F.lisa_q[i] !== null) {

@@ -14,6 +14,8 @@ from typing import Any
 
 from .compare_sections import change_section, comparison_section, peers_section, ranked_rate
 from .explain_sections import explain_section, flags_of, sensitivity_section, sweep_groups
+from .lending_sections import key_figures as lending_key_figures
+from .lending_sections import lending_section
 from .markup import (
     NA,
     Html,
@@ -34,6 +36,7 @@ FURTHER_SECTIONS: tuple[tuple[str, str, Callable[[Page], Html]], ...] = (
     ("comparison", "Footprints compared", comparison_section),
     ("change", "Change between footprints", change_section),
     ("peers", "Lending activity against peers", peers_section),
+    ("lending", "Lending patterns from loan records", lending_section),
     ("explain", "Is the gap explained by other factors?", explain_section),
     ("sensitivity", "Does the finding hold?", sensitivity_section),
 )
@@ -112,6 +115,7 @@ def key_figures(page: Page) -> list[Html]:
                 + ".",
             )
         )
+    items.extend(lending_key_figures(page))
     sens = as_mapping(summary.get("sensitivity"))
     thresholds = records(sens.get("thresholds"))
     if thresholds and not skipped_reason(sens):

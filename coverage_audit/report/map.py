@@ -629,7 +629,40 @@ def _views(
                 note="; ".join(parts),
             )
         )
+    if "lsh" in fields:
+        views.extend(_lending_views(missing, summary))
     return views
+
+
+def _lending_views(missing: dict[str, bool], summary: Mapping[str, Any]) -> list[View]:
+    """Return the lending review's layers: lender share of applications by tract, and gaps."""
+    lender = (summary.get("lending") or {}).get("lender") or {}
+    name = str(lender.get("name") or lender.get("lei") or "the lender")
+    return [
+        View(
+            key="lender_share",
+            label="Lender share of applications",
+            title=f"{name}: share of all applications in the area",
+            field="lsh",
+            type="bins",
+            colors=SHARE_COLORS,
+            labels=SHARE_LABELS,
+            thresholds=SHARE_THRESHOLDS,
+            has_missing=missing["lsh"],
+            missing_label="no applications",
+            note="HMDA records in the review's years and markets",
+        ),
+        View(
+            key="lending_gap",
+            label="Lending gaps",
+            title=f"Footprint areas with no or few applications to {name}",
+            field="lgap",
+            type="codes",
+            colors=("#e4e1d8", "#c2423b"),
+            labels=("not a gap", "lending gap"),
+            has_missing=missing["lgap"],
+        ),
+    ]
 
 
 def _texts(title: str, summary: Mapping[str, Any], n: int, footprint: Mapping | None) -> dict:
@@ -1185,6 +1218,12 @@ def _fields(
         fields["lisa"], missing["lisa"] = _category_codes(
             frame["lisa_cluster"], LISA_LABELS, "lisa_cluster"
         )
+    if "lender_share" in frame.columns:  # the lending review's layers
+        fields["lsh"] = _scaled_fraction(frame["lender_share"], SHARE_SCALE, "lender_share")
+        missing["lsh"] = any(v is None for v in fields["lsh"])
+        apps = pd.to_numeric(frame["lender_applications"], errors="coerce").to_numpy(dtype=float)
+        fields["lapp"] = _nullable(np.rint(np.nan_to_num(apps)).astype(np.int64), np.isfinite(apps))
+        fields["lgap"], missing["lgap"] = _bool_codes(frame["lending_gap"])
     if "lisa_p" in frame.columns:
         lp = pd.to_numeric(frame["lisa_p"], errors="coerce").to_numpy(dtype=float)
         ok = np.isfinite(lp)
