@@ -13,6 +13,7 @@ from typing import Any
 
 import numpy as np
 
+njit: Any
 try:  # numba is a declared dependency; the array path remains when it cannot load.
     from numba import njit
 except ImportError:  # pragma: no cover - exercised only without numba
@@ -59,6 +60,4 @@ def _grow_block_py(
         fill[r] = count
 
 
-grow_block: Any = (
-    njit(cache=True, nogil=True)(_grow_block_py) if njit is not None else None
-)
+grow_block: Any = njit(cache=True, nogil=True)(_grow_block_py) if njit is not None else None

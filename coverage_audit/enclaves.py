@@ -1049,7 +1049,7 @@ def _contrast_tests(
 def _set_sums(
     sets: np.ndarray, pop: np.ndarray, minority: np.ndarray
 ) -> tuple[np.ndarray, np.ndarray]:
-    """Population and minority count of each drawn set, a few thousand sets' rows at a time."""
+    """Return the population and minority count of each drawn set, summed in blocks."""
     rows = max(1, (1 << 22) // max(sets.shape[1], 1))
     draw_pop = np.empty(sets.shape[0])
     draw_minority = np.empty(sets.shape[0])
