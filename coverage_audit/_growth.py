@@ -60,4 +60,16 @@ def _grow_block_py(
         fill[r] = count
 
 
+def _forget_py(
+    seen: np.ndarray, members: np.ndarray, frontier: np.ndarray, fill: np.ndarray
+) -> None:  # pragma: no cover - compiled by numba
+    """Unmark in ``seen`` every draw's members and live frontier entries."""
+    for r in range(seen.shape[0]):
+        for s in range(members.shape[1]):
+            seen[r, members[r, s]] = False
+        for s in range(fill[r]):
+            seen[r, frontier[r, s]] = False
+
+
+forget: Any = njit(cache=True, nogil=True)(_forget_py) if njit is not None else None
 grow_block: Any = njit(cache=True, nogil=True)(_grow_block_py) if njit is not None else None

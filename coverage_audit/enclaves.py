@@ -23,7 +23,7 @@ import scipy.sparse as sp
 import shapely
 from scipy.sparse.csgraph import connected_components
 
-from ._growth import grow_block
+from ._growth import forget, grow_block
 from ._util import clean_number, safe_ratio, to_jsonable
 from .errors import AnalysisError, SpecError
 from .weights import AreaGraph, SharedBoundaries
@@ -1203,9 +1203,7 @@ def _grow_compiled(
             grow_block(table, block_seen, frontier, fill, added, members, uniforms, step)
             step += steps
         # Reset only what this chunk touched: the members and the live frontier entries.
-        block_seen[rows[:, None], members] = False
-        live = np.arange(frontier.shape[1])[None, :] < fill[:, None]
-        block_seen[np.broadcast_to(rows[:, None], frontier.shape)[live], frontier[live]] = False
+        forget(block_seen, members, frontier, fill)
     return members_all
 
 
