@@ -22,7 +22,7 @@ from pyproj import Geod, Transformer
 from .coverage import coverage_by_group, covered_fraction, footprint_fractions
 from .errors import AnalysisError, DegenerateStatisticWarning, InputError
 from .footprint import Footprint, build_footprint, cut_pieces, geodesic_circles
-from .inputs import AreaInputs, InputRecord, ids_as_text, read_table, sha256_file
+from .inputs import AreaInputs, InputRecord, ids_as_text, read_hashed, read_table
 from .io.joins import MatchReport, match_ids
 from .spec import AuditSpec
 from .weights import AreaGraph
@@ -317,8 +317,12 @@ def read_activity(
     """
     activity = spec.activity
     assert activity is not None
-    table = read_table(activity.path, id_column=activity.id, role="activity table")
-    record = InputRecord("activity", str(activity.path), sha256_file(activity.path), len(table))
+    table, digest = read_hashed(
+        activity.path,
+        lambda: read_table(activity.path, id_column=activity.id, role="activity table"),
+        role="activity table",
+    )
+    record = InputRecord("activity", str(activity.path), digest, len(table))
     if activity.id not in table.columns:
         raise InputError(
             f"activity table '{activity.path}' has no id column {activity.id!r}; its columns are "

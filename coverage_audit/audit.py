@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import datetime as _dt
 import platform
+from collections.abc import Callable
 from dataclasses import dataclass, field
 from importlib import metadata
 from pathlib import Path
@@ -24,6 +25,8 @@ from . import __version__
 from .coverage import CoverageResult, coverage_by_group, footprint_fractions, nearest_site_distance
 from .footprint import Footprint, build_footprint
 from .inputs import AreaInputs, load_areas
+from .outputs import OutputClaim
+from .population_notice import population_scope
 from .progress import SilentProgress
 from .spec import AuditSpec, load_spec, spec_from_dict
 
@@ -116,17 +119,49 @@ class AuditResult:
     extras: dict[str, Any] = field(default_factory=dict)
 
     def write(
-        self, out_dir: str | Path, *, progress: SilentProgress | None = None
+        self,
+        out_dir: str | Path,
+        *,
+        progress: SilentProgress | None = None,
+        claim: OutputClaim | None = None,
     ) -> dict[str, Path]:
-        """Write the output folder (see DESIGN.md's output contract); return the paths."""
+        """Write the output folder (see DESIGN.md's output contract); return the paths.
+
+        Everything is written into a fresh folder beside ``out_dir`` and swapped in at the
+        end (see :mod:`coverage_audit.outputs`), so the folder never mixes this run's
+        outputs with an earlier run's. ``claim`` is the folder already checked and locked
+        by :func:`~coverage_audit.outputs.claim_output_dir` (the CLI claims it before the
+        analysis); without it the folder is claimed here.
+        """
+        from .outputs import claim_output_dir
+
+        out = Path(out_dir)
+        own = claim is None
+        held = claim_output_dir(out) if claim is None else claim
+        try:
+            staged = self._write_into(held.staging(), out, progress or SilentProgress())
+            held.commit()
+        except OSError as exc:  # disk full, permissions changed meanwhile, ...
+            from .errors import InputError
+            from .outputs import folder_problem
+
+            raise InputError(folder_problem(out, exc) + "; nothing was changed") from None
+        finally:
+            if own:
+                held.release()
+        return {key: out / path.name for key, path in staged.items()}
+
+    def _write_into(self, out: Path, final: Path, progress: SilentProgress) -> dict[str, Path]:
         from .outputs import write_all, write_json
 
-        progress = progress or SilentProgress()
-        out = Path(out_dir)
         extra: dict[str, Any] = {}
         with progress.stage("writing tables"):
             paths = write_all(
-                out, summary=self.summary, areas=self.areas, exclusions=self.exclusions
+                out,
+                summary=self.summary,
+                areas=self.areas,
+                exclusions=self.exclusions,
+                id_columns=(self.id_column,),
             )
         if self.spec.output.map or self.spec.output.report:
             from .report import build_map, build_report
@@ -148,6 +183,8 @@ class AuditResult:
                     )
                 paths["map"] = out / "map.html"
                 extra["map"] = to_plain(info)
+                if isinstance(extra["map"], dict) and "path" in extra["map"]:
+                    extra["map"]["path"] = str(final / "map.html")  # where it ends up
             if self.spec.output.report:
                 with progress.stage("writing the report"):
                     build_report(
@@ -235,6 +272,19 @@ def run_audit(
             tables=spec.tables,
         )
     frame = inputs.frame
+    with population_scope() as announce:  # every area without people: said once
+        return _run_audit(spec, progress, started, streams, inputs, frame, announce)
+
+
+def _run_audit(
+    spec: AuditSpec,
+    progress: SilentProgress,
+    started: _dt.datetime,
+    streams: dict[str, np.random.Generator],
+    inputs: AreaInputs,
+    frame: gpd.GeoDataFrame,
+    announce: Callable[[pd.DataFrame], str | None],
+) -> AuditResult:
     with progress.stage(f"building footprint '{spec.footprint.name}'"):
         footprint = build_footprint(
             spec.footprint,
@@ -245,6 +295,7 @@ def run_audit(
         )
     inputs, study = _study_area(spec, inputs, footprint, progress)
     frame = inputs.frame
+    notice = announce(frame)
     with progress.stage("measuring coverage"):
         coverage, frame = measure_coverage(spec, inputs, footprint, frame)
     from .analyses import add_derived_columns
@@ -254,6 +305,7 @@ def run_audit(
     summary: dict[str, Any] = {
         "schema_version": SCHEMA_VERSION,
         "title": spec.title,
+        "population_notice": notice,
         "footprint": footprint.to_dict(),
         "areas": _areas_section(inputs, frame),
     }
@@ -420,6 +472,11 @@ def compute_statistics(
     frame["enclave_id"] = result.enclave_id
     sections = {**out, "coverage": coverage_section}
     out.update(_further_analyses(spec, inputs, footprint, frame, graph, sections, progress))
+    if spec.access is not None:
+        from .accessibility import measure_access
+
+        with progress.stage("access (two-step floating catchment)"):
+            out["access"], frame["access"] = measure_access(spec, inputs, footprint, frame)
     out["_frame"] = frame
     out["_report"] = (
         {"moran_weights": graph.stats_graph("r"), "moran_mask": graph.stats_mask}

@@ -8,6 +8,8 @@ with status 2; no traceback unless ``--debug``.
 from __future__ import annotations
 
 import argparse
+import os
+import signal
 import sys
 import time
 import warnings
@@ -30,6 +32,10 @@ DESCRIPTION = (
 )
 
 
+#: Title of the group of ``run`` options that describe an audit without a spec file.
+INLINE_GROUP = "describing the audit without a spec file"
+
+
 def _build_parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(
         prog="coverage-audit",
@@ -45,8 +51,9 @@ def _build_parser() -> argparse.ArgumentParser:
         help="run an audit described by a TOML spec (or by options)",
         description=(
             "Run an audit. Give a TOML spec file, or describe the audit with the options "
-            "below (options also override the spec's settings). Outputs: summary.json, "
-            "areas.csv, areas.gpkg, exclusions.csv, manifest.json, map.html, report.html."
+            "below (not both: with a spec, edit the spec instead). The analysis settings "
+            "override the spec's. Outputs: summary.json, areas.csv, areas.gpkg, "
+            "exclusions.csv, manifest.json, map.html, report.html."
         ),
     )
     run.add_argument(
@@ -59,7 +66,7 @@ def _build_parser() -> argparse.ArgumentParser:
         "--out",
         type=Path,
         default=None,
-        help="folder for the outputs (default: outputs/<spec name>)",
+        help="folder for the outputs, replaced as a whole when the run ends; a folder holding other files is refused (default: outputs/<spec name>)",
     )
     run.add_argument(
         "--open",
@@ -68,8 +75,9 @@ def _build_parser() -> argparse.ArgumentParser:
     )
     _add_common(run)
     inline = run.add_argument_group(
-        "describing the audit without a spec file",
-        "Use these instead of SPEC; --write-spec saves them as a spec for exact reruns.",
+        INLINE_GROUP,
+        "Use these instead of SPEC (a spec given with any of them is refused); "
+        "--write-spec saves them as a spec for exact reruns, paths relative to it.",
     )
     inline.add_argument(
         "--areas", type=Path, help="areas layer: GeoPackage, GeoJSON, Shapefile or GeoParquet"
@@ -146,7 +154,8 @@ def _build_parser() -> argparse.ArgumentParser:
         description=(
             "Run every scenario of the bundled fictional demo region (a delivery zone, a "
             "branch network, an assessment area, an outreach program audited with margins of "
-            "error, a mortgage lending review from loan records) and write each one's outputs."
+            "error, a mortgage lending review from loan records, clinics with their doctors) "
+            "and write each one's outputs."
         ),
     )
     demo.add_argument(
@@ -158,7 +167,7 @@ def _build_parser() -> argparse.ArgumentParser:
     demo.add_argument(
         "--scenario",
         action="append",
-        choices=["delivery", "branches", "assessment_area", "outreach", "lending"],
+        choices=["delivery", "branches", "assessment_area", "outreach", "lending", "clinics"],
         help="run only this scenario (repeatable; default: all)",
     )
     demo.add_argument(
@@ -229,8 +238,25 @@ def _overrides(args: argparse.Namespace) -> dict[str, Any]:
     return out
 
 
-def spec_dict_from_options(args: argparse.Namespace) -> dict[str, Any]:
-    """Build a spec mapping from ``run`` options (no spec file)."""
+def _path_text(path: Path, relative_to: Path | None) -> str:
+    """Absolute path text, or relative to ``relative_to`` (a folder) when given."""
+    absolute = path.resolve()
+    if relative_to is None:
+        return str(absolute)
+    try:
+        return Path(os.path.relpath(absolute, relative_to.resolve())).as_posix()
+    except ValueError:  # another drive (Windows): only an absolute path works
+        return str(absolute)
+
+
+def spec_dict_from_options(
+    args: argparse.Namespace, relative_to: Path | None = None
+) -> dict[str, Any]:
+    """Build a spec mapping from ``run`` options (no spec file).
+
+    Paths are absolute, or relative to the folder ``relative_to`` when given (the folder
+    of the spec file written by ``--write-spec``, so that the spec moves with its data).
+    """
     missing = [
         flag
         for flag, value in (
@@ -254,7 +280,7 @@ def spec_dict_from_options(args: argparse.Namespace) -> dict[str, Any]:
             )
         name, column = item.split("=", 1)
         groups[name.strip()] = column.strip()
-    areas: dict[str, Any] = {"path": str(args.areas.resolve()), "id": args.id_column}
+    areas: dict[str, Any] = {"path": _path_text(args.areas, relative_to), "id": args.id_column}
     for key, value in (
         ("layer", args.areas_layer),
         ("crs", args.areas_crs),
@@ -264,7 +290,7 @@ def spec_dict_from_options(args: argparse.Namespace) -> dict[str, Any]:
         if value is not None:
             areas[key] = value
     if args.table is not None:
-        areas["table"] = str(args.table.resolve())
+        areas["table"] = _path_text(args.table, relative_to)
     population: dict[str, Any] = {
         "total": args.total,
         "groups": groups,
@@ -276,7 +302,7 @@ def spec_dict_from_options(args: argparse.Namespace) -> dict[str, Any]:
         population["income_ratio"] = args.income_ratio
     footprint: dict[str, Any] = {}
     if args.footprint is not None:
-        footprint["path"] = str(args.footprint.resolve())
+        footprint["path"] = _path_text(args.footprint, relative_to)
         footprint["name"] = args.footprint_name or args.footprint.stem
         if args.radius is not None:
             footprint["kind"] = "points"
@@ -286,7 +312,7 @@ def spec_dict_from_options(args: argparse.Namespace) -> dict[str, Any]:
     elif args.served_ids is not None:
         footprint = {
             "name": args.footprint_name or args.served_ids.stem,
-            "served_ids": str(args.served_ids.resolve()),
+            "served_ids": _path_text(args.served_ids, relative_to),
         }
     elif args.served_column:
         footprint = {
@@ -333,6 +359,7 @@ def toml_text(data: dict[str, Any]) -> str:
 
 def _run_one(spec: Any, out: Path, args: argparse.Namespace, stream: Any) -> dict[str, Any]:
     from .audit import run_audit
+    from .outputs import claim_output_dir
     from .spec import replace_output
 
     progress = progress_for(sys.stderr, args.quiet)
@@ -343,8 +370,10 @@ def _run_one(spec: Any, out: Path, args: argparse.Namespace, stream: Any) -> dic
             report=not args.no_report and spec.output.report,
         )
     t0 = time.perf_counter()
-    result = run_audit(spec, progress=progress)
-    paths = result.write(out, progress=progress)
+    # The output folder is checked and locked before the analysis, not after it.
+    with claim_output_dir(out) as claim:
+        result = run_audit(spec, progress=progress)
+        paths = result.write(out, progress=progress, claim=claim)
     if not args.quiet:
         from .console import print_summary
 
@@ -358,10 +387,41 @@ def _run_one(spec: Any, out: Path, args: argparse.Namespace, stream: Any) -> dic
     return result.summary
 
 
+def _inline_options_given(parser: argparse.ArgumentParser, args: argparse.Namespace) -> list[str]:
+    """Return the options of the inline group that were given (differ from their default)."""
+    run = _subparser(parser, "run")
+    given = []
+    for group in run._action_groups:
+        if group.title != INLINE_GROUP:
+            continue
+        for action in group._group_actions:
+            value = getattr(args, action.dest, None)
+            if value is not None and value != action.default:
+                given.append(action.option_strings[0])
+    return given
+
+
+def _subparser(parser: argparse.ArgumentParser, name: str) -> argparse.ArgumentParser:
+    for action in parser._actions:
+        if isinstance(action, argparse._SubParsersAction):
+            return action.choices[name]
+    raise KeyError(name)  # pragma: no cover
+
+
 def _cmd_run(args: argparse.Namespace) -> int:
     from .spec import load_spec, spec_from_dict
 
     if args.spec is not None:
+        given = _inline_options_given(_build_parser(), args)
+        if given:
+            what = "options" if len(given) > 1 else "option"
+            verb = "describe" if len(given) > 1 else "describes"
+            raise SpecError(
+                f"the {what} {', '.join(given)} {verb} an audit without a spec file and cannot "
+                f"be combined with the spec '{args.spec}'; change the spec instead (e.g. "
+                "[footprint] path or radius), or leave the spec out and describe the whole "
+                "audit with options (see coverage-audit run --help)"
+            )
         spec = load_spec(args.spec)
         default_out = Path("outputs") / args.spec.stem
     else:
@@ -369,7 +429,15 @@ def _cmd_run(args: argparse.Namespace) -> int:
         if args.write_spec is not None:
             from .outputs import write_text
 
-            write_text(args.write_spec, toml_text(data))
+            relative = spec_dict_from_options(args, relative_to=args.write_spec.parent)
+            try:
+                write_text(args.write_spec, toml_text(relative))
+            except OSError as exc:
+                from .outputs import folder_problem
+
+                raise SpecError(
+                    folder_problem(args.write_spec, exc, "--write-spec file", "--write-spec")
+                ) from None
         spec = spec_from_dict(data, base_dir=Path.cwd(), source="options")
         default_out = Path("outputs") / spec.footprint.name
     overrides = _overrides(args)
@@ -381,8 +449,10 @@ def _cmd_run(args: argparse.Namespace) -> int:
 
 def _cmd_demo(args: argparse.Namespace) -> int:
     from .demo import DEMO_NAME, MARGIN_SCENARIO, SCENARIOS, write_demo_region
+    from .outputs import prepare_output_dir
     from .spec import load_spec
 
+    prepare_output_dir(args.out)  # a parent that cannot be used fails before any work
     bundled = Path(__file__).resolve().parent.parent / "demo_regions" / DEMO_NAME
     if args.regenerate or not (bundled / "delivery.toml").is_file():
         region = write_demo_region(args.out / "region")
@@ -495,8 +565,52 @@ def _cmd_check(args: argparse.Namespace) -> int:
     return EXIT_OK
 
 
+class Interrupted(KeyboardInterrupt):
+    """Raised by the signal handler for Ctrl-C (SIGINT) and SIGTERM alike."""
+
+    def __init__(self, signum: int) -> None:
+        super().__init__(signum)
+        self.signum = signum
+
+
+def _on_signal(signum: int, frame: Any) -> None:
+    raise Interrupted(signum)
+
+
+def _install_signal_handlers() -> dict[int, Any]:
+    """Handle SIGINT and SIGTERM alike (clean stop, exit 130/143); return the old handlers."""
+    previous: dict[int, Any] = {}
+    for name in ("SIGINT", "SIGTERM"):
+        kind = getattr(signal, name, None)
+        if kind is None:  # pragma: no cover - SIGTERM handling needs a POSIX system
+            continue
+        try:
+            previous[kind] = signal.signal(kind, _on_signal)
+        except ValueError:  # not the main thread: leave the handlers alone
+            break
+    return previous
+
+
 def main(argv: Sequence[str] | None = None) -> int:
     """Entry point of the ``coverage-audit`` command."""
+    # First thing: an interruption from here on ends with one line, never a traceback.
+    previous = _install_signal_handlers()
+    try:
+        return _main(argv)
+    except KeyboardInterrupt as exc:
+        signum = getattr(exc, "signum", signal.SIGINT)
+        print(
+            "interrupted; an output folder holds either a run's complete outputs or, "
+            "untouched, the earlier ones",
+            file=sys.stderr,
+        )
+        return 128 + int(signum)
+    finally:
+        for kind, handler in previous.items():
+            signal.signal(kind, handler if handler is not None else signal.SIG_DFL)
+
+
+def _main(argv: Sequence[str] | None) -> int:
     parser = _build_parser()
     args = parser.parse_args(argv)
     if args.command is None:
@@ -516,11 +630,7 @@ def main(argv: Sequence[str] | None = None) -> int:
         print(f"error: {exc}", file=sys.stderr)
         return EXIT_USER_ERROR
     except KeyboardInterrupt:
-        print(
-            "interrupted; outputs already written are whole, the rest were not written",
-            file=sys.stderr,
-        )
-        return 130
+        raise
     except Exception as exc:  # an internal fault: say so plainly, keep details for --debug
         if debug:
             raise

@@ -64,6 +64,8 @@ __all__ = [
     "lisa_crosstab",
     "local_moran",
     "moran",
+    "moran_moments",
+    "two_sided_normal_p",
 ]
 
 #: Cluster labels of the local Moran map, significant quadrants first.
@@ -114,6 +116,10 @@ class MoranResult:
         Variance, z-value and one-sided p-value under the normality assumption.
     VI_rand, z_rand, p_rand : float
         Variance, z-value and one-sided p-value under randomisation.
+    p_norm_two_sided, p_rand_two_sided : float
+        (Properties.) The two-sided normal p-values, ``2 P(Z >= |z|)``. Every ``p_norm``
+        and ``p_rand`` key in summary.json is one-sided, in the direction of z; keys
+        ending ``_two_sided`` are two-sided (the project's one convention).
     permutations : int
         Random permutations drawn (0: no permutation test).
     EI_sim, z_sim, p_sim : float
@@ -139,6 +145,16 @@ class MoranResult:
     p_sim: float
     sim: np.ndarray = field(repr=False)
 
+    @property
+    def p_norm_two_sided(self) -> float:
+        """Two-sided p-value under normality, ``2 P(Z >= |z_norm|)``."""
+        return two_sided_normal_p(self.z_norm)
+
+    @property
+    def p_rand_two_sided(self) -> float:
+        """Two-sided p-value under randomisation, ``2 P(Z >= |z_rand|)``."""
+        return two_sided_normal_p(self.z_rand)
+
     def to_dict(self) -> dict[str, Any]:
         """Return the JSON-safe summary (NaN as ``None``)."""
         return {
@@ -148,9 +164,11 @@ class MoranResult:
             "variance_norm": clean_number(self.VI_norm),
             "z_norm": clean_number(self.z_norm),
             "p_norm": clean_number(self.p_norm),
+            "p_norm_two_sided": clean_number(self.p_norm_two_sided),
             "variance_rand": clean_number(self.VI_rand),
             "z_rand": clean_number(self.z_rand),
             "p_rand": clean_number(self.p_rand),
+            "p_rand_two_sided": clean_number(self.p_rand_two_sided),
             "expected_sim": clean_number(self.EI_sim),
             "z_sim": clean_number(self.z_sim),
             "p_sim": clean_number(self.p_sim),
@@ -480,7 +498,9 @@ def moran(
     normality and under randomisation are those of Cliff and Ord (1981, *Spatial
     Processes*, ch. 1), with ``S0``, ``S1``, ``S2`` the usual weight sums and the
     randomisation variance using the sample kurtosis. ``p_norm`` and ``p_rand`` are
-    one-sided, in the direction of the z-value.
+    one-sided, in the direction of the z-value, ``P(Z >= |z|)`` (esda's ``Moran`` with
+    ``two_tailed=False``); ``p_norm_two_sided`` and ``p_rand_two_sided`` double them.
+    This is the one convention of every Moran p-value in summary.json.
 
     The pseudo p-value is folded as in esda's ``Moran``: with ``P`` permutations,
     ``p_sim = (1 + min(#{I* >= I}, #{I* <= I})) / (P + 1)``, the tail on the side of the
@@ -1060,6 +1080,23 @@ def _one_sided_normal_p(z: float) -> float:
     if not math.isfinite(z):
         return math.nan
     return float(stats.norm.sf(z) if z > 0 else stats.norm.cdf(z))
+
+
+def two_sided_normal_p(z: float) -> float:
+    """Return ``2 P(Z >= |z|)`` for a standard normal Z (NaN for a z that is not finite)."""
+    if not math.isfinite(z):
+        return math.nan
+    return float(2.0 * stats.norm.sf(abs(z)))
+
+
+def moran_moments(y: np.ndarray, weights: sp.spmatrix) -> MoranResult:
+    """Moran's I with its analytic moments under the weights exactly as given.
+
+    The one implementation of Moran's I behind :func:`moran` (which row-standardises and
+    aligns first) and the residual Moran of :mod:`coverage_audit.explain`. No permutations;
+    a constant ``y`` gives NaN figures with a :class:`DegenerateStatisticWarning`.
+    """
+    return _moran(np.asarray(y, dtype=float), sp.csr_matrix(weights, dtype=float), 0, None, None)
 
 
 def _weight_sums(row: sp.csr_matrix) -> tuple[float, float, float]:

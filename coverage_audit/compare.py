@@ -22,9 +22,8 @@ from scipy import stats
 from ._util import clean_number, safe_ratio, to_jsonable
 from .errors import AnalysisError, InputError, SpecError
 from .explain import Z_95, served_from_fraction
+from .stats.four_fifths import FOUR_FIFTHS, below_four_fifths  # noqa: F401 (re-export)
 
-#: Four-fifths screen of 29 CFR 1607.4(D): a ratio strictly below 0.8 is flagged.
-FOUR_FIFTHS = 0.8
 _GROUP_FIELDS = (
     "rate",
     "served_area_rate",
@@ -61,11 +60,14 @@ class FootprintRow:
     enclave_count : int or None
         Enclaves found for this footprint, when given.
     below_four_fifths : tuple of str
-        Groups whose ranking ratio is strictly below 0.8.
+        Groups whose ranking ratio is strictly below 4/5, compared exactly (on the
+        covered and total populations where the summary gives them) by
+        :func:`~coverage_audit.stats.four_fifths.below_four_fifths`.
     groups : dict
         Per group: ``rate``, ``served_area_rate``, ``ratio``, ``served_area_ratio``,
-        ``difference``, ``below_four_fifths`` as given in the summaries, and
-        ``ranking_ratio``, the ratio to the reference group that the ranking used.
+        ``difference``, ``below_four_fifths`` as given in the summaries,
+        ``ranking_ratio``, the ratio to the reference group that the ranking used, and
+        ``ranking_below_four_fifths``, its four-fifths flag.
     """
 
     name: str
@@ -217,22 +219,29 @@ def compare_footprints(
         given_key = "ratio" if by == "rate" else "served_area_ratio"
         to_reference = cov.get("comparison", "reference") == "reference"
         ref_rate = table.get(reference, {}).get(rate_key)
-        for fields in table.values():
+        ref_counts = _counts(cov["groups"].get(reference), by)
+        for g, fields in table.items():
+            counts = _counts(cov["groups"][g], by)
             if fields[rate_key] is not None and ref_rate is not None:
                 fields["ranking_ratio"] = safe_ratio(fields[rate_key], ref_rate)
+                # Exact rule of 29 CFR 1607.4(D) on the counts where the summary has them.
+                fields["ranking_below_four_fifths"] = fields["ranking_ratio"] is not None and (
+                    below_four_fifths(*counts, *ref_counts)
+                    if counts is not None and ref_counts is not None
+                    else below_four_fifths(fields[rate_key], 1.0, ref_rate, 1.0)
+                )
             else:
                 fields["ranking_ratio"] = fields[given_key] if to_reference else None
+                fields["ranking_below_four_fifths"] = fields[
+                    "ranking_ratio"
+                ] is not None and below_four_fifths(fields["ranking_ratio"], 1.0, 1.0, 1.0)
         candidates = [
             (fields["ranking_ratio"], g)
             for g, fields in table.items()
             if g != reference and fields["ranking_ratio"] is not None
         ]
         worst_ratio, worst_group = min(candidates) if candidates else (None, None)
-        below = tuple(
-            g
-            for g, fields in table.items()
-            if fields["ranking_ratio"] is not None and fields["ranking_ratio"] < FOUR_FIFTHS
-        )
+        below = tuple(g for g, fields in table.items() if fields["ranking_below_four_fifths"])
         rows.append((name, worst_group, worst_ratio, enclaves, below, table))
     rows.sort(
         key=lambda r: (
@@ -264,6 +273,17 @@ def _coverage_of(name: str, summary: Mapping[str, Any]) -> tuple[Mapping[str, An
     if enclaves is None and isinstance(summary.get("enclaves"), Sequence):
         enclaves = len(summary["enclaves"])
     return coverage, None if enclaves is None else int(enclaves)
+
+
+def _counts(entry: Any, by: str) -> tuple[float, float] | None:
+    """Return a group's (covered population, population) for the areal rate, if given."""
+    if by != "rate" or not isinstance(entry, Mapping):
+        return None
+    covered = clean_number(entry.get("covered_population"))
+    total = clean_number(entry.get("population"))
+    if not isinstance(covered, (int, float)) or not isinstance(total, (int, float)) or total <= 0:
+        return None
+    return float(covered), float(total)
 
 
 def _group_fields(entry: Mapping[str, Any]) -> dict[str, Any]:

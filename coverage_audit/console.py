@@ -30,6 +30,8 @@ def print_summary(result: Any, paths: dict[str, Path], *, seconds: float, stream
     console.print(
         f"\n[bold]{s['title']}[/bold]  footprint: {s['footprint']['name']} ({s['footprint']['kind']})"
     )
+    if s.get("population_notice"):
+        console.print(f"[bold]note:[/bold] {s['population_notice']}")
     console.print(
         f"areas: {areas['input']} in, {areas['analysed']} analysed, {areas['excluded']} excluded; "
         f"served: {cov['served_areas']} of {cov['areas']} (threshold {cov['served_threshold']:g})"
@@ -48,7 +50,7 @@ def print_summary(result: Any, paths: dict[str, Path], *, seconds: float, stream
     comparison = labels.get(cov["comparison_group"], cov["comparison_group"])
     console.print(
         f"[dim]coverage = areal-weighted rate; served = share living in served areas; ratio and "
-        f"diff (percentage points) against {comparison}; <4/5 = ratio below 0.8[/dim]"
+        f"diff (percentage points) against {comparison}; <4/5 = ratio below four-fifths[/dim]"
     )
     margins = cov.get("uncertainty") in ("delta", "replicates")
     columns = ["group", unit, "coverage", "served", "ratio", "diff pp", "<4/5"]
@@ -125,6 +127,12 @@ def print_summary(result: Any, paths: dict[str, Path], *, seconds: float, stream
         flagged = [row["lender"] for row in peers.get("lenders", []) if row.get("below_peers")]
         console.print(
             f"lenders below peers in majority-minority tracts: {', '.join(flagged) or 'none'}"
+        )
+    access = s.get("access")
+    if access:
+        ratios = ", ".join(f"{g} {_num(row.get('ratio'))}" for g, row in access["groups"].items())
+        console.print(
+            f"access ({access['method']}), mean ratio to {access['reference_group']}: {ratios}"
         )
     models = (s.get("explain") or {}).get("models") or {}
     for row in models.get("minority_change", []):

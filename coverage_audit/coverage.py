@@ -25,10 +25,11 @@ from pyproj import Geod, Transformer
 from ._util import clean_number, safe_ratio
 from .footprint import Footprint
 
-#: The four-fifths rule, 29 CFR 1607.4(D): a rate "less than four-fifths (4/5) (or eighty
-#: percent) of the rate for the group with the highest rate" is regarded as evidence of
-#: adverse impact. Strictly less than; a screening rule of thumb in coverage work.
-FOUR_FIFTHS = 0.8
+# The four-fifths rule, 29 CFR 1607.4(D): a rate "less than four-fifths (4/5) (or eighty
+# percent) of the rate for the group with the highest rate" is regarded as evidence of
+# adverse impact. Strictly less than; a screening rule of thumb in coverage work. One
+# exact comparison serves every stage (stats/four_fifths.py).
+from .stats.four_fifths import FOUR_FIFTHS, FOUR_FIFTHS_REL_TOL, below_four_fifths
 
 
 def covered_fraction(areas: np.ndarray, pieces: np.ndarray) -> np.ndarray:
@@ -182,6 +183,8 @@ class CoverageResult:
             "comparison": self.comparison,
             "comparison_group": self.comparison_group,
             "four_fifths_threshold": FOUR_FIFTHS,
+            # The flag compares counts exactly; rounding within this share is not a shortfall.
+            "four_fifths_relative_tolerance": float(FOUR_FIFTHS_REL_TOL),
             "areas": self.areas,
             "served_areas": self.served_areas,
             "population": clean_number(self.population),
@@ -250,7 +253,9 @@ def coverage_by_group(
     within an area); served_area_rate_g = sum_i x_gi s_i / sum_i x_gi with s_i the served
     flag. ratio = rate_g / rate_c, difference = rate_g - rate_c (fractions; percentage
     points in the report), where c is the comparison group. ``below_four_fifths`` is
-    ``ratio < 0.8`` (strictly); it is False where the ratio is undefined.
+    ``ratio < 4/5`` (strictly), compared exactly on the counts by
+    :func:`~coverage_audit.stats.four_fifths.below_four_fifths`; it is False where the
+    ratio is undefined.
     """
     fraction = np.asarray(fraction, dtype=float)
     served = fraction >= threshold
@@ -271,8 +276,7 @@ def coverage_by_group(
         comparison_group = max(defined)[1] if defined else reference
     else:
         comparison_group = reference
-    ref_rate = rates[comparison_group][2]
-    ref_served = rates[comparison_group][3]
+    ref_total, ref_covered, ref_rate, ref_served = rates[comparison_group]
     results: dict[str, GroupCoverage] = {}
     for g, (total, covered, rate, srate) in rates.items():
         ratio = safe_ratio(rate, ref_rate) if rate is not None and ref_rate is not None else None
@@ -290,7 +294,8 @@ def coverage_by_group(
             served_area_difference=None
             if srate is None or ref_served is None
             else srate - ref_served,
-            below_four_fifths=bool(ratio is not None and ratio < FOUR_FIFTHS),
+            below_four_fifths=ratio is not None
+            and below_four_fifths(covered, total, ref_covered, ref_total),
         )
     classes: dict[str, Any] = {
         "all": _class_coverage(np.ones(len(table), bool), population, fraction, served)

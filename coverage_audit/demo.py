@@ -172,6 +172,21 @@ DELIVERY_EXTRA = """contrast_group = "black_nh"
 name = "Ostmere city limits"
 path = "city_limits.geojson"
 """
+SCENARIOS["clinics"] = (
+    "Primary care clinics, Ostmere Health Cooperative",
+    """[footprint]
+name = "clinics"
+path = "clinics.geojson"
+radius = 5
+radius_unit = "km"
+
+[access]
+capacity = "doctors"
+catchment = "5 km"
+decay = [[2, 1.0], [3.5, 0.68], [5, 0.22]]
+site_id = "site_id"
+low_access_fraction = 0.5""",
+)
 #: Fictional lenders of the activity table; the first is the audited bank.
 LENDERS = (
     "Ostmere Savings",
@@ -413,6 +428,7 @@ def write_demo_region(folder: str | Path, seed: int = DEMO_SEED) -> Path:
             encoding="utf-8",
         )
     write_margin_scenario(out, cells, demo, seed)
+    _write_geojson(_clinic_sites(cells, demo, seed).to_crs("EPSG:4326"), out / "clinics.geojson")
     (out / "README.md").write_text(_readme(len(cells)), encoding="utf-8")
     return out
 
@@ -464,6 +480,36 @@ def write_lending_records(
     records = lending_records(tracts, lenders, (2022, 2023, 2024), rng, na_tracts=2)
     records.to_csv(path, sep="|", index=False, lineterminator="\n")
     return path
+
+
+def _clinic_sites(cells: gpd.GeoDataFrame, demo: pd.DataFrame, seed: int) -> gpd.GeoDataFrame:
+    """Fourteen clinics of a fictional health cooperative, with their doctors.
+
+    Larger practices sit in higher-income, mostly-white tracts; the few clinics in
+    minority neighbourhoods are small, so access (doctors within reach per resident,
+    2SFCA) is lower there even where a clinic is close. Own random stream, so the other
+    demo files do not change.
+    """
+    rng = np.random.default_rng(seed + 17)
+    share = _minority_share(demo)
+    income = demo["income_ratio"].fillna(0).to_numpy(float)
+    populated = demo["pop_total"].to_numpy() > 0
+    weight = np.where(populated, (income / 100.0) ** 2 * (1.0 - share) ** 2, 0.0)
+    large = rng.choice(len(cells), size=10, replace=False, p=weight / weight.sum())
+    small_weight = np.where(populated, share**3, 0.0)
+    small_weight[large] = 0.0
+    small = rng.choice(len(cells), size=4, replace=False, p=small_weight / small_weight.sum())
+    chosen = np.r_[large, small]
+    doctors = np.r_[rng.integers(40, 121, size=10), rng.integers(3, 9, size=4)]
+    return gpd.GeoDataFrame(
+        {
+            "site_id": [f"K{k:02d}" for k in range(1, 15)],
+            "name": [f"Ostmere Health Cooperative clinic {k:02d}" for k in range(1, 15)],
+            "doctors": doctors.astype(int),
+        },
+        geometry=shapely.point_on_surface(cells.geometry.values[chosen]),
+        crs=cells.crs,
+    )
 
 
 #: The scenario whose demographics carry margins of error (a table of its own, so the

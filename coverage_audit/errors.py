@@ -50,3 +50,7 @@ class IdWarning(CoverageAuditWarning):
 
 class MarginWarning(CoverageAuditWarning):
     """Some margin-of-error cells held no number (annotations or blanks) and were read as 0."""
+
+
+class NoPopulationWarning(DegenerateStatisticWarning):
+    """Every analysed area has zero population: no rate, ratio or index by group is defined."""

@@ -28,7 +28,9 @@ from scipy import stats
 from scipy.optimize import linprog
 
 from ._util import clean_number, safe_ratio, to_jsonable
+from .clustering import moran_moments
 from .errors import AnalysisError, CoverageAuditWarning, SpecError
+from .stats.four_fifths import below_four_fifths
 
 #: Minority share enters the models per 10 percentage points (0.10 as a fraction), so an
 #: odds ratio reads "per 10-point rise in minority share" instead of "from 0 % to 100 %".
@@ -114,9 +116,15 @@ class ResidualMoran:
 
     Attributes
     ----------
-    I, EI, VI_rand, z_rand, p_rand : float
-        Moran's I, its expectation ``-1/(n-1)``, variance under randomisation, z-score and
-        two-sided normal p-value (Cliff and Ord 1981, *Spatial Processes*, ch. 2).
+    I, EI, VI_rand, z_rand : float
+        Moran's I, its expectation ``-1/(n-1)``, variance under randomisation and z-score
+        (Cliff and Ord 1981, *Spatial Processes*, ch. 2).
+    p_rand : float
+        One-sided normal p-value in the direction of z, ``P(Z >= |z_rand|)``: the same
+        meaning as the global Moran's ``p_rand`` (:class:`~coverage_audit.clustering.MoranResult`).
+        Until this convention was fixed the key held the two-sided value.
+    p_rand_two_sided : float
+        ``2 P(Z >= |z_rand|)``, the p-value that matches the ``|z_rand| > 1.96`` screen.
     n : int
         Areas in the statistic (fitted areas that appear in the weights).
     space_not_accounted_for : bool
@@ -131,6 +139,7 @@ class ResidualMoran:
     p_rand: float
     n: int
     space_not_accounted_for: bool
+    p_rand_two_sided: float = math.nan
 
     def to_dict(self) -> dict[str, Any]:
         """Return the statistic as JSON-safe data."""
@@ -142,6 +151,7 @@ class ResidualMoran:
                 "VI_rand": self.VI_rand,
                 "z_rand": self.z_rand,
                 "p_rand": self.p_rand,
+                "p_rand_two_sided": self.p_rand_two_sided,
                 "n": self.n,
                 "space_not_accounted_for": self.space_not_accounted_for,
             }
@@ -923,15 +933,16 @@ def _residual_moran(
     row_sums = np.asarray(sub.sum(axis=1)).ravel()
     scale = np.divide(1.0, row_sums, out=np.zeros_like(row_sums), where=row_sums > 0)
     sub = sp.diags(scale) @ sub
-    i, ei, vi, z, p = moran_randomisation(values, sub)
+    i, ei, vi, z, p_two_sided = moran_randomisation(values, sub)
     return ResidualMoran(
         I=i,
         EI=ei,
         VI_rand=vi,
         z_rand=z,
-        p_rand=p,
+        p_rand=p_two_sided / 2.0,
         n=int(values.size),
         space_not_accounted_for=bool(math.isfinite(z) and abs(z) > MORAN_Z_FLAG),
+        p_rand_two_sided=p_two_sided,
     )
 
 
@@ -950,7 +961,9 @@ def moran_randomisation(
     Returns
     -------
     tuple of float
-        ``(I, EI, VI_rand, z_rand, p_rand)`` with ``p_rand`` two-sided.
+        ``(I, EI, VI_rand, z_rand, p)`` with ``p`` two-sided, ``2 P(Z >= |z_rand|)`` (as
+        esda's ``Moran`` gives ``p_rand`` by default). In summary.json the residual Moran
+        keeps the project's convention: ``p_rand`` one-sided, ``p_rand_two_sided`` this.
 
     Notes
     -----
@@ -958,26 +971,21 @@ def moran_randomisation(
     the kurtosis ``b2`` of Cliff and Ord (1981, *Spatial Processes*, eq. 1.38; equation
     number from memory), as esda's ``Moran.VI_rand`` computes it. For regression
     residuals this is a screen, not an exact test: it ignores that the residuals are
-    estimated.
+    estimated. Computed by :func:`coverage_audit.clustering.moran_moments`, the one
+    implementation of Moran's I.
     """
-    w = sp.csr_matrix(weights, dtype=float)
     y = np.asarray(values, dtype=float)
-    n = y.size
-    z = y - y.mean()
-    s0 = w.sum()
-    zz = float(z @ z)
-    i_stat = float(n / s0 * (z @ (w @ z)) / zz) if zz > 0 else float("nan")
-    ei = -1.0 / (n - 1)
-    sym = w + w.T
-    s1 = 0.5 * float(sym.multiply(sym).sum())
-    s2 = float(((np.asarray(w.sum(axis=1)).ravel() + np.asarray(w.sum(axis=0)).ravel()) ** 2).sum())
-    b2 = (n * float((z**4).sum()) / zz**2) if zz > 0 else float("nan")
-    a = n * ((n * n - 3 * n + 3) * s1 - n * s2 + 3 * s0 * s0)
-    b = b2 * ((n * n - n) * s1 - 2 * n * s2 + 6 * s0 * s0)
-    vi = (a - b) / ((n - 1) * (n - 2) * (n - 3) * s0 * s0) - ei * ei
-    z_rand = (i_stat - ei) / math.sqrt(vi) if vi > 0 else float("nan")
-    p_rand = float(2.0 * stats.norm.sf(abs(z_rand))) if math.isfinite(z_rand) else float("nan")
-    return i_stat, float(ei), float(vi), float(z_rand), p_rand
+    if y.size and float(np.ptp(y)) == 0.0:
+        nan = float("nan")
+        return nan, -1.0 / (y.size - 1) if y.size > 1 else nan, nan, nan, nan
+    result = moran_moments(y, weights)
+    return (
+        float(result.I),
+        float(result.EI),
+        float(result.VI_rand),
+        float(result.z_rand),
+        result.p_rand_two_sided,
+    )
 
 
 # --------------------------------------------------------------------------------------
@@ -1555,8 +1563,10 @@ def sensitivity_thresholds(
     Notes
     -----
     A group's served-area rate is the share of its population living in served areas.
-    The four-fifths flag is ``ratio < 0.8``, strictly (29 CFR 1607.4(D)); an undefined
-    ratio (comparison rate 0) does not raise the flag. Raising the threshold can only
+    The four-fifths flag is ``ratio < 4/5``, strictly (29 CFR 1607.4(D)), compared
+    exactly on the served and total counts by
+    :func:`~coverage_audit.stats.four_fifths.below_four_fifths`; an undefined ratio
+    (comparison rate 0) does not raise the flag. Raising the threshold can only
     remove areas from the served set, so every served share is non-increasing in it.
     """
     if against not in ("reference", "highest"):
@@ -1582,8 +1592,9 @@ def sensitivity_thresholds(
         raise SpecError(f"thresholds must be numbers in (0, 1]; got {t.tolist()}")
     served = cf[None, :] >= t[:, None]
     totals = matrix.sum(axis=0)
+    served_counts = served.astype(float) @ matrix
     with np.errstate(invalid="ignore", divide="ignore"):
-        rates = (served.astype(float) @ matrix) / totals
+        rates = served_counts / totals
     ref_index = names.index(reference)
     rows = []
     for k, threshold in enumerate(t):
@@ -1595,7 +1606,10 @@ def sensitivity_thresholds(
         for j, g in enumerate(names):
             rate = clean_number(rates[k, j])
             ratio = None if rate is None else safe_ratio(rates[k, j], rates[k, comp])
-            groups[g] = GroupAtThreshold(rate, ratio, bool(ratio is not None and ratio < 0.8))
+            flag = ratio is not None and below_four_fifths(
+                served_counts[k, j], totals[j], served_counts[k, comp], totals[comp]
+            )
+            groups[g] = GroupAtThreshold(rate, ratio, flag)
         rows.append(
             SensitivityRow(
                 threshold=float(threshold),

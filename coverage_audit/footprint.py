@@ -14,6 +14,7 @@ about (2*pi/N)**2/6 of the area).
 
 from __future__ import annotations
 
+import hashlib
 import warnings
 from dataclasses import dataclass, field
 from typing import Any
@@ -25,18 +26,20 @@ import shapely
 from pyproj import CRS, Geod, Transformer
 
 from .errors import InputError, RepairWarning
+from .geographic import unwrap_longitudes
 from .inputs import (
     AreaInputs,
     Exclusions,
     InputRecord,
     crs_text,
+    finite_coordinates,
     ids_as_text,
     kept_geometries,
+    read_hashed,
     read_layer,
     read_table,
     repair,
     resolve_crs,
-    sha256_file,
 )
 from .io.joins import MatchReport, match_ids
 from .io.zcta import crosswalk_fractions, read_zip_list, relationship_fractions
@@ -50,6 +53,7 @@ MAX_PIECE_VERTICES = 1_000
 #: Densify footprint polygons given in degrees so their edges keep their course when
 #: projected (0.005 degree is about 500 m).
 DENSIFY_DEGREES = 0.005
+
 _TRUE = {"1", "true", "t", "yes", "y", "served", "x"}
 _FALSE = {"0", "false", "f", "no", "n", "", "nan", "none"}
 
@@ -161,14 +165,16 @@ def build_footprint(
         return _zips_footprint(spec, areas, exclusions)
     assert spec.path is not None
     source = f"footprint:{spec.name}"
-    layer = read_layer(spec.path, layer=spec.layer, role=f"footprint '{spec.name}'")
-    layer = resolve_crs(
-        layer, spec.crs, role=f"footprint '{spec.name}'", path=spec.path, key="[footprint] crs"
+    path = spec.path
+    role = f"footprint '{spec.name}'"
+    layer, digest = read_hashed(
+        path, lambda: read_layer(path, layer=spec.layer, role=role), role=role
     )
+    layer = resolve_crs(layer, spec.crs, role=role, path=path, key="[footprint] crs")
     record = InputRecord(
         f"footprint:{spec.name}",
         str(spec.path),
-        sha256_file(spec.path),
+        digest,
         len(layer),
         crs_text(layer.crs),
         spec.layer,
@@ -180,6 +186,14 @@ def build_footprint(
     rows = np.asarray(layer["_row"]) if "_row" in layer.columns else np.arange(1, len(layer) + 1)
     missing = shapely.is_missing(geoms) | shapely.is_empty(geoms)
     exclusions.add(source, rows[missing], [None] * int(missing.sum()), "null or empty geometry")
+    not_finite = ~finite_coordinates(geoms)
+    if not_finite.any():
+        bad = [int(r) for r in rows[not_finite][:5]]
+        raise InputError(
+            f"{role} file '{path}': feature(s) {bad} have a coordinate that is not a finite "
+            "number (NaN or infinite); the footprint would be wrong without them, so fix or "
+            "remove those features"
+        )
     keep = ~missing
     type_ids = shapely.get_type_id(geoms)
     if spec.kind == "points":
@@ -210,6 +224,8 @@ def build_footprint(
         raise InputError(f"footprint '{spec.name}' ('{spec.path}') has no usable polygon")
     polys = fixed[keep]
     if CRS(layer.crs).is_geographic:
+        # Pieces cut at the antimeridian (RFC 7946) are rejoined before projection.
+        polys, _ = unwrap_longitudes(polys)
         polys = shapely.segmentize(polys, DENSIFY_DEGREES)
     projected = gpd.GeoSeries(polys, crs=layer.crs).to_crs(crs).to_numpy()
     projected, _ = repair(projected)
@@ -280,24 +296,33 @@ def _zips_footprint(spec: FootprintSpec, areas: AreaInputs, exclusions: Exclusio
     """ZIP-code zones: covered fractions from the ZCTA relationship file or a crosswalk."""
     assert spec.zips is not None
     role = f"footprint '{spec.name}'"
-    zips = read_zip_list(spec.zips, role=f"{role} zips")
-    records = [InputRecord(f"zips:{spec.name}", str(spec.zips), sha256_file(spec.zips), len(zips))]
+    zip_path = spec.zips
+    zips, zips_digest = read_hashed(
+        zip_path, lambda: read_zip_list(zip_path, role=f"{role} zips"), role=f"{role} zips"
+    )
+    records = [InputRecord(f"zips:{spec.name}", str(spec.zips), zips_digest, len(zips))]
     if spec.zcta_relationship is not None:
-        result = relationship_fractions(
-            zips, spec.zcta_relationship, role=f"{role} zcta_relationship"
-        )
         source_path = spec.zcta_relationship
+        result, source_digest = read_hashed(
+            source_path,
+            lambda: relationship_fractions(zips, source_path, role=f"{role} zcta_relationship"),
+            role=f"{role} zcta_relationship",
+        )
     else:
         assert spec.crosswalk is not None and spec.crosswalk_ratio is not None
-        result = crosswalk_fractions(
-            zips,
-            spec.crosswalk,
-            spec.crosswalk_ratio,
+        source_path, ratio = spec.crosswalk, spec.crosswalk_ratio
+        result, source_digest = read_hashed(
+            source_path,
+            lambda: crosswalk_fractions(
+                zips,
+                source_path,
+                ratio,
+                role=f"{role} crosswalk",
+                id_candidates=(areas.id_column, "tract", "geoid", "GEOID", "GEOID20"),
+            ),
             role=f"{role} crosswalk",
-            id_candidates=(areas.id_column, "tract", "geoid", "GEOID", "GEOID20"),
         )
-        source_path = spec.crosswalk
-    records.append(InputRecord(f"zcta:{spec.name}", str(source_path), sha256_file(source_path), 0))
+    records.append(InputRecord(f"zcta:{spec.name}", str(source_path), source_digest, 0))
     exclusions.add(
         f"zips:{spec.name}",
         [k for k, _ in result.unknown],
@@ -574,16 +599,23 @@ def _read_id_list(
             raise InputError(
                 f"{role} file '{path}' has no column {column!r}; its columns are {list(probe.columns)}"
             )
-        table = read_table(path, id_column=column, role=role)
+        table, digest = read_hashed(
+            path, lambda: read_table(path, id_column=column, role=role), role=role
+        )
         values = table[column]
     else:
         if not path.exists():
             raise InputError(f"{role} file '{path}' was not found; check the path in the spec")
-        lines = path.read_text(encoding="utf-8").splitlines()
+        payload = path.read_bytes()  # read once: the digest is of these very bytes
+        digest = hashlib.sha256(payload).hexdigest()
+        try:
+            lines = payload.decode("utf-8-sig").splitlines()
+        except UnicodeDecodeError:
+            raise InputError(f"{role} file '{path}' is not a UTF-8 text file") from None
         values = pd.Series([ln.strip() or None for ln in lines], dtype=object)
     listed = ids_as_text(values, width=id_width, where=f"{role} file '{path}'")
     rows = np.arange(1, len(listed) + 1)
-    record = InputRecord(f"served_ids:{spec.name}", str(path), sha256_file(path), len(listed))
+    record = InputRecord(f"served_ids:{spec.name}", str(path), digest, len(listed))
     return listed.reset_index(drop=True), rows, record
 
 

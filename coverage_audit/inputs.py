@@ -12,7 +12,6 @@ the first line after the header of a CSV file.
 
 from __future__ import annotations
 
-import hashlib
 import warnings
 from collections.abc import Callable, Iterable
 from dataclasses import dataclass, field, replace
@@ -27,8 +26,17 @@ import shapely
 from pyproj import CRS, Transformer
 
 from .errors import IdWarning, InputError, MarginWarning, RepairWarning
+from .geographic import longitude_span, span_centre, unwrap_longitudes
 from .io.boundaries import describe_layout, detect_id_column, strip_prefix, water_only
 from .io.census import annotation_reasons
+from .io.checks import (
+    bad_feature,
+    check_sums,
+    finite_coordinates,
+    hint_float_ids,
+    read_hashed,
+)
+from .io.checks import sha256_file as sha256_file  # re-exported: readers import it from here
 from .io.joins import MatchReport
 from .io.tables import join_tables, numeric_estimates
 from .spec import AreasSpec, PopulationSpec, TableSpec
@@ -136,15 +144,6 @@ class AreaInputs:
     margins_missing: dict[str, int] = field(default_factory=dict)
 
 
-def sha256_file(path: Path) -> str:
-    """Return the SHA-256 hex digest of a file (of every file of a shapefile set)."""
-    digest = hashlib.sha256()
-    with open(path, "rb") as handle:
-        for block in iter(lambda: handle.read(1 << 20), b""):
-            digest.update(block)
-    return digest.hexdigest()
-
-
 def _require_file(path: Path, role: str) -> None:
     if not path.exists():
         raise InputError(f"{role} file '{path}' was not found; check the path in the spec")
@@ -152,7 +151,9 @@ def _require_file(path: Path, role: str) -> None:
         raise InputError(f"{role} path '{path}' is a folder; name the file itself")
 
 
-def read_layer(path: Path, *, layer: str | None, role: str) -> gpd.GeoDataFrame:
+def read_layer(
+    path: Path, *, layer: str | None, role: str, id_column: str | None = None
+) -> gpd.GeoDataFrame:
     """Read a vector layer (GeoPackage, GeoJSON, Shapefile, GeoParquet, ...) as is.
 
     Raises
@@ -171,10 +172,19 @@ def read_layer(path: Path, *, layer: str | None, role: str) -> gpd.GeoDataFrame:
                 raise InputError(
                     f"{role} file '{path}' has no layer \"{layer}\"; its layers are {available}"
                 )
-        return pyogrio.read_dataframe(path, layer=layer)
+        with warnings.catch_warnings():
+            # GDAL's note on an unclosed ring is replaced by the message naming the feature.
+            warnings.filterwarnings("ignore", "Non closed ring detected", RuntimeWarning)
+            return pyogrio.read_dataframe(path, layer=layer)
     except InputError:
         raise
     except Exception as exc:  # GDAL and pyarrow raise many kinds; all mean "unreadable"
+        feature = bad_feature(path, layer, id_column)
+        if feature is not None:
+            raise InputError(
+                f"{role} file '{path}': {feature} has a geometry that cannot be built ({exc}); "
+                "fix that feature (a polygon ring must end at its first point) or remove it"
+            ) from None
         raise InputError(
             f"{role} file '{path}' could not be read as a spatial layer ({exc}); "
             "use GeoPackage, GeoJSON, Shapefile or GeoParquet"
@@ -230,6 +240,7 @@ def ids_as_text(values: pd.Series, *, width: int | None, where: str) -> pd.Serie
                 None if v is None or (isinstance(v, float) and np.isnan(v)) else str(v).strip()
             )
         )
+        hint_float_ids(series, where)
     if width is not None:
         series = series.map(lambda v: v if v is None else v.zfill(width))
     series = series.where(~missing, None)
@@ -290,7 +301,9 @@ def _check_degrees(layer: gpd.GeoDataFrame, *, role: str, path: Path) -> None:
     """
     if layer.crs is None or not CRS(layer.crs).is_geographic or len(layer) == 0:
         return
-    xmin, ymin, xmax, ymax = layer.total_bounds
+    geoms = np.asarray(layer.geometry.array, dtype=object)
+    finite = finite_coordinates(geoms)  # rows with NaN/inf are excluded later, by name
+    xmin, ymin, xmax, ymax = shapely.total_bounds(geoms[finite])
     if not np.all(np.isfinite([xmin, ymin, xmax, ymax])):
         return
     if xmin < -360 or xmax > 360 or ymin < -90 or ymax > 90:
@@ -308,6 +321,8 @@ def choose_analysis_crs(geometries: gpd.GeoSeries, override: str | None) -> CRS:
     By default a Lambert azimuthal equal-area projection centred on the middle of the
     areas' extent (rounded to 0.01 degree so that it is stable), on WGS 84:
     areas are exact wherever the region lies; distances are near-true close to the centre.
+    The extent's longitudes are unwrapped (:func:`~coverage_audit.geographic.longitude_span`),
+    so a region cut at the antimeridian (RFC 7946) is centred near 180 degrees, not 0.
     """
     if override is not None:
         try:
@@ -320,13 +335,20 @@ def choose_analysis_crs(geometries: gpd.GeoSeries, override: str | None) -> CRS:
                 "projected equal-area CRS, e.g. EPSG:5070 for the conterminous United States"
             )
         return crs
-    bounds = geometries.total_bounds
     to_geo = Transformer.from_crs(geometries.crs, "EPSG:4326", always_xy=True)
-    xs = np.linspace(bounds[0], bounds[2], 5)
-    ys = np.linspace(bounds[1], bounds[3], 5)
-    gx, gy = np.meshgrid(xs, ys)
+    if CRS(geometries.crs).is_geographic:
+        # Corners of each part's bounds: the bounding box of data cut at the antimeridian
+        # spans the whole globe, each part's does not.
+        parts = shapely.get_parts(np.asarray(geometries.array, dtype=object))
+        corners = shapely.bounds(parts)
+        gx, gy = corners[:, [0, 2, 0, 2]], corners[:, [1, 1, 3, 3]]
+    else:
+        bounds = geometries.total_bounds
+        gx, gy = np.meshgrid(
+            np.linspace(bounds[0], bounds[2], 5), np.linspace(bounds[1], bounds[3], 5)
+        )
     lon, lat = to_geo.transform(gx.ravel(), gy.ravel())
-    lon_c = float(np.round((np.nanmin(lon) + np.nanmax(lon)) / 2, 2))
+    lon_c = float(np.round(span_centre(*longitude_span(np.asarray(lon))), 2))
     lat_c = float(np.round((np.nanmin(lat) + np.nanmax(lat)) / 2, 2))
     return CRS.from_proj4(
         f"+proj=laea +lat_0={lat_c:g} +lon_0={lon_c:g} +x_0=0 +y_0=0 +datum=WGS84 +units=m +no_defs"
@@ -507,14 +529,18 @@ def load_areas(
     exclusions = Exclusions()
     records: list[InputRecord] = []
     path = areas_spec.path
-    layer = read_layer(path, layer=areas_spec.layer, role="areas")
+    layer, layer_digest = read_hashed(
+        path,
+        lambda: read_layer(path, layer=areas_spec.layer, role="areas", id_column=areas_spec.id),
+        role="areas",
+    )
     layer = resolve_crs(layer, areas_spec.crs, role="areas", path=path, key="[areas] crs")
     source_crs = CRS(layer.crs)
     records.append(
         InputRecord(
             "areas",
             str(path),
-            sha256_file(path),
+            layer_digest,
             len(layer),
             crs_text(layer.crs),
             areas_spec.layer,
@@ -566,6 +592,7 @@ def load_areas(
     )
     missing_geom = shapely.is_missing(geoms) | shapely.is_empty(geoms)
     drop(missing_geom, "null or empty geometry")
+    drop(~finite_coordinates(geoms), "a coordinate is not a finite number (NaN or infinite)")
     type_ids = shapely.get_type_id(geoms)
     wrong_type = ~np.isin(type_ids, (3, 6, 7)) & ~missing_geom
     drop(
@@ -602,7 +629,7 @@ def load_areas(
             ids_as_text=ids_as_text,
         )
         for tpath, rows in joined.rows:
-            records.append(InputRecord("table", str(tpath), sha256_file(tpath), rows))
+            records.append(InputRecord("table", str(tpath), joined.digests[tpath], rows))
         for mask, reason in joined.missing:
             drop(mask & keep, reason)
         frame = joined.frame
@@ -698,8 +725,22 @@ def load_areas(
         out[column] = frame[column].to_numpy()[sel]
     out["source_row"] = frame["_row"].to_numpy()[sel]
 
+    check_sums(
+        out,
+        {
+            "population": pop_spec.total,
+            **dict(pop_spec.groups),
+            "minority": f"{pop_spec.total} minus {pop_spec.reference}",
+        },
+        where_counts,
+    )
+
+    kept = geoms[sel]
+    if source_crs.is_geographic:
+        # Halves cut at the antimeridian become one area before projection (RFC 7946).
+        kept, _ = unwrap_longitudes(kept)
     analysed = gpd.GeoDataFrame(
-        out, geometry=gpd.GeoSeries(geoms[sel], crs=layer.crs).values, crs=layer.crs
+        out, geometry=gpd.GeoSeries(kept, crs=layer.crs).values, crs=layer.crs
     )
     if len(analysed) == 0:
         first = [

@@ -35,6 +35,18 @@ FDR_METHODS = ("bh", "none")
 #: cluster at ``dask_scheduler``), for regions past one machine.
 ENGINES = ("local", "dask")
 MAJORITY_RULES = ("above", "at_or_above")
+#: Largest number of random permutations or Monte Carlo draws a spec may ask for: p-values
+#: then resolve 1/100,000, and the largest draws stay within memory and hours, not days
+#: (one billion permutations would need terabytes).
+MAX_DRAWS = 99_999
+#: Largest number of vertices of a reach circle (the area error at 128 is already 1e-4).
+MAX_CIRCLE_VERTICES = 4_096
+#: Largest number of nearest neighbours given to an island.
+MAX_KNN = 100
+#: Longest rule (conditions joined by "and") searched; the search grows combinatorially.
+MAX_RULE_LENGTH = 5
+#: Most dask partitions of the areas.
+MAX_PARTITIONS = 100_000
 #: Length units accepted for a reach radius, in metres.
 LENGTH_UNITS = {"m": 1.0, "km": 1000.0, "mi": 1609.344, "ft": 0.3048}
 #: Names a group may not take because the per-area output uses them.
@@ -51,6 +63,7 @@ RESERVED_NAMES = frozenset(
         "nearest_site_m",
         "lisa_cluster",
         "enclave_id",
+        "access",
     }
 )
 _NAME_RE = re.compile(r"^[A-Za-z_][A-Za-z0-9_]*$")
@@ -254,6 +267,49 @@ class StudyAreaSpec:
     within_m: float | None = None
 
 
+#: Time units accepted for a catchment measured on a travel-time table, in minutes.
+TIME_UNITS = {"min": 1.0, "h": 60.0}
+#: Where each area's demand sits: its centroid, or the population-weighted centroid of its
+#: blocks (needs census blocks).
+ACCESS_ORIGINS = ("centroid", "population")
+
+
+@dataclass(frozen=True)
+class AccessSpec:
+    """Capacity-aware accessibility (2SFCA / E2SFCA) to the footprint's points.
+
+    Attributes
+    ----------
+    catchment : float
+        The catchment in its base unit: metres for a length, minutes for a time.
+    catchment_unit : {"m", "min"}
+        Base unit of ``catchment``, of the stepped edges and of the costs once converted.
+    decay : {"none", "gaussian", "steps"}
+    steps : tuple of (float, float)
+        Zone upper edges (converted to the base unit) and weights, for ``steps``.
+    """
+
+    catchment: float
+    catchment_unit: str = "m"
+    decay: str = "none"
+    steps: tuple[tuple[float, float], ...] = ()
+    capacity: str | None = None
+    origins: str = "centroid"
+    costs: Path | None = None
+    cost_origin: str = "origin"
+    cost_site: str = "site"
+    cost_column: str = "cost"
+    cost_unit: str | None = None
+    site_id: str | None = None
+    low_access_fraction: float = 0.5
+
+    @property
+    def cost_factor(self) -> float:
+        """Multiplier taking the cost column's unit to the catchment's base unit."""
+        unit = self.cost_unit or self.catchment_unit
+        return TIME_UNITS[unit] if self.catchment_unit == "min" else LENGTH_UNITS[unit]
+
+
 @dataclass(frozen=True)
 class AuditSpec:
     """A whole audit, as resolved from a spec file or options.
@@ -283,6 +339,7 @@ class AuditSpec:
     #: Demographics tables joined on the id (``[[table]]``), beside ``[areas] table``.
     tables: tuple[TableSpec, ...] = ()
     lending: LendingSpec | None = None
+    access: AccessSpec | None = None
 
     @property
     def footprint(self) -> FootprintSpec:
@@ -334,7 +391,7 @@ class AuditSpec:
             out["footprint"].append(fd)
         out["analysis"] = _dataclass_dict(self.analysis)
         out["output"] = _dataclass_dict(self.output)
-        for key in ("explain", "change", "activity", "study_area"):
+        for key in ("explain", "change", "activity", "study_area", "access"):
             value = getattr(self, key)
             if value is not None:
                 out[key] = _dataclass_dict(value)
@@ -378,12 +435,49 @@ def load_spec(path: str | Path) -> AuditSpec:
     if not spec_path.is_file():
         raise SpecError(f"spec file '{spec_path}' was not found; check the path")
     try:
-        data = tomllib.loads(spec_path.read_text(encoding="utf-8"))
-    except tomllib.TOMLDecodeError as exc:
-        raise SpecError(f"{spec_path}: not valid TOML ({exc}); fix the line it names") from None
+        text = spec_path.read_bytes().decode("utf-8")
     except UnicodeDecodeError:
         raise SpecError(f"{spec_path}: not a UTF-8 text file") from None
+    except OSError as exc:
+        raise SpecError(f"spec file '{spec_path}' could not be read ({exc.strerror})") from None
+    # A byte-order mark (some Windows editors write one) is not part of the TOML: skip it.
+    text = text.removeprefix("\ufeff")
+    try:
+        data = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        raise SpecError(f"{spec_path}: {toml_error_text(text, exc)}") from None
     return spec_from_dict(data, base_dir=spec_path.resolve().parent, source=spec_path)
+
+
+_TOML_AT_RE = re.compile(r"\(at line (\d+), column (\d+)\)")
+
+
+def toml_error_text(text: str, exc: Exception) -> str:
+    """Return a TOML parse error as a sentence; a repeated key is named with its table.
+
+    ``tomllib`` says only "Cannot overwrite a value (at line 3, column 6)" when a key is
+    given twice; the key is read back from that line of the text.
+    """
+    message = str(exc)
+    match = _TOML_AT_RE.search(message)
+    if match and message.startswith("Cannot overwrite a value"):
+        lineno = int(match.group(1))
+        lines = text.splitlines()
+        line = lines[lineno - 1] if 0 < lineno <= len(lines) else ""
+        key = line.split("=", 1)[0].strip() if "=" in line else ""
+        table = ""
+        for previous in reversed(lines[: lineno - 1]):
+            stripped = previous.strip()
+            if stripped.startswith("["):
+                table = stripped.split("#", 1)[0].strip()
+                break
+        if key:
+            where = f" in {table}" if table else " at the top level"
+            return (
+                f'the key "{key}"{where} is given twice (the second time at line {lineno}); '
+                "keep one of them"
+            )
+    return f"not valid TOML ({message}); fix the line it names"
 
 
 _TOP_KEYS = (
@@ -399,6 +493,7 @@ _TOP_KEYS = (
     "study_area",
     "table",
     "lending",
+    "access",
 )
 _TABLE_KEYS = ("path", "id")
 _EXPLAIN_KEYS = tuple(f.name for f in fields(ExplainSpec))
@@ -560,6 +655,7 @@ def spec_from_dict(
         study_area=study_area,
         tables=tables,
         lending=lending_from(data.get("lending"), base, where),
+        access=_access_from(data.get("access"), base, where, footprints[0]),
     )
 
 
@@ -848,7 +944,9 @@ def _explain_from(value: Any, where: str) -> ExplainSpec | None:
         models=_bool(ex_d, "models", where, "explain", True),
         rules=_bool(ex_d, "rules", where, "explain", True),
         rule_conditions=_str_list(ex_d, "rule_conditions", where, "explain"),
-        rule_max_length=_int_default(ex_d, "rule_max_length", where, "explain", 2, minimum=1),
+        rule_max_length=_int_default(
+            ex_d, "rule_max_length", where, "explain", 2, minimum=1, maximum=MAX_RULE_LENGTH
+        ),
         rule_min_support=float(support),
     )
 
@@ -963,22 +1061,28 @@ def _analysis_from(an_d: Mapping[str, Any], where: str) -> AnalysisSpec:
         comparison=_choice(an_d, "comparison", where, t, COMPARISONS, "reference"),
         contiguity=_choice(an_d, "contiguity", where, t, ("queen", "rook"), "queen"),
         islands=_choice(an_d, "islands", where, t, ("exclude", "knn"), "exclude"),
-        knn_k=_int(an_d, "knn_k", where, t, minimum=1) or 1,
-        permutations=_int_default(an_d, "permutations", where, t, 999, minimum=1),
+        knn_k=_int(an_d, "knn_k", where, t, minimum=1, maximum=MAX_KNN) or 1,
+        permutations=_int_default(
+            an_d, "permutations", where, t, 999, minimum=1, maximum=MAX_DRAWS
+        ),
         seed=_int_default(an_d, "seed", where, t, DEFAULT_SEED, minimum=0),
         fdr=_choice(an_d, "fdr", where, t, FDR_METHODS, "bh"),
         alpha=_float(an_d, "alpha", where, t, 0.05, 0.0, 1.0, open_low=True),
         enclave_min_surround=_float(an_d, "enclave_min_surround", where, t, 0.75, 0.0, 1.0),
         enclave_min_population=_float(an_d, "enclave_min_population", where, t, 0.0, 0.0, None),
-        enclave_draws=_int_default(an_d, "enclave_draws", where, t, 999, minimum=0),
+        enclave_draws=_int_default(
+            an_d, "enclave_draws", where, t, 999, minimum=0, maximum=MAX_DRAWS
+        ),
         contrast_group=_str(an_d, "contrast_group", where, t),
         transparent_zero_population=_bool(an_d, "transparent_zero_population", where, t, False),
-        circle_vertices=_int_default(an_d, "circle_vertices", where, t, 128, minimum=16),
+        circle_vertices=_int_default(
+            an_d, "circle_vertices", where, t, 128, minimum=16, maximum=MAX_CIRCLE_VERTICES
+        ),
         analysis_crs=_str(an_d, "analysis_crs", where, t),
         sensitivity=_bool(an_d, "sensitivity", where, t, True),
         engine=_choice(an_d, "engine", where, t, ENGINES, "local"),
         dask_scheduler=_str(an_d, "dask_scheduler", where, t),
-        partitions=_int(an_d, "partitions", where, t, minimum=1),
+        partitions=_int(an_d, "partitions", where, t, minimum=1, maximum=MAX_PARTITIONS),
     )
 
 
@@ -1055,7 +1159,14 @@ def _float(
     return value
 
 
-def _int(d: Mapping[str, Any], key: str, where: str, label: str, minimum: int = 0) -> int | None:
+def _int(
+    d: Mapping[str, Any],
+    key: str,
+    where: str,
+    label: str,
+    minimum: int = 0,
+    maximum: int | None = None,
+) -> int | None:
     if key not in d:
         return None
     value = d[key]
@@ -1063,13 +1174,24 @@ def _int(d: Mapping[str, Any], key: str, where: str, label: str, minimum: int = 
         raise SpecError(f"{where}: [{label}] {key} must be a whole number, got {value!r}")
     if value < minimum:
         raise SpecError(f"{where}: [{label}] {key} was {value} but must be at least {minimum}")
+    if maximum is not None and value > maximum:
+        raise SpecError(
+            f"{where}: [{label}] {key} was {value} but must be at most {maximum:,} "
+            f"(the largest this tool accepts); use a smaller number"
+        )
     return value
 
 
 def _int_default(
-    d: Mapping[str, Any], key: str, where: str, label: str, default: int, minimum: int = 0
+    d: Mapping[str, Any],
+    key: str,
+    where: str,
+    label: str,
+    default: int,
+    minimum: int = 0,
+    maximum: int | None = None,
 ) -> int:
-    value = _int(d, key, where, label, minimum)
+    value = _int(d, key, where, label, minimum, maximum)
     return default if value is None else value
 
 
@@ -1087,3 +1209,126 @@ def _choice(
 def replace_output(spec: AuditSpec, **changes: bool) -> AuditSpec:
     """Return a copy of ``spec`` with some ``[output]`` switches changed."""
     return replace(spec, output=replace(spec.output, **changes))
+
+
+_ACCESS_KEYS = (
+    "capacity",
+    "catchment",
+    "decay",
+    "origins",
+    "costs",
+    "cost_origin",
+    "cost_site",
+    "cost_column",
+    "cost_unit",
+    "site_id",
+    "low_access_fraction",
+)
+_TIME_RE = re.compile(r"^\s*([0-9]*\.?[0-9]+(?:[eE][+-]?[0-9]+)?)\s*([a-zA-Z]+)\s*$")
+
+
+def _catchment(value: Any, where: str) -> tuple[float, str, float]:
+    """Return (catchment in base unit, base unit, factor of the unit as written)."""
+    if isinstance(value, str):
+        match = _TIME_RE.match(value)
+        if match and match.group(2).lower() in TIME_UNITS:
+            number = float(match.group(1))
+            if not (math.isfinite(number) and number > 0):
+                raise SpecError(f"{where}: [access] catchment must be positive, got {value!r}")
+            factor = TIME_UNITS[match.group(2).lower()]
+            return number * factor, "min", factor
+    try:
+        metres = parse_length(value, "m")
+    except ValueError as exc:
+        raise SpecError(
+            f'{where}: [access] catchment: {exc}; or a travel time such as "20 min" (with costs)'
+        ) from None
+    unit = "m"
+    if isinstance(value, str):
+        match = _LENGTH_RE.match(value)
+        unit = (match.group(2) or "m").lower() if match else "m"
+    return metres, "m", LENGTH_UNITS[unit]
+
+
+def _access_from(value: Any, base: Path, where: str, footprint: FootprintSpec) -> AccessSpec | None:
+    if value is None:
+        return None
+    ac_d = _table(value, where, "access")
+    _check_keys(ac_d, _ACCESS_KEYS, where, "[access]")
+    if footprint.kind != "points":
+        raise SpecError(
+            f"{where}: [access] measures access to the footprint's points, but footprint "
+            f'"{footprint.name}" is kind = "{footprint.kind}"; give a points footprint first'
+        )
+    if "catchment" not in ac_d:
+        raise SpecError(f'{where}: [access] catchment is required, e.g. catchment = "15 km"')
+    catchment, unit, factor = _catchment(ac_d["catchment"], where)
+    raw_decay = ac_d.get("decay", "none")
+    steps: tuple[tuple[float, float], ...] = ()
+    if isinstance(raw_decay, list):
+        from .stats.access import check_steps
+
+        ok = all(
+            isinstance(p, list)
+            and len(p) == 2
+            and all(isinstance(v, (int, float)) and not isinstance(v, bool) for v in p)
+            for p in raw_decay
+        )
+        if not ok:
+            raise SpecError(
+                f"{where}: [access] decay as steps must be a list of [edge, weight] pairs, e.g. "
+                f"[[5, 1.0], [10, 0.68], [15, 0.22]]; got {raw_decay!r}"
+            )
+        try:
+            check_steps(raw_decay, catchment / factor)
+        except ValueError as exc:
+            raise SpecError(f"{where}: [access] decay: {exc}") from None
+        # The last edge is the catchment itself, exactly (no rounding from the unit).
+        steps = tuple(
+            (catchment if k == len(raw_decay) - 1 else float(e) * factor, float(w))
+            for k, (e, w) in enumerate(raw_decay)
+        )
+        decay = "steps"
+    elif raw_decay in ("none", "gaussian"):
+        decay = str(raw_decay)
+    else:
+        raise SpecError(
+            f'{where}: [access] decay was {raw_decay!r} but is expected to be "none", '
+            '"gaussian" or a list of [edge, weight] pairs such as [[5, 1.0], [10, 0.68], [15, 0.22]]'
+        )
+    origins = _choice(ac_d, "origins", where, "access", ACCESS_ORIGINS, "centroid")
+    if origins == "population":
+        raise SpecError(
+            f'{where}: [access] origins = "population" needs census blocks (population-weighted '
+            'centroids), which this version does not read yet; use origins = "centroid"'
+        )
+    costs = _path(ac_d, "costs", base, where, "access")
+    allowed_units = tuple(TIME_UNITS) if unit == "min" else tuple(LENGTH_UNITS)
+    cost_unit = _str(ac_d, "cost_unit", where, "access")
+    if cost_unit is not None and cost_unit not in allowed_units:
+        raise SpecError(
+            f'{where}: [access] cost_unit was "{cost_unit}" but with this catchment it must be '
+            f"one of {list(allowed_units)}"
+        )
+    if unit == "min" and costs is None:
+        raise SpecError(
+            f"{where}: [access] a catchment in time ({ac_d['catchment']!r}) needs costs = a "
+            "travel-time table; straight lines are lengths"
+        )
+    return AccessSpec(
+        catchment=catchment,
+        catchment_unit=unit,
+        decay=decay,
+        steps=steps,
+        capacity=_str(ac_d, "capacity", where, "access"),
+        origins=origins,
+        costs=costs,
+        cost_origin=_str(ac_d, "cost_origin", where, "access") or "origin",
+        cost_site=_str(ac_d, "cost_site", where, "access") or "site",
+        cost_column=_str(ac_d, "cost_column", where, "access") or "cost",
+        cost_unit=cost_unit,
+        site_id=_str(ac_d, "site_id", where, "access"),
+        low_access_fraction=_float(
+            ac_d, "low_access_fraction", where, "access", 0.5, 0.0, None, open_low=True
+        ),
+    )

@@ -13,6 +13,7 @@ audit runs over every analysed area, as before.
 
 from __future__ import annotations
 
+import hashlib
 from dataclasses import dataclass, replace
 from typing import Any
 
@@ -23,7 +24,7 @@ import shapely
 
 from .errors import InputError
 from .footprint import Footprint
-from .inputs import AreaInputs, InputRecord, ids_as_text, read_layer, read_table, sha256_file
+from .inputs import AreaInputs, InputRecord, ids_as_text, read_hashed, read_layer, read_table
 from .spec import StudyAreaSpec
 
 #: Exclusion reason of areas outside the study area.
@@ -144,7 +145,10 @@ def inside_within(geoms: np.ndarray, footprint_geometry: Any, distance_m: float)
 def _polygon_layer(spec: StudyAreaSpec, crs: Any) -> tuple[Any, InputRecord]:
     assert spec.path is not None
     role = "study area"
-    layer = read_layer(spec.path, layer=spec.layer, role=role)
+    path = spec.path
+    layer, digest = read_hashed(
+        path, lambda: read_layer(path, layer=spec.layer, role=role), role=role
+    )
     if layer.crs is None:
         if spec.crs is None:
             raise InputError(
@@ -164,7 +168,7 @@ def _polygon_layer(spec: StudyAreaSpec, crs: Any) -> tuple[Any, InputRecord]:
     record = InputRecord(
         "study_area",
         str(spec.path),
-        sha256_file(spec.path),
+        digest,
         len(layer),
         layer.crs.to_string(),
         spec.layer,
@@ -184,7 +188,9 @@ def _listed_ids(
     if path.suffix.lower() == ".txt":
         if not path.exists():
             raise InputError(f"{where} was not found; check the path in the spec")
-        lines = path.read_text(encoding="utf-8").splitlines()
+        payload = path.read_bytes()  # read once: the digest is of these very bytes
+        digest = hashlib.sha256(payload).hexdigest()
+        lines = payload.decode("utf-8-sig").splitlines()
         values = pd.Series([ln.strip() or None for ln in lines], dtype=object)
     else:
         probe = read_table(path, id_column=spec.ids_column or "__none__", role="study area")
@@ -194,9 +200,14 @@ def _listed_ids(
                 f"{where} has no column {column!r}; its columns are {list(probe.columns)}; "
                 "set ids_column in [study_area]"
             )
-        values = read_table(path, id_column=column, role="study area")[column]
+        table, digest = read_hashed(
+            path,
+            lambda: read_table(path, id_column=column, role="study area"),
+            role="study area",
+        )
+        values = table[column]
     listed = ids_as_text(values, width=id_width, where=where).reset_index(drop=True)
-    record = InputRecord("study_area", str(path), sha256_file(path), len(listed))
+    record = InputRecord("study_area", str(path), digest, len(listed))
     return listed, [record], where
 
 

@@ -82,19 +82,20 @@ def test_many_small_pieces_equal_whole():
 
 def test_four_fifths_strictly_less_than():
     # 29 CFR 1607.4(D): a rate "less than four-fifths (4/5) (or eighty percent)" of the
-    # comparison rate. A ratio of exactly 0.80 is not flagged; just below it is.
-    table = pd.DataFrame({"population": [100.0, 100.0], "ref": [100.0, 0.0], "a": [0.0, 100.0]})
-    # Reference rate 0.625 (5/8) and group rate 0.5: ratio 0.8 exactly.
+    # comparison rate. Reference 3 of 4 covered and group 3 of 5: (3/5)/(3/4) = 4/5 exactly
+    # (by hand), whose float ratio is 0.7999999999999999, so a float oracle would flag it.
+    table = pd.DataFrame({"population": [4.0, 5.0], "ref": [4.0, 0.0], "a": [0.0, 5.0]})
     result = coverage_by_group(
-        table, groups=["ref", "a"], reference="ref", fraction=np.array([0.625, 0.5]), threshold=0.5
+        table, groups=["ref", "a"], reference="ref", fraction=np.array([0.75, 0.6]), threshold=0.5
     )
-    assert result.groups["a"].ratio == pytest.approx(0.8, abs=1e-15)
+    assert result.groups["a"].ratio < 0.8  # the float trap the exact rule avoids
     assert result.groups["a"].below_four_fifths is False
+    # Group 2.9995 of 5 covered: (0.5999/0.75) = 0.79986..., below four-fifths.
     result = coverage_by_group(
         table,
         groups=["ref", "a"],
         reference="ref",
-        fraction=np.array([0.625, 0.4999]),
+        fraction=np.array([0.75, 0.5999]),
         threshold=0.5,
     )
     assert result.groups["a"].below_four_fifths is True

@@ -16,6 +16,7 @@ from scipy import optimize, stats
 from sklearn.linear_model import LogisticRegression
 
 from coverage_audit import synthetic
+from coverage_audit.clustering import moran
 from coverage_audit.errors import AnalysisError, SpecError
 from coverage_audit.explain import (
     DEFAULT_THRESHOLDS,
@@ -311,6 +312,33 @@ def test_residual_moran_matches_esda_and_flags_hidden_space():
     assert moran.z_rand == pytest.approx(mi.z_rand, rel=1e-6)
     assert moran.space_not_accounted_for and moran.z_rand > 1.96
     assert result.models["uncovered_minority_only"].residual_moran.space_not_accounted_for
+
+
+def test_moran_p_values_have_one_convention():
+    # Issue 9 item 7: every p_rand / p_norm key is one-sided (direction of z), every
+    # *_two_sided key two-sided, in the global and the residual Moran alike.
+    # Oracle: esda.Moran with two_tailed=False (one-sided) and two_tailed=True (two-sided).
+    cells, table = _spatial_table(SEED, clustered=True)
+    area_graph = build_area_graph(cells.geometry.to_numpy(), cells["geoid"])
+    result = exclusion_models(table, id_column="geoid", weights=area_graph)
+    residual = result.models["unserved_minority_only"].residual_moran.to_dict()
+    x = _design(table, controls=())
+    y = (~table["served"]).to_numpy(dtype=float)
+    mu = _logistic(x @ _newton_logit(x, y))
+    pearson = (y - mu) / np.sqrt(mu * (1 - mu))
+    graph = area_graph.stats_graph("r")
+    one = esda.Moran(pearson, graph, permutations=0, two_tailed=False)
+    two = esda.Moran(pearson, graph, permutations=0, two_tailed=True)
+    assert residual["p_rand"] == pytest.approx(one.p_rand, rel=1e-6)
+    assert residual["p_rand_two_sided"] == pytest.approx(two.p_rand, rel=1e-6)
+    glob = moran(pearson, area_graph, permutations=0).to_dict()
+    assert glob["p_rand"] == pytest.approx(one.p_rand, rel=1e-6)
+    assert glob["p_norm"] == pytest.approx(one.p_norm, rel=1e-6)
+    assert glob["p_rand_two_sided"] == pytest.approx(two.p_rand, rel=1e-6)
+    assert glob["p_norm_two_sided"] == pytest.approx(two.p_norm, rel=1e-6)
+    # One implementation: the residual statistic is the global one on the same values.
+    assert residual["I"] == pytest.approx(glob["I"], rel=1e-12)
+    assert residual["z_rand"] == pytest.approx(glob["z_rand"], rel=1e-12)
 
 
 def test_residual_moran_quiet_without_hidden_space_and_aligns_by_id():
@@ -723,8 +751,14 @@ def test_four_fifths_is_strict_and_highest_group_option():
         "h": np.array([0, 0, 0, 1.0, 0]),
     }
     (row,) = sensitivity_thresholds(cf, counts, "ref", [0.5])
-    # 29 CFR 1607.4(D): "less than four-fifths"; exactly 0.8 is not flagged.
+    # 29 CFR 1607.4(D): "less than four-fifths"; exactly 4/5 is not flagged. g has 4 of 5
+    # served against 10 of 10; the exact boundary with a float trap is in
+    # test_four_fifths.py (3/5 against 3/4).
     assert row.groups["g"].ratio == pytest.approx(0.8)
+    assert row.groups["g"].below_four_fifths is False
+    trap = {"ref": np.array([3.0, 1.0, 0, 0, 0]), "g": np.array([0, 0, 2.0, 3.0, 0])}
+    (row,) = sensitivity_thresholds(np.array([1.0, 0.0, 0.0, 1.0, 0.0]), trap, "ref", [0.5])
+    assert row.groups["g"].ratio < 0.8  # 0.7999999999999999 in float, 4/5 by hand
     assert row.groups["g"].below_four_fifths is False
     (high,) = sensitivity_thresholds(
         cf, {**counts, "ref": np.array([5.0, 5.0, 5.0, 5.0, 0])}, "ref", [0.5], against="highest"

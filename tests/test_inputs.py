@@ -370,3 +370,29 @@ def test_crs_conflict_is_an_error(tmp_path):
     with pytest.raises(InputError, match="remove \\[areas\\] crs from the spec"):
         load_areas(spec.areas, spec.population)
     assert CRS(GRID_CRS).is_projected
+
+
+@pytest.mark.parametrize(
+    ("rule", "cut", "expected"),
+    [
+        # REFERENCES.md: "minority population share above 50%" is the common screen, "50
+        # percent or more" in some supervisory guidance (wording from memory). Shares by hand:
+        # 50/100 = 0.5, 51/100, 49/100, 30/60 = 0.5 exactly, 6/10 = 0.6 exactly.
+        ("above", 0.5, [False, True, False, False, True]),
+        ("at_or_above", 0.5, [True, True, False, True, True]),
+        # A cut that is not a binary fraction: 6/10 against 0.6 is exactly at the cut.
+        ("above", 0.6, [False, False, False, False, False]),
+        ("at_or_above", 0.6, [False, False, False, False, True]),
+    ],
+)
+def test_majority_minority_at_exactly_the_cut(tmp_path, rule, cut, expected):
+    areas = grid(5, 1)
+    areas["total"] = [100, 100, 100, 60, 10]
+    areas["white"] = [50, 49, 51, 30, 4]
+    areas["black"] = areas["total"] - areas["white"]
+    areas.to_file(tmp_path / "areas.gpkg", driver="GPKG")
+    extra = f'majority_minority_rule = "{rule}"\nmajority_minority_share = {cut}'
+    text = spec_text('path = "zone.gpkg"', population_extra=extra)
+    spec = load_spec(write_spec(tmp_path / "a.toml", text))
+    loaded = load_areas(spec.areas, spec.population, analysis_crs=spec.analysis.analysis_crs)
+    assert loaded.frame["majority_minority"].tolist() == expected

@@ -21,6 +21,7 @@ import pandas as pd
 
 from ..errors import InputError
 from .census import TableRead, parse_margins, read_census_table
+from .checks import read_hashed
 from .joins import MatchReport, match_ids
 
 if TYPE_CHECKING:
@@ -42,6 +43,8 @@ class JoinedTables:
     margins: dict[str, str] = field(default_factory=dict)
     #: Input record data: (path, rows).
     rows: list[tuple[Path, int]] = field(default_factory=list)
+    #: SHA-256 of the bytes each table was read from (hashed before and after reading).
+    digests: dict[Path, str] = field(default_factory=dict)
 
 
 def join_tables(
@@ -85,8 +88,12 @@ def join_tables(
     several = len(tables) > 1
     for path, id_given in tables:
         source = f"table:{path.name}" if several else "table"
-        read = read_census_table(
-            path, id_column=id_given, role="demographics table", prefer=id_column
+        read, out.digests[path] = read_hashed(
+            path,
+            lambda path=path, id_given=id_given: read_census_table(  # type: ignore[misc]
+                path, id_column=id_given, role="demographics table", prefer=id_column
+            ),
+            role="demographics table",
         )
         table = read.frame  # freshly read: ours to change
         tid = read.id_column

@@ -395,6 +395,7 @@ window.coverageAuditDraw = function (map, D) {
     if (F.lapp) { row(t, "Lender's applications", F.lapp[i] === null ? "n/a" : fmtInt(F.lapp[i])); }
     if (F.lsh) { row(t, "Lender's share of applications", F.lsh[i] === null ? "no applications" : fmtPct(F.lsh[i], D.scales.share)); }
     if (F.lgap) { row(t, "Lending gap", F.lgap[i] === null ? "n/a" : (F.lgap[i] ? "yes" : "no")); }
+    if (F.acc) { row(t, "Access (% of region's mean)", F.acc[i] === null ? "n/a" : fmtInt(F.acc[i]) + "%"); }
     if (F.lisa) {
       var lc = F.lisa[i] === null ? "left out" : D.codes.lisa[F.lisa[i]];
       if (D.lisa_fdr && F.lisa_q && F.lisa_q[i] !== null) {

@@ -15,8 +15,8 @@ from __future__ import annotations
 from collections.abc import Mapping, Sequence
 from typing import Any
 
+from ..stats.four_fifths import ratio_below_four_fifths
 from .markup import (
-    FOUR_FIFTHS,
     NA,
     STAR_NOTE,
     Html,
@@ -158,9 +158,14 @@ def _group_list(groups: Any) -> str:
     return ", ".join(str(g) for g in groups) or "none"
 
 
-def _below(ratio: Any) -> bool:
-    f = as_number(ratio)
-    return f is not None and f < FOUR_FIFTHS
+def _below(fields: Mapping[str, Any]) -> bool:
+    """Return the four-fifths flag of a group's ranking ratio, as the comparison set it.
+
+    Summaries written before the flag was recorded fall back on the shared exact rule.
+    """
+    if "ranking_below_four_fifths" in fields:
+        return bool(fields["ranking_below_four_fifths"])
+    return ratio_below_four_fifths(as_number(fields.get("ranking_ratio")))
 
 
 def ranked_rate(cmp: Mapping[str, Any]) -> str:
@@ -186,7 +191,7 @@ def _footprint_ratio_table(
                 flagged_number(
                     f"{fmt_percent(get_in(f, 'groups', g, rate_key))} ("
                     f"{fmt_fixed(get_in(f, 'groups', g, 'ranking_ratio'))})",
-                    _below(get_in(f, "groups", g, "ranking_ratio")),
+                    _below(as_mapping(get_in(f, "groups", g))),
                 )
                 for g in groups
             ),

@@ -12,6 +12,7 @@ from __future__ import annotations
 from collections.abc import Callable, Mapping
 from typing import Any
 
+from .access_sections import access_key_figures, access_section
 from .compare_sections import change_section, comparison_section, peers_section, ranked_rate
 from .explain_sections import explain_section, flags_of, sensitivity_section, sweep_groups
 from .lending_sections import key_figures as lending_key_figures
@@ -39,6 +40,7 @@ FURTHER_SECTIONS: tuple[tuple[str, str, Callable[[Page], Html]], ...] = (
     ("lending", "Lending patterns from loan records", lending_section),
     ("explain", "Is the gap explained by other factors?", explain_section),
     ("sensitivity", "Does the finding hold?", sensitivity_section),
+    ("access", "Access to service capacity", access_section),
 )
 
 
@@ -103,7 +105,7 @@ def method_values(page: Page) -> dict[str, str]:
 def key_figures(page: Page) -> list[Html]:
     """Return the further analyses' lines of the page's "Key figures"."""
     summary = page.summary
-    items: list[Html] = []
+    items: list[Html] = access_key_figures(page) if "access" in summary else []
     peers = as_mapping(summary.get("peers"))
     if peers and not skipped_reason(peers):
         flagged = [str(f) for f in peers.get("flagged") or []]

@@ -16,7 +16,6 @@ import html
 import json
 import math
 import os
-import tempfile
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from pathlib import Path
@@ -32,6 +31,7 @@ from jinja2 import Template
 
 from .._util import clean_number, to_jsonable
 from ..errors import InputError, SpecError
+from ..geographic import data_centre, shift_longitudes, unwrap_longitudes
 from . import assets, palette
 from .map_context import group_label, outside_overlay, site_change_overlay
 
@@ -718,6 +718,7 @@ def _footprint_overlays(
     crs: Any,
     tolerance: float,
     decimals: int,
+    centre: float = float("nan"),
 ) -> list[dict[str, Any]]:
     if footprint is None:
         return []
@@ -736,6 +737,7 @@ def _footprint_overlays(
         if tolerance > 0:
             geoms = shapely.simplify(geoms, tolerance, preserve_topology=True)
         lonlat = gpd.GeoSeries(geoms, crs=series.crs).to_crs(4326).values
+        lonlat = unwrap_longitudes(np.asarray(lonlat), centre)[0]  # one side of 180
         lonlat = np.asarray(lonlat)[_has_polygon(np.asarray(lonlat))]
         if lonlat.size:
             label = {
@@ -779,7 +781,7 @@ def _footprint_overlays(
                 "names": (
                     [str(v) for v in points.loc[pts.index, named]] if named is not None else None
                 ),
-                "lon": np.round(pts.x.to_numpy(), 6).tolist(),
+                "lon": np.round(shift_longitudes(pts.x.to_numpy(), centre), 6).tolist(),
                 "lat": np.round(pts.y.to_numpy(), 6).tolist(),
                 "radius_m": radius,
                 "color": "#1f1f1f",
@@ -792,7 +794,7 @@ def _footprint_overlays(
 
 
 def _enclave_overlay(
-    display: gpd.GeoSeries, enclave: pd.Series, decimals: int
+    display: gpd.GeoSeries, enclave: pd.Series, decimals: int, centre: float = float("nan")
 ) -> dict[str, Any] | None:
     ids = enclave.where(enclave.notna(), None)
     mask = ids.notna().to_numpy()
@@ -807,7 +809,7 @@ def _enclave_overlay(
     # Natural order E1, E2, ..., E10 rather than the string order E1, E10, E2.
     keys = sorted(dissolved.index, key=lambda s: (len(s), s))
     dissolved = dissolved.loc[keys].to_crs(4326)
-    geoms = np.asarray(dissolved.geometry.values)
+    geoms = unwrap_longitudes(np.asarray(dissolved.geometry.values), centre)[0]
     has = _has_polygon(geoms)
     return {
         "key": "enclaves",
@@ -915,22 +917,9 @@ def _render_page(title: str, bounds: list[list[float]], data_json: str) -> str:
 
 
 def _write_atomic(path: Path, text: str) -> int:
-    path.parent.mkdir(parents=True, exist_ok=True)
-    payload = text.encode("utf-8")
-    fd, tmp = tempfile.mkstemp(prefix=".map-", suffix=".html.tmp", dir=path.parent)
-    try:
-        with os.fdopen(fd, "wb") as fh:
-            fh.write(payload)
-        # mkstemp makes the file private (0600); a map is for sharing, so give it the
-        # permissions an ordinary open() would.
-        umask = os.umask(0)
-        os.umask(umask)
-        os.chmod(tmp, 0o666 & ~umask)
-        os.replace(tmp, path)
-    except BaseException:
-        Path(tmp).unlink(missing_ok=True)
-        raise
-    return len(payload)
+    from ..outputs import write_bytes
+
+    return write_bytes(path, text.encode("utf-8"))
 
 
 # --------------------------------------------------------------------------- public
@@ -1035,13 +1024,21 @@ def build_map(
     lonlat_has = _has_polygon(lonlat)
     if not lonlat_has.all():  # pragma: no cover - reprojection keeps polygons polygons
         lonlat = np.where(lonlat_has, lonlat, np.asarray(frame.geometry.to_crs(4326).values))
+    # A region across the antimeridian is drawn on one side of it, every layer alike.
+    centre = data_centre(lonlat)
+    lonlat = unwrap_longitudes(lonlat, centre)[0]
     n = int(len(frame))
     xmin, ymin, xmax, ymax = shapely.total_bounds(lonlat) if n else (0.0, 0.0, 0.0, 0.0)
     bounds = [[float(ymin), float(xmin)], [float(ymax), float(xmax)]]
 
     fields, missing = _fields(frame, id_column, groups, label_column)
     views = _views(frame, fields, missing, groups, reference, summary)
-    overlays = _footprint_overlays(footprint, areas.crs, tolerance, decimals)
+    from .access_sections import access_map_layer
+
+    if (layer := access_map_layer(frame, summary)) is not None:
+        fields["acc"], view = layer
+        views.append(view)
+    overlays = _footprint_overlays(footprint, areas.crs, tolerance, decimals, centre)
     region_bounds = None
     if outside is not None and len(outside):
         overlays.insert(0, outside_overlay(outside, tolerance, decimals))
@@ -1056,7 +1053,7 @@ def build_map(
     codes: dict[str, list[str]] = {"tier": list(INCOME_TIERS), "lisa": list(LISA_LABELS)}
     if "enclave_id" in frame.columns:
         enclave = _enclave_overlay(
-            display_series, frame["enclave_id"].reset_index(drop=True), decimals
+            display_series, frame["enclave_id"].reset_index(drop=True), decimals, centre
         )
         if enclave is not None:
             overlays.insert(0, enclave)

@@ -284,7 +284,9 @@ def _header(page: Page) -> Html:
     if m.get("finished"):
         run += f", finished {m['finished']}"
     title = page.summary.get("title") or "Coverage audit"
-    return tag("header", tag("h1", title), para(run), class_="report-head")
+    notice = page.summary.get("population_notice")
+    said = para(f"Note: {notice}.", class_="note population-notice") if notice else ""
+    return tag("header", tag("h1", title), para(run), said, class_="report-head")
 
 
 def _cautions(page: Page) -> tuple[tuple[str, str, str], ...]:
@@ -677,9 +679,6 @@ def build_report(
         moran_weights=moran_weights,
         moran_mask=moran_mask,
     )
-    temporary = target.with_name(f".{target.name}.{os.getpid()}.tmp")
-    try:
-        temporary.write_text(text, encoding="utf-8")
-        os.replace(temporary, target)
-    finally:
-        temporary.unlink(missing_ok=True)
+    from ..outputs import write_bytes
+
+    write_bytes(target, text.encode("utf-8"))

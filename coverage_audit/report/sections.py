@@ -564,7 +564,7 @@ _MORAN_COLUMNS: tuple[tuple[str, str, Callable[[Any], str]], ...] = (
     ("expected", "E[I]", lambda v: fmt_fixed(v, 4)),
     ("variance_rand", "Var[I] (rand.)", lambda v: fmt_fixed(v, 6)),
     ("z_rand", "z (rand.)", lambda v: fmt_fixed(v, 2)),
-    ("p_rand", "p (rand.)", fmt_p),
+    ("p_rand", "p (rand., one-sided)", fmt_p),
     ("z_sim", "z_sim", lambda v: fmt_fixed(v, 2)),
     ("p_sim", "p_sim", fmt_p),
     ("permutations", "Permutations", fmt_count),

@@ -73,7 +73,14 @@ METHODS: dict[str, tuple[tuple[str, str], ...]] = {
         ),
         (
             "Four-fifths screen (29 CFR 1607.4(D))",
-            "A group is flagged when its ratio is strictly less than 0.8. {four_fifths}",
+            "A group is flagged when its ratio is strictly less than 4/5. The comparison is "
+            "made exactly on the counts, not on the rounded ratio: with a of b people covered "
+            "in the group and c of d in the comparison group, the flag is 5&middot;a&middot;d "
+            "&lt; 4&middot;b&middot;c, in exact rational arithmetic, and it is raised only "
+            "when the shortfall exceeds one part in a billion (10<sup>&minus;9</sup>) of the "
+            "right-hand side, so that rounding in the covered counts cannot flag a ratio of "
+            "exactly 4/5 (for example 60,000 of 100,000 against 75,000 of 100,000). The same "
+            "rule applies in the sweeps and comparisons. {four_fifths}",
         ),
     ),
     "area_classes": (
@@ -139,7 +146,11 @@ METHODS: dict[str, tuple[tuple[str, str], ...]] = {
             "from the mean, w<sub>ij</sub> the row-standardised contiguity weights and "
             "S<sub>0</sub> their sum (Moran, P. A. P. 1950, Biometrika 37, 17&ndash;23). "
             "Variance and z under randomisation follow Cliff, A. D. and Ord, J. K. 1981, "
-            "Spatial Processes: Models and Applications. p_sim is a pseudo p-value from "
+            "Spatial Processes: Models and Applications. The normal p-values p_norm and "
+            "p_rand are one-sided, in the direction of z: P(Z &ge; |z|); the keys "
+            "p_norm_two_sided and p_rand_two_sided hold 2&nbsp;P(Z &ge; |z|). This is the one "
+            "convention of every Moran p-value in summary.json, the residual Moran's I of "
+            "the models included. p_sim is a pseudo p-value from "
             "random permutations of the values over the areas, (1 + number at least as "
             "extreme) / (permutations + 1).",
         ),
@@ -230,7 +241,9 @@ METHODS: dict[str, tuple[tuple[str, str], ...]] = {
         (
             "Moran's I of the model residuals",
             "Moran's I of each model's Pearson residuals under the contiguity weights, with "
-            "its z-score under randomisation (Cliff and Ord 1981). |z| above 1.96 means that "
+            "its z-score under randomisation (Cliff and Ord 1981), computed by the same code "
+            "as the global Moran's I; p_rand is one-sided and p_rand_two_sided two-sided, as "
+            "there. |z| above 1.96 (two-sided p below 0.05) means that "
             "neighbouring areas' residuals are alike: a spatial pattern the model does not "
             "account for, which also makes its standard errors likely too small.",
         ),

@@ -41,6 +41,7 @@ from typing import Any
 import numpy as np
 
 from .._util import clean_number, to_jsonable
+from .four_fifths import ratio_below_four_fifths
 
 __all__ = [
     "CV_CUTOFFS",
@@ -75,8 +76,6 @@ REPLICATE_COUNT = 80
 SDR_FACTOR = 4.0 / REPLICATE_COUNT
 #: CVs above these are commonly flagged as unreliable (common practice, no single source).
 CV_CUTOFFS = (0.30, 0.40)
-#: The four-fifths threshold, 29 CFR 1607.4(D) (also coverage.FOUR_FIFTHS).
-_FOUR_FIFTHS = 0.8
 #: Bootstrap draws held in memory at once (rows of a draws x areas block).
 _CHUNK_CELLS = 1 << 20
 
@@ -209,9 +208,10 @@ def four_fifths_confidence(ratio_ci: Sequence[float] | None) -> str | None:
     if ratio_ci is None:
         return None
     low, high = ratio_ci
-    if high < _FOUR_FIFTHS:
+    # The one rule of the package (stats/four_fifths.py), applied to each end.
+    if ratio_below_four_fifths(high):
         return "below"
-    if low >= _FOUR_FIFTHS:
+    if not ratio_below_four_fifths(low):
         return "not_below"
     return "uncertain"
 

@@ -1,0 +1,184 @@
+"""Travel-cost tables: one row per origin area and service site, with a time or a distance.
+
+Takes the ``[access] costs`` table (CSV, TSV or Parquet; columns named by ``cost_origin``,
+``cost_site`` and ``cost_column``, by default ``origin``, ``site`` and ``cost``), the
+analysed area ids and the site ids, and gives the matched pairs as positions into those
+two lists with the cost in the catchment's base unit (metres or minutes), plus the counts
+the summary reports. Rows that cannot be used (missing or negative cost, an id that
+matches no analysed area or no site, a repeated pair) are listed in the exclusions under
+``access_costs``; pairs absent from the table are beyond the catchment. Any routing
+engine's output can be used as is; nothing is downloaded.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from ..errors import InputError
+from ..inputs import Exclusions, InputRecord, ids_as_text, read_table, sha256_file
+
+#: Exclusions source of the cost table's rows.
+COSTS_SOURCE = "access_costs"
+
+
+@dataclass(frozen=True)
+class CostTable:
+    """Matched rows of a travel-cost table.
+
+    Attributes
+    ----------
+    origin, site : numpy.ndarray
+        Positions of each used row's area and site.
+    cost : numpy.ndarray
+        Cost in the catchment's base unit (metres or minutes).
+    record : InputRecord
+        The file as read, for the manifest.
+    rows, excluded : int
+        Rows read, rows not used.
+    """
+
+    origin: np.ndarray
+    site: np.ndarray
+    cost: np.ndarray
+    record: InputRecord
+    rows: int
+    excluded: int
+
+    def summary(self, catchment: float, n_origins: int, n_sites: int) -> dict[str, Any]:
+        """Return the counts for summary.json: rows used, pairs within, beyond and missing."""
+        within = int((self.cost <= catchment).sum())
+        return {
+            "rows": self.rows,
+            "used": int(self.cost.size),
+            "excluded": self.excluded,
+            "pairs_within_catchment": within,
+            "pairs_beyond_catchment": int(self.cost.size) - within,
+            # Missing pairs are treated as beyond the catchment.
+            "pairs_missing": int(n_origins) * int(n_sites) - int(self.cost.size),
+            "origins_without_row": int(n_origins - np.unique(self.origin).size),
+            "sites_without_row": int(n_sites - np.unique(self.site).size),
+        }
+
+
+def site_ids_as_text(values: pd.Series) -> np.ndarray:
+    """Return site ids as text (``None`` where missing); whole numbers lose a trailing ``.0``."""
+    if pd.api.types.is_numeric_dtype(values.dtype) and not pd.api.types.is_bool_dtype(values.dtype):
+        numbers = pd.to_numeric(values, errors="coerce")
+        whole = numbers.notna() & (numbers % 1 == 0)
+        text = numbers.astype("string")
+        text = text.where(~whole, numbers.where(whole).astype("Int64").astype("string"))
+        return text.to_numpy(dtype=object, na_value=None)
+    return _stripped(values, None)
+
+
+def _stripped(values: pd.Series, width: int | None) -> np.ndarray:
+    """Return text ids stripped (and zero-padded to ``width``), vectorised."""
+    text = values.astype("string").str.strip()
+    if width is not None:
+        text = text.str.zfill(width)
+    text = text.mask((text == "").fillna(False))
+    return text.to_numpy(dtype=object, na_value=None)
+
+
+def read_costs(
+    path: Path,
+    *,
+    origin_column: str,
+    site_column: str,
+    cost_column: str,
+    factor: float,
+    area_ids: np.ndarray,
+    site_ids: np.ndarray,
+    id_width: int | None,
+    exclusions: Exclusions,
+) -> CostTable:
+    """Read a travel-cost table and match its rows to the analysed areas and the sites.
+
+    Parameters
+    ----------
+    path : Path
+        The table (CSV, TSV or Parquet).
+    origin_column, site_column, cost_column : str
+        Its columns: area id, site id, cost.
+    factor : float
+        Multiplier from the cost column's unit to the catchment's base unit.
+    area_ids, site_ids : numpy.ndarray
+        Ids (text) of the analysed areas and of the sites, in analysis order.
+    id_width : int or None
+        Zero-pad numeric area ids to this width (as ``[areas] id_width``).
+    exclusions : Exclusions
+        Unused rows are added here (source ``access_costs``).
+
+    Returns
+    -------
+    CostTable
+
+    Raises
+    ------
+    InputError
+        A column is missing, or no row matches an analysed area and a site.
+    """
+    role = "[access] costs"
+    table = read_table(path, id_column=origin_column, role=role)
+    missing = [c for c in (origin_column, site_column, cost_column) if c not in table.columns]
+    if missing:
+        raise InputError(
+            f"{role} file '{path}' has no column {missing[0]!r}; its columns are "
+            f"{list(table.columns)} (set cost_origin, cost_site and cost_column in [access])"
+        )
+    n = len(table)
+    record = InputRecord("access_costs", str(path), sha256_file(path), n)
+    raw = table[origin_column]
+    if pd.api.types.is_numeric_dtype(raw.dtype) and not pd.api.types.is_bool_dtype(raw.dtype):
+        origins = ids_as_text(
+            raw, width=id_width, where=f"{role} '{path}' column {origin_column}"
+        ).to_numpy(dtype=object)
+    else:
+        # read_table keeps the id column as text: strip and pad without a Python loop.
+        origins = _stripped(raw, id_width)
+    sites = site_ids_as_text(table[site_column])
+    cost = pd.to_numeric(table[cost_column], errors="coerce").to_numpy(dtype=float) * factor
+    # Ids are unique on both sides (areas by load_areas, sites checked by the caller).
+    o_idx = pd.Index(np.asarray(area_ids, dtype=object).astype(str)).get_indexer(origins)
+    s_idx = pd.Index(np.asarray(site_ids, dtype=object).astype(str)).get_indexer(sites)
+    reasons = np.full(n, "", dtype=object)
+    bad_cost = ~(np.isfinite(cost) & (cost >= 0))
+    reasons[bad_cost] = f"cost in column {cost_column} missing, not a number or negative"
+    reasons[(reasons == "") & (s_idx < 0)] = (
+        f"site id in column {site_column} matches no service point"
+    )
+    reasons[(reasons == "") & (o_idx < 0)] = (
+        f"origin id in column {origin_column} matches no analysed area"
+    )
+    ok = reasons == ""
+    key = o_idx.astype(np.int64) * max(len(site_ids), 1) + s_idx
+    seen = pd.Series(key).where(ok).duplicated(keep="first").to_numpy() & ok
+    reasons[seen] = "repeats an origin-site pair given on an earlier row"
+    ok &= ~seen
+    rows = np.arange(1, n + 1)
+    bad = ~ok
+    exclusions.add(
+        COSTS_SOURCE,
+        rows[bad],
+        [f"{o}/{s}" for o, s in zip(origins[bad], sites[bad], strict=True)],
+        list(reasons[bad]),
+    )
+    if not ok.any():
+        raise InputError(
+            f"{role} file '{path}': no row matches an analysed area and a service point "
+            f"({n} rows); check that {origin_column} holds the areas' ids and {site_column} "
+            "the sites' ids ([access] site_id names the points' id column)"
+        )
+    return CostTable(
+        origin=o_idx[ok].astype(np.int64),
+        site=s_idx[ok].astype(np.int64),
+        cost=cost[ok],
+        record=record,
+        rows=n,
+        excluded=int(bad.sum()),
+    )
