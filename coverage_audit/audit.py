@@ -345,6 +345,9 @@ def _run_audit(
     summary["findings"] = build_findings(summary)
     finished = _dt.datetime.now(_dt.timezone.utc)
     manifest = build_manifest(spec, inputs, footprint, started, finished, later_records)
+    if isinstance(summary.get("weights"), dict) and "edge_tolerance_m" in summary["weights"]:
+        # Tolerance under which boundaries count as shared (tolerant contiguity, edges.py).
+        manifest["edge_tolerance_m"] = summary["weights"]["edge_tolerance_m"]
     frame = _order_columns(frame, inputs)
     return AuditResult(
         areas=frame,

@@ -180,6 +180,10 @@ def test_write_produces_map_and_report(tmp_path):
     assert "not by itself proof of discrimination" in text or "not proof of discrimination" in text
     manifest = json.loads(paths["manifest"].read_text())
     assert manifest["outputs"]["map"]["n_features"] == 25
+    # The edge tolerance of tolerant contiguity is recorded beside the inputs (issue 13);
+    # 0.1 m is the documented default (edges.EDGE_TOLERANCE_M, common practice, no source).
+    assert manifest["edge_tolerance_m"] == result.summary["weights"]["edge_tolerance_m"]
+    assert 0 < manifest["edge_tolerance_m"] <= 0.1
 
 
 def test_dask_engine_gives_the_same_findings(tmp_path):
