@@ -24,7 +24,7 @@ import numpy as np
 import pandas as pd
 
 from . import analyses
-from ._util import to_jsonable
+from ._util import relative_paths, to_jsonable
 from ._version import __version__
 from .accessibility import measure_access
 from .analyses import FurtherInputs, add_derived_columns, read_further_inputs
@@ -343,6 +343,7 @@ def _run_audit(
     summary["group_labels"] = spec.population.group_labels
     summary["population_unit"] = spec.population.unit
     summary["findings"] = build_findings(summary)
+    summary = relative_paths(summary, spec.base_dir)
     finished = _dt.datetime.now(_dt.timezone.utc)
     manifest = build_manifest(spec, inputs, footprint, started, finished, later_records)
     if isinstance(summary.get("weights"), dict) and "edge_tolerance_m" in summary["weights"]:

@@ -36,6 +36,19 @@ DESCRIPTION = (
 INLINE_GROUP = "describing the audit without a spec file"
 
 
+#: The demo region's scenarios, as ``demo.SCENARIOS`` names them (kept here so that the
+#: command line starts without loading the geospatial stack; a test checks they agree).
+DEMO_SCENARIOS = (
+    "delivery",
+    "branches",
+    "assessment_area",
+    "zip_delivery",
+    "outreach",
+    "lending",
+    "clinics",
+)
+
+
 def _build_parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(
         prog="coverage-audit",
@@ -167,7 +180,7 @@ def _build_parser() -> argparse.ArgumentParser:
     demo.add_argument(
         "--scenario",
         action="append",
-        choices=["delivery", "branches", "assessment_area", "outreach", "lending", "clinics"],
+        choices=DEMO_SCENARIOS,
         help="run only this scenario (repeatable; default: all)",
     )
     demo.add_argument(
