@@ -4,7 +4,9 @@ from __future__ import annotations
 
 import dataclasses
 import math
+import os
 from collections.abc import Mapping
+from pathlib import Path
 from typing import Any
 
 import numpy as np
@@ -49,3 +51,23 @@ def safe_ratio(numerator: float, denominator: float) -> float | None:
         return None
     result = numerator / denominator
     return float(result) if math.isfinite(result) else None
+
+
+def relative_paths(data: Any, base: Path) -> Any:
+    """Return ``data`` with every absolute path under a ``path`` key made relative to ``base``.
+
+    summary.json must not depend on where the inputs sit on disk (reruns from another
+    checkout are byte-identical), so input paths are written as seen from the spec's folder,
+    with forward slashes.
+    """
+    if isinstance(data, dict):
+        out = {}
+        for key, value in data.items():
+            if key == "path" and isinstance(value, str) and os.path.isabs(value):
+                out[key] = Path(os.path.relpath(value, base)).as_posix()
+            else:
+                out[key] = relative_paths(value, base)
+        return out
+    if isinstance(data, list):
+        return [relative_paths(item, base) for item in data]
+    return data

@@ -11,6 +11,7 @@ could not be computed instead of failing the whole audit.
 from __future__ import annotations
 
 import warnings
+from dataclasses import dataclass, field
 from typing import Any
 
 import geopandas as gpd
@@ -19,11 +20,15 @@ import pandas as pd
 import shapely
 from pyproj import Geod, Transformer
 
+from .compare import change_between, compare_footprints, peer_comparison
 from .coverage import coverage_by_group, covered_fraction, footprint_fractions
+from .enclaves import count_enclaves
 from .errors import AnalysisError, DegenerateStatisticWarning, InputError
+from .explain import discover_rules, exclusion_models, sensitivity_thresholds
 from .footprint import Footprint, build_footprint, cut_pieces, geodesic_circles
-from .inputs import AreaInputs, InputRecord, ids_as_text, read_hashed, read_table
+from .inputs import AreaInputs, Exclusions, InputRecord, ids_as_text, read_hashed, read_table
 from .io.joins import MatchReport, match_ids
+from .options import enclave_options
 from .spec import AuditSpec
 from .weights import AreaGraph
 
@@ -59,8 +64,6 @@ def explain_section(
     frame: gpd.GeoDataFrame, spec: AuditSpec, id_column: str, graph: AreaGraph
 ) -> dict[str, Any]:
     """Exclusion models and rule discovery, as the ``[explain]`` table asks."""
-    from .explain import discover_rules, exclusion_models
-
     explain = spec.explain
     assert explain is not None
     out: dict[str, Any] = {}
@@ -105,9 +108,6 @@ def _enclave_counts(
     served_sets: list[np.ndarray], frame: gpd.GeoDataFrame, graph: AreaGraph, spec: AuditSpec
 ) -> list[int]:
     """Enclave count for each served set, in one pass over the edge table."""
-    from .audit import enclave_options
-    from .enclaves import count_enclaves
-
     population = frame["population"].to_numpy(dtype=float)
     return count_enclaves(
         served_sets, population, graph, **enclave_options(spec.analysis, population)
@@ -122,8 +122,6 @@ def sensitivity_section(
     graph: AreaGraph,
 ) -> dict[str, Any]:
     """Recompute the disparity and enclave count over served thresholds and reaches."""
-    from .explain import sensitivity_thresholds
-
     groups, reference = inputs.groups, inputs.reference
     fraction = frame["covered_fraction"].to_numpy(dtype=float)
     counts = {g: frame[g].to_numpy(dtype=float) for g in groups}
@@ -188,32 +186,67 @@ def sensitivity_section(
     return out
 
 
+@dataclass(frozen=True)
+class FurtherInputs:
+    """What the further analyses read, read in the input stage with the areas.
+
+    Attributes
+    ----------
+    footprints : tuple of Footprint
+        Every footprint of the spec after the first, built over the analysed areas.
+    activity : tuple or None
+        The ``[activity]`` table, its input record and its match to the areas.
+    exclusions : Exclusions
+        Rows of these inputs left out (the audit adds them to its exclusions).
+    records : tuple of InputRecord
+        These inputs' files, for the manifest.
+    """
+
+    footprints: tuple[Footprint, ...] = ()
+    activity: tuple[pd.DataFrame, InputRecord, MatchReport] | None = None
+    exclusions: Exclusions = field(default_factory=Exclusions)
+    records: tuple[InputRecord, ...] = ()
+
+
+def read_further_inputs(spec: AuditSpec, inputs: AreaInputs) -> FurtherInputs:
+    """Build the other footprints and read the activity table, before any statistic."""
+    exclusions = Exclusions()
+    built = tuple(
+        build_footprint(
+            fp_spec,
+            inputs,
+            exclusions,
+            circle_vertices=spec.analysis.circle_vertices,
+            id_width=spec.areas.id_width,
+        )
+        for fp_spec in spec.footprints[1:]
+    )
+    records = [r for f in built for r in f.records]
+    activity = None
+    if spec.activity is not None:
+        activity = read_activity(spec, inputs.frame[inputs.id_column].tolist())
+        records.append(activity[1])
+    return FurtherInputs(built, activity, exclusions, tuple(records))
+
+
 def other_footprints(
     spec: AuditSpec,
     inputs: AreaInputs,
     frame: gpd.GeoDataFrame,
     graph: AreaGraph,
-) -> tuple[dict[str, Any], dict[str, np.ndarray], list[Footprint]]:
+    built: tuple[Footprint, ...],
+) -> tuple[dict[str, Any], dict[str, np.ndarray]]:
     """Coverage and enclave counts of every footprint after the first.
 
-    Returns the comparison section, each footprint's covered fractions by name (the
-    first included) and the other Footprint objects.
+    Returns the comparison section and each footprint's covered fractions by name (the
+    first included).
     """
     geoms = np.asarray(frame.geometry.array, dtype=object)
     ids = frame[inputs.id_column].to_numpy(dtype=object)
     threshold = spec.analysis.served_threshold
     fractions = {spec.footprint.name: frame["covered_fraction"].to_numpy(dtype=float)}
     results: dict[str, Any] = {}
-    built: list[Footprint] = []
-    for fp_spec in spec.footprints[1:]:
-        fp = build_footprint(
-            fp_spec,
-            inputs,
-            inputs.exclusions,
-            circle_vertices=spec.analysis.circle_vertices,
-            id_width=spec.areas.id_width,
-        )
-        built.append(fp)
+    for fp in built:
         cf = footprint_fractions(fp, geoms, ids.tolist())
         fractions[fp.name] = cf
         cov = coverage_by_group(
@@ -228,13 +261,11 @@ def other_footprints(
             "coverage": cov,
             "enclave_count": _enclave_counts([cf >= threshold], frame, graph, spec)[0],
         }
-    return results, fractions, built
+    return results, fractions
 
 
 def comparison_section(primary: dict[str, Any], others: dict[str, Any]) -> dict[str, Any]:
     """Side-by-side coverage of every footprint, ranked."""
-    from .compare import compare_footprints
-
     return compare_footprints({**primary, **others}).to_dict()
 
 
@@ -242,8 +273,6 @@ def change_section(
     spec: AuditSpec, inputs: AreaInputs, frame: gpd.GeoDataFrame, fractions: dict[str, np.ndarray]
 ) -> dict[str, Any]:
     """Areas that lost or gained service between two footprints, and the rate changes."""
-    from .compare import change_between
-
     assert spec.change is not None
     table = pd.DataFrame(frame.drop(columns=frame.geometry.name))
     threshold = spec.analysis.served_threshold
@@ -339,11 +368,12 @@ def read_activity(
 
 
 def peers_section(
-    spec: AuditSpec, inputs: AreaInputs, frame: gpd.GeoDataFrame
-) -> tuple[dict[str, Any], InputRecord]:
+    spec: AuditSpec,
+    inputs: AreaInputs,
+    frame: gpd.GeoDataFrame,
+    activity_read: tuple[pd.DataFrame, InputRecord, MatchReport],
+) -> dict[str, Any]:
     """Each lender's share of activity in majority-minority areas against its peers."""
-    from .compare import peer_comparison
-
     activity = spec.activity
     assert activity is not None
     if "majority_minority" not in frame.columns:
@@ -351,7 +381,7 @@ def peers_section(
             "[activity] needs majority-minority areas: set derive_minority = true or name a "
             "group minority in [population]"
         )
-    table, record, match = read_activity(spec, frame[inputs.id_column].tolist())
+    table, _, match = activity_read
     flags = pd.Series(
         frame["majority_minority"].to_numpy(dtype=bool),
         index=frame[inputs.id_column].to_numpy(dtype=object),
@@ -365,4 +395,4 @@ def peers_section(
         lender_columns=list(activity.lender_columns) if activity.lender_columns else None,
         alpha=activity.alpha,
     )
-    return result.to_dict() | {"match": match.to_dict()}, record
+    return result.to_dict() | {"match": match.to_dict()}

@@ -9,26 +9,46 @@ statistic gets its own child stream, so adding a statistic does not change the o
 
 from __future__ import annotations
 
+import dataclasses
 import datetime as _dt
 import platform
+import warnings
 from collections.abc import Callable
 from dataclasses import dataclass, field, replace
 from importlib import metadata
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import geopandas as gpd
 import numpy as np
 import pandas as pd
 
-from . import __version__
+from . import analyses
+from ._util import relative_paths, to_jsonable
+from ._version import __version__
+from .accessibility import measure_access
+from .analyses import FurtherInputs, add_derived_columns, read_further_inputs
+from .clustering import clustering_summary
 from .coverage import CoverageResult, coverage_by_group, footprint_fractions, nearest_site_distance
+from .enclaves import find_enclaves, footprint_holes
+from .errors import AnalysisError, DegenerateStatisticWarning, InputError
+from .findings import build_findings
 from .footprint import Footprint, build_footprint
-from .inputs import AreaInputs, load_areas
-from .outputs import OutputClaim
+from .inputs import AreaInputs, Exclusions, InputRecord, load_areas
+from .lending import lending_section  # also registers the lending findings
+from .margins import cautions, survey_error
+from .options import enclave_options
+from .outputs import OutputClaim, claim_output_dir, folder_problem, write_all, write_json
 from .population_notice import population_scope
 from .progress import SilentProgress
-from .spec import AuditSpec, load_spec, spec_from_dict
+from .segregation import segregation_summary
+from .spec import AnalysisSpec, AuditSpec, load_spec, spec_from_dict
+from .stats.assessment_area import review_assessment_area
+from .study_area import apply_study_area
+from .weights import ISLAND_REASON, AreaGraph, build_area_graph
+
+if TYPE_CHECKING:
+    from .report.folder import Display
 
 SCHEMA_VERSION = 1
 
@@ -133,8 +153,6 @@ class AuditResult:
         by :func:`~coverage_audit.outputs.claim_output_dir` (the CLI claims it before the
         analysis); without it the folder is claimed here.
         """
-        from .outputs import claim_output_dir
-
         out = Path(out_dir)
         own = claim is None
         held = claim_output_dir(out) if claim is None else claim
@@ -142,9 +160,6 @@ class AuditResult:
             staged = self._write_into(held.staging(), out, progress or SilentProgress())
             held.commit()
         except OSError as exc:  # disk full, permissions changed meanwhile, ...
-            from .errors import InputError
-            from .outputs import folder_problem
-
             raise InputError(folder_problem(out, exc) + "; nothing was changed") from None
         finally:
             if own:
@@ -152,9 +167,9 @@ class AuditResult:
         return {key: out / path.name for key, path in staged.items()}
 
     def _write_into(self, out: Path, final: Path, progress: SilentProgress) -> dict[str, Path]:
-        from .outputs import write_all, write_json
+        # The drawing modules (matplotlib, the map) load only when an audit is written.
+        from .report.folder import render, write_display
 
-        extra: dict[str, Any] = {}
         with progress.stage("writing tables"):
             paths = write_all(
                 out,
@@ -163,46 +178,40 @@ class AuditResult:
                 exclusions=self.exclusions,
                 id_columns=(self.id_column,),
             )
-        if self.spec.output.map or self.spec.output.report:
-            from .report import build_map, build_report
-
-            footprint = self.footprint_for_display()
-            if self.spec.output.map:
-                with progress.stage("drawing the map"):
-                    info = build_map(
-                        self.areas,
-                        id_column=self.id_column,
-                        groups=self.groups,
-                        reference=self.spec.population.reference,
-                        footprint=footprint,
-                        summary=self.summary,
-                        title=self.spec.title,
-                        path=out / "map.html",
-                        tiles=self.spec.output.tiles,
-                        outside=self.extras.get("outside_study_area"),
-                    )
-                paths["map"] = out / "map.html"
-                extra["map"] = to_plain(info)
-                if isinstance(extra["map"], dict) and "path" in extra["map"]:
-                    extra["map"]["path"] = str(final / "map.html")  # where it ends up
-            if self.spec.output.report:
-                with progress.stage("writing the report"):
-                    build_report(
-                        self.summary,
-                        self.manifest,
-                        self.areas,
-                        exclusions=self.exclusions,
-                        id_column=self.id_column,
-                        groups=self.groups,
-                        reference=self.spec.population.reference,
-                        footprint=footprint,
-                        path=out / "report.html",
-                        **self.extras.get("moran", {}),
-                    )
-                paths["report"] = out / "report.html"
+            display = self.display()
+            if self.spec.output.map or self.spec.output.report:  # what the pages draw
+                paths.update(write_display(out, display, self.areas))
+        drawn, extra = render(
+            out,
+            summary=self.summary,
+            manifest=self.manifest,
+            areas=self.areas,
+            exclusions=self.exclusions,
+            display=display,
+            progress=progress,
+            output=dataclasses.asdict(self.spec.output),
+        )
+        paths.update(drawn)
+        outputs = {key: to_plain(value) for key, value in extra.items()}
+        if isinstance(outputs.get("map"), dict) and "path" in outputs["map"]:
+            outputs["map"]["path"] = str(final / "map.html")  # where it ends up
         # Written last and once, so it can say what the map and report hold.
-        write_json(paths["manifest"], {**self.manifest, "outputs": extra})
+        write_json(paths["manifest"], {**self.manifest, "outputs": outputs})
         return paths
+
+    def display(self) -> Display:
+        """Return what the map and the report draw besides the summary and tables."""
+        from .report.folder import Display, moran_lag
+
+        moran = self.extras.get("moran", {})
+        return Display(
+            id_column=self.id_column,
+            groups=tuple(self.groups),
+            reference=self.spec.population.reference,
+            footprint=self.footprint_for_display(),
+            outside=self.extras.get("outside_study_area"),
+            moran_lag=moran_lag(self.areas, moran.get("moran_weights"), moran.get("moran_mask")),
+        )
 
     def footprint_for_display(self) -> dict[str, Any]:
         """Return the footprint as the map and report take it."""
@@ -222,8 +231,6 @@ class AuditResult:
 
 def to_plain(value: Any) -> Any:
     """Return a dataclass or object as plain data for the manifest."""
-    from ._util import to_jsonable
-
     if hasattr(value, "__dataclass_fields__"):
         return to_jsonable(value)
     return str(value)
@@ -294,12 +301,11 @@ def _run_audit(
             id_width=spec.areas.id_width,
         )
     inputs, study = _study_area(spec, inputs, footprint, progress)
+    further = read_further_inputs(spec, inputs)
     frame = inputs.frame
     notice = announce(frame)
     with progress.stage("measuring coverage"):
         coverage, frame = measure_coverage(spec, inputs, footprint, frame)
-    from .analyses import add_derived_columns
-
     frame = add_derived_columns(frame, spec, inputs.analysis_crs)
 
     summary: dict[str, Any] = {
@@ -317,15 +323,18 @@ def _run_audit(
         summary["inputs"] = table_section
     summary["coverage"] = coverage.to_dict()
     statistics = compute_statistics(
-        spec, inputs, footprint, frame, streams, progress, summary["coverage"]
+        spec, inputs, footprint, frame, streams, progress, summary["coverage"], further
     )
     frame = statistics.pop("_frame")
     statistics_extras = statistics.pop("_report")
+    # The stages return what they left out; the pipeline gathers it, in stage order.
+    inputs.exclusions.records.extend(statistics.pop("_exclusions").records)
+    inputs.exclusions.records.extend(further.exclusions.records)
+    inputs.exclusions.records.extend(statistics.pop("_later_exclusions", Exclusions()).records)
+    later_records = (*further.records, *statistics.pop("_records", ()))
     summary.update(statistics)
     if footprint.kind == "ids":
         summary["assessment_area"] = _assessment_area(frame, inputs.id_column, footprint)
-    from .margins import cautions, survey_error
-
     survey_error(summary, frame, inputs, spec, streams["uncertainty"])
 
     exclusions = inputs.exclusions
@@ -335,14 +344,15 @@ def _run_audit(
         from .apportion import block_cautions
 
         summary["cautions"] = block_cautions(summary["cautions"], summary)
-    from . import lending as _lending  # noqa: F401  (registers the lending findings)
-    from .findings import build_findings
-
     summary["group_labels"] = spec.population.group_labels
     summary["population_unit"] = spec.population.unit
     summary["findings"] = build_findings(summary)
+    summary = relative_paths(summary, spec.base_dir)
     finished = _dt.datetime.now(_dt.timezone.utc)
-    manifest = build_manifest(spec, inputs, footprint, started, finished)
+    manifest = build_manifest(spec, inputs, footprint, started, finished, later_records)
+    if isinstance(summary.get("weights"), dict) and "edge_tolerance_m" in summary["weights"]:
+        # Tolerance under which boundaries count as shared (tolerant contiguity, edges.py).
+        manifest["edge_tolerance_m"] = summary["weights"]["edge_tolerance_m"]
     frame = _order_columns(frame, inputs)
     return AuditResult(
         areas=frame,
@@ -367,8 +377,6 @@ def _assessment_area(
     frame: gpd.GeoDataFrame, id_column: str, footprint: Footprint
 ) -> dict[str, Any]:
     """Return the assessment-area review of a footprint of whole areas (12 CFR 228.41)."""
-    from .stats.assessment_area import review_assessment_area
-
     ids = frame[id_column].astype(str).to_numpy()
     return review_assessment_area(
         ids,
@@ -386,8 +394,6 @@ def _study_area(
     """Keep the areas inside ``[study_area]`` (all of them without one)."""
     if spec.study_area is None:
         return inputs, None
-    from .study_area import apply_study_area
-
     with progress.stage(f"study area '{spec.study_area.name}'"):
         kept, study, outside = apply_study_area(
             spec.study_area, inputs, footprint, id_width=spec.areas.id_width
@@ -403,16 +409,17 @@ def compute_statistics(
     streams: dict[str, np.random.Generator],
     progress: SilentProgress,
     coverage_section: dict[str, Any],
+    further: FurtherInputs | None = None,
 ) -> dict[str, Any]:
     """Segregation, contiguity, clustering and enclaves over the analysed areas.
 
-    Returns the summary sections keyed as in summary.json, and under ``"_frame"`` the
-    per-area frame with the statistics' columns added.
+    Returns the summary sections keyed as in summary.json, under ``"_frame"`` the per-area
+    frame with the statistics' columns added, under ``"_exclusions"`` the areas the
+    spatial statistics leave out and under ``"_records"`` the input records of files the
+    further analyses read (the lending records) with, under ``"_later_exclusions"``, the
+    rows they leave out. ``inputs`` is read, never changed.
     """
-    from .enclaves import find_enclaves, footprint_holes
-    from .segregation import segregation_summary
-    from .weights import ISLAND_REASON, build_area_graph
-
+    further = further or FurtherInputs()
     an = spec.analysis
     frame = frame.copy()
     ids = frame[inputs.id_column].to_numpy(dtype=object)
@@ -436,9 +443,10 @@ def compute_statistics(
         graph = build_area_graph(
             geoms, ids, kind=an.contiguity, island_policy=an.islands, knn_k=an.knn_k
         )
+    left_out = Exclusions()
     if graph.islands and an.islands == "exclude":
         rows = frame.loc[graph.island_mask, "source_row"]
-        inputs.exclusions.add("spatial_statistics", rows, list(graph.islands), ISLAND_REASON)
+        left_out.add("spatial_statistics", rows, list(graph.islands), ISLAND_REASON)
     out["weights"] = graph.to_dict()
     with progress.stage("clustering"):
         out["clustering"] = _clustering(frame, graph, an, streams["clustering"])
@@ -472,13 +480,14 @@ def compute_statistics(
     }
     frame["enclave_id"] = result.enclave_id
     sections = {**out, "coverage": coverage_section}
-    out.update(_further_analyses(spec, inputs, footprint, frame, graph, sections, progress))
+    out.update(
+        _further_analyses(spec, inputs, footprint, frame, graph, sections, progress, further)
+    )
     if spec.access is not None:
-        from .accessibility import measure_access
-
         with progress.stage("access (two-step floating catchment)"):
             out["access"], frame["access"] = measure_access(spec, inputs, footprint, frame)
     out["_frame"] = frame
+    out["_exclusions"] = left_out
     out["_report"] = (
         {"moran_weights": graph.stats_graph("r"), "moran_mask": graph.stats_mask}
         if "skipped" not in out["clustering"] and graph.stats_mask.sum() >= 3
@@ -488,14 +497,9 @@ def compute_statistics(
 
 
 def _clustering(
-    frame: gpd.GeoDataFrame, graph: Any, an: Any, rng: np.random.Generator
+    frame: gpd.GeoDataFrame, graph: AreaGraph, an: AnalysisSpec, rng: np.random.Generator
 ) -> dict[str, Any]:
     """Moran, join counts, bivariate and local Moran; LISA columns added to ``frame``."""
-    import warnings
-
-    from .clustering import clustering_summary
-    from .errors import AnalysisError, DegenerateStatisticWarning
-
     n = len(frame)
     minority = (
         frame["minority_share"].to_numpy(dtype=float)
@@ -538,20 +542,23 @@ def _further_analyses(
     inputs: AreaInputs,
     footprint: Footprint,
     frame: gpd.GeoDataFrame,
-    graph: Any,
+    graph: AreaGraph,
     sections: dict[str, Any],
     progress: SilentProgress,
+    further: FurtherInputs,
 ) -> dict[str, Any]:
     """Comparisons, change, peers, controls and sensitivity, as the spec asks.
 
     Adds per-area columns to ``frame`` in place (other footprints' covered fractions).
+    The other footprints and the activity table come read, in ``further``.
     """
-    from . import analyses
-
     out: dict[str, Any] = {}
+    built = list(further.footprints)
     if len(spec.footprints) > 1:
         with progress.stage("other footprints"):
-            others, fractions, built = analyses.other_footprints(spec, inputs, frame, graph)
+            others, fractions = analyses.other_footprints(
+                spec, inputs, frame, graph, further.footprints
+            )
         for name, cf in fractions.items():
             if name != spec.footprint.name:
                 frame[f"covered_fraction_{name}"] = cf
@@ -566,20 +573,22 @@ def _further_analyses(
             spec.footprint.name: footprint.to_dict(),
             **{f.name: f.to_dict() for f in built},
         }
-        inputs.inputs.extend(r for f in built for r in f.records)
         if spec.change is not None:
             out["change"] = analyses.change_section(spec, inputs, frame, fractions)
             out["change"].update(analyses.site_changes(spec.change, [footprint, *built]))
-    if spec.activity is not None:
+    if further.activity is not None:
         with progress.stage("peer comparison"):
-            out["peers"], record = analyses.peers_section(spec, inputs, frame)
-        inputs.inputs.append(record)
+            out["peers"] = analyses.peers_section(spec, inputs, frame, further.activity)
     if spec.lending is not None:
-        from .lending import lending_section
-
+        # The lending review reads its own files here and lists the records it leaves out
+        # in an Exclusions of its own; run_audit gathers them after the other stages'.
+        lending_left_out = Exclusions()
         with progress.stage("lending records"):
-            out["lending"], lending_inputs = lending_section(spec, inputs, frame)
-        inputs.inputs.extend(lending_inputs)
+            out["lending"], lending_inputs = lending_section(
+                spec, replace(inputs, exclusions=lending_left_out), frame
+            )
+        out["_records"] = tuple(lending_inputs)
+        out["_later_exclusions"] = lending_left_out
     if spec.explain is not None:
         with progress.stage("exclusion models and rules"):
             out["explain"] = analyses.explain_section(frame, spec, inputs.id_column, graph)
@@ -629,15 +638,6 @@ def measure_coverage(
             coverage, apportionment=placed.method, apportionment_detail=placed.section
         )
     return coverage, frame
-
-
-def enclave_options(an: Any, population: np.ndarray) -> dict[str, Any]:
-    """Return the enclave settings of the spec, as :func:`~coverage_audit.enclaves.find_enclaves` takes them."""
-    return {
-        "min_surround": an.enclave_min_surround,
-        "min_population": an.enclave_min_population,
-        "transparent": (population <= 0) if an.transparent_zero_population else None,
-    }
 
 
 def _dask_fractions(spec: AuditSpec, frame: gpd.GeoDataFrame, footprint: Footprint) -> np.ndarray:
@@ -716,9 +716,15 @@ def build_manifest(
     footprint: Footprint,
     started: _dt.datetime,
     finished: _dt.datetime,
+    later: tuple[InputRecord, ...] = (),
 ) -> dict[str, Any]:
-    """Provenance of an audit: everything needed to rerun it and check its inputs."""
-    records = [r.to_dict() for r in inputs.inputs] + [r.to_dict() for r in footprint.records]
+    """Provenance of an audit: everything needed to rerun it and check its inputs.
+
+    ``later`` are the records of the inputs read for the further analyses (other
+    footprints, the activity table), listed after the areas' and before the footprint's.
+    """
+    records = [r.to_dict() for r in (*inputs.inputs, *later)]
+    records += [r.to_dict() for r in footprint.records]
     return {
         "tool": "coverage_audit",
         "version": __version__,
@@ -732,6 +738,11 @@ def build_manifest(
         "analysis_crs_wkt": inputs.analysis_crs.to_wkt(),
         "seed": spec.analysis.seed,
         "footprint": footprint.manifest(),
+        "display": {
+            "id_column": inputs.id_column,
+            "groups": list(inputs.groups),
+            "reference": inputs.reference,
+        },
         "started": started.isoformat(timespec="seconds"),
         "finished": finished.isoformat(timespec="seconds"),
     }

@@ -36,6 +36,19 @@ DESCRIPTION = (
 INLINE_GROUP = "describing the audit without a spec file"
 
 
+#: The demo region's scenarios, as ``demo.SCENARIOS`` names them (kept here so that the
+#: command line starts without loading the geospatial stack; a test checks they agree).
+DEMO_SCENARIOS = (
+    "delivery",
+    "branches",
+    "assessment_area",
+    "zip_delivery",
+    "outreach",
+    "lending",
+    "clinics",
+)
+
+
 def _build_parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(
         prog="coverage-audit",
@@ -167,15 +180,7 @@ def _build_parser() -> argparse.ArgumentParser:
     demo.add_argument(
         "--scenario",
         action="append",
-        choices=[
-            "delivery",
-            "branches",
-            "assessment_area",
-            "outreach",
-            "lending",
-            "clinics",
-            "delivery_blocks",
-        ],
+        choices=[*DEMO_SCENARIOS, "delivery_blocks"],
         help="run only this scenario (repeatable; default: all)",
     )
     demo.add_argument(
@@ -198,6 +203,14 @@ def _build_parser() -> argparse.ArgumentParser:
     check.add_argument("spec", type=Path, help="the audit spec, a TOML file")
     check.add_argument("--debug", action="store_true", help="show a traceback on errors")
 
+    report = sub.add_parser(
+        "report",
+        help="draw report.html and map.html again from a written output folder",
+        description="Read an output folder written by 'run' and draw its report.html and map.html again from its files alone.",
+    )
+    report.add_argument("folder", type=Path, help="an output folder written by 'run'")
+    report.add_argument("--debug", action="store_true", help="show a traceback on errors")
+
     blocks = sub.add_parser(
         "prepare-blocks",
         help="convert census block files into GeoParquet partitioned by state and county",
@@ -214,6 +227,14 @@ def _build_parser() -> argparse.ArgumentParser:
     )
     blocks.add_argument("--debug", action="store_true", help="show a traceback on errors")
     return parser
+
+
+def _cmd_report(args: argparse.Namespace) -> int:
+    from .report.folder import render_folder
+
+    for path in render_folder(args.folder).values():
+        print(f"wrote {path}")
+    return EXIT_OK
 
 
 def _cmd_prepare_blocks(args: argparse.Namespace) -> int:
@@ -652,6 +673,7 @@ def _main(argv: Sequence[str] | None) -> int:
         "run": _cmd_run,
         "demo": _cmd_demo,
         "check": _cmd_check,
+        "report": _cmd_report,
         "prepare-blocks": _cmd_prepare_blocks,
     }
     debug = getattr(args, "debug", False)

@@ -23,6 +23,7 @@ import scipy.sparse as sp
 import shapely
 from scipy.sparse.csgraph import connected_components
 
+from ._growth import forget, grow_block
 from ._util import clean_number, safe_ratio, to_jsonable
 from .errors import AnalysisError, SpecError
 from .weights import AreaGraph, SharedBoundaries
@@ -1034,15 +1035,29 @@ def _contrast_tests(
         share = float(data.minority[idx].sum()) / float(data.population[idx].sum())
         pool = np.flatnonzero(comp_size >= idx.size)
         sets = grow_connected_sets(neighbours, pool, idx.size, mc_draws, rng)
-        draw_pop = pop[sets].sum(axis=1)
+        draw_pop, draw_minority = _set_sums(sets, pop, minority)
         with np.errstate(divide="ignore", invalid="ignore"):
-            draw_share = minority[sets].sum(axis=1) / draw_pop
+            draw_share = draw_minority / draw_pop
         defined = draw_pop > 0
         # A zero-population draw has no share; counting it as a match keeps p conservative.
         reached = int(np.count_nonzero(~defined | (draw_share >= share - _SHARE_ATOL)))
         p_values.append((1 + reached) / (mc_draws + 1))
         null_means.append(float(draw_share[defined].mean()) if defined.any() else None)
     return p_values, null_means
+
+
+def _set_sums(
+    sets: np.ndarray, pop: np.ndarray, minority: np.ndarray
+) -> tuple[np.ndarray, np.ndarray]:
+    """Return the population and minority count of each drawn set, summed in blocks."""
+    rows = max(1, (1 << 22) // max(sets.shape[1], 1))
+    draw_pop = np.empty(sets.shape[0])
+    draw_minority = np.empty(sets.shape[0])
+    for start in range(0, sets.shape[0], rows):
+        block = sets[start : start + rows]
+        draw_pop[start : start + rows] = pop[block].sum(axis=1)
+        draw_minority[start : start + rows] = minority[block].sum(axis=1)
+    return draw_pop, draw_minority
 
 
 def _neighbour_table(adjacency: sp.csr_matrix) -> np.ndarray:
@@ -1104,6 +1119,8 @@ def grow_connected_sets(
     seen = np.zeros((chunk, stride), dtype=bool)
     seen[:, n] = True
     seen_flat = seen.reshape(-1)
+    if grow_block is not None:
+        return _grow_compiled(table, pool, size, draws, rng, seen, chunk)
     for start in range(0, draws, chunk):
         m = min(chunk, draws - start)
         rows = np.arange(m, dtype=np.int64)
@@ -1139,6 +1156,55 @@ def grow_connected_sets(
         live = np.arange(capacity)[None, :] < fill[:, None]
         seen_flat[(base + frontier.reshape(m, capacity))[live]] = False
     return members_all.T.astype(np.int64)
+
+
+#: Steps whose uniform numbers the compiled path draws at once (one block of draws x steps).
+_STEP_BLOCK = 256
+
+
+def _grow_compiled(
+    table: np.ndarray,
+    pool: np.ndarray,
+    size: int,
+    draws: int,
+    rng: np.random.Generator,
+    seen: np.ndarray,
+    chunk: int,
+) -> np.ndarray:
+    """:func:`grow_connected_sets` with the steps compiled; same calls on ``rng``, same sets.
+
+    The array path draws, per chunk of draws, the seeds and then one uniform number per
+    draw and step; ``rng.random((steps, m))`` yields the same numbers as ``steps`` calls
+    of ``rng.random(m)``, so drawing a block of steps at once keeps the stream.
+    """
+    n, width = table.shape[0], table.shape[1]
+    members_all = np.empty((draws, size), dtype=np.int32)
+    for start in range(0, draws, chunk):
+        m = min(chunk, draws - start)
+        rows = np.arange(m, dtype=np.int64)
+        block_seen = seen[:m]
+        members = members_all[start : start + m]
+        capacity = min(n, 16 * width) + width
+        frontier = np.empty((m, capacity), dtype=np.int32)
+        fill = np.zeros(m, dtype=np.int64)
+        added = pool[rng.integers(0, pool.size, m)].astype(np.int32)
+        members[:, 0] = added
+        block_seen[rows, added] = True
+        step = 1
+        while step < size:
+            steps = min(_STEP_BLOCK, size - step)
+            uniforms = rng.random((steps, m))
+            need = min(int(fill.max()) + steps * width, n + width)
+            if need > capacity:
+                capacity = max(need, min(2 * capacity, n + width))
+                grown = np.empty((m, capacity), dtype=np.int32)
+                grown[:, : frontier.shape[1]] = frontier
+                frontier = grown
+            grow_block(table, block_seen, frontier, fill, added, members, uniforms, step)
+            step += steps
+        # Reset only what this chunk touched: the members and the live frontier entries.
+        forget(block_seen, members, frontier, fill)
+    return members_all
 
 
 def _widen(frontier: np.ndarray, m: int, capacity: int, limit: int) -> tuple[int, np.ndarray]:

@@ -21,6 +21,7 @@ cells, not of records.
 
 from __future__ import annotations
 
+from pathlib import Path
 from typing import Any
 
 import geopandas as gpd
@@ -71,9 +72,19 @@ def lending_section(
     assert ls is not None
     ids = frame[inputs.id_column].astype(str).to_numpy(dtype=object)
     source, area_cats, notes = _tract_source(spec, ls, frame, ids)
+    # Each file is hashed before and after the streamed read, so the manifest's digest is
+    # that of the bytes the figures come from (a file that changed meanwhile is refused).
+    before = {Path(p): sha256_file(Path(p)) for p in ls.path}
     agg, tract_figures, scans, outside = _read(ls, source, set(ids), inputs)
+    for path, digest in before.items():
+        if sha256_file(path) != digest:
+            raise InputError(
+                f"[lending] records file '{path}' changed while it was being read (its "
+                "SHA-256 before and after reading differ); wait until it is no longer being "
+                "written, then rerun"
+            )
     records = [
-        InputRecord("lending records", str(r.path), sha256_file(r.path), r.counts.lines)
+        InputRecord("lending records", str(r.path), before[Path(r.path)], r.counts.lines)
         for r in scans
     ]
     cats = _categories(agg, source, area_cats, tract_figures, spec, ls)

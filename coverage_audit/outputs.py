@@ -227,6 +227,8 @@ OUTPUT_NAMES = frozenset(
         "manifest.json",
         "map.html",
         "report.html",
+        "footprint.gpkg",
+        "moran_lag.csv",
     }
 )
 #: Longest folder name used as is in the names of the lock and staging folders.

@@ -19,6 +19,17 @@ from typing import Any
 from .errors import SpecError
 from .presets import preset_population
 from .spec_lending import LendingSpec, lending_from
+from .spec_values import (
+    _bool,
+    _check_keys,
+    _choice,
+    _float,
+    _int,
+    _int_default,
+    _path,
+    _str,
+    _table,
+)
 
 if sys.version_info >= (3, 11):
     import tomllib
@@ -1208,126 +1219,6 @@ def _analysis_from(an_d: Mapping[str, Any], where: str) -> AnalysisSpec:
         dask_scheduler=_str(an_d, "dask_scheduler", where, t),
         partitions=_int(an_d, "partitions", where, t, minimum=1, maximum=MAX_PARTITIONS),
     )
-
-
-def _check_keys(table: Mapping[str, Any], allowed: tuple[str, ...], where: str, label: str) -> None:
-    unknown = [k for k in table if k not in allowed]
-    if unknown:
-        raise SpecError(
-            f'{where}: unknown key "{unknown[0]}" in {label}; allowed keys are {list(allowed)}'
-        )
-
-
-def _table(value: Any, where: str, label: str) -> Mapping[str, Any]:
-    if not isinstance(value, Mapping):
-        raise SpecError(f"{where}: [{label}] must be a table of settings, got {value!r}")
-    return value
-
-
-def _str(
-    d: Mapping[str, Any], key: str, where: str, label: str, required: bool = False
-) -> str | None:
-    value = d.get(key)
-    if value is None:
-        if required:
-            raise SpecError(f"{where}: [{label}] {key} is required")
-        return None
-    if not isinstance(value, str) or not value.strip():
-        raise SpecError(f"{where}: [{label}] {key} must be a non-empty string, got {value!r}")
-    return value
-
-
-def _path(
-    d: Mapping[str, Any], key: str, base: Path, where: str, label: str, required: bool = False
-) -> Path | None:
-    value = _str(d, key, where, label, required)
-    if value is None:
-        return None
-    p = Path(value).expanduser()
-    return p if p.is_absolute() else (base / p)
-
-
-def _bool(d: Mapping[str, Any], key: str, where: str, label: str, default: bool) -> bool:
-    value = d.get(key, default)
-    if not isinstance(value, bool):
-        raise SpecError(f"{where}: [{label}] {key} must be true or false, got {value!r}")
-    return value
-
-
-def _number(value: Any, key: str, where: str, label: str) -> float:
-    if isinstance(value, bool) or not isinstance(value, (int, float)) or not math.isfinite(value):
-        raise SpecError(f"{where}: [{label}] {key} must be a number, got {value!r}")
-    return float(value)
-
-
-def _float(
-    d: Mapping[str, Any],
-    key: str,
-    where: str,
-    label: str,
-    default: float,
-    low: float | None,
-    high: float | None,
-    open_low: bool = False,
-) -> float:
-    if key not in d:
-        return default
-    value = _number(d[key], key, where, label)
-    bad_low = low is not None and (value <= low if open_low else value < low)
-    bad_high = high is not None and value > high
-    if bad_low or bad_high:
-        lo = "" if low is None else (f"above {low}" if open_low else f"at least {low}")
-        hi = "" if high is None else f"at most {high}"
-        rng = " and ".join(s for s in (lo, hi) if s)
-        raise SpecError(f"{where}: [{label}] {key} was {value} but must be {rng}")
-    return value
-
-
-def _int(
-    d: Mapping[str, Any],
-    key: str,
-    where: str,
-    label: str,
-    minimum: int = 0,
-    maximum: int | None = None,
-) -> int | None:
-    if key not in d:
-        return None
-    value = d[key]
-    if isinstance(value, bool) or not isinstance(value, int):
-        raise SpecError(f"{where}: [{label}] {key} must be a whole number, got {value!r}")
-    if value < minimum:
-        raise SpecError(f"{where}: [{label}] {key} was {value} but must be at least {minimum}")
-    if maximum is not None and value > maximum:
-        raise SpecError(
-            f"{where}: [{label}] {key} was {value} but must be at most {maximum:,} "
-            f"(the largest this tool accepts); use a smaller number"
-        )
-    return value
-
-
-def _int_default(
-    d: Mapping[str, Any],
-    key: str,
-    where: str,
-    label: str,
-    default: int,
-    minimum: int = 0,
-    maximum: int | None = None,
-) -> int:
-    value = _int(d, key, where, label, minimum, maximum)
-    return default if value is None else value
-
-
-def _choice(
-    d: Mapping[str, Any], key: str, where: str, label: str, allowed: tuple[str, ...], default: str
-) -> str:
-    value = d.get(key, default)
-    if value not in allowed:
-        raise SpecError(
-            f'{where}: [{label}] {key} was "{value}" but is expected to be one of {list(allowed)}'
-        )
-    return str(value)
 
 
 def replace_output(spec: AuditSpec, **changes: bool) -> AuditSpec:

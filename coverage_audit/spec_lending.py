@@ -13,6 +13,7 @@ from dataclasses import dataclass, fields
 from pathlib import Path
 from typing import Any
 
+from . import spec_values as s
 from .errors import SpecError
 from .io.hmda import CODES
 
@@ -113,8 +114,6 @@ LENDING_KEYS = tuple(f.name for f in fields(LendingSpec))
 
 def lending_from(value: Any, base: Path, where: str) -> LendingSpec | None:
     """Validate the ``[lending]`` table (None when the spec has none)."""
-    from . import spec as s
-
     if value is None:
         return None
     d = s._table(value, where, "lending")

@@ -180,6 +180,10 @@ def test_write_produces_map_and_report(tmp_path):
     assert "not by itself proof of discrimination" in text or "not proof of discrimination" in text
     manifest = json.loads(paths["manifest"].read_text())
     assert manifest["outputs"]["map"]["n_features"] == 25
+    # The edge tolerance of tolerant contiguity is recorded beside the inputs (issue 13);
+    # 0.1 m is the documented default (edges.EDGE_TOLERANCE_M, common practice, no source).
+    assert manifest["edge_tolerance_m"] == result.summary["weights"]["edge_tolerance_m"]
+    assert 0 < manifest["edge_tolerance_m"] <= 0.1
 
 
 def test_dask_engine_gives_the_same_findings(tmp_path):
@@ -193,3 +197,36 @@ def test_dask_engine_gives_the_same_findings(tmp_path):
     dask = run_audit(spec.with_analysis(sensitivity=False, engine="dask", partitions=3)).summary
     assert json_text(local["coverage"]) == json_text(dask["coverage"])
     assert json_text(local["enclaves"]) == json_text(dask["enclaves"])
+
+
+def test_summary_is_the_same_wherever_the_inputs_sit(tmp_path):
+    # DESIGN.md's output contract: summary.json holds no absolute paths, so the same spec
+    # and data in two folders give byte-identical summaries (consistency check).
+    import json
+    import shutil
+
+    import geopandas as gpd
+
+    from coverage_audit import run_audit
+    from coverage_audit.spec import load_spec
+    from tests.conftest import spec_text, write_spec, write_two_by_two
+
+    first = tmp_path / "first"
+    first.mkdir()
+    write_two_by_two(first)
+    areas = gpd.read_file(first / "areas.gpkg")
+    areas[["geoid", "total", "white", "black"]].to_csv(first / "table.csv", index=False)
+    areas[["geoid", "geometry"]].to_file(first / "shapes.gpkg", driver="GPKG")
+    text = spec_text('path = "zone.gpkg"').replace(
+        'path = "areas.gpkg"', 'path = "shapes.gpkg"\ntable = "table.csv"', 1
+    )
+    write_spec(first / "audit.toml", text)
+    second = tmp_path / "elsewhere" / "second"
+    shutil.copytree(first, second)
+    texts = [
+        json.dumps(run_audit(load_spec(folder / "audit.toml")).summary, sort_keys=True)
+        for folder in (first, second)
+    ]
+    assert str(tmp_path) not in texts[0]
+    assert '"path": "table.csv"' in texts[0]
+    assert texts[0] == texts[1]

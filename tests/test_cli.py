@@ -215,3 +215,11 @@ def test_check_command_reports_without_writing(two_by_two, capsys):
 
 def test_grid_crs_constant_is_projected():
     assert "laea" in GRID_CRS and len(grid(1, 1)) == 1
+
+
+def test_demo_scenario_choices_are_the_demo_scenarios() -> None:
+    # Consistency check: every scenario the demo writes can be chosen on the command line.
+    from coverage_audit.cli import DEMO_SCENARIOS
+    from coverage_audit.demo import MARGIN_SCENARIO, SCENARIOS
+
+    assert sorted(DEMO_SCENARIOS) == sorted([*SCENARIOS, MARGIN_SCENARIO])

@@ -442,6 +442,28 @@ def test_random_sets_are_connected_distinct_and_reproducible():
         assert n_comp == 1
 
 
+@pytest.mark.parametrize("budget", [None, 3 * 82])
+def test_compiled_growth_matches_the_array_path(monkeypatch, budget):
+    # Consistency check (the tool against itself): the compiled steps take the same
+    # numbers from the generator as the array path, so the sets are identical, also when
+    # the draws are done in chunks and when the frontier must widen.
+    import coverage_audit.enclaves as enclaves_module
+
+    if enclaves_module.grow_block is None:
+        pytest.skip("numba not available")
+    grid = Grid(9, 9, kind="queen")
+    table = _neighbour_table(grid.graph.adjacency)
+    pool = np.arange(81)
+    if budget is not None:
+        monkeypatch.setattr(enclaves_module, "_SEEN_BUDGET", budget)
+    for size, draws in [(1, 5), (2, 40), (60, 50)]:
+        compiled = grow_connected_sets(table, pool, size, draws, np.random.default_rng(SEED))
+        with monkeypatch.context() as patch:
+            patch.setattr(enclaves_module, "grow_block", None)
+            arrays = grow_connected_sets(table, pool, size, draws, np.random.default_rng(SEED))
+        np.testing.assert_array_equal(compiled, arrays)
+
+
 def test_random_sets_on_a_path_have_the_hand_computed_law():
     # Path 0-1-2, sets of 2: seed 0 gives {0,1}; seed 1 gives {0,1} or {1,2} equally;
     # seed 2 gives {1,2}; so P({0,1}) = 1/3 + 1/6 = 1/2 (computed by hand).

@@ -614,3 +614,21 @@ def test_map_draws_the_lender_share_and_gap_layers(base, browser_page, tmp_path)
         "out.push(coverageAuditMap.colourOf('lending_gap', i)); return out;"
     )
     assert gaps == ["#e4e1d8", "#e4e1d8", "#c2423b", "#e4e1d8"]
+
+
+def test_a_record_file_changed_while_being_read_is_refused(region, monkeypatch):
+    # Issue 9 item 6: the manifest's digest is that of the bytes read; a file that changes
+    # during the streamed read is refused (common practice, no source).
+    import coverage_audit.lending as lending_module
+
+    original = lending_module._read
+
+    def read_then_change(ls, *args, **kwargs):
+        out = original(ls, *args, **kwargs)
+        with open(ls.path[0], "ab") as handle:  # another program appends meanwhile
+            handle.write(b"\n")
+        return out
+
+    monkeypatch.setattr(lending_module, "_read", read_then_change)
+    with pytest.raises(InputError, match="changed while it was being read"):
+        review(region)

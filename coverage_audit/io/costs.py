@@ -20,7 +20,7 @@ import numpy as np
 import pandas as pd
 
 from ..errors import InputError
-from ..inputs import Exclusions, InputRecord, ids_as_text, read_table, sha256_file
+from ..inputs import Exclusions, InputRecord, ids_as_text, read_hashed, read_table
 
 #: Exclusions source of the cost table's rows.
 COSTS_SOURCE = "access_costs"
@@ -124,7 +124,9 @@ def read_costs(
         A column is missing, or no row matches an analysed area and a site.
     """
     role = "[access] costs"
-    table = read_table(path, id_column=origin_column, role=role)
+    table, digest = read_hashed(
+        path, lambda: read_table(path, id_column=origin_column, role=role), role=role
+    )
     missing = [c for c in (origin_column, site_column, cost_column) if c not in table.columns]
     if missing:
         raise InputError(
@@ -132,7 +134,7 @@ def read_costs(
             f"{list(table.columns)} (set cost_origin, cost_site and cost_column in [access])"
         )
     n = len(table)
-    record = InputRecord("access_costs", str(path), sha256_file(path), n)
+    record = InputRecord("access_costs", str(path), digest, n)
     raw = table[origin_column]
     if pd.api.types.is_numeric_dtype(raw.dtype) and not pd.api.types.is_bool_dtype(raw.dtype):
         origins = ids_as_text(

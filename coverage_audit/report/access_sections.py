@@ -36,6 +36,7 @@ from .markup import (
     tag,
 )
 from .sections import Page
+from .view import View
 
 #: Access is capacity per resident; the page shows it per 1,000 residents.
 PER = 1_000
@@ -279,8 +280,6 @@ def access_map_layer(
     frame: pd.DataFrame, summary: Mapping[str, Any]
 ) -> tuple[list[Any], Any] | None:
     """Return the map's per-area access field (percent of the region's mean) and its view."""
-    from .map import View
-
     acc = as_mapping(summary.get("access"))
     mean = as_number(acc.get("region_mean"))
     if "access" not in frame.columns or not mean:

@@ -14,6 +14,8 @@ import geopandas as gpd
 import numpy as np
 import shapely
 
+from .shapes import empty_shapes, encode_shapes, has_polygon
+
 
 def group_label(summary: Mapping[str, Any], group: str) -> str:
     """Return a group's display label (``summary["group_labels"]``; its name without)."""
@@ -54,18 +56,16 @@ OUTSIDE_COLOR = "#a3a3a3"
 
 def outside_overlay(outside: gpd.GeoSeries, tolerance: float, decimals: int) -> dict[str, Any]:
     """Return the areas outside the study area as one greyed overlay, below the others."""
-    from .map import _empty_shapes, _has_polygon, encode_shapes  # map.py imports this module
-
     geoms = shapely.get_parts(np.asarray(outside.values))
     if tolerance > 0:
         geoms = shapely.simplify(geoms, tolerance, preserve_topology=True)
     lonlat = np.asarray(gpd.GeoSeries(geoms, crs=outside.crs).to_crs(4326).values)
-    lonlat = lonlat[_has_polygon(lonlat)]
+    lonlat = lonlat[has_polygon(lonlat)]
     return {
         "key": "outside_study_area",
         "label": "Outside the study area (not analysed)",
         "kind": "outline",
-        "shapes": encode_shapes(lonlat, decimals) if lonlat.size else _empty_shapes(),
+        "shapes": encode_shapes(lonlat, decimals) if lonlat.size else empty_shapes(),
         "color": "#8c8c8c",
         "weight": 0.5,
         "dash": None,
