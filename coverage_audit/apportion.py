@@ -28,6 +28,7 @@ from pyproj import CRS
 
 from ._util import safe_ratio
 from .coverage import covered_fraction
+from .dasymetric import Apportioned, apportion_dasymetric
 from .errors import AnalysisError, InputError
 from .inputs import InputRecord
 from .io.blocks import (
@@ -184,23 +185,9 @@ def combine(parts: Sequence[PartitionSums], width: int) -> pd.DataFrame:
     return frame.groupby("id", sort=True).sum()
 
 
-@dataclass(frozen=True, eq=False)
-class Apportioned:
-    """Areas with counts summed from blocks and their block-based covered counts."""
-
-    frame: gpd.GeoDataFrame
-    covered: dict[str, np.ndarray]
-    share: np.ndarray
-    section: dict[str, Any]
-    partitions: str = ""
-    method: str = "blocks"
-
-
 def apportion(spec: Any, inputs: Any, footprint: Any, frame: gpd.GeoDataFrame) -> Apportioned:
     """Place people within areas by census blocks or by a settlement mask, as the spec says."""
     if spec.dasymetric is not None:
-        from .dasymetric import apportion_dasymetric
-
         return apportion_dasymetric(spec, inputs, footprint, frame)
     return apportion_blocks(spec, inputs, footprint, frame)
 

@@ -12,6 +12,7 @@ keep their areal covered fraction and are counted in the summary.
 
 from __future__ import annotations
 
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
@@ -25,6 +26,19 @@ from ._util import safe_ratio
 from .coverage import covered_fraction
 from .errors import InputError
 from .inputs import PARQUET_SUFFIXES, InputRecord, sha256_file
+
+
+@dataclass(frozen=True, eq=False)
+class Apportioned:
+    """Areas with counts summed from blocks and their block-based covered counts."""
+
+    frame: gpd.GeoDataFrame
+    covered: dict[str, np.ndarray]
+    share: np.ndarray
+    section: dict[str, Any]
+    partitions: str = ""
+    method: str = "blocks"
+
 
 #: Raster suffixes read with rasterio; anything else is read as a polygon layer.
 RASTER_SUFFIXES = (".tif", ".tiff", ".img", ".vrt")
@@ -119,15 +133,15 @@ def settled_fractions(
     return share, settled_share
 
 
-def apportion_dasymetric(spec: Any, inputs: Any, footprint: Any, frame: gpd.GeoDataFrame) -> Any:
+def apportion_dasymetric(
+    spec: Any, inputs: Any, footprint: Any, frame: gpd.GeoDataFrame
+) -> Apportioned:
     """Covered people of each area on its settled land (see the module docstring).
 
     Returns an :class:`~coverage_audit.apportion.Apportioned` with ``method =
     "dasymetric"``: ``frame`` with ``covered_population_share``, ``settled_share`` and
     ``served`` (share at or above the threshold), and each group's covered counts.
     """
-    from .apportion import Apportioned
-
     dspec = spec.dasymetric
     geoms = np.asarray(frame.geometry.array, dtype=object)
     areal = frame["covered_fraction"].to_numpy(dtype=float)

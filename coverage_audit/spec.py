@@ -321,6 +321,27 @@ class AccessSpec:
         return TIME_UNITS[unit] if self.catchment_unit == "min" else LENGTH_UNITS[unit]
 
 
+#: Presets of block count columns: name -> (total column, {group name: column}).
+#: ``pl_p2``: 2020 Census redistricting data (Public Law 94-171), table P2 "Hispanic or
+#: Latino, and not Hispanic or Latino by race", variable codes from memory (listed in the
+#: project's REFERENCES.md; check them against the Census Bureau's table shell).
+BLOCK_PRESETS: dict[str, tuple[str, dict[str, str]]] = {
+    "pl_p2": (
+        "P2_001N",
+        {
+            "hispanic": "P2_002N",
+            "white_nh": "P2_005N",
+            "black_nh": "P2_006N",
+            "aian_nh": "P2_007N",
+            "asian_nh": "P2_008N",
+            "nhpi_nh": "P2_009N",
+            "other_nh": "P2_010N",
+            "two_or_more_nh": "P2_011N",
+        },
+    )
+}
+
+
 @dataclass(frozen=True)
 class BlocksSpec:
     """Census blocks whose counts apportion coverage to the areas (``[blocks]``).
@@ -748,20 +769,18 @@ def _blocks_from(
     """Parse ``[blocks]``; every analysed group must get a block column."""
     if value is None:
         return None
-    from .io.blocks import PRESETS
-
     d = _table(value, where, "blocks")
     _check_keys(d, _BLOCKS_KEYS, where, "[blocks]")
     preset = _str(d, "preset", where, "blocks")
     known: dict[str, str] = {}
     total = None
     if preset is not None:
-        if preset not in PRESETS:
+        if preset not in BLOCK_PRESETS:
             raise SpecError(
                 f'{where}: [blocks] preset was "{preset}" but is expected to be one of '
-                f"{sorted(PRESETS)}"
+                f"{sorted(BLOCK_PRESETS)}"
             )
-        total, known = PRESETS[preset]
+        total, known = BLOCK_PRESETS[preset]
     total = _str(d, "total", where, "blocks", required=preset is None) or total
     raw = d.get("groups", {})
     if not isinstance(raw, Mapping) or not all(isinstance(v, str) and v for v in raw.values()):

@@ -26,6 +26,7 @@ import shapely
 
 from ..errors import InputError
 from ..inputs import PARQUET_SUFFIXES, ids_as_text
+from ..spec import BLOCK_PRESETS
 
 #: Digits of a census block GEOID: state 2 + county 3 + tract 6 + block 4.
 BLOCK_ID_WIDTH = 15
@@ -34,25 +35,8 @@ COUNTY_WIDTH = 5
 #: Column that :func:`prepare_blocks` adds: each block's 1-based row in its source file.
 ROW_COLUMN = "block_row"
 
-#: Presets of block count columns: name -> (total column, {group name: column}).
-#: ``pl_p2``: 2020 Census redistricting data (Public Law 94-171), table P2 "Hispanic or
-#: Latino, and not Hispanic or Latino by race", variable codes from memory (listed in the
-#: project's REFERENCES.md; check them against the Census Bureau's table shell).
-PRESETS: dict[str, tuple[str, dict[str, str]]] = {
-    "pl_p2": (
-        "P2_001N",
-        {
-            "hispanic": "P2_002N",
-            "white_nh": "P2_005N",
-            "black_nh": "P2_006N",
-            "aian_nh": "P2_007N",
-            "asian_nh": "P2_008N",
-            "nhpi_nh": "P2_009N",
-            "other_nh": "P2_010N",
-            "two_or_more_nh": "P2_011N",
-        },
-    )
-}
+#: Presets of block count columns (defined in spec.py, which validates them).
+PRESETS = BLOCK_PRESETS
 
 
 @dataclass(frozen=True)
