@@ -46,6 +46,7 @@ DEMO_SCENARIOS = (
     "outreach",
     "lending",
     "clinics",
+    "delivery_blocks",
 )
 
 
@@ -180,7 +181,7 @@ def _build_parser() -> argparse.ArgumentParser:
     demo.add_argument(
         "--scenario",
         action="append",
-        choices=[*DEMO_SCENARIOS, "delivery_blocks"],
+        choices=DEMO_SCENARIOS,
         help="run only this scenario (repeatable; default: all)",
     )
     demo.add_argument(

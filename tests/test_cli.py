@@ -220,6 +220,6 @@ def test_grid_crs_constant_is_projected():
 def test_demo_scenario_choices_are_the_demo_scenarios() -> None:
     # Consistency check: every scenario the demo writes can be chosen on the command line.
     from coverage_audit.cli import DEMO_SCENARIOS
-    from coverage_audit.demo import MARGIN_SCENARIO, SCENARIOS
+    from coverage_audit.demo import BLOCK_SCENARIO, MARGIN_SCENARIO, SCENARIOS
 
-    assert sorted(DEMO_SCENARIOS) == sorted([*SCENARIOS, MARGIN_SCENARIO])
+    assert sorted(DEMO_SCENARIOS) == sorted([*SCENARIOS, MARGIN_SCENARIO, BLOCK_SCENARIO])
