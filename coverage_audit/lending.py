@@ -707,8 +707,10 @@ def _findings(section: dict[str, Any]) -> list[str]:
     gaps = section.get("gaps") or {}
     if gaps.get("footprint_tracts"):
         g_mm, g_other = gaps["majority_minority"], gaps["other"]
+        most = gaps["max_applications"]
+        few = "no" if most == 0 else f"at most {most}"
         out.append(
-            f"Lending gaps (footprint tracts with at most {gaps['max_applications']} "
+            f"Lending gaps (footprint tracts with {few} "
             f"applications from {name}): {g_mm['gaps']} of {g_mm['tracts']} majority-minority "
             f"tracts against {g_other['gaps']} of {g_other['tracts']} other tracts."
         )

@@ -294,8 +294,8 @@ def _gaps_part(gaps: Mapping[str, Any], name: str) -> Html:
     cmp = as_mapping(gaps.get("comparison"))
     return para(
         f"Where the lending is not: of the {fmt_count(gaps.get('footprint_tracts'))} tracts "
-        f"of the footprint, {fmt_count(gaps.get('gap_tracts'))} had at most "
-        f"{fmt_count(gaps.get('max_applications'))} applications to {name}: "
+        f"of the footprint, {fmt_count(gaps.get('gap_tracts'))} had "
+        f"{_how_few(gaps.get('max_applications'))} applications to {name}: "
         f"{fmt_count(mm.get('gaps'))} of {fmt_count(mm.get('tracts'))} majority-minority "
         f"tracts ({fmt_percent(cmp.get('lender_share'))}) against "
         f"{fmt_count(other.get('gaps'))} of {fmt_count(other.get('tracts'))} other tracts "
@@ -310,3 +310,8 @@ def key_figures(page: Page) -> list[Html]:
     if not s or skipped_reason(s):
         return []
     return [tag("li", str(sentence)) for sentence in s.get("findings") or []]
+
+
+def _how_few(most: Any) -> str:
+    """Return "no" for a gap of zero applications, else "at most N"."""
+    return "no" if most == 0 else f"at most {fmt_count(most)}"
