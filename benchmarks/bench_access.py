@@ -14,15 +14,14 @@ Run: .venv/bin/python benchmarks/bench_access.py
 
 from __future__ import annotations
 
-import math
 import tempfile
 import time
-import tracemalloc
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
 import shapely
+from _timing import measure
 from scipy.spatial import cKDTree
 
 from coverage_audit.inputs import Exclusions
@@ -41,20 +40,6 @@ SEED = 7
 N_AREAS = 85_000
 N_SITES = 2_000
 CATCHMENT = 10_000.0
-
-
-def measure(fn, repeats=2):
-    """Best time of ``repeats`` runs (the machine is shared), peak traced memory of one."""
-    tracemalloc.start()
-    out = fn()
-    _, peak = tracemalloc.get_traced_memory()
-    tracemalloc.stop()
-    seconds = math.inf
-    for _ in range(repeats):
-        start = time.perf_counter()
-        fn()
-        seconds = min(seconds, time.perf_counter() - start)
-    return out, seconds, peak / 2**20
 
 
 def main() -> None:

@@ -21,30 +21,16 @@ from __future__ import annotations
 import argparse
 import resource
 import time
-import tracemalloc
 
 import geopandas as gpd
 import numpy as np
 import pandas as pd
 import shapely
+from _timing import measure
 
 from coverage_audit.coverage import covered_fraction
 from coverage_audit.footprint import cut_pieces, geodesic_circles
 from coverage_audit.synthetic import FICTIONAL_CRS, service_points, tessellation
-
-
-def measure(fn, repeat: int = 3):
-    """Best of ``repeat`` timed runs, then one more run under tracemalloc for the peak."""
-    best = float("inf")
-    for _ in range(repeat):
-        t0 = time.perf_counter()
-        value = fn()
-        best = min(best, time.perf_counter() - t0)
-    tracemalloc.start()
-    fn()
-    _, peak = tracemalloc.get_traced_memory()
-    tracemalloc.stop()
-    return value, best, peak / 2**20
 
 
 def main() -> None:
@@ -84,7 +70,7 @@ def main() -> None:
     def ours():
         return covered_fraction(areas, pieces)
 
-    fractions, t_ours, mem_ours = measure(ours)
+    fractions, t_ours, mem_ours = measure(ours, repeat=3)
     print(
         f"ours:     {t_ours:7.2f} s   peak traced {mem_ours:8.1f} MiB   (covered fractions, best of 3)"
     )

@@ -27,7 +27,6 @@ import csv
 import resource
 import tempfile
 import time
-import tracemalloc
 import zipfile
 from pathlib import Path
 
@@ -35,27 +34,13 @@ import numpy as np
 import pandas as pd
 import pyogrio
 import shapely
+from _timing import measure
 
 from coverage_audit.inputs import _numeric_problem, load_areas, read_layer
 from coverage_audit.io.boundaries import detect_id_column, water_only
 from coverage_audit.io.census import parse_margins, read_census_table
 from coverage_audit.spec import spec_from_dict
 from coverage_audit.synthetic import tessellation
-
-
-def measure(fn, repeat: int):
-    """Best of ``repeat`` timed runs, then one more run under tracemalloc for the peak."""
-    best = float("inf")
-    value = None
-    for _ in range(repeat):
-        t0 = time.perf_counter()
-        value = fn()
-        best = min(best, time.perf_counter() - t0)
-    tracemalloc.start()
-    fn()
-    _, peak = tracemalloc.get_traced_memory()
-    tracemalloc.stop()
-    return value, best, peak / 2**20
 
 
 def write_inputs(folder: Path, n: int) -> tuple[Path, Path]:

@@ -13,12 +13,10 @@ Run: .venv/bin/python benchmarks/bench_segregation.py
 
 from __future__ import annotations
 
-import math
-import time
-import tracemalloc
 from functools import partial
 
 import numpy as np
+from _timing import measure
 
 from coverage_audit.segregation import coverage_gap_test, segregation_summary
 
@@ -34,20 +32,6 @@ def textbook_loop(x, y, served, permutations, rng):
         s = rng.permutation(served)
         null[b] = y[s].sum() / Y - x[s].sum() / X
     return null
-
-
-def measure(fn, repeats=2):
-    """Best time of ``repeats`` runs (the machine is shared), peak traced memory of one."""
-    tracemalloc.start()
-    out = fn()
-    _, peak = tracemalloc.get_traced_memory()
-    tracemalloc.stop()
-    seconds = math.inf
-    for _ in range(repeats):
-        start = time.perf_counter()
-        fn()
-        seconds = min(seconds, time.perf_counter() - start)
-    return out, seconds, peak / 2**20
 
 
 def main() -> None:
