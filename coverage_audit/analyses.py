@@ -21,14 +21,15 @@ import shapely
 from pyproj import Geod, Transformer
 
 from .compare import change_between, compare_footprints, peer_comparison
-from .coverage import coverage_by_group, covered_fraction, footprint_fractions
+from .coverage import coverage_by_group, footprint_fractions
 from .enclaves import count_enclaves
 from .errors import AnalysisError, DegenerateStatisticWarning, InputError
 from .explain import discover_rules, exclusion_models, sensitivity_thresholds
-from .footprint import Footprint, build_footprint, cut_pieces, geodesic_circles
+from .footprint import Footprint, build_footprint
 from .inputs import AreaInputs, Exclusions, InputRecord, ids_as_text, read_hashed, read_table
 from .io.joins import MatchReport, match_ids
 from .options import enclave_options
+from .reach_sweep import circle_fractions
 from .spec import AuditSpec
 from .weights import AreaGraph
 
@@ -147,12 +148,16 @@ def sensitivity_section(
         base = footprint.points["radius_m"].to_numpy(dtype=float)
         radius_rows = []
         radius_served = []
-        for factor in SWEEP_RADII:
-            circles, _ = geodesic_circles(
-                lon, lat, base * factor, footprint.crs, spec.analysis.circle_vertices
-            )
-            pieces = cut_pieces(shapely.union_all(circles))
-            cf = covered_fraction(geoms, pieces)
+        # One pass over the areas per reach, without dissolving the circles (reach_sweep).
+        swept = circle_fractions(
+            geoms,
+            lon,
+            lat,
+            [base * factor for factor in SWEEP_RADII],
+            footprint.crs,
+            spec.analysis.circle_vertices,
+        )
+        for factor, cf in zip(SWEEP_RADII, swept, strict=True):
             cov = coverage_by_group(
                 frame,
                 groups=groups,

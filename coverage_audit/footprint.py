@@ -449,6 +449,27 @@ def geodesic_circles(
     """
     n = np.asarray(lon).size
     radius_m = np.broadcast_to(np.asarray(radius_m, dtype=float), (n,))
+    ring = circle_rings(lon, lat, radius_m, crs, vertices)
+    closed = np.concatenate([ring, ring[:, :1, :]], axis=1)
+    polygons = shapely.polygons(closed)
+    expected = np.pi * radius_m**2
+    error = float(np.max(np.abs(shapely.area(polygons) / expected - 1.0))) if n else 0.0
+    return polygons, error
+
+
+def circle_rings(
+    lon: np.ndarray, lat: np.ndarray, radius_m: np.ndarray, crs: CRS, vertices: int
+) -> np.ndarray:
+    """Vertices of the reach circles of :func:`geodesic_circles`, as an array.
+
+    Returns
+    -------
+    numpy.ndarray, shape (n, vertices, 2)
+        Each circle's vertices in ``crs``, in the order of the polygon's exterior
+        (counter-clockwise where ``crs`` keeps the orientation), not closed.
+    """
+    n = np.asarray(lon).size
+    radius_m = np.broadcast_to(np.asarray(radius_m, dtype=float), (n,))
     theta = 2 * np.pi / vertices
     scale = np.sqrt(theta / np.sin(theta))
     azimuths = np.linspace(0.0, 360.0, vertices, endpoint=False)
@@ -464,12 +485,7 @@ def geodesic_circles(
         [np.asarray(px).reshape(n, vertices), np.asarray(py).reshape(n, vertices)], axis=-1
     )
     # Azimuths run clockwise; reverse for the counter-clockwise exterior of a valid ring.
-    ring = ring[:, ::-1, :]
-    closed = np.concatenate([ring, ring[:, :1, :]], axis=1)
-    polygons = shapely.polygons(closed)
-    expected = np.pi * radius_m**2
-    error = float(np.max(np.abs(shapely.area(polygons) / expected - 1.0))) if n else 0.0
-    return polygons, error
+    return np.ascontiguousarray(ring[:, ::-1, :])
 
 
 def cut_pieces(geometry: Any, max_vertices: int = MAX_PIECE_VERTICES) -> np.ndarray:
