@@ -23,6 +23,7 @@ import scipy.sparse as sp
 import shapely
 from scipy.sparse.csgraph import connected_components
 
+from ._graph import csr_of_pairs, label_masked, reach
 from ._growth import forget, grow_block
 from ._util import clean_number, safe_ratio, to_jsonable
 from .errors import AnalysisError, SpecError
@@ -736,18 +737,19 @@ def _check_draws(mc_draws: Any, rng: Any) -> int:
 
 
 def _masked_components(adjacency: sp.csr_matrix, mask: np.ndarray) -> tuple[np.ndarray, int]:
-    """Label the connected components of the areas in ``mask``; -1 elsewhere."""
-    labels = np.full(mask.size, -1, dtype=np.int64)
-    idx = np.flatnonzero(mask)
-    if idx.size == 0:
-        return labels, 0
-    n_comp, sub = connected_components(adjacency[idx][:, idx], directed=False)
-    # Relabel in order of first position so labels do not depend on scipy's traversal.
-    _, first = np.unique(sub, return_index=True)
-    order = np.empty(n_comp, dtype=np.int64)
-    order[np.argsort(first, kind="stable")] = np.arange(n_comp)
-    labels[idx] = order[sub]
-    return labels, int(n_comp)
+    """Label the connected components of the areas in ``mask``; -1 elsewhere.
+
+    Labels run in order of each component's first position, so they do not depend on
+    the order of the search (compiled breadth-first search, :mod:`._graph`).
+    """
+    if not mask.any():
+        return np.full(mask.size, -1, dtype=np.int64), 0
+    labels, count = label_masked(
+        adjacency.indptr.astype(np.int64, copy=False),
+        adjacency.indices.astype(np.int64, copy=False),
+        np.ascontiguousarray(mask, dtype=bool),
+    )
+    return labels, int(count)
 
 
 @dataclass(frozen=True, eq=False)
@@ -759,6 +761,29 @@ class _Lengths:
     edge: np.ndarray
     transparent: np.ndarray
     surround: np.ndarray
+
+
+def _pair_arrays(
+    cache: SharedBoundaries, n: int
+) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, tuple[np.ndarray, np.ndarray]]:
+    """Oriented pairs (both ways), their lengths, the outer-edge lengths and the pairs' CSR.
+
+    Kept on the shared-edge table, so the sweeps build them once for all served sets.
+    """
+    kept = cache.__dict__.get("_oriented_pairs")
+    if kept is not None and kept[3].size == n:
+        return kept  # type: ignore[no-any-return]
+    a = cache.pairs["i"].to_numpy(dtype=np.int64)
+    b = cache.pairs["j"].to_numpy(dtype=np.int64)
+    length = cache.pairs["length"].to_numpy(dtype=np.float64)
+    outer_edge = (
+        np.zeros(n) if cache.outer_edge is None else np.asarray(cache.outer_edge, dtype=float)
+    )
+    x = np.concatenate([a, b])
+    y = np.concatenate([b, a])
+    kept = (x, y, np.concatenate([length, length]), outer_edge, csr_of_pairs(x, y, n))
+    cache.__dict__["_oriented_pairs"] = kept
+    return kept
 
 
 def _boundary_budget(
@@ -795,16 +820,8 @@ def _boundary_budget(
     n = comp.size
     in_comp = comp >= 0
     in_body = body >= 0
-    a = cache.pairs["i"].to_numpy(dtype=np.int64)
-    b = cache.pairs["j"].to_numpy(dtype=np.int64)
-    length = cache.pairs["length"].to_numpy(dtype=np.float64)
-    outer_edge = (
-        np.zeros(n) if cache.outer_edge is None else np.asarray(cache.outer_edge, dtype=float)
-    )
+    x, y, both, outer_edge, pair_graph = _pair_arrays(cache, n)
     is_served = served & ~in_body
-    x = np.concatenate([a, b])
-    y = np.concatenate([b, a])
-    both = np.concatenate([length, length])
 
     # Transparent bodies: their exterior, and how much of it is served.
     outer_b: np.ndarray = np.zeros(0)
@@ -857,7 +874,7 @@ def _boundary_budget(
     first = budget(np.zeros(x.size, dtype=bool))
     threshold = 0.0 if min_surround is None else min_surround - _SHARE_ATOL
     candidates = np.flatnonzero(np.nan_to_num(first.surround, nan=0.0) >= threshold)
-    drop = _enclosed_pairs(comp, candidates, x, y, outer_edge)
+    drop = _enclosed_pairs(comp, candidates, x, y, outer_edge, pair_graph)
     if not drop.any():
         return first
     return budget(drop)
@@ -869,6 +886,7 @@ def _enclosed_pairs(
     x: np.ndarray,
     y: np.ndarray,
     outer_edge: np.ndarray,
+    pair_graph: tuple[np.ndarray, np.ndarray] | None = None,
 ) -> np.ndarray:
     """Mark the oriented pairs (x in C, y outside C) where y is enclosed by component C.
 
@@ -877,41 +895,46 @@ def _enclosed_pairs(
     component (served and transparent ones) are first grouped into pieces, once: a piece
     on the outer edge is enclosed by nothing, and a piece off it that borders a single
     component is enclosed by that one. Only a piece bordering several components needs
-    a search of its own, for each candidate among them.
+    a search of its own, for each candidate among them. ``pair_graph`` is the CSR
+    neighbour list of the oriented pairs (built here when not given).
     """
     drop = np.zeros(x.size, dtype=bool)
     n = comp.size
     if candidates.size == 0 or x.size == 0:
         return drop
+    indptr, indices = pair_graph if pair_graph is not None else csr_of_pairs(x, y, n)
     in_comp = comp >= 0
     on_edge = outer_edge > 0
-    rest = ~in_comp[x] & ~in_comp[y]
-    graph = sp.csr_matrix((np.ones(int(rest.sum())), (x[rest], y[rest])), shape=(n, n))
-    _, piece = connected_components(graph, directed=False)
-    n_piece = int(piece.max()) + 1
+    piece, n_piece = label_masked(indptr, indices, ~in_comp)
+    if n_piece == 0:
+        return drop
     piece_on_edge = np.bincount(piece[~in_comp & on_edge], minlength=n_piece) > 0
-    across = in_comp[x] & ~in_comp[y]
-    key = np.unique(piece[y[across]] * (int(comp.max()) + 1) + comp[x[across]])
-    key_piece = key // (int(comp.max()) + 1)
+    across = np.flatnonzero(in_comp[x] & ~in_comp[y])
+    width = int(comp.max()) + 1
+    key = np.unique(piece[y[across]] * width + comp[x[across]])
+    key_piece = key // width
     borders = np.bincount(key_piece, minlength=n_piece)
     single = (borders == 1) & ~piece_on_edge
-    drop |= across & single[piece[y]]
+    drop[across] = single[piece[y[across]]]
     shared_pieces = np.flatnonzero((borders > 1) & ~piece_on_edge)
     if shared_pieces.size == 0:
         return drop
-    key_comp = key % (int(comp.max()) + 1)
+    key_comp = key % width
     involved = np.intersect1d(key_comp[np.isin(key_piece, shared_pieces)], candidates)
-    for c in involved:
-        inside = comp == c
-        keep = ~inside[x] & ~inside[y]
-        # Node n stands for the world beyond the region's outer edge.
-        edge_nodes = np.flatnonzero(on_edge & ~inside)
-        rows = np.concatenate([x[keep], edge_nodes])
-        cols = np.concatenate([y[keep], np.full(edge_nodes.size, n)])
-        full = sp.csr_matrix((np.ones(rows.size), (rows, cols)), shape=(n + 1, n + 1))
-        _, label = connected_components(full, directed=False)
-        enclosed = label[:n] != label[n]
-        drop |= (comp[x] == c) & across & enclosed[y]
+    if involved.size == 0:
+        return drop
+    # The pairs leaving each involved component, grouped by component.
+    from_comp = comp[x[across]]
+    mine = np.isin(from_comp, involved)
+    rows = across[mine]
+    rows = rows[np.argsort(from_comp[mine], kind="stable")]
+    bounds = np.searchsorted(comp[x[rows]], np.append(involved, width))
+    for k, c in enumerate(involved):
+        # Areas reachable from the outer edge (the world beyond it) without crossing c.
+        allowed = comp != c
+        reached = reach(indptr, indices, allowed, np.flatnonzero(on_edge & allowed))
+        sel = rows[bounds[k] : bounds[k + 1]]
+        drop[sel] |= ~reached[y[sel]]
     return drop
 
 
