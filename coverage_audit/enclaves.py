@@ -772,7 +772,7 @@ def _pair_arrays(
     """
     kept = cache.__dict__.get("_oriented_pairs")
     if kept is not None and kept[3].size == n:
-        return kept  # type: ignore[no-any-return]
+        return kept
     a = cache.pairs["i"].to_numpy(dtype=np.int64)
     b = cache.pairs["j"].to_numpy(dtype=np.int64)
     length = cache.pairs["length"].to_numpy(dtype=np.float64)
