@@ -21,16 +21,25 @@ from typing import Any
 import geopandas as gpd
 import numpy as np
 import pandas as pd
-import pyogrio
 import shapely
-from pyproj import CRS, Transformer
+from pyproj import CRS
 
 from .errors import IdWarning, InputError, MarginWarning, RepairWarning
-from .geographic import longitude_span, span_centre, unwrap_longitudes
+from .geographic import unwrap_longitudes
+from .io.areas import (  # re-exported: other modules import them from here
+    PARQUET_SUFFIXES as PARQUET_SUFFIXES,
+)
+from .io.areas import choose_analysis_crs as choose_analysis_crs
+from .io.areas import crs_text as crs_text
+from .io.areas import kept_geometries as kept_geometries
+from .io.areas import polygonal as polygonal
+from .io.areas import project_geometries, require_file
+from .io.areas import read_layer as read_layer
+from .io.areas import repair as repair
+from .io.areas import resolve_crs as resolve_crs
 from .io.boundaries import describe_layout, detect_id_column, strip_prefix, water_only
 from .io.census import annotation_reasons
 from .io.checks import (
-    bad_feature,
     check_sums,
     finite_coordinates,
     hint_float_ids,
@@ -41,8 +50,6 @@ from .io.joins import MatchReport
 from .io.tables import join_tables, numeric_estimates
 from .spec import AreasSpec, PopulationSpec, TableSpec
 
-#: Extensions read with pandas/pyarrow rather than GDAL.
-PARQUET_SUFFIXES = (".parquet", ".geoparquet", ".pq")
 TABLE_SUFFIXES = (".csv", ".txt", ".tsv") + PARQUET_SUFFIXES
 INCOME_TIERS = ("low", "moderate", "middle", "upper", "unknown")
 
@@ -144,56 +151,9 @@ class AreaInputs:
     margins_missing: dict[str, int] = field(default_factory=dict)
 
 
-def _require_file(path: Path, role: str) -> None:
-    if not path.exists():
-        raise InputError(f"{role} file '{path}' was not found; check the path in the spec")
-    if path.is_dir() and path.suffix.lower() != ".gdb":
-        raise InputError(f"{role} path '{path}' is a folder; name the file itself")
-
-
-def read_layer(
-    path: Path, *, layer: str | None, role: str, id_column: str | None = None
-) -> gpd.GeoDataFrame:
-    """Read a vector layer (GeoPackage, GeoJSON, Shapefile, GeoParquet, ...) as is.
-
-    Raises
-    ------
-    InputError
-        When the file is missing or unreadable or the layer does not exist.
-    """
-    _require_file(path, role)
-    suffix = path.suffix.lower()
-    try:
-        if suffix in PARQUET_SUFFIXES:
-            return gpd.read_parquet(path)
-        if layer is not None:
-            available = [str(name) for name in pyogrio.list_layers(path)[:, 0]]
-            if layer not in available:
-                raise InputError(
-                    f"{role} file '{path}' has no layer \"{layer}\"; its layers are {available}"
-                )
-        with warnings.catch_warnings():
-            # GDAL's note on an unclosed ring is replaced by the message naming the feature.
-            warnings.filterwarnings("ignore", "Non closed ring detected", RuntimeWarning)
-            return pyogrio.read_dataframe(path, layer=layer)
-    except InputError:
-        raise
-    except Exception as exc:  # GDAL and pyarrow raise many kinds; all mean "unreadable"
-        feature = bad_feature(path, layer, id_column)
-        if feature is not None:
-            raise InputError(
-                f"{role} file '{path}': {feature} has a geometry that cannot be built ({exc}); "
-                "fix that feature (a polygon ring must end at its first point) or remove it"
-            ) from None
-        raise InputError(
-            f"{role} file '{path}' could not be read as a spatial layer ({exc}); "
-            "use GeoPackage, GeoJSON, Shapefile or GeoParquet"
-        ) from None
-
-
 def read_table(path: Path, *, id_column: str, role: str) -> pd.DataFrame:
     """Read a CSV or Parquet table keeping ``id_column`` as text (leading zeros kept)."""
-    _require_file(path, role)
+    require_file(path, role)
     suffix = path.suffix.lower()
     try:
         if suffix in PARQUET_SUFFIXES:
@@ -246,152 +206,6 @@ def ids_as_text(values: pd.Series, *, width: int | None, where: str) -> pd.Serie
     series = series.where(~missing, None)
     series = series.map(lambda v: None if v == "" else v)
     return series.astype(object)
-
-
-def crs_text(crs: CRS | None) -> str | None:
-    """Return a short name of a CRS (``EPSG:4326``), or its full text without an authority."""
-    if crs is None:
-        return None
-    auth = crs.to_authority()
-    return f"{auth[0]}:{auth[1]}" if auth else crs.to_string()
-
-
-def resolve_crs(
-    layer: gpd.GeoDataFrame, declared: str | None, *, role: str, path: Path, key: str
-) -> gpd.GeoDataFrame:
-    """Give ``layer`` its CRS: the file's own, or the one the spec declares.
-
-    Raises
-    ------
-    InputError
-        When neither the file nor the spec gives a CRS, or the two disagree.
-    """
-    if declared is not None:
-        try:
-            declared_crs = CRS.from_user_input(declared)
-        except Exception:
-            raise InputError(
-                f'{role}: crs "{declared}" is not a known CRS; write e.g. "EPSG:4326"'
-            ) from None
-        if layer.crs is None:
-            layer = layer.set_crs(declared_crs)
-            _check_degrees(layer, role=role, path=path)
-            return layer
-        if not CRS(layer.crs).equals(declared_crs, ignore_axis_order=True):
-            raise InputError(
-                f"{role} file '{path}' declares CRS {crs_text(layer.crs)} but the spec says "
-                f'{key} = "{declared}"; remove {key} from the spec (it is only for files without '
-                "a CRS) or fix the file"
-            )
-        return layer
-    if layer.crs is None:
-        raise InputError(
-            f"{role} file '{path}' has no coordinate reference system; name it in the spec with "
-            f'{key} = "EPSG:4326" (or the CRS the coordinates are in)'
-        )
-    _check_degrees(layer, role=role, path=path)
-    return layer
-
-
-def _check_degrees(layer: gpd.GeoDataFrame, *, role: str, path: Path) -> None:
-    """Refuse longitudes/latitudes out of range: the file's CRS is then not the real one.
-
-    GeoJSON files carry no CRS by default and are read as WGS 84 (RFC 7946), so a GeoJSON
-    written in metres shows up here.
-    """
-    if layer.crs is None or not CRS(layer.crs).is_geographic or len(layer) == 0:
-        return
-    geoms = np.asarray(layer.geometry.array, dtype=object)
-    finite = finite_coordinates(geoms)  # rows with NaN/inf are excluded later, by name
-    xmin, ymin, xmax, ymax = shapely.total_bounds(geoms[finite])
-    if not np.all(np.isfinite([xmin, ymin, xmax, ymax])):
-        return
-    if xmin < -360 or xmax > 360 or ymin < -90 or ymax > 90:
-        raise InputError(
-            f"{role} file '{path}' is read as {crs_text(layer.crs)} (longitude/latitude) but its "
-            f"coordinates reach ({xmin:g}, {ymin:g}) to ({xmax:g}, {ymax:g}), outside the range of "
-            "degrees; the file's coordinates are in another CRS. Save it with its CRS (GeoPackage "
-            "keeps any CRS; GeoJSON holds only WGS 84 longitude/latitude)"
-        )
-
-
-def choose_analysis_crs(geometries: gpd.GeoSeries, override: str | None) -> CRS:
-    """Return the equal-area CRS the analysis runs in.
-
-    By default a Lambert azimuthal equal-area projection centred on the middle of the
-    areas' extent (rounded to 0.01 degree so that it is stable), on WGS 84:
-    areas are exact wherever the region lies; distances are near-true close to the centre.
-    The extent's longitudes are unwrapped (:func:`~coverage_audit.geographic.longitude_span`),
-    so a region cut at the antimeridian (RFC 7946) is centred near 180 degrees, not 0.
-    """
-    if override is not None:
-        try:
-            crs = CRS.from_user_input(override)
-        except Exception:
-            raise InputError(f'analysis_crs "{override}" is not a known CRS') from None
-        if crs.is_geographic:
-            raise InputError(
-                f'analysis_crs "{override}" is geographic (degrees); areas and lengths need a '
-                "projected equal-area CRS, e.g. EPSG:5070 for the conterminous United States"
-            )
-        return crs
-    to_geo = Transformer.from_crs(geometries.crs, "EPSG:4326", always_xy=True)
-    if CRS(geometries.crs).is_geographic:
-        # Corners of each part's bounds: the bounding box of data cut at the antimeridian
-        # spans the whole globe, each part's does not.
-        parts = shapely.get_parts(np.asarray(geometries.array, dtype=object))
-        corners = shapely.bounds(parts)
-        gx, gy = corners[:, [0, 2, 0, 2]], corners[:, [1, 1, 3, 3]]
-    else:
-        bounds = geometries.total_bounds
-        gx, gy = np.meshgrid(
-            np.linspace(bounds[0], bounds[2], 5), np.linspace(bounds[1], bounds[3], 5)
-        )
-    lon, lat = to_geo.transform(gx.ravel(), gy.ravel())
-    lon_c = float(np.round(span_centre(*longitude_span(np.asarray(lon))), 2))
-    lat_c = float(np.round((np.nanmin(lat) + np.nanmax(lat)) / 2, 2))
-    return CRS.from_proj4(
-        f"+proj=laea +lat_0={lat_c:g} +lon_0={lon_c:g} +x_0=0 +y_0=0 +datum=WGS84 +units=m +no_defs"
-    )
-
-
-def polygonal(geoms: np.ndarray) -> np.ndarray:
-    """Keep only the polygonal parts of each geometry (empty where none)."""
-    out = np.empty(geoms.size, dtype=object)
-    for k, g in enumerate(geoms):
-        if g is None:
-            out[k] = None
-            continue
-        kind = shapely.get_type_id(g)
-        if kind in (3, 6):  # Polygon, MultiPolygon
-            out[k] = g
-        else:
-            parts = [p for p in shapely.get_parts(g) if shapely.get_type_id(p) in (3, 6)]
-            out[k] = shapely.union_all(parts) if parts else shapely.Polygon()
-    return out
-
-
-def kept_geometries(geoms: np.ndarray, keep: np.ndarray) -> np.ndarray:
-    """Geometries where ``keep``, None elsewhere."""
-    out = np.empty(geoms.size, dtype=object)
-    out[keep] = geoms[keep]
-    return out
-
-
-def repair(geoms: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Repair invalid geometries with ``make_valid``, keeping polygonal parts.
-
-    Returns the repaired array and a mask of the positions that were repaired.
-    """
-    geoms = np.asarray(geoms, dtype=object)
-    present = ~(shapely.is_missing(geoms) | shapely.is_empty(geoms))
-    invalid = np.zeros(geoms.size, dtype=bool)
-    invalid[present] = ~shapely.is_valid(geoms[present])
-    if invalid.any():
-        fixed = shapely.make_valid(geoms[invalid])
-        geoms = geoms.copy()
-        geoms[invalid] = polygonal(fixed)
-    return geoms, invalid
 
 
 def income_tier(ratio: np.ndarray | pd.Series) -> np.ndarray:
@@ -759,7 +573,13 @@ def load_areas(
             "(exclusions.csv of a partial run lists every row)"
         )
     crs = choose_analysis_crs(analysed.geometry, analysis_crs)
-    analysed = analysed.to_crs(crs)
+    analysed = gpd.GeoDataFrame(
+        analysed.drop(columns=analysed.geometry.name),
+        geometry=project_geometries(
+            np.asarray(analysed.geometry.array, dtype=object), analysed.crs, crs
+        ),
+        crs=crs,
+    )
     analysed["area_km2"] = analysed.geometry.area.to_numpy() / 1e6
     analysed = analysed.reset_index(drop=True)
     assert exclusions.count("areas") + len(analysed) == n_input, (
