@@ -14,14 +14,16 @@ from typing import Any
 import numpy as np
 
 njit: Any
+prange: Any = range
 try:  # numba is a declared dependency; the array path remains when it cannot load.
-    from numba import njit
+    from numba import njit, prange
 except ImportError:  # pragma: no cover - exercised only without numba
     njit = None
 
 
 def _grow_block_py(
-    table: np.ndarray,
+    indptr: np.ndarray,
+    indices: np.ndarray,
     seen: np.ndarray,
     frontier: np.ndarray,
     fill: np.ndarray,
@@ -32,20 +34,22 @@ def _grow_block_py(
 ) -> None:  # pragma: no cover - compiled by numba; body mirrors the array path
     """Advance every draw by ``len(uniforms)`` steps (see module docstring).
 
-    ``seen`` is draws x (n + 1) with the sentinel column set, ``frontier`` draws x
+    ``indptr``, ``indices`` are the neighbour lists (CSR, each row in the order of the
+    array path's padded table), ``seen`` is draws x (n + 1) with the sentinel column set, ``frontier`` draws x
     capacity (capacity at least ``max(fill) + steps * width``), ``fill`` the live
     frontier length of each draw, ``added`` the last area added to each draw,
     ``members`` draws x size (written from column ``first_step``), ``uniforms`` steps x
     draws in [0, 1).
     """
-    width = table.shape[1]
-    for r in range(seen.shape[0]):
+    # Draws are independent (each has its own rows and pre-drawn numbers): run them in
+    # parallel; the sets do not depend on the number of threads.
+    for r in prange(seen.shape[0]):
         last = added[r]
         count = fill[r]
         for s in range(uniforms.shape[0]):
             # Append the neighbours of the last area added that no earlier step reached.
-            for j in range(width):
-                v = table[last, j]
+            for j in range(indptr[last], indptr[last + 1]):
+                v = indices[j]
                 if not seen[r, v]:
                     seen[r, v] = True
                     frontier[r, count] = v
@@ -64,12 +68,14 @@ def _forget_py(
     seen: np.ndarray, members: np.ndarray, frontier: np.ndarray, fill: np.ndarray
 ) -> None:  # pragma: no cover - compiled by numba
     """Unmark in ``seen`` every draw's members and live frontier entries."""
-    for r in range(seen.shape[0]):
+    for r in prange(seen.shape[0]):
         for s in range(members.shape[1]):
             seen[r, members[r, s]] = False
         for s in range(fill[r]):
             seen[r, frontier[r, s]] = False
 
 
-forget: Any = njit(cache=True, nogil=True)(_forget_py) if njit is not None else None
-grow_block: Any = njit(cache=True, nogil=True)(_grow_block_py) if njit is not None else None
+forget: Any = njit(cache=True, nogil=True, parallel=True)(_forget_py) if njit is not None else None
+grow_block: Any = (
+    njit(cache=True, nogil=True, parallel=True)(_grow_block_py) if njit is not None else None
+)

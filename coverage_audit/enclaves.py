@@ -1201,6 +1201,11 @@ def _grow_compiled(
     of ``rng.random(m)``, so drawing a block of steps at once keeps the stream.
     """
     n, width = table.shape[0], table.shape[1]
+    # The padded table as CSR, rows in the same order (no padding to step over).
+    valid = table < n
+    indptr = np.zeros(n + 1, dtype=np.int64)
+    np.cumsum(valid.sum(axis=1), out=indptr[1:])
+    indices = np.ascontiguousarray(table[valid])
     members_all = np.empty((draws, size), dtype=np.int32)
     for start in range(0, draws, chunk):
         m = min(chunk, draws - start)
@@ -1223,7 +1228,7 @@ def _grow_compiled(
                 grown = np.empty((m, capacity), dtype=np.int32)
                 grown[:, : frontier.shape[1]] = frontier
                 frontier = grown
-            grow_block(table, block_seen, frontier, fill, added, members, uniforms, step)
+            grow_block(indptr, indices, block_seen, frontier, fill, added, members, uniforms, step)
             step += steps
         # Reset only what this chunk touched: the members and the live frontier entries.
         forget(block_seen, members, frontier, fill)
