@@ -43,8 +43,9 @@ from .io.checks import (
     check_sums,
     finite_coordinates,
     hint_float_ids,
-    read_hashed,
+    read_hashed_later,
 )
+from .io.checks import read_hashed as read_hashed  # re-exported
 from .io.checks import sha256_file as sha256_file  # re-exported: readers import it from here
 from .io.joins import MatchReport
 from .io.tables import join_tables, numeric_estimates
@@ -362,7 +363,9 @@ def load_areas(
     exclusions = Exclusions()
     records: list[InputRecord] = []
     path = areas_spec.path
-    layer, layer_digest = read_hashed(
+    # The second digest is taken on another thread while the areas are checked and
+    # projected; it is compared (and the record completed) before returning.
+    layer, layer_digest = read_hashed_later(
         path,
         lambda: read_layer(path, layer=areas_spec.layer, role="areas", id_column=areas_spec.id),
         role="areas",
@@ -373,7 +376,7 @@ def load_areas(
         InputRecord(
             "areas",
             str(path),
-            layer_digest,
+            "",
             len(layer),
             crs_text(layer.crs),
             areas_spec.layer,
@@ -585,6 +588,7 @@ def load_areas(
     assert exclusions.count("areas") + len(analysed) == n_input, (
         "area rows lost between input and output"
     )
+    records[0] = replace(records[0], sha256=layer_digest())
     return AreaInputs(
         frame=analysed,
         id_column=id_col,

@@ -12,6 +12,7 @@ import hashlib
 import re
 import warnings
 from collections.abc import Callable, Mapping
+from concurrent.futures import ThreadPoolExecutor
 from pathlib import Path
 from typing import TypeVar
 
@@ -70,6 +71,37 @@ def read_hashed(path: Path, read: Callable[[], _T], *, role: str) -> tuple[_T, s
             "after reading differ); wait until it is no longer being written, then rerun"
         )
     return value, after or ""
+
+
+def read_hashed_later(
+    path: Path, read: Callable[[], _T], *, role: str
+) -> tuple[_T, Callable[[], str]]:
+    """:func:`read_hashed`, the second digest taken on another thread while the caller goes on.
+
+    Returns the value read and a function that waits for the second digest, compares it
+    with the first and returns it (raising :class:`InputError` as :func:`read_hashed`
+    does when they differ). The second hash still starts after the read has finished, so
+    the guarantee is the same; the caller only does not wait for it.
+    """
+    if not Path(path).is_file():
+        value = read()
+        return value, lambda: ""
+    before = sha256_file(path)
+    value = read()
+    pool = ThreadPoolExecutor(max_workers=1)
+    after = pool.submit(sha256_file, path)
+    pool.shutdown(wait=False)
+
+    def finish() -> str:
+        digest = after.result()
+        if digest != before:
+            raise InputError(
+                f"{role} file '{path}' changed while it was being read (its SHA-256 before "
+                "and after reading differ); wait until it is no longer being written, then rerun"
+            )
+        return digest
+
+    return value, finish
 
 
 def bad_feature(path: Path, layer: str | None, id_column: str | None = None) -> str | None:
