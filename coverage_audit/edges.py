@@ -28,6 +28,7 @@ Method
 
 from __future__ import annotations
 
+from collections.abc import Iterator
 from dataclasses import dataclass
 
 import numpy as np
@@ -50,6 +51,8 @@ _SIMPLIFY_FRACTION = 1e-3
 _MIN_EDGE_TOLERANCES = 2.0
 #: Segments matched at once (bounds the memory of the candidate pairs).
 _CHUNK = 100_000
+#: Segments per strip of boxes held in memory at once (see :func:`_strips`).
+_STRIP_SEGMENTS = 1_000_000
 
 
 @dataclass(frozen=True)
@@ -142,12 +145,9 @@ def edge_table(
     grow = tolerance
     lo = np.minimum(p, q) - grow
     hi = np.maximum(p, q) + grow
-    boxes = shapely.box(lo[:, 0], lo[:, 1], hi[:, 0], hi[:, 1])
-    tree = shapely.STRtree(boxes)
-    # Segments are matched in chunks, so that the candidate pairs never all sit in memory.
     found = [
-        _covered(tree, boxes, p, q, owner, seg_len, first, tolerance)
-        for first in range(0, boxes.size, _CHUNK)
+        _covered(boxes, query, tree_ids, p, q, owner, seg_len, tolerance)
+        for boxes, query, tree_ids in _strips(lo, hi)
     ]
     a = np.concatenate([f[0] for f in found]) if found else np.zeros(0, dtype=np.int64)
     b = np.concatenate([f[1] for f in found]) if found else np.zeros(0, dtype=np.int64)
@@ -184,20 +184,71 @@ def edge_table(
     )
 
 
+def _strips(lo: np.ndarray, hi: np.ndarray) -> Iterator[tuple[np.ndarray, np.ndarray, np.ndarray]]:
+    """Segment boxes in strips along x, so that only one strip's boxes sit in memory.
+
+    Each segment is asked about once, in the strip of its box's left side; a strip's
+    tree holds every box reaching into the x-range of the boxes asked there, so each
+    pair of meeting boxes is found exactly as by one tree over all boxes. Yields the
+    strip's boxes (tree order), the positions among them of the boxes asked, and the
+    boxes' segment numbers.
+    """
+    n = lo.shape[0]
+    if n == 0:
+        return
+    n_strips = max(1, -(-n // _STRIP_SEGMENTS))
+    cuts = np.quantile(lo[:, 0], np.linspace(0, 1, n_strips + 1)[1:-1]) if n_strips > 1 else []
+    strip = np.searchsorted(np.asarray(cuts, dtype=float), lo[:, 0], side="right")
+    for k in range(n_strips):
+        asked = strip == k
+        if not asked.any():
+            continue
+        x0, x1 = lo[asked, 0].min(), hi[asked, 0].max()
+        tree_ids = np.flatnonzero((hi[:, 0] >= x0) & (lo[:, 0] <= x1))
+        boxes = shapely.box(lo[tree_ids, 0], lo[tree_ids, 1], hi[tree_ids, 0], hi[tree_ids, 1])
+        query = np.flatnonzero(asked[tree_ids])
+        yield boxes, query, tree_ids
+
+
 def _covered(
-    tree: shapely.STRtree,
     boxes: np.ndarray,
+    query: np.ndarray,
+    tree_ids: np.ndarray,
     p: np.ndarray,
     q: np.ndarray,
     owner: np.ndarray,
     seg_len: np.ndarray,
-    first: int,
     tolerance: float,
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
-    """Stretches of segments ``first..first + _CHUNK`` covered by other areas' segments."""
-    b, a = tree.query(boxes[first : first + _CHUNK])
-    a = a.astype(np.int64)
-    b = b.astype(np.int64) + first
+    """Stretches of the asked segments' neighbours covered by other areas' segments.
+
+    ``boxes`` are one strip's grown segment boxes (segment numbers ``tree_ids``) and
+    ``query`` the positions among them of the segments asked in this strip. Returns, for
+    every pair (a, b) of segments of different areas where b runs along a's line, a, b
+    and the stretch of a it covers.
+    """
+    tree = shapely.STRtree(boxes)
+    out: list[tuple[np.ndarray, ...]] = []
+    # Segments are matched in chunks, so that the candidate pairs never all sit in memory.
+    for first in range(0, query.size, _CHUNK):
+        asked = query[first : first + _CHUNK]
+        b, a = tree.query(boxes[asked])
+        a = tree_ids[a].astype(np.int64)
+        b = tree_ids[asked[b]].astype(np.int64)
+        out.append(_along(a, b, p, q, owner, seg_len, tolerance))
+    return tuple(np.concatenate([o[k] for o in out]) for k in range(4))  # type: ignore[return-value]
+
+
+def _along(
+    a: np.ndarray,
+    b: np.ndarray,
+    p: np.ndarray,
+    q: np.ndarray,
+    owner: np.ndarray,
+    seg_len: np.ndarray,
+    tolerance: float,
+) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Of candidate pairs (a, b), those where b runs along a's line, with a's stretch."""
     keep = owner[a] != owner[b]
     a, b = a[keep], b[keep]
     # Stretch of segment a covered by segment b, when b runs along a's line.
