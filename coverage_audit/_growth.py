@@ -32,21 +32,21 @@ def _grow_block_py(
     uniforms: np.ndarray,
     first_step: int,
 ) -> None:  # pragma: no cover - compiled by numba; body mirrors the array path
-    """Advance every draw by ``len(uniforms)`` steps (see module docstring).
+    """Advance every draw by ``uniforms.shape[1]`` steps (see module docstring).
 
     ``indptr``, ``indices`` are the neighbour lists (CSR, each row in the order of the
     array path's padded table), ``seen`` is draws x (n + 1) with the sentinel column set, ``frontier`` draws x
     capacity (capacity at least ``max(fill) + steps * width``), ``fill`` the live
     frontier length of each draw, ``added`` the last area added to each draw,
-    ``members`` draws x size (written from column ``first_step``), ``uniforms`` steps x
-    draws in [0, 1).
+    ``members`` draws x size (written from column ``first_step``), ``uniforms`` draws x
+    steps in [0, 1) (each draw's numbers contiguous).
     """
     # Draws are independent (each has its own rows and pre-drawn numbers): run them in
     # parallel; the sets do not depend on the number of threads.
     for r in prange(seen.shape[0]):
         last = added[r]
         count = fill[r]
-        for s in range(uniforms.shape[0]):
+        for s in range(uniforms.shape[1]):
             # Append the neighbours of the last area added that no earlier step reached.
             for j in range(indptr[last], indptr[last + 1]):
                 v = indices[j]
@@ -55,7 +55,7 @@ def _grow_block_py(
                     frontier[r, count] = v
                     count += 1
             # Take a uniformly random frontier entry and fill its slot with the last one.
-            pick = np.int64(uniforms[s, r] * count)
+            pick = np.int64(uniforms[r, s] * count)
             last = frontier[r, pick]
             members[r, first_step + s] = last
             frontier[r, pick] = frontier[r, count - 1]
@@ -68,7 +68,7 @@ def _forget_py(
     seen: np.ndarray, members: np.ndarray, frontier: np.ndarray, fill: np.ndarray
 ) -> None:  # pragma: no cover - compiled by numba
     """Unmark in ``seen`` every draw's members and live frontier entries."""
-    for r in prange(seen.shape[0]):
+    for r in range(seen.shape[0]):
         for s in range(members.shape[1]):
             seen[r, members[r, s]] = False
         for s in range(fill[r]):

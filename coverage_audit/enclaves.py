@@ -677,7 +677,8 @@ def _grow_compiled(
         step = 1
         while step < size:
             steps = min(_STEP_BLOCK, size - step)
-            uniforms = rng.random((steps, m))
+            # Drawn steps x draws (the array path's order), laid out draw by draw.
+            uniforms = np.ascontiguousarray(rng.random((steps, m)).T)
             need = min(int(fill.max()) + steps * width, n + width)
             if need > capacity:
                 capacity = max(need, min(2 * capacity, n + width))
