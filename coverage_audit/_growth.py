@@ -75,6 +75,25 @@ def _forget_py(
             seen[r, frontier[r, s]] = False
 
 
+def _set_sums_py(
+    sets: np.ndarray, pop: np.ndarray, minority: np.ndarray
+) -> tuple[np.ndarray, np.ndarray]:  # pragma: no cover - compiled by numba
+    """Return the population and minority count of each drawn set (rows of ``sets``)."""
+    draws = sets.shape[0]
+    draw_pop = np.empty(draws)
+    draw_minority = np.empty(draws)
+    for r in range(draws):
+        total = 0.0
+        part = 0.0
+        for s in range(sets.shape[1]):
+            total += pop[sets[r, s]]
+            part += minority[sets[r, s]]
+        draw_pop[r] = total
+        draw_minority[r] = part
+    return draw_pop, draw_minority
+
+
+set_sums: Any = njit(cache=True, nogil=True)(_set_sums_py) if njit is not None else None
 forget: Any = njit(cache=True, nogil=True, parallel=True)(_forget_py) if njit is not None else None
 grow_block: Any = (
     njit(cache=True, nogil=True, parallel=True)(_grow_block_py) if njit is not None else None

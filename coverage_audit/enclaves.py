@@ -25,7 +25,7 @@ import numpy as np
 import scipy.sparse as sp
 from scipy.sparse.csgraph import connected_components
 
-from ._growth import forget, grow_block
+from ._growth import forget, grow_block, set_sums
 from ._util import clean_number, safe_ratio, to_jsonable
 from .enclave_budget import _SHARE_ATOL, _boundary_budget, _Lengths, _masked_components
 
@@ -509,11 +509,12 @@ def _contrast_tests(
     minority = data.minority[active]
     p_values: list[float | None] = []
     null_means: list[float | None] = []
+    scratch: dict[str, Any] = {}  # tables and buffers shared by the enclaves' draws
     for k in range(k_enclaves):
         idx = members.indices[members.indptr[k] : members.indptr[k + 1]]
         share = float(data.minority[idx].sum()) / float(data.population[idx].sum())
         pool = np.flatnonzero(comp_size >= idx.size)
-        sets = grow_connected_sets(neighbours, pool, idx.size, mc_draws, rng)
+        sets = grow_connected_sets(neighbours, pool, idx.size, mc_draws, rng, scratch=scratch)
         draw_pop, draw_minority = _set_sums(sets, pop, minority)
         with np.errstate(divide="ignore", invalid="ignore"):
             draw_share = draw_minority / draw_pop
@@ -529,6 +530,8 @@ def _set_sums(
     sets: np.ndarray, pop: np.ndarray, minority: np.ndarray
 ) -> tuple[np.ndarray, np.ndarray]:
     """Return the population and minority count of each drawn set, summed in blocks."""
+    if set_sums is not None:
+        return set_sums(np.ascontiguousarray(sets), pop, minority)
     rows = max(1, (1 << 22) // max(sets.shape[1], 1))
     draw_pop = np.empty(sets.shape[0])
     draw_minority = np.empty(sets.shape[0])
@@ -556,6 +559,8 @@ def grow_connected_sets(
     size: int,
     draws: int,
     rng: np.random.Generator,
+    *,
+    scratch: dict[str, Any] | None = None,
 ) -> np.ndarray:
     """Grow ``draws`` random connected sets of ``size`` areas by random frontier growth.
 
@@ -572,6 +577,9 @@ def grow_connected_sets(
         Number of sets.
     rng : numpy.random.Generator
         Source of the seeds and of the frontier picks.
+    scratch : dict, optional
+        Kept between calls over the same ``neighbours`` (the compiled path's neighbour
+        lists and its "already reached" table, left clean after each call).
 
     Returns
     -------
@@ -587,19 +595,35 @@ def grow_connected_sets(
     n, width = neighbours.shape
     if pool.size == 0:
         raise AnalysisError(f"no component of the region has {size} areas to draw sets from")
+    stride = n + 1
+    chunk = int(max(1, min(draws, _SEEN_BUDGET // stride)))
+    if grow_block is not None:
+        kept = {} if scratch is None else scratch
+        if kept.get("neighbours") is not neighbours or kept["seen"].shape != (chunk, stride):
+            # The padded table as CSR, rows in the same order (no padding to step over).
+            valid = neighbours >= 0
+            indptr = np.zeros(n + 1, dtype=np.int64)
+            np.cumsum(valid.sum(axis=1), out=indptr[1:])
+            seen = np.zeros((chunk, stride), dtype=bool)
+            seen[:, n] = True
+            kept.update(
+                neighbours=neighbours,
+                indptr=indptr,
+                indices=np.ascontiguousarray(neighbours[valid], dtype=np.int32),
+                seen=seen,
+            )
+        return _grow_compiled(
+            kept["indptr"], kept["indices"], width, pool, size, draws, rng, kept["seen"], chunk
+        )
     # Members are stored step-major so each step writes one contiguous row; int32 halves
     # the memory traffic of the gathers, which is what bounds this loop.
     members_all = np.empty((size, draws), dtype=np.int32)
     # Padding points at a sentinel column n that is always marked reached, so no mask is
     # needed when reading a row of neighbours.
     table = np.where(neighbours >= 0, neighbours, n).astype(np.int32)
-    stride = n + 1
-    chunk = int(max(1, min(draws, _SEEN_BUDGET // stride)))
     seen = np.zeros((chunk, stride), dtype=bool)
     seen[:, n] = True
     seen_flat = seen.reshape(-1)
-    if grow_block is not None:
-        return _grow_compiled(table, pool, size, draws, rng, seen, chunk)
     for start in range(0, draws, chunk):
         m = min(chunk, draws - start)
         rows = np.arange(m, dtype=np.int64)
@@ -642,7 +666,9 @@ _STEP_BLOCK = 256
 
 
 def _grow_compiled(
-    table: np.ndarray,
+    indptr: np.ndarray,
+    indices: np.ndarray,
+    width: int,
     pool: np.ndarray,
     size: int,
     draws: int,
@@ -656,12 +682,7 @@ def _grow_compiled(
     draw and step; ``rng.random((steps, m))`` yields the same numbers as ``steps`` calls
     of ``rng.random(m)``, so drawing a block of steps at once keeps the stream.
     """
-    n, width = table.shape[0], table.shape[1]
-    # The padded table as CSR, rows in the same order (no padding to step over).
-    valid = table < n
-    indptr = np.zeros(n + 1, dtype=np.int64)
-    np.cumsum(valid.sum(axis=1), out=indptr[1:])
-    indices = np.ascontiguousarray(table[valid])
+    n = indptr.size - 1
     members_all = np.empty((draws, size), dtype=np.int32)
     for start in range(0, draws, chunk):
         m = min(chunk, draws - start)
