@@ -30,9 +30,8 @@ from typing import Any
 import numpy as np
 
 njit: Any
-prange: Any = range
 try:  # numba is a declared dependency; the overlay path remains when it cannot load.
-    from numba import njit, prange
+    from numba import njit
 except ImportError:  # pragma: no cover - exercised only without numba
     njit = None
 
@@ -323,7 +322,7 @@ def _covered_areas(
     v = circles.shape[1]
     covered = np.zeros(n)
     status = np.zeros(n, dtype=np.int8)
-    for t in prange(n):
+    for t in range(n):
         a = areas[t]
         r0, r1 = area_ring_ptr[a], area_ring_ptr[a + 1]
         p0, p1 = ring_ptr[r0], ring_ptr[r1]
@@ -394,6 +393,6 @@ if njit is not None:
     _walk = njit(cache=True, nogil=True)(_walk)
     _clip_radial = njit(cache=True, nogil=True)(_clip_radial)
     _union_area = njit(cache=True, nogil=True)(_union_area)
-    covered_areas: Any = njit(cache=True, nogil=True, parallel=True)(_covered_areas)
+    covered_areas: Any = njit(cache=True, nogil=True)(_covered_areas)
 else:  # pragma: no cover - exercised only without numba
     covered_areas = None

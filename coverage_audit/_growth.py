@@ -14,9 +14,8 @@ from typing import Any
 import numpy as np
 
 njit: Any
-prange: Any = range
 try:  # numba is a declared dependency; the array path remains when it cannot load.
-    from numba import njit, prange
+    from numba import njit
 except ImportError:  # pragma: no cover - exercised only without numba
     njit = None
 
@@ -41,9 +40,9 @@ def _grow_block_py(
     ``members`` draws x size (written from column ``first_step``), ``uniforms`` draws x
     steps in [0, 1) (each draw's numbers contiguous).
     """
-    # Draws are independent (each has its own rows and pre-drawn numbers): run them in
-    # parallel; the sets do not depend on the number of threads.
-    for r in prange(seen.shape[0]):
+    # Draws are independent (each has its own rows and pre-drawn numbers), so callers may
+    # run blocks of draws on several threads (nogil); the sets do not depend on it.
+    for r in range(seen.shape[0]):
         last = added[r]
         count = fill[r]
         for s in range(uniforms.shape[1]):
@@ -95,6 +94,4 @@ def _set_sums_py(
 
 set_sums: Any = njit(cache=True, nogil=True)(_set_sums_py) if njit is not None else None
 forget: Any = njit(cache=True, nogil=True, parallel=True)(_forget_py) if njit is not None else None
-grow_block: Any = (
-    njit(cache=True, nogil=True, parallel=True)(_grow_block_py) if njit is not None else None
-)
+grow_block: Any = njit(cache=True, nogil=True)(_grow_block_py) if njit is not None else None

@@ -17,7 +17,9 @@ inputs in :mod:`~coverage_audit.enclave_checks` and the footprint holes in
 
 from __future__ import annotations
 
+import os
 from collections.abc import Mapping, Sequence
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, replace
 from typing import Any
 
@@ -680,8 +682,56 @@ def _grow_compiled(
 
     The array path draws, per chunk of draws, the seeds and then one uniform number per
     draw and step; ``rng.random((steps, m))`` yields the same numbers as ``steps`` calls
-    of ``rng.random(m)``, so drawing a block of steps at once keeps the stream.
+    of ``rng.random(m)``, so drawing a block of steps at once keeps the stream. The draws
+    of a block run on all cores (the compiled step releases the GIL; each thread has its
+    own rows), which changes no set.
     """
+    workers = min(os.cpu_count() or 1, max(1, draws // 64))
+    pool_threads = ThreadPoolExecutor(max_workers=workers) if workers > 1 else None
+    try:
+        return _grow_blocks(
+            indptr, indices, width, pool, size, draws, rng, seen, chunk, pool_threads
+        )
+    finally:
+        if pool_threads is not None:
+            pool_threads.shutdown()
+
+
+def _grow_threads(
+    threads: ThreadPoolExecutor | None,
+    graph: tuple[np.ndarray, np.ndarray],
+    rows: tuple[np.ndarray, ...],
+    step: int,
+) -> None:
+    """Run :func:`grow_block` on the draws (rows of every array), split across threads."""
+    m = rows[0].shape[0]
+    if threads is None:
+        grow_block(*graph, *rows, step)
+        return
+    parts = threads._max_workers  # the pool's own size
+    cuts = np.linspace(0, m, parts + 1).astype(int)
+    jobs = [
+        threads.submit(grow_block, *graph, *[r[lo:hi] for r in rows], step)  # type: ignore[arg-type,call-arg]
+        for lo, hi in zip(cuts[:-1], cuts[1:], strict=True)
+        if hi > lo
+    ]
+    for job in jobs:
+        job.result()
+
+
+def _grow_blocks(
+    indptr: np.ndarray,
+    indices: np.ndarray,
+    width: int,
+    pool: np.ndarray,
+    size: int,
+    draws: int,
+    rng: np.random.Generator,
+    seen: np.ndarray,
+    chunk: int,
+    pool_threads: ThreadPoolExecutor | None,
+) -> np.ndarray:
+    """Grow the sets chunk by chunk of draws, block by block of steps (see the caller)."""
     n = indptr.size - 1
     members_all = np.empty((draws, size), dtype=np.int32)
     for start in range(0, draws, chunk):
@@ -706,7 +756,12 @@ def _grow_compiled(
                 grown = np.empty((m, capacity), dtype=np.int32)
                 grown[:, : frontier.shape[1]] = frontier
                 frontier = grown
-            grow_block(indptr, indices, block_seen, frontier, fill, added, members, uniforms, step)
+            _grow_threads(
+                pool_threads,
+                (indptr, indices),
+                (block_seen, frontier, fill, added, members, uniforms),
+                step,
+            )
             step += steps
         # Reset only what this chunk touched: the members and the live frontier entries.
         forget(block_seen, members, frontier, fill)

@@ -17,7 +17,9 @@ union of its circles; without numba every step takes the overlay path.
 
 from __future__ import annotations
 
+import os
 from collections.abc import Sequence
+from concurrent.futures import ThreadPoolExecutor
 from typing import Any
 
 import numpy as np
@@ -174,17 +176,11 @@ def ring_fractions(geoms: np.ndarray, rings: Sequence[np.ndarray]) -> list[np.nd
         areas, first = np.unique(area_idx, return_index=True)
         cand_ptr = np.append(first, area_idx.size).astype(np.int64)
         circles, disks, angles = _disks(ring)
-        covered, status = _clip.covered_areas(
-            xy,
-            ring_ptr,
-            ring_sign,
-            area_ring_ptr,
+        covered, status = _kernel_on_threads(
+            (xy, ring_ptr, ring_sign, area_ring_ptr),
             table_of[areas],
             cand_ptr,
-            circle_idx.astype(np.int64),
-            circles,
-            disks,
-            angles,
+            (circle_idx.astype(np.int64), circles, disks, angles),
             size[areas],
         )
         left = np.flatnonzero(status != _clip.DONE)
@@ -199,6 +195,40 @@ def ring_fractions(geoms: np.ndarray, rings: Sequence[np.ndarray]) -> list[np.nd
         fraction[areas] = covered / size[areas]
         out.append(np.clip(fraction, 0.0, 1.0))
     return out
+
+
+#: Areas per task when the kernel runs on several threads (it releases the GIL).
+_TASK_AREAS = 4_096
+
+
+def _kernel_on_threads(
+    rings: tuple[np.ndarray, ...],
+    areas: np.ndarray,
+    cand_ptr: np.ndarray,
+    circles: tuple[np.ndarray, ...],
+    size: np.ndarray,
+) -> tuple[np.ndarray, np.ndarray]:
+    """:func:`coverage_audit._clip.covered_areas` over blocks of areas, on all cores."""
+    n = areas.size
+    covered = np.zeros(n)
+    status = np.zeros(n, dtype=np.int8)
+    cuts = list(range(0, n, _TASK_AREAS)) + [n]
+
+    def work(k: int) -> None:
+        lo, hi = cuts[k], cuts[k + 1]
+        # cand_ptr holds absolute positions into the candidate list: a slice serves as is.
+        covered[lo:hi], status[lo:hi] = _clip.covered_areas(
+            *rings, areas[lo:hi], cand_ptr[lo : hi + 1], *circles, size[lo:hi]
+        )
+
+    workers = min(os.cpu_count() or 1, len(cuts) - 1)
+    if workers <= 1:
+        for k in range(len(cuts) - 1):
+            work(k)
+    else:
+        with ThreadPoolExecutor(max_workers=workers) as pool:
+            list(pool.map(work, range(len(cuts) - 1)))
+    return covered, status
 
 
 def _overlay_fractions(geoms: np.ndarray, ring: np.ndarray) -> np.ndarray:

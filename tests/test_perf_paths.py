@@ -94,3 +94,30 @@ def test_threaded_projection_equals_to_crs(loose, monkeypatch):
     assert shapely.equals_exact(
         project_geometries(geoms[:3], FICTIONAL_CRS, target), expected[:3], tolerance=0
     ).all()
+
+
+def test_growth_on_threads_matches_the_array_path(monkeypatch):
+    # Consistency check (the tool against itself): draws split across threads take the
+    # same numbers from the generator as the array path, so the sets are identical.
+    import coverage_audit.enclaves as enclaves_module
+
+    if enclaves_module.grow_block is None:
+        pytest.skip("numba not available")
+    cells = tessellation(400, seed=SEED)
+    from coverage_audit.weights import build_area_graph
+
+    graph = build_area_graph(np.asarray(cells.geometry.array), cells["geoid"].tolist())
+    table = enclaves_module._neighbour_table(graph.adjacency)
+    pool = np.arange(table.shape[0])
+    monkeypatch.setattr(enclaves_module.os, "cpu_count", lambda: 3)
+    scratch: dict = {}
+    for size, draws in [(40, 300), (300, 130)]:
+        threaded = enclaves_module.grow_connected_sets(
+            table, pool, size, draws, np.random.default_rng(SEED), scratch=scratch
+        )
+        with monkeypatch.context() as patch:
+            patch.setattr(enclaves_module, "grow_block", None)
+            arrays = enclaves_module.grow_connected_sets(
+                table, pool, size, draws, np.random.default_rng(SEED)
+            )
+        np.testing.assert_array_equal(threaded, arrays)
