@@ -21,8 +21,7 @@ except ImportError:  # pragma: no cover - exercised only without numba
 
 
 def _grow_block_py(
-    indptr: np.ndarray,
-    indices: np.ndarray,
+    table: np.ndarray,
     seen: np.ndarray,
     frontier: np.ndarray,
     fill: np.ndarray,
@@ -33,8 +32,8 @@ def _grow_block_py(
 ) -> None:  # pragma: no cover - compiled by numba; body mirrors the array path
     """Advance every draw by ``uniforms.shape[1]`` steps (see module docstring).
 
-    ``indptr``, ``indices`` are the neighbour lists (CSR, each row in the order of the
-    array path's padded table), ``seen`` is draws x (n + 1) with the sentinel column set, ``frontier`` draws x
+    ``table`` is the padded neighbour table (padding points at the sentinel column n),
+    ``seen`` is draws x (n + 1) with the sentinel column set, ``frontier`` draws x
     capacity (capacity at least ``max(fill) + steps * width``), ``fill`` the live
     frontier length of each draw, ``added`` the last area added to each draw,
     ``members`` draws x size (written from column ``first_step``), ``uniforms`` draws x
@@ -42,13 +41,14 @@ def _grow_block_py(
     """
     # Draws are independent (each has its own rows and pre-drawn numbers), so callers may
     # run blocks of draws on several threads (nogil); the sets do not depend on it.
+    width = table.shape[1]
     for r in range(seen.shape[0]):
         last = added[r]
         count = fill[r]
         for s in range(uniforms.shape[1]):
             # Append the neighbours of the last area added that no earlier step reached.
-            for j in range(indptr[last], indptr[last + 1]):
-                v = indices[j]
+            for j in range(width):
+                v = table[last, j]
                 if not seen[r, v]:
                     seen[r, v] = True
                     frontier[r, count] = v
@@ -93,5 +93,5 @@ def _set_sums_py(
 
 
 set_sums: Any = njit(cache=True, nogil=True)(_set_sums_py) if njit is not None else None
-forget: Any = njit(cache=True, nogil=True, parallel=True)(_forget_py) if njit is not None else None
+forget: Any = njit(cache=True, nogil=True)(_forget_py) if njit is not None else None
 grow_block: Any = njit(cache=True, nogil=True)(_grow_block_py) if njit is not None else None

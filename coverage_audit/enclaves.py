@@ -602,21 +602,12 @@ def grow_connected_sets(
     if grow_block is not None:
         kept = {} if scratch is None else scratch
         if kept.get("neighbours") is not neighbours or kept["seen"].shape != (chunk, stride):
-            # The padded table as CSR, rows in the same order (no padding to step over).
-            valid = neighbours >= 0
-            indptr = np.zeros(n + 1, dtype=np.int64)
-            np.cumsum(valid.sum(axis=1), out=indptr[1:])
             seen = np.zeros((chunk, stride), dtype=bool)
             seen[:, n] = True
-            kept.update(
-                neighbours=neighbours,
-                indptr=indptr,
-                indices=np.ascontiguousarray(neighbours[valid], dtype=np.int32),
-                seen=seen,
-            )
-        return _grow_compiled(
-            kept["indptr"], kept["indices"], width, pool, size, draws, rng, kept["seen"], chunk
-        )
+            # Padding points at the sentinel column n, always marked reached.
+            padded = np.where(neighbours >= 0, neighbours, n).astype(np.int32)
+            kept.update(neighbours=neighbours, table=padded, seen=seen)
+        return _grow_compiled(kept["table"], pool, size, draws, rng, kept["seen"], chunk)
     # Members are stored step-major so each step writes one contiguous row; int32 halves
     # the memory traffic of the gathers, which is what bounds this loop.
     members_all = np.empty((size, draws), dtype=np.int32)
@@ -664,13 +655,13 @@ def grow_connected_sets(
 
 
 #: Steps whose uniform numbers the compiled path draws at once (one block of draws x steps).
-_STEP_BLOCK = 256
+_STEP_BLOCK = 1024
+#: Steps (set size x draws) from which the draws of a block run on several threads.
+_THREADED_STEPS = 2_000_000
 
 
 def _grow_compiled(
-    indptr: np.ndarray,
-    indices: np.ndarray,
-    width: int,
+    table: np.ndarray,
     pool: np.ndarray,
     size: int,
     draws: int,
@@ -686,12 +677,13 @@ def _grow_compiled(
     of a block run on all cores (the compiled step releases the GIL; each thread has its
     own rows), which changes no set.
     """
-    workers = min(os.cpu_count() or 1, max(1, draws // 64))
+    # Threads only where the work outweighs their cost (and each gets enough draws).
+    workers = (
+        min(os.cpu_count() or 1, max(1, draws // 64)) if size * draws >= _THREADED_STEPS else 1
+    )
     pool_threads = ThreadPoolExecutor(max_workers=workers) if workers > 1 else None
     try:
-        return _grow_blocks(
-            indptr, indices, width, pool, size, draws, rng, seen, chunk, pool_threads
-        )
+        return _grow_blocks(table, pool, size, draws, rng, seen, chunk, pool_threads)
     finally:
         if pool_threads is not None:
             pool_threads.shutdown()
@@ -699,7 +691,7 @@ def _grow_compiled(
 
 def _grow_threads(
     threads: ThreadPoolExecutor | None,
-    graph: tuple[np.ndarray, np.ndarray],
+    graph: tuple[np.ndarray, ...],
     rows: tuple[np.ndarray, ...],
     step: int,
 ) -> None:
@@ -720,9 +712,7 @@ def _grow_threads(
 
 
 def _grow_blocks(
-    indptr: np.ndarray,
-    indices: np.ndarray,
-    width: int,
+    table: np.ndarray,
     pool: np.ndarray,
     size: int,
     draws: int,
@@ -732,7 +722,7 @@ def _grow_blocks(
     pool_threads: ThreadPoolExecutor | None,
 ) -> np.ndarray:
     """Grow the sets chunk by chunk of draws, block by block of steps (see the caller)."""
-    n = indptr.size - 1
+    n, width = table.shape
     members_all = np.empty((draws, size), dtype=np.int32)
     for start in range(0, draws, chunk):
         m = min(chunk, draws - start)
@@ -758,7 +748,7 @@ def _grow_blocks(
                 frontier = grown
             _grow_threads(
                 pool_threads,
-                (indptr, indices),
+                (table,),
                 (block_seen, frontier, fill, added, members, uniforms),
                 step,
             )
