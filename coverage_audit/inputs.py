@@ -41,10 +41,11 @@ from .io.boundaries import describe_layout, detect_id_column, strip_prefix, wate
 from .io.census import annotation_reasons
 from .io.checks import (
     check_sums,
-    finite_coordinates,
+    finite_coordinates_with,
     hint_float_ids,
     read_hashed_later,
 )
+from .io.checks import finite_coordinates as finite_coordinates  # re-exported
 from .io.checks import read_hashed as read_hashed  # re-exported
 from .io.checks import sha256_file as sha256_file  # re-exported: readers import it from here
 from .io.joins import MatchReport
@@ -428,7 +429,8 @@ def load_areas(
     )
     missing_geom = shapely.is_missing(geoms) | shapely.is_empty(geoms)
     drop(missing_geom, "null or empty geometry")
-    drop(~finite_coordinates(geoms), "a coordinate is not a finite number (NaN or infinite)")
+    finite, all_xy, xy_owner = finite_coordinates_with(geoms)
+    drop(~finite, "a coordinate is not a finite number (NaN or infinite)")
     type_ids = shapely.get_type_id(geoms)
     wrong_type = ~np.isin(type_ids, (3, 6, 7)) & ~missing_geom
     drop(
@@ -559,6 +561,11 @@ def load_areas(
     )
 
     kept = geoms[sel]
+    # The coordinates read for the finite check serve the projection when no kept
+    # geometry was changed since (no repair, no collection, no antimeridian rejoin).
+    changed = keep & (repaired_mask | (type_ids == 7))
+    kept_xy = None if source_crs.is_geographic or changed.any() else all_xy[keep[xy_owner]]
+    del all_xy, xy_owner
     if source_crs.is_geographic:
         # Halves cut at the antimeridian become one area before projection (RFC 7946).
         kept, _ = unwrap_longitudes(kept)
@@ -579,7 +586,7 @@ def load_areas(
     analysed = gpd.GeoDataFrame(
         analysed.drop(columns=analysed.geometry.name),
         geometry=project_geometries(
-            np.asarray(analysed.geometry.array, dtype=object), analysed.crs, crs
+            np.asarray(analysed.geometry.array, dtype=object), analysed.crs, crs, kept_xy
         ),
         crs=crs,
     )

@@ -228,17 +228,21 @@ def repair(geoms: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
 _PROJECT_CHUNK = 200_000
 
 
-def project_geometries(geoms: np.ndarray, source: Any, target: Any) -> np.ndarray:
+def project_geometries(
+    geoms: np.ndarray, source: Any, target: Any, coords: np.ndarray | None = None
+) -> np.ndarray:
     """Return ``geoms`` transformed from CRS ``source`` to ``target`` (a new array).
 
     The same numbers as ``GeoSeries.to_crs`` (the same PROJ transformation, point by
     point), with the coordinates split across threads; geometries with z coordinates
-    take geopandas' path.
+    take geopandas' path. ``coords``, when given, must be
+    ``shapely.get_coordinates(geoms)`` (read earlier by the caller).
     """
     geoms = np.asarray(geoms, dtype=object)
     if geoms.size == 0 or shapely.has_z(geoms).any():
         return np.asarray(gpd.GeoSeries(geoms, crs=source).to_crs(target).array, dtype=object)
-    coords = shapely.get_coordinates(geoms)
+    if coords is None:
+        coords = shapely.get_coordinates(geoms)
     n = len(coords)
     workers = max(1, min(os.cpu_count() or 1, n // _PROJECT_CHUNK))
     bounds = np.linspace(0, n, workers + 1).astype(int)

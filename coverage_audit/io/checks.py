@@ -167,13 +167,22 @@ def finite_coordinates(geoms: np.ndarray) -> np.ndarray:
     ``make_valid`` and the overlay fail on NaN or infinite coordinates, so such rows are
     left out (and listed) before any repair.
     """
+    return finite_coordinates_with(geoms)[0]
+
+
+def finite_coordinates_with(geoms: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """:func:`finite_coordinates`, with the coordinates read and the geometry of each.
+
+    Returns the mask, the (x, y) coordinates of every geometry in order and each
+    coordinate's geometry position, so that a caller can reuse them (the projection).
+    """
     geoms = np.asarray(geoms, dtype=object)
     ok = np.ones(geoms.size, dtype=bool)
     coords, index = shapely.get_coordinates(geoms, include_z=False, return_index=True)
     if coords.size:
         bad = ~np.isfinite(coords).all(axis=1)
         ok[np.unique(index[bad])] = False
-    return ok
+    return ok, coords, index
 
 
 def check_sums(frame: pd.DataFrame, sources: Mapping[str, str], where: str) -> None:
