@@ -4,14 +4,14 @@ Takes the audited areas (with coverage and statistics), the spec and the footpri
 gives the summary sections ``explain``, ``sensitivity``, ``comparison``, ``change`` and
 ``peers``. Each section calls the pure functions of :mod:`coverage_audit.explain` and
 :mod:`coverage_audit.compare`; this module only prepares their inputs (derived control
-variables, other footprints' coverage, the activity table) and records why a section
-could not be computed instead of failing the whole audit.
+variables, other footprints' coverage) and records why a section could not be computed
+instead of failing the whole audit. It reads no file: the other footprints and the
+activity table come read by the input stage (:mod:`coverage_audit.io.further`).
 """
 
 from __future__ import annotations
 
 import warnings
-from dataclasses import dataclass, field
 from typing import Any
 
 import geopandas as gpd
@@ -25,9 +25,9 @@ from .coverage import coverage_by_group, covered_fraction, footprint_fractions
 from .enclaves import count_enclaves
 from .errors import AnalysisError, DegenerateStatisticWarning, InputError
 from .explain import discover_rules, exclusion_models, sensitivity_thresholds
-from .footprint import Footprint, build_footprint, cut_pieces, geodesic_circles
-from .inputs import AreaInputs, Exclusions, InputRecord, ids_as_text, read_hashed, read_table
-from .io.joins import MatchReport, match_ids
+from .footprint import Footprint, cut_pieces, geodesic_circles
+from .inputs import AreaInputs, InputRecord
+from .io.joins import MatchReport
 from .options import enclave_options
 from .spec import AuditSpec
 from .weights import AreaGraph
@@ -186,49 +186,6 @@ def sensitivity_section(
     return out
 
 
-@dataclass(frozen=True)
-class FurtherInputs:
-    """What the further analyses read, read in the input stage with the areas.
-
-    Attributes
-    ----------
-    footprints : tuple of Footprint
-        Every footprint of the spec after the first, built over the analysed areas.
-    activity : tuple or None
-        The ``[activity]`` table, its input record and its match to the areas.
-    exclusions : Exclusions
-        Rows of these inputs left out (the audit adds them to its exclusions).
-    records : tuple of InputRecord
-        These inputs' files, for the manifest.
-    """
-
-    footprints: tuple[Footprint, ...] = ()
-    activity: tuple[pd.DataFrame, InputRecord, MatchReport] | None = None
-    exclusions: Exclusions = field(default_factory=Exclusions)
-    records: tuple[InputRecord, ...] = ()
-
-
-def read_further_inputs(spec: AuditSpec, inputs: AreaInputs) -> FurtherInputs:
-    """Build the other footprints and read the activity table, before any statistic."""
-    exclusions = Exclusions()
-    built = tuple(
-        build_footprint(
-            fp_spec,
-            inputs,
-            exclusions,
-            circle_vertices=spec.analysis.circle_vertices,
-            id_width=spec.areas.id_width,
-        )
-        for fp_spec in spec.footprints[1:]
-    )
-    records = [r for f in built for r in f.records]
-    activity = None
-    if spec.activity is not None:
-        activity = read_activity(spec, inputs.frame[inputs.id_column].tolist())
-        records.append(activity[1])
-    return FurtherInputs(built, activity, exclusions, tuple(records))
-
-
 def other_footprints(
     spec: AuditSpec,
     inputs: AreaInputs,
@@ -332,39 +289,6 @@ def site_changes(change: Any, footprints: list[Footprint]) -> dict[str, Any]:
             for name, lon, lat in rows
         ]
     return out
-
-
-def read_activity(
-    spec: AuditSpec, area_ids: list[str]
-) -> tuple[pd.DataFrame, InputRecord, MatchReport]:
-    """Read the ``[activity]`` table with text ids and report its match to the areas.
-
-    Raises
-    ------
-    InputError
-        When the id column is missing or too few rows match the areas.
-    """
-    activity = spec.activity
-    assert activity is not None
-    table, digest = read_hashed(
-        activity.path,
-        lambda: read_table(activity.path, id_column=activity.id, role="activity table"),
-        role="activity table",
-    )
-    record = InputRecord("activity", str(activity.path), digest, len(table))
-    if activity.id not in table.columns:
-        raise InputError(
-            f"activity table '{activity.path}' has no id column {activity.id!r}; its columns are "
-            f"{list(table.columns)}"
-        )
-    table = table.copy()
-    table[activity.id] = ids_as_text(
-        table[activity.id],
-        width=activity.id_width or spec.areas.id_width,
-        where=f"activity table '{activity.path}'",
-    )
-    match = match_ids("activity table", str(activity.path), list(table[activity.id]), area_ids)
-    return table, record, match
 
 
 def peers_section(

@@ -1075,7 +1075,7 @@ def branches(tmp_path_factory: pytest.TempPathFactory) -> dict:
         "groups": result.groups,
         "reference": result.spec.population.reference,
         "footprint": result.footprint_for_display(),
-        **result.extras.get("moran", {}),
+        "moran_lag": result.findings.moran_lag,
     }
     build_report(result.summary, result.manifest, result.areas, path=out, **options)
     return {"result": result, "path": out, "html": out.read_text("utf-8"), "options": options}

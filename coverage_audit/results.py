@@ -1,0 +1,337 @@
+"""The findings of an audit as one frozen tree: each stage's result object, typed.
+
+Every stage returns a frozen result (:class:`~coverage_audit.coverage.CoverageResult`,
+:class:`~coverage_audit.segregation.SegregationResult`, ...); :class:`AuditFindings` holds
+them side by side, section by section, and :meth:`AuditFindings.to_dict` is exactly what
+summary.json holds (``tests/test_summary_stable.py`` compares it byte for byte for every
+demo scenario). Sections that have no result type yet (the further analyses, the lending
+review, the input tables) are held as the plain data their stage returned.
+
+The tree also carries what the pages draw that summary.json does not hold: the Moran
+scatterplot's spatial lag (:attr:`AuditFindings.moran_lag`), written to moran_lag.csv.
+"""
+
+from __future__ import annotations
+
+import copy
+import dataclasses
+from collections.abc import Mapping
+from dataclasses import dataclass, field, replace
+from pathlib import Path
+from typing import TYPE_CHECKING, Any, Protocol
+
+import geopandas as gpd
+import numpy as np
+import pandas as pd
+
+from ._util import relative_paths
+from .errors import InputError
+from .manifest import to_plain
+from .outputs import OutputClaim, claim_output_dir, folder_problem, write_all, write_json
+from .progress import SilentProgress
+
+if TYPE_CHECKING:
+    from .clustering import ClusteringResult
+    from .coverage import CoverageResult
+    from .enclaves import EnclaveResult
+    from .footprint import Footprint
+    from .inputs import AreaInputs
+    from .margins import SurveyFigures
+    from .report.folder import Display
+    from .segregation import SegregationResult
+    from .spec import AuditSpec
+    from .stats.assessment_area import AssessmentAreaReview
+    from .study_area import StudyArea
+    from .weights import AreaGraph
+
+#: Version of summary.json's layout.
+SCHEMA_VERSION = 1
+
+
+class Section(Protocol):
+    """A stage's result: anything with a ``to_dict()`` giving its summary section."""
+
+    def to_dict(self) -> Any:
+        """Return the section as plain data."""
+
+
+@dataclass(frozen=True)
+class SkippedClustering:
+    """Clustering statistics not computed, and why (degenerate data)."""
+
+    weights: AreaGraph
+    reason: str
+
+    def to_dict(self) -> dict[str, Any]:
+        """Return the ``clustering`` section: the weights described and the reason."""
+        return {"weights": self.weights.to_dict(), "skipped": self.reason}
+
+
+@dataclass(frozen=True)
+class SpatialFindings:
+    """The statistics stage's typed results: segregation, contiguity, clustering, enclaves.
+
+    Attributes
+    ----------
+    segregation : SegregationResult
+    weights : AreaGraph
+        The contiguity of the analysed areas (its description is ``weights``).
+    clustering : ClusteringResult or SkippedClustering
+    enclaves : EnclaveResult
+        Enclaves, footprint holes and the enclave settings.
+    further : mapping
+        The further analyses' sections keyed as in summary.json, in order (comparison,
+        footprints_compared, change, peers, lending, explain, sensitivity, access).
+    """
+
+    segregation: SegregationResult
+    weights: AreaGraph
+    clustering: ClusteringResult | SkippedClustering
+    enclaves: EnclaveResult
+    further: Mapping[str, Any] = field(default_factory=dict)
+
+    def sections(self) -> dict[str, Any]:
+        """Return the stage's summary sections, keyed and ordered as in summary.json."""
+        enclave = self.enclaves.to_dict()
+        return {
+            "segregation": self.segregation.to_dict(),
+            "weights": self.weights.to_dict(),
+            "clustering": self.clustering.to_dict(),
+            "enclaves": enclave["enclaves"],
+            "holes": enclave["holes"],
+            "enclave_settings": {
+                **enclave["settings"],
+                "unserved_components": enclave["unserved_components"],
+            },
+            **self.further,
+        }
+
+
+@dataclass(frozen=True, eq=False)
+class AuditFindings:
+    """Everything an audit found, one typed section per stage.
+
+    Attributes
+    ----------
+    title : str
+    population_notice : str or None
+        The areas without people, said once (``population_notice``).
+    footprint : Footprint
+    areas : mapping
+        Areas read, analysed and left out (``areas``).
+    coverage : CoverageResult
+    statistics : SpatialFindings
+    study_area : StudyArea or None
+    inputs : mapping or None
+        The demographics tables' matches (``inputs``), when tables were joined.
+    assessment_area : AssessmentAreaReview or None
+        For a footprint of whole areas.
+    survey : SurveyFigures or None
+        The survey-error figures, set into the coverage, segregation, comparison and
+        enclave sections.
+    exclusions : mapping
+        Count and counts by reason of the rows not analysed.
+    cautions : tuple of str
+    group_labels : mapping
+    population_unit : str
+    headline : tuple of mapping
+        The headline findings (``findings``), built from the rest.
+    base_dir : Path or None
+        Input paths in the summary are written relative to this folder (the spec's).
+    moran_lag : numpy.ndarray or None
+        The Moran scatterplot's ``W z`` per area (NaN outside the spatial statistics);
+        not in summary.json, written to moran_lag.csv.
+    """
+
+    title: str
+    population_notice: str | None
+    footprint: Footprint
+    areas: Mapping[str, Any]
+    coverage: CoverageResult
+    statistics: SpatialFindings
+    study_area: StudyArea | None = None
+    inputs: Mapping[str, Any] | None = None
+    assessment_area: AssessmentAreaReview | None = None
+    survey: SurveyFigures | None = None
+    exclusions: Mapping[str, Any] = field(default_factory=dict)
+    cautions: tuple[str, ...] = ()
+    group_labels: Mapping[str, str] = field(default_factory=dict)
+    population_unit: str = "people"
+    headline: tuple[Mapping[str, Any], ...] = ()
+    base_dir: Path | None = None
+    moran_lag: np.ndarray | None = None
+
+    def sections(self) -> dict[str, Any]:
+        """Return the sections as plain data, before the input paths are made relative.
+
+        The data is a fresh copy: changing it changes nothing in the tree.
+        """
+        out: dict[str, Any] = {
+            "schema_version": SCHEMA_VERSION,
+            "title": self.title,
+            "population_notice": self.population_notice,
+            "footprint": self.footprint.to_dict(),
+            "areas": dict(self.areas),
+        }
+        if self.study_area is not None:
+            out["study_area"] = self.study_area.to_dict()
+        if self.inputs is not None:
+            out["inputs"] = dict(self.inputs)
+        out["coverage"] = self.coverage.to_dict()
+        out.update(self.statistics.sections())
+        if self.assessment_area is not None:
+            out["assessment_area"] = self.assessment_area.to_dict()
+        out["exclusions"] = dict(self.exclusions)
+        out["cautions"] = list(self.cautions)
+        out["group_labels"] = self.group_labels
+        out["population_unit"] = self.population_unit
+        out["findings"] = [dict(h) for h in self.headline]
+        # Stages' to_dict may hand out their own mappings; the copy keeps them unchanged.
+        out = copy.deepcopy(out)
+        if self.survey is not None:
+            self.survey.apply(out)
+        return out
+
+    def to_dict(self) -> dict[str, Any]:
+        """Return summary.json's content (input paths relative to :attr:`base_dir`)."""
+        out = self.sections()
+        return out if self.base_dir is None else relative_paths(out, self.base_dir)
+
+    def with_conclusions(
+        self, cautions: tuple[str, ...], headline: tuple[Mapping[str, Any], ...]
+    ) -> AuditFindings:
+        """Return a copy carrying the cautions and the headline findings."""
+        return replace(self, cautions=tuple(cautions), headline=tuple(headline))
+
+
+@dataclass
+class AuditResult:
+    """Everything an audit found.
+
+    Attributes
+    ----------
+    areas : geopandas.GeoDataFrame
+        One row per analysed area (analysis CRS) with the output columns.
+    findings : AuditFindings
+        The typed findings; ``findings.to_dict()`` is exactly what summary.json holds.
+    exclusions : pandas.DataFrame
+        Every input row not analysed: source, row, id, reason.
+    manifest : dict
+        Provenance: versions, resolved spec, input digests, CRS, seed, times.
+    spec : AuditSpec
+    footprint : Footprint
+    id_column : str
+    groups : list of str
+    inputs : AreaInputs or None
+        The input stage's areas and tables, as read.
+    outside_study_area : geopandas.GeoSeries or None
+        The areas left outside a ``[study_area]``, for the map.
+    """
+
+    areas: gpd.GeoDataFrame
+    findings: AuditFindings
+    exclusions: pd.DataFrame
+    manifest: dict[str, Any]
+    spec: AuditSpec
+    footprint: Footprint
+    id_column: str
+    groups: list[str]
+    inputs: AreaInputs | None = None
+    outside_study_area: gpd.GeoSeries | None = None
+    _summary: dict[str, Any] | None = field(default=None, init=False, repr=False)
+
+    @property
+    def summary(self) -> dict[str, Any]:
+        """The findings as plain data: exactly what summary.json holds (built once)."""
+        if self._summary is None:
+            self._summary = self.findings.to_dict()
+        return self._summary
+
+    def write(
+        self,
+        out_dir: str | Path,
+        *,
+        progress: SilentProgress | None = None,
+        claim: OutputClaim | None = None,
+    ) -> dict[str, Path]:
+        """Write the output folder (see DESIGN.md's output contract); return the paths.
+
+        Everything is written into a fresh folder beside ``out_dir`` and swapped in at the
+        end (see :mod:`coverage_audit.outputs`), so the folder never mixes this run's
+        outputs with an earlier run's. ``claim`` is the folder already checked and locked
+        by :func:`~coverage_audit.outputs.claim_output_dir` (the CLI claims it before the
+        analysis); without it the folder is claimed here.
+        """
+        out = Path(out_dir)
+        own = claim is None
+        held = claim_output_dir(out) if claim is None else claim
+        try:
+            staged = self._write_into(held.staging(), out, progress or SilentProgress())
+            held.commit()
+        except OSError as exc:  # disk full, permissions changed meanwhile, ...
+            raise InputError(folder_problem(out, exc) + "; nothing was changed") from None
+        finally:
+            if own:
+                held.release()
+        return {key: out / path.name for key, path in staged.items()}
+
+    def _write_into(self, out: Path, final: Path, progress: SilentProgress) -> dict[str, Path]:
+        # The drawing modules (matplotlib, the map) load only when an audit is written.
+        from .report.folder import render, write_display
+
+        with progress.stage("writing tables"):
+            paths = write_all(
+                out,
+                summary=self.summary,
+                areas=self.areas,
+                exclusions=self.exclusions,
+                id_columns=(self.id_column,),
+            )
+            display = self.display()
+            if self.spec.output.map or self.spec.output.report:  # what the pages draw
+                paths.update(write_display(out, display, self.areas))
+        drawn, extra = render(
+            out,
+            summary=self.summary,
+            manifest=self.manifest,
+            areas=self.areas,
+            exclusions=self.exclusions,
+            display=display,
+            progress=progress,
+            output=dataclasses.asdict(self.spec.output),
+        )
+        paths.update(drawn)
+        outputs = {key: to_plain(value) for key, value in extra.items()}
+        if isinstance(outputs.get("map"), dict) and "path" in outputs["map"]:
+            outputs["map"]["path"] = str(final / "map.html")  # where it ends up
+        # Written last and once, so it can say what the map and report hold.
+        write_json(paths["manifest"], {**self.manifest, "outputs": outputs})
+        return paths
+
+    def display(self) -> Display:
+        """Return what the map and the report draw besides the summary and tables."""
+        from .report.folder import Display
+
+        return Display(
+            id_column=self.id_column,
+            groups=tuple(self.groups),
+            reference=self.spec.population.reference,
+            footprint=self.footprint_for_display(),
+            outside=self.outside_study_area,
+            moran_lag=self.findings.moran_lag,
+        )
+
+    def footprint_for_display(self) -> dict[str, Any]:
+        """Return the footprint as the map and report take it."""
+        fp = self.footprint
+        shown: dict[str, Any] = {
+            "kind": fp.kind,
+            "name": fp.name,
+            "geometry": gpd.GeoSeries([fp.geometry], crs=fp.crs),
+        }
+        if fp.kind == "points" and fp.points is not None:
+            shown["points"] = fp.points
+            shown["radius_m"] = (
+                fp.radius_m if fp.radius_m is not None else float(fp.points["radius_m"].max())
+            )
+        return shown
