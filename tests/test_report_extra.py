@@ -461,7 +461,13 @@ def sensitivity_block(*, radius: bool = True) -> dict:
 
 
 def make_base() -> dict:
-    """A small fictional region and a summary with the contract's coverage keys only."""
+    """A small fictional region and a summary with the contract's coverage keys only.
+
+    The further sections here are hand-built on purpose: their tables are checked against
+    literal numbers and against statsmodels on numbers chosen for the check, and they
+    include sections skipped for each reason and escaped input text, which the demo runs
+    do not produce. The real runs are below (``branches``) and in test_report_real.py.
+    """
     rng = np.random.default_rng(SEED)
     cells = synthetic.tessellation(36, seed=SEED)
     areas = gpd.GeoDataFrame({"geoid": cells["geoid"]}, geometry=cells.geometry, crs=cells.crs)
