@@ -31,6 +31,8 @@ from . import blocks_section, further, uncertainty_section
 from .assessment_section import ANCHOR as ASSESSMENT_ANCHOR
 from .assessment_section import TITLE as ASSESSMENT_TITLE
 from .assessment_section import assessment_area_section
+from .audited_section import audited_section
+from .enclave_sections import contrast_group, enclave_order, enclaves_section
 from .findings_section import findings_section
 from .markup import (
     NA,
@@ -57,12 +59,8 @@ from .sections import (
     MAX_ENCLAVE_FIGURES,
     MAX_LISTED_EXCLUSIONS,
     Page,
-    audited_section,
     clustering_section,
-    contrast_group,
     coverage_section,
-    enclave_order,
-    enclaves_section,
     segregation_section,
 )
 from .text import ASSOCIATION_CAUTION, FOUR_FIFTHS_NOTE, METHODS, STANDARD_CAUTIONS
