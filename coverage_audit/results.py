@@ -292,7 +292,7 @@ class AuditResult:
                 paths.update(write_display(out, display, self.areas))
         drawn, extra = render(
             out,
-            summary=self.summary,
+            summary=self.findings,
             manifest=self.manifest,
             areas=self.areas,
             exclusions=self.exclusions,

@@ -32,7 +32,7 @@ SCENARIOS = ("delivery", "branches", "assessment_area", "outreach", "lending", "
 def _report(result) -> str:
     findings = result.findings
     return render_report(
-        findings.to_dict(),
+        findings,  # the typed tree itself
         result.manifest,
         result.areas,
         exclusions=result.exclusions,
@@ -125,7 +125,7 @@ def test_map_draws_every_area_and_the_enclaves_of_the_findings(demo_audit, tmp_p
         groups=list(result.groups),
         reference=result.spec.population.reference,
         footprint=display.footprint,
-        summary=summary,
+        summary=result.findings,  # the typed tree itself
         title=summary["title"],
         path=tmp_path / "map.html",
         outside=display.outside,

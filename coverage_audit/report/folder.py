@@ -29,6 +29,7 @@ from ..errors import InputError
 from ..outputs import atomic_path, write_csv
 from ..progress import SilentProgress
 from .map import build_map
+from .markup import Findings, summary_data
 from .page import build_report
 
 #: Files the map and the report are drawn from, besides the data outputs.
@@ -109,7 +110,7 @@ def write_display(out: Path, display: Display, areas: gpd.GeoDataFrame) -> dict[
 def render(
     out: Path,
     *,
-    summary: Mapping[str, Any],
+    summary: Mapping[str, Any] | Findings,
     manifest: Mapping[str, Any],
     areas: gpd.GeoDataFrame,
     exclusions: pd.DataFrame,
@@ -119,9 +120,11 @@ def render(
 ) -> tuple[dict[str, Path], dict[str, Any]]:
     """Draw map.html and report.html as ``output`` (the spec's ``[output]``) asks.
 
-    Without ``output``, the manifest's resolved spec says. Returns the paths written and
-    the map's description for the manifest.
+    ``summary`` is the audit's typed findings or summary.json's content as read. Without
+    ``output``, the manifest's resolved spec says. Returns the paths written and the
+    map's description for the manifest.
     """
+    summary = summary_data(summary)
     if output is None:
         output = manifest.get("spec", {}).get("output", {})
     paths: dict[str, Path] = {}

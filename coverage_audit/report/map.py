@@ -31,6 +31,7 @@ from jinja2 import Template
 from .._util import clean_number, to_jsonable
 from ..errors import InputError, SpecError
 from ..geographic import data_centre, unwrap_longitudes
+from ..outputs import write_bytes
 from . import assets
 from .map_context import group_label, outside_overlay, site_change_overlay
 from .map_fields import (
@@ -67,6 +68,7 @@ from .map_style import (
     SHARE_SCALE,
     SHARE_THRESHOLDS,
 )
+from .markup import Findings, summary_data
 from .shapes import empty_shapes as _empty_shapes
 from .shapes import encode_shapes
 from .shapes import has_polygon as _has_polygon
@@ -443,8 +445,6 @@ def _render_page(title: str, bounds: list[list[float]], data_json: str) -> str:
 
 
 def _write_atomic(path: Path, text: str) -> int:
-    from ..outputs import write_bytes
-
     return write_bytes(path, text.encode("utf-8"))
 
 
@@ -458,7 +458,7 @@ def build_map(
     groups: Sequence[str],
     reference: str,
     footprint: Mapping[str, Any] | None = None,
-    summary: Mapping[str, Any] | None = None,
+    summary: Mapping[str, Any] | Findings | None = None,
     title: str,
     path: str | os.PathLike[str],
     tiles: bool = False,
@@ -485,8 +485,8 @@ def build_map(
     footprint : dict, optional
         ``{"kind": "polygons" | "points" | "ids", "name": str, "geometry": GeoSeries}``;
         points also give ``"points"`` (GeoDataFrame) and ``"radius_m"``.
-    summary : dict, optional
-        The audit summary (``summary.json`` content); used for the served threshold, the
+    summary : mapping or AuditFindings, optional
+        The audit's findings (the typed tree, or summary.json's content); used for the served threshold, the
         LISA settings, the area counts and enclave figures. Missing parts are skipped.
     title : str
         Page title.
@@ -530,7 +530,7 @@ def build_map(
             f"simplify_tolerance was {simplify_tolerance!r} but must be >= 0 (CRS units) or "
             "None for automatic"
         )
-    summary = summary or {}
+    summary = {} if summary is None else summary_data(summary)
     if label_column is None and "name" in areas.columns and id_column != "name":
         label_column = "name"
 
