@@ -18,7 +18,7 @@ import dataclasses
 from collections.abc import Mapping
 from dataclasses import dataclass, field, replace
 from pathlib import Path
-from typing import TYPE_CHECKING, Any, Protocol
+from typing import TYPE_CHECKING, Any
 
 import geopandas as gpd
 import numpy as np
@@ -46,13 +46,6 @@ if TYPE_CHECKING:
 
 #: Version of summary.json's layout.
 SCHEMA_VERSION = 1
-
-
-class Section(Protocol):
-    """A stage's result: anything with a ``to_dict()`` giving its summary section."""
-
-    def to_dict(self) -> Any:
-        """Return the section as plain data."""
 
 
 @dataclass(frozen=True)
