@@ -29,6 +29,7 @@ from .footprint import Footprint, cut_pieces, geodesic_circles
 from .inputs import AreaInputs, InputRecord
 from .io.joins import MatchReport
 from .options import enclave_options
+from .results import ExplainFindings, Section, Skipped, WithDetails
 from .spec import AuditSpec
 from .weights import AreaGraph
 
@@ -62,11 +63,12 @@ def add_derived_columns(frame: gpd.GeoDataFrame, spec: AuditSpec, crs: Any) -> g
 
 def explain_section(
     frame: gpd.GeoDataFrame, spec: AuditSpec, id_column: str, graph: AreaGraph
-) -> dict[str, Any]:
+) -> ExplainFindings:
     """Exclusion models and rule discovery, as the ``[explain]`` table asks."""
     explain = spec.explain
     assert explain is not None
-    out: dict[str, Any] = {}
+    models: Section | None = None
+    rules: Section | None = None
     table = pd.DataFrame(frame.drop(columns=frame.geometry.name))
     missing = [c for c in (*explain.controls, *explain.rule_conditions) if c not in table.columns]
     if missing:
@@ -76,32 +78,32 @@ def explain_section(
         )
     if "minority_share" not in table.columns:
         reason = "needs the minority share: set derive_minority = true or name a group minority"
-        return {"models": {"skipped": reason}, "rules": {"skipped": reason}}
+        return ExplainFindings(Skipped(reason), Skipped(reason))
     if explain.models:
         try:
-            out["models"] = exclusion_models(
+            models = exclusion_models(
                 table,
                 controls=explain.controls,
                 id_column=id_column,
                 categorical=explain.categorical,
                 weights=graph,
-            ).to_dict()
+            )
         except AnalysisError as exc:
             warnings.warn(
                 f"exclusion models not estimated: {exc}", DegenerateStatisticWarning, stacklevel=2
             )
-            out["models"] = {"skipped": str(exc)}
+            models = Skipped(str(exc))
     if explain.rules:
         try:
-            out["rules"] = discover_rules(
+            rules = discover_rules(
                 table,
                 conditions=explain.rule_conditions,
                 max_length=explain.rule_max_length,
                 min_support=explain.rule_min_support,
-            ).to_dict()
+            )
         except AnalysisError as exc:
-            out["rules"] = {"skipped": str(exc)}
-    return out
+            rules = Skipped(str(exc))
+    return ExplainFindings(models, rules)
 
 
 def _enclave_counts(
@@ -221,14 +223,14 @@ def other_footprints(
     return results, fractions
 
 
-def comparison_section(primary: dict[str, Any], others: dict[str, Any]) -> dict[str, Any]:
+def comparison_section(primary: dict[str, Any], others: dict[str, Any]) -> Section:
     """Side-by-side coverage of every footprint, ranked."""
-    return compare_footprints({**primary, **others}).to_dict()
+    return compare_footprints({**primary, **others})
 
 
 def change_section(
     spec: AuditSpec, inputs: AreaInputs, frame: gpd.GeoDataFrame, fractions: dict[str, np.ndarray]
-) -> dict[str, Any]:
+) -> Section:
     """Areas that lost or gained service between two footprints, and the rate changes."""
     assert spec.change is not None
     table = pd.DataFrame(frame.drop(columns=frame.geometry.name))
@@ -245,7 +247,7 @@ def change_section(
         groups=inputs.groups,
         reference=inputs.reference,
         threshold=threshold,
-    ).to_dict()
+    )
 
 
 #: Columns that name a service site, in order of preference.
@@ -296,7 +298,7 @@ def peers_section(
     inputs: AreaInputs,
     frame: gpd.GeoDataFrame,
     activity_read: tuple[pd.DataFrame, InputRecord, MatchReport],
-) -> dict[str, Any]:
+) -> WithDetails:
     """Each lender's share of activity in majority-minority areas against its peers."""
     activity = spec.activity
     assert activity is not None
@@ -319,4 +321,4 @@ def peers_section(
         lender_columns=list(activity.lender_columns) if activity.lender_columns else None,
         alpha=activity.alpha,
     )
-    return result.to_dict() | {"match": match.to_dict()}
+    return WithDetails(result, {"match": match.to_dict()})

@@ -18,7 +18,7 @@ import dataclasses
 from collections.abc import Mapping
 from dataclasses import dataclass, field, replace
 from pathlib import Path
-from typing import TYPE_CHECKING, Any
+from typing import TYPE_CHECKING, Any, Protocol
 
 import geopandas as gpd
 import numpy as np
@@ -48,6 +48,71 @@ if TYPE_CHECKING:
 SCHEMA_VERSION = 1
 
 
+class Section(Protocol):
+    """A stage's typed result: its ``to_dict()`` is its section of summary.json."""
+
+    def to_dict(self) -> Any:
+        """Return the section as plain data."""
+        ...
+
+
+def section_data(value: Section | Mapping[str, Any]) -> Any:
+    """Return a section as plain data: a typed result's ``to_dict()``, or the data as is."""
+    return value.to_dict() if hasattr(value, "to_dict") else value
+
+
+@dataclass(frozen=True)
+class Skipped:
+    """A section not computed, and why (``{"skipped": reason}``)."""
+
+    reason: str
+
+    def to_dict(self) -> dict[str, Any]:
+        """Return ``{"skipped": reason}``."""
+        return {"skipped": self.reason}
+
+
+@dataclass(frozen=True, eq=False)
+class WithDetails:
+    """A typed result and a few plain entries written after its own (``result | details``).
+
+    For sections whose statistic has a result type and whose stage adds context to it:
+    the peer comparison and its match to the areas, the change between footprints and the
+    sites closed and opened.
+    """
+
+    result: Section
+    details: Mapping[str, Any] = field(default_factory=dict)
+
+    def to_dict(self) -> dict[str, Any]:
+        """Return the result's section with the details added."""
+        return {**self.result.to_dict(), **self.details}
+
+
+@dataclass(frozen=True, eq=False)
+class ExplainFindings:
+    """The ``explain`` section: the exclusion models and the rules, each result or skipped."""
+
+    models: Section | None = None
+    rules: Section | None = None
+
+    def to_dict(self) -> dict[str, Any]:
+        """Return the section with the parts the spec asked for."""
+        parts = (("models", self.models), ("rules", self.rules))
+        return {key: part.to_dict() for key, part in parts if part is not None}
+
+
+@dataclass(frozen=True, eq=False)
+class FootprintsCompared:
+    """The ``footprints_compared`` section: every footprint of the spec, described."""
+
+    footprints: tuple[Footprint, ...]
+
+    def to_dict(self) -> dict[str, Any]:
+        """Return each footprint's description by name."""
+        return {f.name: f.to_dict() for f in self.footprints}
+
+
 @dataclass(frozen=True)
 class SkippedClustering:
     """Clustering statistics not computed, and why (degenerate data)."""
@@ -74,14 +139,16 @@ class SpatialFindings:
         Enclaves, footprint holes and the enclave settings.
     further : mapping
         The further analyses' sections keyed as in summary.json, in order (comparison,
-        footprints_compared, change, peers, lending, explain, sensitivity, access).
+        footprints_compared, change, peers, lending, explain, sensitivity, access): typed
+        results (:class:`Section`) where the statistic has a type, plain data otherwise
+        (lending, sensitivity, access).
     """
 
     segregation: SegregationResult
     weights: AreaGraph
     clustering: ClusteringResult | SkippedClustering
     enclaves: EnclaveResult
-    further: Mapping[str, Any] = field(default_factory=dict)
+    further: Mapping[str, Section | Mapping[str, Any]] = field(default_factory=dict)
 
     def sections(self) -> dict[str, Any]:
         """Return the stage's summary sections, keyed and ordered as in summary.json."""
@@ -96,7 +163,7 @@ class SpatialFindings:
                 **enclave["settings"],
                 "unserved_components": enclave["unserved_components"],
             },
-            **self.further,
+            **{key: section_data(value) for key, value in self.further.items()},
         }
 
 

@@ -29,7 +29,7 @@ from .io.further import FurtherInputs
 from .lending import lending_section  # also registers the lending findings
 from .options import enclave_options
 from .progress import SilentProgress
-from .results import SkippedClustering, SpatialFindings
+from .results import FootprintsCompared, Section, SkippedClustering, SpatialFindings, WithDetails
 from .segregation import segregation_summary
 from .spec import AnalysisSpec, AuditSpec
 from .stats.moran_scatter import spatial_lag
@@ -207,7 +207,7 @@ def _further_analyses(
     lending map columns). The other footprints, the activity table and the lending
     records come read, in ``further``. Returns the sections keyed as in summary.json.
     """
-    out: dict[str, Any] = {}
+    out: dict[str, Section | dict[str, Any]] = {}
     built = list(further.footprints)
     if len(spec.footprints) > 1:
         with progress.stage("other footprints"):
@@ -218,13 +218,12 @@ def _further_analyses(
             if name != spec.footprint.name:
                 frame[f"covered_fraction_{name}"] = cf
         out["comparison"] = analyses.comparison_section({spec.footprint.name: primary}, others)
-        out["footprints_compared"] = {
-            spec.footprint.name: footprint.to_dict(),
-            **{f.name: f.to_dict() for f in built},
-        }
+        out["footprints_compared"] = FootprintsCompared((footprint, *built))
         if spec.change is not None:
-            out["change"] = analyses.change_section(spec, inputs, frame, fractions)
-            out["change"].update(analyses.site_changes(spec.change, [footprint, *built]))
+            out["change"] = WithDetails(
+                analyses.change_section(spec, inputs, frame, fractions),
+                analyses.site_changes(spec.change, [footprint, *built]),
+            )
     if further.activity is not None:
         with progress.stage("peer comparison"):
             out["peers"] = analyses.peers_section(spec, inputs, frame, further.activity)
