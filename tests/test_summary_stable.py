@@ -5,8 +5,10 @@ demo scenario is run through the command line (``coverage-audit demo --scenario 
 and the summary.json it writes is compared byte for byte with the golden file under
 ``tests/golden/``. summary.json holds no times, versions or absolute paths (run-dependent
 values go to manifest.json; DESIGN.md's output contract), so the whole file is compared,
-no key left out. When a change to summary.json is intended, regenerate the golden files
-with ``python tests/golden/regenerate.py`` and commit them with the change, saying why.
+no key left out. exclusions.csv (source names, rows, ids and reasons, in stage order) is
+compared the same way, so that the order in which the stages' left-out rows are gathered
+is kept too. When a change to these files is intended, regenerate the golden files with
+``python tests/golden/regenerate.py`` and commit them with the change, saying why.
 
 The scenarios run with 99 permutations (``--permutations 99``) rather than the demo's 999:
 the smallest count whose p-values can still fall under 0.05 (1/100), so the significant
@@ -26,10 +28,12 @@ from coverage_audit.cli import DEMO_SCENARIOS, main
 GOLDEN = Path(__file__).resolve().parent / "golden"
 #: Permutations of every golden run (see the module docstring).
 PERMUTATIONS = 99
+#: The files of each run compared with their golden copies (``<scenario>.<file>``).
+COMPARED = ("summary.json", "exclusions.csv")
 
 
-def demo_summary(name: str, out: Path) -> bytes:
-    """Run one demo scenario through the CLI into ``out``; return its summary.json bytes."""
+def demo_outputs(name: str, out: Path) -> dict[str, bytes]:
+    """Run one demo scenario through the CLI into ``out``; return the compared files."""
     code = main(
         [
             "demo",
@@ -45,15 +49,17 @@ def demo_summary(name: str, out: Path) -> bytes:
         ]
     )
     assert code == 0, f"demo scenario {name} failed"
-    return (out / name / "summary.json").read_bytes()
+    return {file: (out / name / file).read_bytes() for file in COMPARED}
 
 
 @pytest.mark.parametrize("name", DEMO_SCENARIOS)
 def test_summary_json_is_byte_identical_to_the_golden_file(name, tmp_path, capsys):
-    written = demo_summary(name, tmp_path)
+    outputs = demo_outputs(name, tmp_path)
     capsys.readouterr()
-    golden = (GOLDEN / f"{name}.summary.json").read_bytes()
-    if written != golden:
+    for file, written in outputs.items():
+        golden = (GOLDEN / f"{name}.{file}").read_bytes()
+        if written == golden:
+            continue
         diff = difflib.unified_diff(
             golden.decode("utf-8").splitlines(),
             written.decode("utf-8").splitlines(),
@@ -64,6 +70,6 @@ def test_summary_json_is_byte_identical_to_the_golden_file(name, tmp_path, capsy
         )
         shown = "\n".join(list(diff)[:80])
         pytest.fail(
-            f"summary.json of demo scenario {name} changed (if intended, run "
+            f"{file} of demo scenario {name} changed (if intended, run "
             f"'{sys.executable} tests/golden/regenerate.py' and commit the files):\n{shown}"
         )
