@@ -39,7 +39,7 @@ from .margins import cautions, survey_error
 from .measure import measure_coverage
 from .population_notice import population_scope
 from .progress import SilentProgress
-from .results import AuditFindings, AuditResult
+from .results import AreaCounts, AuditFindings, AuditResult, ExclusionCounts, TablesJoined
 from .spec import AuditSpec, load_spec, spec_from_dict
 from .statistics import Statistics, compute_statistics
 from .stats.assessment_area import AssessmentAreaReview, review_assessment_area
@@ -185,14 +185,11 @@ def _findings(
 ) -> AuditFindings:
     """Gather the stages' results into the findings tree; survey error; conclusions."""
     inputs, footprint, frame = read.inputs, read.footprint, statistics.frame
-    areas = _areas_section(inputs, frame, exclusions)
-    if read.study is not None:
-        areas["outside_study_area"] = read.study[0].areas_outside
     findings = AuditFindings(
         title=spec.title,
         population_notice=notice,
         footprint=footprint,
-        areas=areas,
+        areas=_area_counts(inputs, frame, exclusions, read.study),
         coverage=coverage,
         statistics=statistics.findings,
         study_area=None if read.study is None else read.study[0],
@@ -202,7 +199,7 @@ def _findings(
             if footprint.kind == "ids"
             else None
         ),
-        exclusions={"count": exclusions.count(), "by_reason": exclusions.by_reason()},
+        exclusions=ExclusionCounts(exclusions.count(), exclusions.by_reason()),
         group_labels=spec.population.group_labels,
         population_unit=spec.population.unit,
         base_dir=spec.base_dir,
@@ -304,31 +301,31 @@ def _study_area(
     return kept, (study, outside)
 
 
-def _areas_section(
-    inputs: AreaInputs, frame: gpd.GeoDataFrame, exclusions: Exclusions
-) -> dict[str, Any]:
-    excluded = exclusions.count("areas")
-    return {
-        "input": inputs.input_rows,
-        "analysed": int(len(frame)),
-        "excluded": excluded,
-        "repaired_geometries": inputs.repaired,
-        "zero_population": int((frame["population"] <= 0).sum()),
-        "income_unknown": inputs.income_unknown,
-    } | ({"water_only": list(inputs.water_only)} if inputs.water_only else {})
+def _area_counts(
+    inputs: AreaInputs,
+    frame: gpd.GeoDataFrame,
+    exclusions: Exclusions,
+    study: tuple[StudyArea, gpd.GeoSeries] | None,
+) -> AreaCounts:
+    return AreaCounts(
+        input=inputs.input_rows,
+        analysed=int(len(frame)),
+        excluded=exclusions.count("areas"),
+        repaired_geometries=inputs.repaired,
+        zero_population=int((frame["population"] <= 0).sum()),
+        income_unknown=inputs.income_unknown,
+        water_only=tuple(inputs.water_only),
+        outside_study_area=None if study is None else study[0].areas_outside,
+    )
 
 
-def _table_section(inputs: AreaInputs, exclusions: Exclusions) -> dict[str, Any] | None:
+def _table_section(inputs: AreaInputs, exclusions: Exclusions) -> TablesJoined | None:
     table = [r for r in inputs.inputs if r.role == "table"]
     if not table:
         return None
     rows = table[0].rows
     excluded = exclusions.count("table") if len(table) == 1 else (rows - inputs.matches[0].matched)
-    out: dict[str, Any] = {
-        "table": {"rows": rows, "matched": rows - excluded, "excluded": excluded}
-    }
-    out["tables"] = [m.to_dict() for m in inputs.matches]
-    return out
+    return TablesJoined(rows, excluded, tuple(inputs.matches))
 
 
 def _order_columns(frame: gpd.GeoDataFrame, inputs: AreaInputs) -> gpd.GeoDataFrame:

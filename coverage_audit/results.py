@@ -114,6 +114,80 @@ class FootprintsCompared:
 
 
 @dataclass(frozen=True)
+class AreaCounts:
+    """The ``areas`` section: rows read, analysed and left out, and why some are special.
+
+    Attributes
+    ----------
+    input : int
+        Rows of the areas file.
+    analysed : int
+    excluded : int
+        Rows left out by the areas' checks (source ``areas``).
+    repaired_geometries : int
+    zero_population : int
+        Analysed areas without people.
+    income_unknown : int
+        Analysed areas without an income ratio.
+    water_only : tuple of str
+        Areas with no land (ALAND = 0), kept; listed only when there are any.
+    outside_study_area : int or None
+        Areas left outside a ``[study_area]`` (None without one).
+    """
+
+    input: int
+    analysed: int
+    excluded: int
+    repaired_geometries: int
+    zero_population: int
+    income_unknown: int
+    water_only: tuple[str, ...] = ()
+    outside_study_area: int | None = None
+
+    def to_dict(self) -> dict[str, Any]:
+        """Return the section as summary.json holds it."""
+        out: dict[str, Any] = {
+            "input": self.input,
+            "analysed": self.analysed,
+            "excluded": self.excluded,
+            "repaired_geometries": self.repaired_geometries,
+            "zero_population": self.zero_population,
+            "income_unknown": self.income_unknown,
+        }
+        if self.water_only:
+            out["water_only"] = list(self.water_only)
+        if self.outside_study_area is not None:
+            out["outside_study_area"] = self.outside_study_area
+        return out
+
+
+@dataclass(frozen=True, eq=False)
+class TablesJoined:
+    """The ``inputs`` section: the demographics tables' rows and their matches to the areas."""
+
+    rows: int
+    excluded: int
+    matches: tuple[Section, ...]
+
+    def to_dict(self) -> dict[str, Any]:
+        """Return the section as summary.json holds it."""
+        table = {"rows": self.rows, "matched": self.rows - self.excluded, "excluded": self.excluded}
+        return {"table": table, "tables": [m.to_dict() for m in self.matches]}
+
+
+@dataclass(frozen=True)
+class ExclusionCounts:
+    """The ``exclusions`` section: how many rows were left out, by reason."""
+
+    count: int
+    by_reason: Mapping[str, int]
+
+    def to_dict(self) -> dict[str, Any]:
+        """Return the section as summary.json holds it."""
+        return {"count": self.count, "by_reason": dict(self.by_reason)}
+
+
+@dataclass(frozen=True)
 class SkippedClustering:
     """Clustering statistics not computed, and why (degenerate data)."""
 
@@ -177,19 +251,19 @@ class AuditFindings:
     population_notice : str or None
         The areas without people, said once (``population_notice``).
     footprint : Footprint
-    areas : mapping
+    areas : AreaCounts
         Areas read, analysed and left out (``areas``).
     coverage : CoverageResult
     statistics : SpatialFindings
     study_area : StudyArea or None
-    inputs : mapping or None
+    inputs : TablesJoined or None
         The demographics tables' matches (``inputs``), when tables were joined.
     assessment_area : AssessmentAreaReview or None
         For a footprint of whole areas.
     survey : SurveyFigures or None
         The survey-error figures, set into the coverage, segregation, comparison and
         enclave sections.
-    exclusions : mapping
+    exclusions : ExclusionCounts
         Count and counts by reason of the rows not analysed.
     cautions : tuple of str
     group_labels : mapping
@@ -206,14 +280,14 @@ class AuditFindings:
     title: str
     population_notice: str | None
     footprint: Footprint
-    areas: Mapping[str, Any]
+    areas: AreaCounts
     coverage: CoverageResult
     statistics: SpatialFindings
     study_area: StudyArea | None = None
-    inputs: Mapping[str, Any] | None = None
+    inputs: TablesJoined | None = None
     assessment_area: AssessmentAreaReview | None = None
     survey: SurveyFigures | None = None
-    exclusions: Mapping[str, Any] = field(default_factory=dict)
+    exclusions: ExclusionCounts = field(default_factory=lambda: ExclusionCounts(0, {}))
     cautions: tuple[str, ...] = ()
     group_labels: Mapping[str, str] = field(default_factory=dict)
     population_unit: str = "people"
@@ -231,17 +305,17 @@ class AuditFindings:
             "title": self.title,
             "population_notice": self.population_notice,
             "footprint": self.footprint.to_dict(),
-            "areas": dict(self.areas),
+            "areas": self.areas.to_dict(),
         }
         if self.study_area is not None:
             out["study_area"] = self.study_area.to_dict()
         if self.inputs is not None:
-            out["inputs"] = dict(self.inputs)
+            out["inputs"] = self.inputs.to_dict()
         out["coverage"] = self.coverage.to_dict()
         out.update(self.statistics.sections())
         if self.assessment_area is not None:
             out["assessment_area"] = self.assessment_area.to_dict()
-        out["exclusions"] = dict(self.exclusions)
+        out["exclusions"] = self.exclusions.to_dict()
         out["cautions"] = list(self.cautions)
         out["group_labels"] = self.group_labels
         out["population_unit"] = self.population_unit
