@@ -30,7 +30,7 @@ import numpy as np
 from .analyses import add_derived_columns
 from .apportion import block_cautions
 from .coverage import CoverageResult
-from .findings import build_findings
+from .findings import headline_findings
 from .footprint import Footprint, build_footprint
 from .inputs import AreaInputs, Exclusions, load_areas
 from .io.further import FurtherInputs, read_further_inputs
@@ -270,7 +270,7 @@ def _conclude(spec: AuditSpec, findings: AuditFindings) -> AuditFindings:
         said = block_cautions(said, summary)
     summary["cautions"] = said
     summary.pop("findings")
-    return findings.with_conclusions(tuple(said), tuple(build_findings(summary)))
+    return findings.with_conclusions(tuple(said), tuple(headline_findings(summary)))
 
 
 def _assessment_area(

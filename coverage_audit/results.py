@@ -34,6 +34,7 @@ if TYPE_CHECKING:
     from .clustering import ClusteringResult
     from .coverage import CoverageResult
     from .enclaves import EnclaveResult
+    from .findings import Finding
     from .footprint import Footprint
     from .inputs import AreaInputs
     from .margins import SurveyFigures
@@ -268,7 +269,7 @@ class AuditFindings:
     cautions : tuple of str
     group_labels : mapping
     population_unit : str
-    headline : tuple of mapping
+    headline : tuple of Finding
         The headline findings (``findings``), built from the rest.
     base_dir : Path or None
         Input paths in the summary are written relative to this folder (the spec's).
@@ -291,7 +292,7 @@ class AuditFindings:
     cautions: tuple[str, ...] = ()
     group_labels: Mapping[str, str] = field(default_factory=dict)
     population_unit: str = "people"
-    headline: tuple[Mapping[str, Any], ...] = ()
+    headline: tuple[Finding, ...] = ()
     base_dir: Path | None = None
     moran_lag: np.ndarray | None = None
 
@@ -319,7 +320,7 @@ class AuditFindings:
         out["cautions"] = list(self.cautions)
         out["group_labels"] = self.group_labels
         out["population_unit"] = self.population_unit
-        out["findings"] = [dict(h) for h in self.headline]
+        out["findings"] = [h.to_dict() for h in self.headline]
         # Stages' to_dict may hand out their own mappings; the copy keeps them unchanged.
         out = copy.deepcopy(out)
         if self.survey is not None:
@@ -332,7 +333,7 @@ class AuditFindings:
         return out if self.base_dir is None else relative_paths(out, self.base_dir)
 
     def with_conclusions(
-        self, cautions: tuple[str, ...], headline: tuple[Mapping[str, Any], ...]
+        self, cautions: tuple[str, ...], headline: tuple[Finding, ...]
     ) -> AuditFindings:
         """Return a copy carrying the cautions and the headline findings."""
         return replace(self, cautions=tuple(cautions), headline=tuple(headline))
