@@ -24,12 +24,14 @@ from .compare import change_between, compare_footprints, peer_comparison
 from .coverage import coverage_by_group, covered_fraction, footprint_fractions
 from .enclaves import count_enclaves
 from .errors import AnalysisError, DegenerateStatisticWarning, InputError
-from .explain import discover_rules, exclusion_models, sensitivity_thresholds
 from .footprint import Footprint, build_footprint, cut_pieces, geodesic_circles
 from .inputs import AreaInputs, Exclusions, InputRecord, ids_as_text, read_hashed, read_table
 from .io.joins import MatchReport, match_ids
 from .options import enclave_options
 from .spec import AuditSpec
+from .stats.models import exclusion_models
+from .stats.rules import discover_rules
+from .stats.sweeps import sensitivity_thresholds
 from .weights import AreaGraph
 
 #: Served thresholds of the sensitivity sweep (the issue asks for 0.25 to 0.75).

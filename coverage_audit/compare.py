@@ -21,8 +21,9 @@ from scipy import stats
 
 from ._util import clean_number, safe_ratio, to_jsonable
 from .errors import AnalysisError, InputError, SpecError
-from .explain import Z_95, served_from_fraction
 from .stats.four_fifths import FOUR_FIFTHS, below_four_fifths  # noqa: F401 (re-export)
+from .stats.models import Z_95
+from .stats.sweeps import served_from_fraction
 
 _GROUP_FIELDS = (
     "rate",
