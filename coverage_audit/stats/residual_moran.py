@@ -17,8 +17,8 @@ import pandas as pd
 import scipy.sparse as sp
 
 from .._util import to_jsonable
-from ..clustering import moran_moments
 from ..errors import AnalysisError
+from .moran import moran_moments
 
 #: |z| of residual Moran's I above which the residuals are called spatially clustered.
 MORAN_Z_FLAG = 1.96
