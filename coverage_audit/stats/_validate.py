@@ -10,7 +10,7 @@ from __future__ import annotations
 
 import numbers
 import warnings
-from collections.abc import Iterable
+from collections.abc import Iterable, Mapping
 from typing import Any
 
 import numpy as np
@@ -114,3 +114,133 @@ def aligned_flags(values: ArrayLike, n: int, name: str) -> np.ndarray:
 
 def warn_degenerate(message: str) -> None:
     warnings.warn(message, DegenerateStatisticWarning, stacklevel=3)
+
+
+#: Covered fractions this far outside [0, 1] are taken as rounding from the overlay and
+#: clipped; anything further out is an error.
+FRACTION_TOLERANCE = 1e-9
+
+
+
+def as_counts(values: ArrayLike, name: str) -> np.ndarray:
+    """Return ``values`` as a 1-D float array of finite, non-negative counts."""
+    try:
+        arr = np.asarray(values, dtype=np.float64)
+    except (TypeError, ValueError) as exc:
+        raise AnalysisError(
+            f"{name} must hold numeric population counts, one per area; "
+            f"it could not be read as numbers ({exc})"
+        ) from exc
+    if arr.ndim != 1:
+        raise AnalysisError(
+            f"{name} must be a 1-D array with one count per area; got shape {arr.shape}"
+        )
+    if arr.size == 0:
+        raise AnalysisError(f"{name} is empty: there are no areas to analyse")
+    bad = ~np.isfinite(arr)
+    if bad.any():
+        i = int(np.argmax(bad))
+        raise AnalysisError(
+            f"{name} has a missing or infinite value ({arr[i]}) at position {i}; "
+            "fill it or exclude that area before the analysis"
+        )
+    negative = arr < 0
+    if negative.any():
+        i = int(np.argmax(negative))
+        raise AnalysisError(
+            f"{name} has a negative count ({arr[i]:g}) at position {i}; "
+            "population counts must be zero or more"
+        )
+    return arr
+
+
+
+def same_length(arrays: Mapping[str, np.ndarray]) -> int:
+    lengths = {name: a.shape[0] for name, a in arrays.items()}
+    if len(set(lengths.values())) > 1:
+        listed = ", ".join(f"{name}: {n}" for name, n in lengths.items())
+        raise AnalysisError(
+            f"the arrays must have one value per analysed area, in the same order; "
+            f"their lengths differ ({listed})"
+        )
+    return next(iter(lengths.values()))
+
+
+
+def within_total(x: np.ndarray, t: np.ndarray, name: str, total_name: str) -> None:
+    over = x > t
+    if over.any():
+        i = int(np.argmax(over))
+        raise AnalysisError(
+            f"{name} exceeds {total_name} at position {i} ({x[i]:g} > {t[i]:g}); "
+            "a group count cannot be larger than the total population of its area"
+        )
+
+
+
+def as_served(served: ArrayLike, name: str = "served") -> np.ndarray:
+    """Return ``served`` as a 1-D bool array; accepts booleans or the numbers 0 and 1."""
+    arr = np.asarray(served)
+    if arr.ndim != 1:
+        raise AnalysisError(
+            f"{name} must be a 1-D array with one true/false value per area; got shape {arr.shape}"
+        )
+    if arr.dtype == np.bool_:
+        return arr
+    try:
+        numeric = arr.astype(np.float64)
+    except (TypeError, ValueError) as exc:
+        raise AnalysisError(
+            f"{name} must hold true/false (or 1/0) per area; it could not be read ({exc})"
+        ) from exc
+    bad = ~np.isin(numeric, (0.0, 1.0))
+    if bad.any():
+        i = int(np.argmax(bad))
+        raise AnalysisError(
+            f"{name} must hold true/false (or 1/0) per area; position {i} has {arr[i].item()!r}"
+        )
+    return numeric == 1.0
+
+
+
+def as_fractions(covered_fraction: ArrayLike, name: str = "covered_fraction") -> np.ndarray:
+    """Return covered fractions in [0, 1], clipping overlay rounding of the tolerance."""
+    try:
+        arr = np.asarray(covered_fraction, dtype=np.float64)
+    except (TypeError, ValueError) as exc:
+        raise AnalysisError(
+            f"{name} must hold numbers between 0 and 1, one per area ({exc})"
+        ) from exc
+    if arr.ndim != 1:
+        raise AnalysisError(
+            f"{name} must be a 1-D array with one fraction per area; got shape {arr.shape}"
+        )
+    bad = ~np.isfinite(arr) | (arr < -FRACTION_TOLERANCE) | (arr > 1 + FRACTION_TOLERANCE)
+    if bad.any():
+        i = int(np.argmax(bad))
+        raise AnalysisError(f"{name} must lie between 0 and 1; position {i} has {arr[i]}")
+    return np.clip(arr, 0.0, 1.0)
+
+
+
+def check_permutation_count(permutations: Any) -> int:
+    if (
+        isinstance(permutations, bool)
+        or not isinstance(permutations, numbers.Integral)
+        or permutations < 1
+    ):
+        raise SpecError(
+            f"permutations must be a whole number of at least 1 (for example 999); "
+            f"got {permutations!r}"
+        )
+    return int(permutations)
+
+
+
+def check_generator(rng: Any) -> np.random.Generator:
+    if not isinstance(rng, np.random.Generator):
+        raise SpecError(
+            "rng must be a numpy.random.Generator, for example "
+            f"numpy.random.default_rng(seed); got {type(rng).__name__}"
+        )
+    return rng
