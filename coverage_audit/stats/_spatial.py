@@ -28,15 +28,12 @@ from ._validate import aligned_flags, aligned_floats
 _TIE_RTOL = 1e-9
 
 
-
 #: Matrix entries held at once by a block of permutations (bounds memory to ~32 MB each).
 _BLOCK_ENTRIES = 1 << 22
 
 
-
 #: Minimum number of areas of every statistic here.
 _MIN_AREAS = 3
-
 
 
 @dataclass(frozen=True)
@@ -49,10 +46,8 @@ class _Weights:
     n_input: int
 
 
-
 def _length(values: ArrayLike) -> int:
     return int(np.asarray(values).size)
-
 
 
 def _resolve_weights(graph: Any, n_values: int, *, what: str) -> _Weights:
@@ -108,13 +103,11 @@ def _resolve_weights(graph: Any, n_values: int, *, what: str) -> _Weights:
     return _Weights(binary=binary, row=_row_standardise(matrix), mask=mask, n_input=n_input)
 
 
-
 def _row_standardise(matrix: sp.csr_matrix) -> sp.csr_matrix:
     sums = np.asarray(matrix.sum(axis=1)).ravel()
     row = sp.csr_matrix(matrix, dtype=np.float64, copy=True)
     row.data /= np.repeat(sums, np.diff(row.indptr))
     return row
-
 
 
 def _values(values: ArrayLike, name: str, weights: _Weights) -> np.ndarray:
@@ -131,16 +124,13 @@ def _values(values: ArrayLike, name: str, weights: _Weights) -> np.ndarray:
     return arr
 
 
-
 def _binary(values: ArrayLike, name: str, weights: _Weights) -> np.ndarray:
     flags = aligned_flags(values, weights.n_input, name)
     return flags[weights.mask] if weights.mask is not None else flags
 
 
-
 def _is_constant(values: np.ndarray) -> bool:
     return bool(np.ptp(values) <= 1e-14 * max(1.0, float(np.abs(values).max())))
-
 
 
 def _permutation_blocks(values: np.ndarray, permutations: int, rng: np.random.Generator):
@@ -158,11 +148,9 @@ def _permutation_blocks(values: np.ndarray, permutations: int, rng: np.random.Ge
         done += size
 
 
-
 def _quadratic_forms(matrix: sp.csr_matrix, columns: np.ndarray) -> np.ndarray:
     """Return ``a' W a`` for each column ``a`` of ``columns``."""
     return np.einsum("ij,ij->j", columns, matrix @ columns)
-
 
 
 def _folded_p(sim: np.ndarray, observed: np.ndarray | float) -> np.ndarray:
@@ -171,7 +159,6 @@ def _folded_p(sim: np.ndarray, observed: np.ndarray | float) -> np.ndarray:
     upper = np.count_nonzero(sim >= observed - tol, axis=0)
     lower = np.count_nonzero(sim <= observed + tol, axis=0)
     return (np.minimum(upper, lower) + 1.0) / (sim.shape[0] + 1.0)
-
 
 
 def _sim_summary(sim: np.ndarray, observed: float) -> tuple[float, float, float]:
@@ -183,12 +170,10 @@ def _sim_summary(sim: np.ndarray, observed: float) -> tuple[float, float, float]
     return mean, z, float(_folded_p(sim, observed))
 
 
-
 def _one_sided_normal_p(z: float) -> float:
     if not math.isfinite(z):
         return math.nan
     return float(stats.norm.sf(z) if z > 0 else stats.norm.cdf(z))
-
 
 
 def two_sided_normal_p(z: float) -> float:
@@ -198,16 +183,13 @@ def two_sided_normal_p(z: float) -> float:
     return float(2.0 * stats.norm.sf(abs(z)))
 
 
-
 def _standardise(values: np.ndarray) -> np.ndarray:
     return (values - values.mean()) / values.std()
-
 
 
 def _conditional_draws(n: int, k: int, permutations: int, rng: np.random.Generator) -> np.ndarray:
     """``permutations x k`` draws without replacement from ``0..n-2``, one row per permutation."""
     return np.stack([rng.choice(n - 1, size=k, replace=False) for _ in range(permutations)])
-
 
 
 def _conditional_pvalues(

@@ -29,16 +29,13 @@ def check_columns(table: pd.DataFrame, columns: Iterable[str], id_column: str | 
         )
 
 
-
 def column_names(table: pd.DataFrame) -> list[str]:
     return [str(c) for c in table.columns]
-
 
 
 def area_ids(table: pd.DataFrame, id_column: str | None) -> np.ndarray:
     source = table.index if id_column is None else table[id_column]
     return np.asarray(source.astype(str), dtype=object)
-
 
 
 def numeric_values(series: pd.Series) -> tuple[np.ndarray, np.ndarray]:
@@ -53,7 +50,6 @@ def numeric_values(series: pd.Series) -> tuple[np.ndarray, np.ndarray]:
     reasons[np.isinf(values)] = "not finite"
     reasons[missing] = "missing"
     return values, reasons
-
 
 
 def text_values(series: pd.Series) -> np.ndarray:
@@ -75,11 +71,9 @@ def check_draws(permutations: Any, rng: Any) -> None:
         )
 
 
-
 def check_alpha(alpha: Any) -> None:
     if isinstance(alpha, bool) or not isinstance(alpha, numbers.Real) or not 0 < float(alpha) < 1:
         raise SpecError(f"alpha was {alpha!r} but must be a number strictly between 0 and 1")
-
 
 
 def aligned_floats(values: ArrayLike, n: int, name: str) -> np.ndarray:
@@ -90,7 +84,6 @@ def aligned_floats(values: ArrayLike, n: int, name: str) -> np.ndarray:
     if arr.ndim != 1 or arr.size != n:
         raise AnalysisError(f"{name} has shape {arr.shape} but one value per area ({n}) is needed")
     return arr
-
 
 
 def aligned_flags(values: ArrayLike, n: int, name: str) -> np.ndarray:
@@ -111,7 +104,6 @@ def aligned_flags(values: ArrayLike, n: int, name: str) -> np.ndarray:
     return num == 1
 
 
-
 def warn_degenerate(message: str) -> None:
     warnings.warn(message, DegenerateStatisticWarning, stacklevel=3)
 
@@ -119,7 +111,6 @@ def warn_degenerate(message: str) -> None:
 #: Covered fractions this far outside [0, 1] are taken as rounding from the overlay and
 #: clipped; anything further out is an error.
 FRACTION_TOLERANCE = 1e-9
-
 
 
 def as_counts(values: ArrayLike, name: str) -> np.ndarray:
@@ -154,7 +145,6 @@ def as_counts(values: ArrayLike, name: str) -> np.ndarray:
     return arr
 
 
-
 def same_length(arrays: Mapping[str, np.ndarray]) -> int:
     lengths = {name: a.shape[0] for name, a in arrays.items()}
     if len(set(lengths.values())) > 1:
@@ -166,7 +156,6 @@ def same_length(arrays: Mapping[str, np.ndarray]) -> int:
     return next(iter(lengths.values()))
 
 
-
 def within_total(x: np.ndarray, t: np.ndarray, name: str, total_name: str) -> None:
     over = x > t
     if over.any():
@@ -175,7 +164,6 @@ def within_total(x: np.ndarray, t: np.ndarray, name: str, total_name: str) -> No
             f"{name} exceeds {total_name} at position {i} ({x[i]:g} > {t[i]:g}); "
             "a group count cannot be larger than the total population of its area"
         )
-
 
 
 def as_served(served: ArrayLike, name: str = "served") -> np.ndarray:
@@ -202,7 +190,6 @@ def as_served(served: ArrayLike, name: str = "served") -> np.ndarray:
     return numeric == 1.0
 
 
-
 def as_fractions(covered_fraction: ArrayLike, name: str = "covered_fraction") -> np.ndarray:
     """Return covered fractions in [0, 1], clipping overlay rounding of the tolerance."""
     try:
@@ -222,7 +209,6 @@ def as_fractions(covered_fraction: ArrayLike, name: str = "covered_fraction") ->
     return np.clip(arr, 0.0, 1.0)
 
 
-
 def check_permutation_count(permutations: Any) -> int:
     if (
         isinstance(permutations, bool)
@@ -234,7 +220,6 @@ def check_permutation_count(permutations: Any) -> int:
             f"got {permutations!r}"
         )
     return int(permutations)
-
 
 
 def check_generator(rng: Any) -> np.random.Generator:

@@ -51,7 +51,6 @@ class AreaChange:
         )
 
 
-
 @dataclass(frozen=True)
 class GroupChange:
     """One group's rates before and after, and the change in percentage points."""
@@ -68,7 +67,6 @@ class GroupChange:
     def to_dict(self) -> dict[str, Any]:
         """Return the figures as JSON-safe data."""
         return to_jsonable({f: getattr(self, f) for f in self.__dataclass_fields__})
-
 
 
 @dataclass(frozen=True)
@@ -121,7 +119,6 @@ class ChangeResult:
         return pd.DataFrame.from_records(
             [{"group": g, **v.to_dict()} for g, v in self.groups.items()]
         )
-
 
 
 def change_between(
@@ -237,7 +234,6 @@ def change_between(
     )
 
 
-
 def _served(table: pd.DataFrame, threshold: float | None, label: str) -> np.ndarray:
     if threshold is not None:
         cf = pd.to_numeric(table["covered_fraction"], errors="coerce").to_numpy(dtype=float)
@@ -257,7 +253,6 @@ def _served(table: pd.DataFrame, threshold: float | None, label: str) -> np.ndar
     return values == 1.0
 
 
-
 def _rates(
     table: pd.DataFrame, served: np.ndarray, groups: Sequence[str]
 ) -> dict[str, tuple[float | None, float | None]]:
@@ -274,10 +269,8 @@ def _rates(
     }
 
 
-
 def _pp(before: float | None, after: float | None) -> float | None:
     return None if before is None or after is None else 100.0 * (after - before)
-
 
 
 def _area_change(

@@ -27,7 +27,6 @@ _GROUP_FIELDS = (
 )
 
 
-
 @dataclass(frozen=True)
 class FootprintRow:
     """One footprint in the comparison.
@@ -76,7 +75,6 @@ class FootprintRow:
                 "groups": self.groups,
             }
         )
-
 
 
 @dataclass(frozen=True)
@@ -133,7 +131,6 @@ class FootprintComparison:
                     record[f"{g}_{field}"] = f.groups.get(g, {}).get(field)
             records.append(record)
         return pd.DataFrame.from_records(records)
-
 
 
 def compare_footprints(
@@ -249,7 +246,6 @@ def compare_footprints(
     return FootprintComparison(by, reference, tuple(groups), footprints, rule, tuple(notes))
 
 
-
 def _coverage_of(name: str, summary: Mapping[str, Any]) -> tuple[Mapping[str, Any], int | None]:
     coverage = summary.get("coverage", summary)
     if not isinstance(coverage, Mapping) or not isinstance(coverage.get("groups"), Mapping):
@@ -263,7 +259,6 @@ def _coverage_of(name: str, summary: Mapping[str, Any]) -> tuple[Mapping[str, An
     return coverage, None if enclaves is None else int(enclaves)
 
 
-
 def _group_counts(entry: Any, by: str) -> tuple[float, float] | None:
     """Return a group's (covered population, population) for the areal rate, if given."""
     if by != "rate" or not isinstance(entry, Mapping):
@@ -273,7 +268,6 @@ def _group_counts(entry: Any, by: str) -> tuple[float, float] | None:
     if not isinstance(covered, (int, float)) or not isinstance(total, (int, float)) or total <= 0:
         return None
     return float(covered), float(total)
-
 
 
 def _group_fields(entry: Mapping[str, Any]) -> dict[str, Any]:

@@ -31,9 +31,7 @@ from .segregation_indices import _dissim, _empty_group_message
 _CHUNK_ENTRIES = 2**21
 
 
-
 _EPS = float(np.finfo(np.float64).eps)
-
 
 
 @dataclass(frozen=True, eq=False)
@@ -79,7 +77,6 @@ class GapTest:
         }
 
 
-
 def _split_dissim(x: np.ndarray, y: np.ndarray, weight: np.ndarray) -> float:
     """D of x against y over two bins: the ``weight`` part and the rest of each area.
 
@@ -94,7 +91,6 @@ def _split_dissim(x: np.ndarray, y: np.ndarray, weight: np.ndarray) -> float:
     x_in = float(np.dot(x, weight))
     y_in = float(np.dot(y, weight))
     return _dissim(np.array([x_in, X - x_in]), np.array([y_in, Y - y_in]))
-
 
 
 def _gap_test(
@@ -166,7 +162,6 @@ def _gap_test(
     )
 
 
-
 def coverage_dissimilarity(x: ArrayLike, y: ArrayLike, served: ArrayLike) -> float:
     """Dissimilarity of ``x`` against ``y`` across the served and unserved areas.
 
@@ -209,7 +204,6 @@ def coverage_dissimilarity(x: ArrayLike, y: ArrayLike, served: ArrayLike) -> flo
         if arr.sum() <= 0:
             warn_degenerate(_empty_group_message(name, "coverage dissimilarity"))
     return _split_dissim(xa, ya, mask.astype(np.float64))
-
 
 
 def areal_coverage_dissimilarity(x: ArrayLike, y: ArrayLike, covered_fraction: ArrayLike) -> float:
@@ -256,7 +250,6 @@ def areal_coverage_dissimilarity(x: ArrayLike, y: ArrayLike, covered_fraction: A
         if arr.sum() <= 0:
             warn_degenerate(_empty_group_message(name, "areal coverage dissimilarity"))
     return _split_dissim(xa, ya, frac)
-
 
 
 def coverage_gap_test(
@@ -323,7 +316,6 @@ def coverage_gap_test(
     if xa.sum() > 0 and ya.sum() > 0 and (not mask.any() or mask.all()):
         warn_degenerate(_no_contrast_message(mask))
     return _gap_test(xa, ya, mask, permutations, rng)
-
 
 
 def _no_contrast_message(mask: np.ndarray) -> str:

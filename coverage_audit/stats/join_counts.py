@@ -97,7 +97,6 @@ class JoinCountResult:
         return out
 
 
-
 def join_counts(
     served: ArrayLike,
     graph: AreaGraph | Graph | sp.spmatrix | sp.sparray,
@@ -140,17 +139,14 @@ def join_counts(
     return _join_counts(flags, weights.binary, permutations, rng)
 
 
-
 def _falling(n: int, b: int) -> float:
     """Falling factorial ``n (n-1) ... (n-b+1)`` (0 when ``n < b``)."""
     return float(math.prod(range(n - b + 1, n + 1))) if n >= b else 0.0
 
 
-
 def _ratio(n1: int, n: int, b: int) -> float:
     """``n1^(b) / n^(b)``: chance that ``b`` given areas are all of a class of ``n1``."""
     return _falling(n1, b) / _falling(n, b) if n1 >= b else 0.0
-
 
 
 def _join_moments(
@@ -186,7 +182,6 @@ def _join_moments(
         - e_bw * e_bw
     )
     return e_bb, e_ww, e_bw, v_bb, v_ww, v_bw
-
 
 
 def _join_counts(

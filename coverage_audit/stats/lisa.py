@@ -35,15 +35,12 @@ CLUSTER_LABELS: tuple[str, ...] = (
 )
 
 
-
 #: Multiple-testing policies of :func:`local_moran`.
 FDR_METHODS: tuple[str, ...] = ("bh", "none")
 
 
-
 #: Quadrant codes as esda numbers them (1 HH, 2 LH, 3 LL, 4 HL) and their labels.
 _QUADRANT_LABELS = {1: "high-high", 2: "low-high", 3: "low-low", 4: "high-low"}
-
 
 
 @dataclass(frozen=True)
@@ -124,7 +121,6 @@ class LocalMoranResult:
         }
 
 
-
 def local_moran(
     y: ArrayLike,
     graph: AreaGraph | Graph | sp.spmatrix | sp.sparray,
@@ -190,7 +186,6 @@ def local_moran(
     return _local_result(core, weights.mask, fdr, alpha, permutations, variable)
 
 
-
 def benjamini_hochberg(p: ArrayLike) -> np.ndarray:
     """Benjamini-Hochberg adjusted p-values (q-values).
 
@@ -215,7 +210,6 @@ def benjamini_hochberg(p: ArrayLike) -> np.ndarray:
     scaled = p[order] * m / np.arange(1, m + 1)
     q[order] = np.minimum(np.minimum.accumulate(scaled[::-1])[::-1], 1.0)
     return q
-
 
 
 def lisa_crosstab(
@@ -284,14 +278,12 @@ def lisa_crosstab(
     }
 
 
-
 @dataclass(frozen=True)
 class _LocalCore:
     Ii: np.ndarray
     quadrant: np.ndarray
     p_sim: np.ndarray
     z_sim: np.ndarray
-
 
 
 def _local_moran(
@@ -303,7 +295,9 @@ def _local_moran(
 ) -> _LocalCore:
     n = y.size
     if _is_constant(y):
-        warn_degenerate(f"{variable or 'the variable'} is constant, so local Moran's I is undefined")
+        warn_degenerate(
+            f"{variable or 'the variable'} is constant, so local Moran's I is undefined"
+        )
         nan = np.full(n, np.nan)
         return _LocalCore(Ii=nan, quadrant=np.zeros(n, dtype=np.int8), p_sim=nan, z_sim=nan)
     z = _standardise(y)
@@ -315,7 +309,6 @@ def _local_moran(
     draws = _conditional_draws(n, int(np.diff(row.indptr).max()), permutations, rng)
     p_sim, z_sim = _conditional_pvalues(z, row, observed, scale, draws)
     return _LocalCore(Ii=observed, quadrant=quadrant, p_sim=p_sim, z_sim=z_sim)
-
 
 
 def _local_result(

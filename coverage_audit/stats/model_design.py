@@ -20,7 +20,6 @@ from ._validate import numeric_values, text_values
 MAX_LEVELS = 20
 
 
-
 @dataclass(frozen=True)
 class _Design:
     matrix: np.ndarray
@@ -32,7 +31,6 @@ class _Design:
     references: dict[str, str]
 
 
-
 def _is_categorical(series: pd.Series, forced: bool) -> bool:
     if forced or isinstance(series.dtype, pd.CategoricalDtype):
         return True
@@ -42,7 +40,6 @@ def _is_categorical(series: pd.Series, forced: bool) -> bool:
     # A text column where nothing parses as a number is a category; one where most values
     # parse is a numeric column with a few bad entries, reported row by row.
     return bool(present.size) and pd.to_numeric(present, errors="coerce").isna().all()
-
 
 
 def _build_design(
@@ -113,7 +110,6 @@ def _build_design(
     return _Design(matrix, names, served, covered, ~bad_rows, dropped, used_refs)
 
 
-
 def _check_unit_interval(values: np.ndarray, column: str, ids: np.ndarray, hint: str) -> None:
     out = np.isfinite(values) & ((values < -1e-9) | (values > 1 + 1e-9))
     if out.any():
@@ -127,7 +123,6 @@ def _check_unit_interval(values: np.ndarray, column: str, ids: np.ndarray, hint:
 #: Minority share enters the models per 10 percentage points (0.10 as a fraction), so an
 #: odds ratio reads "per 10-point rise in minority share" instead of "from 0 % to 100 %".
 MINORITY_STEP = 0.10
-
 
 
 @dataclass(frozen=True)

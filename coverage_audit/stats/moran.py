@@ -114,7 +114,6 @@ class MoranResult:
         }
 
 
-
 @dataclass(frozen=True)
 class BivariateMoranResult:
     """Bivariate Moran's I of ``x`` against the spatial lag of ``y``.
@@ -157,7 +156,6 @@ class BivariateMoranResult:
             "permutations": int(self.permutations),
             "n": int(self.n),
         }
-
 
 
 def moran(
@@ -216,7 +214,6 @@ def moran(
     return _moran(values, weights.row, permutations, rng, variable)
 
 
-
 def bivariate_moran(
     x: ArrayLike,
     y: ArrayLike,
@@ -263,7 +260,6 @@ def bivariate_moran(
     return _bivariate_moran(xv, yv, weights.row, permutations, rng, x_variable, y_variable)
 
 
-
 def moran_moments(y: np.ndarray, weights: sp.spmatrix) -> MoranResult:
     """Moran's I with its analytic moments under the weights exactly as given.
 
@@ -272,7 +268,6 @@ def moran_moments(y: np.ndarray, weights: sp.spmatrix) -> MoranResult:
     a constant ``y`` gives NaN figures with a :class:`DegenerateStatisticWarning`.
     """
     return _moran(np.asarray(y, dtype=float), sp.csr_matrix(weights, dtype=float), 0, None, None)
-
 
 
 def _weight_sums(row: sp.csr_matrix) -> tuple[float, float, float]:
@@ -284,7 +279,6 @@ def _weight_sums(row: sp.csr_matrix) -> tuple[float, float, float]:
         ((np.asarray(row.sum(axis=1)).ravel() + np.asarray(row.sum(axis=0)).ravel()) ** 2).sum()
     )
     return s0, s1, s2
-
 
 
 def _moran(
@@ -342,7 +336,6 @@ def _moran(
     )
 
 
-
 def _empty_moran(variable: str | None, n: int, permutations: int) -> MoranResult:
     nan = math.nan
     return MoranResult(
@@ -364,7 +357,6 @@ def _empty_moran(variable: str | None, n: int, permutations: int) -> MoranResult
     )
 
 
-
 def _bivariate_moran(
     x: np.ndarray,
     y: np.ndarray,
@@ -380,7 +372,9 @@ def _bivariate_moran(
     ]
     if constant:
         verb = "is" if len(constant) == 1 else "are"
-        warn_degenerate(f"{' and '.join(constant)} {verb} constant, so the bivariate Moran's I is undefined")
+        warn_degenerate(
+            f"{' and '.join(constant)} {verb} constant, so the bivariate Moran's I is undefined"
+        )
         return _empty_bivariate(x_variable, y_variable, n, permutations)
     zx, zy = _standardise(x), _standardise(y)
     # Anselin, Syabri and Smirnov (2002): I_B = zx' W zy / n (S0 = n when row-standardised).
@@ -404,7 +398,6 @@ def _bivariate_moran(
         p_sim=p_sim,
         sim=sim,
     )
-
 
 
 def _empty_bivariate(

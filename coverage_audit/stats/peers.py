@@ -67,7 +67,6 @@ class LenderComparison:
         return to_jsonable({f: getattr(self, f) for f in self.__dataclass_fields__})
 
 
-
 @dataclass(frozen=True)
 class PeerResult:
     """Every lender against its peers.
@@ -113,7 +112,6 @@ class PeerResult:
     def to_frame(self) -> pd.DataFrame:
         """Return one row per lender."""
         return pd.DataFrame.from_records([x.to_dict() for x in self.lenders])
-
 
 
 def peer_comparison(
@@ -223,7 +221,6 @@ def peer_comparison(
     )
 
 
-
 def two_proportion_test(
     x1: np.ndarray, n1: np.ndarray, x2: np.ndarray, n2: np.ndarray
 ) -> dict[str, np.ndarray]:
@@ -263,7 +260,6 @@ def two_proportion_test(
         "p_two_sided": 2.0 * stats.norm.sf(np.abs(z)),
         "p_below": stats.norm.cdf(z),
     }
-
 
 
 def _long_activity(
@@ -317,7 +313,6 @@ def _long_activity(
             "numbers (fill areas with no activity with 0)"
         )
     return long.assign(count=counts.astype(float))
-
 
 
 def _flags(series: pd.Series) -> pd.Series:

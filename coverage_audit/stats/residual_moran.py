@@ -24,7 +24,6 @@ from .moran import moran_moments
 MORAN_Z_FLAG = 1.96
 
 
-
 @dataclass(frozen=True)
 class ResidualMoran:
     """Moran's I of a model's Pearson residuals, with its randomisation z-score.
@@ -73,7 +72,6 @@ class ResidualMoran:
         )
 
 
-
 def _resolve_weights(weights: Any, ids: np.ndarray) -> tuple[np.ndarray, sp.csr_matrix] | None:
     """Return (table positions of the weight nodes, sparse weights over those nodes)."""
     if weights is None:
@@ -114,7 +112,6 @@ def _resolve_weights(weights: Any, ids: np.ndarray) -> tuple[np.ndarray, sp.csr_
     return position, matrix
 
 
-
 def _residual_moran(
     residuals: np.ndarray, keep: np.ndarray, resolved: tuple[np.ndarray, sp.csr_matrix]
 ) -> ResidualMoran | None:
@@ -138,7 +135,6 @@ def _residual_moran(
         space_not_accounted_for=bool(math.isfinite(z) and abs(z) > MORAN_Z_FLAG),
         p_rand_two_sided=p_two_sided,
     )
-
 
 
 def moran_randomisation(

@@ -30,9 +30,7 @@ _TIER_PHRASES = {
 }
 
 
-
 _QUARTER_WORDS = ("lowest", "second", "third", "highest")
-
 
 
 @dataclass(frozen=True)
@@ -51,7 +49,6 @@ class Condition:
     def label(self) -> str:
         """Short label ``attribute = value``."""
         return f"{self.attribute} = {self.value}"
-
 
 
 @dataclass(frozen=True)
@@ -104,7 +101,6 @@ class Rule:
     def to_dict(self) -> dict[str, Any]:
         """Return the rule as JSON-safe data."""
         return to_jsonable({f: getattr(self, f) for f in self.__dataclass_fields__})
-
 
 
 @dataclass(frozen=True)
@@ -169,7 +165,6 @@ class RuleResult:
                 "notes": list(self.notes),
             }
         )
-
 
 
 def discover_rules(
@@ -297,7 +292,6 @@ def discover_rules(
     return dataclasses.replace(base, rules=kept)
 
 
-
 def _protected_flag(
     table: pd.DataFrame, protected: str, majority_cut: float, notes: list[str]
 ) -> tuple[np.ndarray, str]:
@@ -315,7 +309,6 @@ def _protected_flag(
     )
 
 
-
 def _outcome_flag(table: pd.DataFrame, outcome: str) -> tuple[np.ndarray, str]:
     if outcome == "unserved" and "unserved" not in table.columns:
         if "served" not in table.columns:
@@ -331,7 +324,6 @@ def _outcome_flag(table: pd.DataFrame, outcome: str) -> tuple[np.ndarray, str]:
     return _flag(table[outcome], outcome), outcome
 
 
-
 def _flag(series: pd.Series, column: str) -> np.ndarray:
     values, _ = numeric_values(series)
     bad = np.isfinite(values) & ~np.isin(values, (0.0, 1.0))
@@ -340,7 +332,6 @@ def _flag(series: pd.Series, column: str) -> np.ndarray:
             f"{column} must be true/false (or 1/0); {int(bad.sum())} row(s) hold other values"
         )
     return values
-
 
 
 def _support_count(min_support: int | float, n_areas: int) -> int:
@@ -354,7 +345,6 @@ def _support_count(min_support: int | float, n_areas: int) -> int:
         f"min_support was {min_support} but must be a whole count of at least 1 or a share "
         "strictly between 0 and 1"
     )
-
 
 
 def _degenerate_reason(a: np.ndarray, c: np.ndarray, a_label: str, c_label: str) -> str | None:
@@ -371,10 +361,8 @@ def _degenerate_reason(a: np.ndarray, c: np.ndarray, a_label: str, c_label: str)
     return None
 
 
-
 def _protected_condition(protected: str, label: str) -> Condition:
     return Condition(attribute=protected, value="yes", verb="are", phrase=label)
-
 
 
 def _conditions(
@@ -408,7 +396,6 @@ def _conditions(
     return found
 
 
-
 def _categories(series: pd.Series, column: str) -> list[tuple[Condition, np.ndarray]]:
     labels = text_values(series)
     out = []
@@ -419,7 +406,6 @@ def _categories(series: pd.Series, column: str) -> list[tuple[Condition, np.ndar
             verb, phrase = "have", f"{column} = {level}"
         out.append((Condition(column, level, verb, phrase), labels == level))
     return out
-
 
 
 def _quartiles(
@@ -444,7 +430,6 @@ def _quartiles(
     return out
 
 
-
 def _predicate(conds: Sequence[Condition]) -> str:
     """Join predicates, saying a shared verb once: 'are majority-minority and low-income'."""
     parts: list[str] = []
@@ -455,7 +440,6 @@ def _predicate(conds: Sequence[Condition]) -> str:
     if len(parts) == 1:
         return parts[0]
     return ", ".join(parts[:-1]) + " and " + parts[-1]
-
 
 
 def _rule(

@@ -21,7 +21,6 @@ def _empty_group_message(name: str, what: str) -> str:
     )
 
 
-
 def _dissim(x: np.ndarray, y: np.ndarray) -> float:
     """Two-group dissimilarity, Duncan and Duncan (1955), ASR 20(2), 210-217.
 
@@ -32,7 +31,6 @@ def _dissim(x: np.ndarray, y: np.ndarray) -> float:
     if X <= 0 or Y <= 0:
         return math.nan
     return float(0.5 * np.abs(x / X - y / Y).sum())
-
 
 
 def _interaction(x: np.ndarray, y: np.ndarray, t: np.ndarray) -> float:
@@ -48,7 +46,6 @@ def _interaction(x: np.ndarray, y: np.ndarray, t: np.ndarray) -> float:
     return float(np.dot(x / X, share))
 
 
-
 def _eta_squared(x: np.ndarray, t: np.ndarray) -> float:
     """Correlation ratio ``eta^2 = (xPx* - P) / (1 - P)``, ``P = X/T``.
 
@@ -61,7 +58,6 @@ def _eta_squared(x: np.ndarray, t: np.ndarray) -> float:
         return math.nan
     P = X / T
     return float((_interaction(x, x, t) - P) / (1.0 - P))
-
 
 
 def dissimilarity(x: ArrayLike, y: ArrayLike) -> float:
@@ -105,7 +101,6 @@ def dissimilarity(x: ArrayLike, y: ArrayLike) -> float:
     return _dissim(xa, ya)
 
 
-
 def dissimilarity_vs_rest(x: ArrayLike, t: ArrayLike) -> float:
     """Dissimilarity of group ``x`` against everyone else (``t - x``).
 
@@ -143,9 +138,10 @@ def dissimilarity_vs_rest(x: ArrayLike, t: ArrayLike) -> float:
     if xa.sum() <= 0:
         warn_degenerate(_empty_group_message("x", "dissimilarity"))
     elif rest.sum() <= 0:
-        warn_degenerate("group x is the whole population, so its dissimilarity from the rest is undefined")
+        warn_degenerate(
+            "group x is the whole population, so its dissimilarity from the rest is undefined"
+        )
     return _dissim(xa, rest)
-
 
 
 def isolation(x: ArrayLike, t: ArrayLike) -> float:
@@ -186,7 +182,6 @@ def isolation(x: ArrayLike, t: ArrayLike) -> float:
     return _interaction(xa, xa, ta)
 
 
-
 def exposure(x: ArrayLike, y: ArrayLike, t: ArrayLike) -> float:
     """Exposure index xPy*: the share of group ``y`` met by the average member of ``x``.
 
@@ -225,7 +220,6 @@ def exposure(x: ArrayLike, y: ArrayLike, t: ArrayLike) -> float:
     if xa.sum() <= 0:
         warn_degenerate(_empty_group_message("x", "exposure"))
     return _interaction(xa, ya, ta)
-
 
 
 def correlation_ratio(x: ArrayLike, t: ArrayLike) -> float:

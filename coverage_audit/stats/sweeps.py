@@ -21,11 +21,9 @@ from .four_fifths import below_four_fifths
 DEFAULT_THRESHOLDS: tuple[float, ...] = tuple(np.round(np.linspace(0.25, 0.75, 11), 10).tolist())
 
 
-
 def served_from_fraction(covered_fraction: np.ndarray, threshold: float) -> np.ndarray:
     """Return the served flag: served means a covered fraction of at least ``threshold``."""
     return np.asarray(covered_fraction, dtype=float) >= threshold
-
 
 
 @dataclass(frozen=True)
@@ -45,7 +43,6 @@ class GroupAtThreshold:
                 "below_four_fifths": self.below_four_fifths,
             }
         )
-
 
 
 @dataclass(frozen=True)
@@ -78,7 +75,6 @@ class SensitivityRow:
                 "groups": {g: v.to_dict() for g, v in self.groups.items()},
             }
         )
-
 
 
 def sensitivity_thresholds(
