@@ -13,8 +13,9 @@ import sys
 from collections.abc import Mapping
 from dataclasses import dataclass, field, fields, replace
 from pathlib import Path
-from typing import Any
+from typing import Any, get_args
 
+from .choices import Comparison, ContiguityKind, Engine, FdrMethod, IslandPolicy
 from .errors import SpecError
 from .spec_access import (
     _ACCESS_KEYS as _ACCESS_KEYS,
@@ -140,6 +141,7 @@ from .spec_values import (
     _path,
     _str,
     _table,
+    default_of,
 )
 
 if sys.version_info >= (3, 11):
@@ -193,11 +195,11 @@ __all__ = [
 #: Seed used when a spec names none, so that reruns are identical by default.
 DEFAULT_SEED = 20_261_201
 
-COMPARISONS = ("reference", "highest")
-FDR_METHODS = ("bh", "none")
+COMPARISONS: tuple[Comparison, ...] = get_args(Comparison)
+FDR_METHODS: tuple[FdrMethod, ...] = get_args(FdrMethod)
 #: Where covered fractions are computed: in this process, or on dask (threads, or the
 #: cluster at ``dask_scheduler``), for regions past one machine.
-ENGINES = ("local", "dask")
+ENGINES: tuple[Engine, ...] = get_args(Engine)
 #: Largest number of random permutations or Monte Carlo draws a spec may ask for: p-values
 #: then resolve 1/100,000, and the largest draws stay within memory and hours, not days
 #: (one billion permutations would need terabytes).
@@ -213,13 +215,13 @@ class AnalysisSpec:
     """Thresholds, inference settings and the seed."""
 
     served_threshold: float = 0.5
-    comparison: str = "reference"
-    contiguity: str = "queen"
-    islands: str = "exclude"
+    comparison: Comparison = "reference"
+    contiguity: ContiguityKind = "queen"
+    islands: IslandPolicy = "exclude"
     knn_k: int = 1
     permutations: int = 999
     seed: int = DEFAULT_SEED
-    fdr: str = "bh"
+    fdr: FdrMethod = "bh"
     alpha: float = 0.05
     enclave_min_surround: float = 0.75
     enclave_min_population: float = 0.0
@@ -229,7 +231,7 @@ class AnalysisSpec:
     circle_vertices: int = 128
     analysis_crs: str | None = None
     sensitivity: bool = True
-    engine: str = "local"
+    engine: Engine = "local"
     dask_scheduler: str | None = None
     partitions: int | None = None
 
@@ -492,7 +494,8 @@ def spec_from_dict(
     population = replace(
         _population_from(pop_d, where),
         replicates=_path(pop_d, "replicates", base, where, "population"),
-        margin_draws=_int(pop_d, "margin_draws", where, "population", minimum=19) or 200,
+        margin_draws=_int(pop_d, "margin_draws", where, "population", minimum=19)
+        or default_of(PopulationSpec, "margin_draws"),
     )
 
     raw_fp = data["footprint"]
@@ -519,10 +522,11 @@ def spec_from_dict(
         )
     out_d = _table(data.get("output", {}), where, "output")
     _check_keys(out_d, _OUTPUT_KEYS, where, "[output]")
+    out = OutputSpec()  # the defaults
     output = OutputSpec(
-        map=_bool(out_d, "map", where, "output", True),
-        report=_bool(out_d, "report", where, "output", True),
-        tiles=_bool(out_d, "tiles", where, "output", False),
+        map=_bool(out_d, "map", where, "output", out.map),
+        report=_bool(out_d, "report", where, "output", out.report),
+        tiles=_bool(out_d, "tiles", where, "output", out.tiles),
     )
     explain = _explain_from(data.get("explain"), where)
     change = None
@@ -569,31 +573,46 @@ def spec_from_dict(
 def _analysis_from(an_d: Mapping[str, Any], where: str) -> AnalysisSpec:
     _check_keys(an_d, _ANALYSIS_KEYS, where, "[analysis]")
     t = "analysis"
+    d = AnalysisSpec()  # the defaults, written once in the dataclass
     return AnalysisSpec(
-        served_threshold=_float(an_d, "served_threshold", where, t, 0.5, 0.0, 1.0, open_low=True),
-        comparison=_choice(an_d, "comparison", where, t, COMPARISONS, "reference"),
-        contiguity=_choice(an_d, "contiguity", where, t, ("queen", "rook"), "queen"),
-        islands=_choice(an_d, "islands", where, t, ("exclude", "knn"), "exclude"),
-        knn_k=_int(an_d, "knn_k", where, t, minimum=1, maximum=MAX_KNN) or 1,
-        permutations=_int_default(
-            an_d, "permutations", where, t, 999, minimum=1, maximum=MAX_DRAWS
+        served_threshold=_float(
+            an_d, "served_threshold", where, t, d.served_threshold, 0.0, 1.0, open_low=True
         ),
-        seed=_int_default(an_d, "seed", where, t, DEFAULT_SEED, minimum=0),
-        fdr=_choice(an_d, "fdr", where, t, FDR_METHODS, "bh"),
-        alpha=_float(an_d, "alpha", where, t, 0.05, 0.0, 1.0, open_low=True),
-        enclave_min_surround=_float(an_d, "enclave_min_surround", where, t, 0.75, 0.0, 1.0),
-        enclave_min_population=_float(an_d, "enclave_min_population", where, t, 0.0, 0.0, None),
+        comparison=_choice(an_d, "comparison", where, t, COMPARISONS, d.comparison),
+        contiguity=_choice(an_d, "contiguity", where, t, get_args(ContiguityKind), d.contiguity),
+        islands=_choice(an_d, "islands", where, t, get_args(IslandPolicy), d.islands),
+        knn_k=_int(an_d, "knn_k", where, t, minimum=1, maximum=MAX_KNN) or d.knn_k,
+        permutations=_int_default(
+            an_d, "permutations", where, t, d.permutations, minimum=1, maximum=MAX_DRAWS
+        ),
+        seed=_int_default(an_d, "seed", where, t, d.seed, minimum=0),
+        fdr=_choice(an_d, "fdr", where, t, FDR_METHODS, d.fdr),
+        alpha=_float(an_d, "alpha", where, t, d.alpha, 0.0, 1.0, open_low=True),
+        enclave_min_surround=_float(
+            an_d, "enclave_min_surround", where, t, d.enclave_min_surround, 0.0, 1.0
+        ),
+        enclave_min_population=_float(
+            an_d, "enclave_min_population", where, t, d.enclave_min_population, 0.0, None
+        ),
         enclave_draws=_int_default(
-            an_d, "enclave_draws", where, t, 999, minimum=0, maximum=MAX_DRAWS
+            an_d, "enclave_draws", where, t, d.enclave_draws, minimum=0, maximum=MAX_DRAWS
         ),
         contrast_group=_str(an_d, "contrast_group", where, t),
-        transparent_zero_population=_bool(an_d, "transparent_zero_population", where, t, False),
+        transparent_zero_population=_bool(
+            an_d, "transparent_zero_population", where, t, d.transparent_zero_population
+        ),
         circle_vertices=_int_default(
-            an_d, "circle_vertices", where, t, 128, minimum=16, maximum=MAX_CIRCLE_VERTICES
+            an_d,
+            "circle_vertices",
+            where,
+            t,
+            d.circle_vertices,
+            minimum=16,
+            maximum=MAX_CIRCLE_VERTICES,
         ),
         analysis_crs=_str(an_d, "analysis_crs", where, t),
-        sensitivity=_bool(an_d, "sensitivity", where, t, True),
-        engine=_choice(an_d, "engine", where, t, ENGINES, "local"),
+        sensitivity=_bool(an_d, "sensitivity", where, t, d.sensitivity),
+        engine=_choice(an_d, "engine", where, t, ENGINES, d.engine),
         dask_scheduler=_str(an_d, "dask_scheduler", where, t),
         partitions=_int(an_d, "partitions", where, t, minimum=1, maximum=MAX_PARTITIONS),
     )

@@ -17,6 +17,7 @@ from .spec_values import (
     _path,
     _str,
     _table,
+    default_of,
 )
 
 #: Time units accepted for a catchment measured on a travel-time table, in minutes.
@@ -118,7 +119,7 @@ def _access_from(value: Any, base: Path, where: str, footprint: FootprintSpec) -
     if "catchment" not in ac_d:
         raise SpecError(f'{where}: [access] catchment is required, e.g. catchment = "15 km"')
     catchment, unit, factor = _catchment(ac_d["catchment"], where)
-    raw_decay = ac_d.get("decay", "none")
+    raw_decay = ac_d.get("decay", default_of(AccessSpec, "decay"))
     steps: tuple[tuple[float, float], ...] = ()
     if isinstance(raw_decay, list):
         from .stats.access import check_steps
@@ -151,7 +152,9 @@ def _access_from(value: Any, base: Path, where: str, footprint: FootprintSpec) -
             f'{where}: [access] decay was {raw_decay!r} but is expected to be "none", '
             '"gaussian" or a list of [edge, weight] pairs such as [[5, 1.0], [10, 0.68], [15, 0.22]]'
         )
-    origins = _choice(ac_d, "origins", where, "access", ACCESS_ORIGINS, "centroid")
+    origins = _choice(
+        ac_d, "origins", where, "access", ACCESS_ORIGINS, default_of(AccessSpec, "origins")
+    )
     if origins == "population":
         raise SpecError(
             f'{where}: [access] origins = "population" needs census blocks (population-weighted '
@@ -178,12 +181,21 @@ def _access_from(value: Any, base: Path, where: str, footprint: FootprintSpec) -
         capacity=_str(ac_d, "capacity", where, "access"),
         origins=origins,
         costs=costs,
-        cost_origin=_str(ac_d, "cost_origin", where, "access") or "origin",
-        cost_site=_str(ac_d, "cost_site", where, "access") or "site",
-        cost_column=_str(ac_d, "cost_column", where, "access") or "cost",
+        cost_origin=_str(ac_d, "cost_origin", where, "access")
+        or default_of(AccessSpec, "cost_origin"),
+        cost_site=_str(ac_d, "cost_site", where, "access") or default_of(AccessSpec, "cost_site"),
+        cost_column=_str(ac_d, "cost_column", where, "access")
+        or default_of(AccessSpec, "cost_column"),
         cost_unit=cost_unit,
         site_id=_str(ac_d, "site_id", where, "access"),
         low_access_fraction=_float(
-            ac_d, "low_access_fraction", where, "access", 0.5, 0.0, None, open_low=True
+            ac_d,
+            "low_access_fraction",
+            where,
+            "access",
+            default_of(AccessSpec, "low_access_fraction"),
+            0.0,
+            None,
+            open_low=True,
         ),
     )

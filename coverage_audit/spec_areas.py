@@ -22,6 +22,7 @@ from .spec_values import (
     _path,
     _str,
     _table,
+    default_of,
 )
 
 MAJORITY_RULES = ("above", "at_or_above")
@@ -210,14 +211,31 @@ def _population_from(pop_d: Mapping[str, Any], where: str) -> PopulationSpec:
             f'{where}: [population] reference was "{reference}" but must be one of the groups '
             f"{names}"
         )
-    derive = _bool(pop_d, "derive_minority", where, "population", False)
+    derive = _bool(
+        pop_d, "derive_minority", where, "population", default_of(PopulationSpec, "derive_minority")
+    )
     if derive and "minority" in names:
         raise SpecError(
             f'{where}: [population] has a group named "minority" and derive_minority = true; '
             "use one or the other"
         )
-    share = _float(pop_d, "majority_minority_share", where, "population", 0.5, 0.0, 1.0)
-    rule = _choice(pop_d, "majority_minority_rule", where, "population", MAJORITY_RULES, "above")
+    share = _float(
+        pop_d,
+        "majority_minority_share",
+        where,
+        "population",
+        default_of(PopulationSpec, "majority_minority_share"),
+        0.0,
+        1.0,
+    )
+    rule = _choice(
+        pop_d,
+        "majority_minority_rule",
+        where,
+        "population",
+        MAJORITY_RULES,
+        default_of(PopulationSpec, "majority_minority_rule"),
+    )
     return PopulationSpec(
         total=total,
         groups=tuple(groups),
@@ -229,5 +247,5 @@ def _population_from(pop_d: Mapping[str, Any], where: str) -> PopulationSpec:
         labels=tuple(labels),
         moes=tuple(moes),
         total_moe=_str(pop_d, "total_moe", where, "population"),
-        unit=_str(pop_d, "unit", where, "population") or "people",
+        unit=_str(pop_d, "unit", where, "population") or default_of(PopulationSpec, "unit"),
     )

@@ -14,6 +14,7 @@ from .spec_values import (
     _path,
     _str,
     _table,
+    default_of,
 )
 
 #: Presets of block count columns: name -> (total column, {group name: column}).
@@ -140,7 +141,7 @@ def _blocks_from(
     assert total is not None
     return BlocksSpec(
         path=_path(d, "path", base, where, "blocks", required=True),  # type: ignore[arg-type]
-        id=_str(d, "id", where, "blocks") or "GEOID20",
+        id=_str(d, "id", where, "blocks") or default_of(BlocksSpec, "id"),
         total=total,
         groups=tuple((n, columns[n]) for n in given),
         preset=preset,

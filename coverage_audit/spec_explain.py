@@ -17,6 +17,7 @@ from .spec_values import (
     _path,
     _str,
     _table,
+    default_of,
 )
 
 #: Longest rule (conditions joined by "and") searched; the search grows combinatorially.
@@ -94,7 +95,8 @@ def _explain_from(value: Any, where: str) -> ExplainSpec | None:
                 f"got {hub!r}"
             )
         hub_t = (float(hub[0]), float(hub[1]))
-    support = ex_d.get("rule_min_support", 0.05)
+    d = ExplainSpec()  # the defaults, written once in the dataclass
+    support = ex_d.get("rule_min_support", d.rule_min_support)
     if isinstance(support, bool) or not isinstance(support, (int, float)) or support <= 0:
         raise SpecError(
             f"{where}: [explain] rule_min_support must be a share in (0, 1) or a count of areas, "
@@ -104,9 +106,9 @@ def _explain_from(value: Any, where: str) -> ExplainSpec | None:
         controls=_str_list(ex_d, "controls", where, "explain"),
         categorical=_str_list(ex_d, "categorical", where, "explain"),
         hub=hub_t,
-        hub_name=_str(ex_d, "hub_name", where, "explain") or "hub",
-        models=_bool(ex_d, "models", where, "explain", True),
-        rules=_bool(ex_d, "rules", where, "explain", True),
+        hub_name=_str(ex_d, "hub_name", where, "explain") or d.hub_name,
+        models=_bool(ex_d, "models", where, "explain", d.models),
+        rules=_bool(ex_d, "rules", where, "explain", d.rules),
         rule_conditions=_str_list(ex_d, "rule_conditions", where, "explain"),
         rule_max_length=_int_default(
             ex_d, "rule_max_length", where, "explain", 2, minimum=1, maximum=MAX_RULE_LENGTH
@@ -140,6 +142,15 @@ def _activity_from(value: Any, base: Path, where: str) -> ActivitySpec | None:
         lender_column=lender_column,
         count_column=count_column,
         lender_columns=lender_columns,
-        alpha=_float(ac_d, "alpha", where, "activity", 0.05, 0.0, 1.0, open_low=True),
+        alpha=_float(
+            ac_d,
+            "alpha",
+            where,
+            "activity",
+            default_of(ActivitySpec, "alpha"),
+            0.0,
+            1.0,
+            open_low=True,
+        ),
         id_width=_int(ac_d, "id_width", where, "activity", minimum=1),
     )

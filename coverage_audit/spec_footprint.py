@@ -18,6 +18,7 @@ from .spec_values import (
     _choice,
     _path,
     _str,
+    default_of,
 )
 
 FOOTPRINT_KINDS = ("polygons", "points", "ids", "zips")
@@ -152,7 +153,14 @@ def _footprint_from(
         raise SpecError(
             f'{where}: [{label}] kind was "{kind}" but is expected to be one of {list(FOOTPRINT_KINDS)}'
         )
-    unit = _choice(fp_d, "radius_unit", where, label, tuple(LENGTH_UNITS), "m")
+    unit = _choice(
+        fp_d,
+        "radius_unit",
+        where,
+        label,
+        tuple(LENGTH_UNITS),
+        default_of(FootprintSpec, "radius_unit"),
+    )
     radius_m: float | None = None
     if kind in ("polygons", "points") and path is None:
         raise SpecError(f'{where}: [{label}] kind = "{kind}" needs path = the footprint file')

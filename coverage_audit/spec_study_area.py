@@ -15,6 +15,7 @@ from .spec_values import (
     _path,
     _str,
     _table,
+    default_of,
 )
 
 #: How an area is judged inside a polygon study area: by its representative point, or by
@@ -75,9 +76,18 @@ def _study_area_from(value: Any, base: Path, where: str) -> StudyAreaSpec | None
             f"ids, prefixes (GEOID prefixes such as county codes) or within (a distance from "
             f'the footprint, e.g. "5 km"); found {given or "none"}'
         )
-    name = _str(sa_d, "name", where, t) or "study area"
-    rule = _choice(sa_d, "inside", where, t, STUDY_AREA_RULES, "point")
-    min_share = _float(sa_d, "min_share", where, t, 0.5, 0.0, 1.0, open_low=True)
+    name = _str(sa_d, "name", where, t) or default_of(StudyAreaSpec, "name")
+    rule = _choice(sa_d, "inside", where, t, STUDY_AREA_RULES, default_of(StudyAreaSpec, "rule"))
+    min_share = _float(
+        sa_d,
+        "min_share",
+        where,
+        t,
+        default_of(StudyAreaSpec, "min_share"),
+        0.0,
+        1.0,
+        open_low=True,
+    )
     key = given[0]
     if key == "within":
         try:
