@@ -10,9 +10,10 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
-from typing import Any
+from typing import TypeAlias
 
 import numpy as np
+import pandas as pd
 import scipy.sparse as sp
 from libpysal.graph import Graph
 from numpy.typing import ArrayLike
@@ -50,30 +51,65 @@ def _length(values: ArrayLike) -> int:
     return int(np.asarray(values).size)
 
 
-def _resolve_weights(graph: Any, n_values: int, *, what: str) -> _Weights:
+#: The spatial weights the statistics accept.
+WeightsLike: TypeAlias = AreaGraph | Graph | sp.spmatrix | sp.sparray
+
+
+@dataclass(frozen=True)
+class WeightsParts:
+    """What any accepted weights object comes down to.
+
+    Attributes
+    ----------
+    matrix : scipy.sparse.csr_matrix
+        The weights between the nodes, as float.
+    mask : numpy.ndarray or None
+        For an ``AreaGraph``: which of its areas take part (``stats_mask``); else None.
+    node_ids : numpy.ndarray or None
+        Ids (as text) of the matrix's rows, where the weights carry them: an
+        ``AreaGraph``'s ids of the areas taking part, a libpysal ``Graph``'s ``unique_ids``.
+    """
+
+    matrix: sp.csr_matrix
+    mask: np.ndarray | None
+    node_ids: np.ndarray | None
+
+
+def weights_parts(weights: object) -> WeightsParts | None:
+    """Split an ``AreaGraph``, a libpysal ``Graph`` or a sparse matrix into its parts.
+
+    The one reading of a weights object, shared by the spatial statistics and the residual
+    Moran of the exclusion models; None for anything else (each caller says what it takes).
+    """
+    if isinstance(weights, AreaGraph):
+        mask = np.asarray(weights.stats_mask, dtype=bool)
+        ids = np.asarray(weights.ids, dtype=object)[mask]
+        return WeightsParts(sp.csr_matrix(weights.stats_adjacency, dtype=np.float64), mask, ids)
+    if isinstance(weights, Graph):
+        ids = np.asarray(pd.Index(weights.unique_ids).astype(str), dtype=object)
+        return WeightsParts(sp.csr_matrix(weights.sparse, dtype=np.float64), None, ids)
+    if sp.issparse(weights):
+        return WeightsParts(sp.csr_matrix(weights, dtype=np.float64), None, None)
+    return None
+
+
+def _resolve_weights(graph: WeightsLike, n_values: int, *, what: str) -> _Weights:
     """Binary and row-standardised weights over the areas taking part."""
-    mask = None
+    parts = weights_parts(graph)
+    if parts is None:
+        raise AnalysisError(
+            f"weights were a {type(graph).__name__}; give an AreaGraph, a libpysal Graph or "
+            "a square scipy sparse matrix"
+        )
+    matrix, mask = parts.matrix, parts.mask
+    n_input = matrix.shape[0]
     if isinstance(graph, AreaGraph):
+        n_input = graph.n
         if n_values != graph.n:
             raise AnalysisError(
                 f"{what} has {n_values} values but the AreaGraph has {graph.n} areas; give "
                 "one value per area, in the graph's order"
             )
-        mask = np.asarray(graph.stats_mask, dtype=bool)
-        matrix = graph.stats_adjacency
-        n_input = graph.n
-    elif isinstance(graph, Graph):
-        matrix = graph.sparse
-        n_input = matrix.shape[0]
-    elif sp.issparse(graph):
-        matrix = graph
-        n_input = matrix.shape[0]
-    else:
-        raise AnalysisError(
-            f"weights were a {type(graph).__name__}; give an AreaGraph, a libpysal Graph or "
-            "a square scipy sparse matrix"
-        )
-    matrix = sp.csr_matrix(matrix, dtype=np.float64)
     if matrix.shape[0] != matrix.shape[1]:
         raise AnalysisError(f"weights matrix is {matrix.shape[0]} x {matrix.shape[1]}, not square")
     if mask is None and n_values != n_input:

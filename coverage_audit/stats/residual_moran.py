@@ -18,6 +18,7 @@ import scipy.sparse as sp
 
 from .._util import to_jsonable
 from ..errors import AnalysisError
+from ._spatial import WeightsLike, weights_parts
 from .moran import moran_moments
 
 #: |z| of residual Moran's I above which the residuals are called spatially clustered.
@@ -72,27 +73,31 @@ class ResidualMoran:
         )
 
 
-def _resolve_weights(weights: Any, ids: np.ndarray) -> tuple[np.ndarray, sp.csr_matrix] | None:
+def _resolve_weights(
+    weights: WeightsLike | np.ndarray | None, ids: np.ndarray
+) -> tuple[np.ndarray, sp.csr_matrix] | None:
     """Return (table positions of the weight nodes, sparse weights over those nodes)."""
     if weights is None:
         return None
     n = ids.size
+    parts = weights_parts(weights)
     node_ids: np.ndarray | None = None
-    if hasattr(weights, "stats_adjacency") and hasattr(weights, "stats_mask"):
-        node_ids = np.asarray(weights.ids, dtype=object)[np.asarray(weights.stats_mask)]
-        matrix = sp.csr_matrix(weights.stats_adjacency, dtype=float)
-    elif hasattr(weights, "sparse") and hasattr(weights, "unique_ids"):
-        matrix = sp.csr_matrix(weights.sparse, dtype=float)
-        graph_ids = np.asarray(pd.Index(weights.unique_ids).astype(str), dtype=object)
-        if set(graph_ids) <= set(ids):
-            node_ids = graph_ids
-        elif graph_ids.size != n:
-            raise AnalysisError(
-                f"the weights graph has {graph_ids.size} nodes whose ids are not area ids, and the "
-                f"table has {n} rows: give a graph indexed by area id or one node per row"
-            )
-    else:
+    if parts is None:
         matrix = sp.csr_matrix(weights, dtype=float)
+    else:
+        matrix = parts.matrix
+        if parts.mask is not None:
+            node_ids = parts.node_ids
+        elif parts.node_ids is not None:
+            graph_ids = parts.node_ids
+            if set(graph_ids) <= set(ids):
+                node_ids = graph_ids
+            elif graph_ids.size != n:
+                raise AnalysisError(
+                    f"the weights graph has {graph_ids.size} nodes whose ids are not area ids, "
+                    f"and the table has {n} rows: give a graph indexed by area id or one node "
+                    "per row"
+                )
     if node_ids is None:
         if matrix.shape != (n, n):
             raise AnalysisError(
