@@ -11,7 +11,6 @@ from __future__ import annotations
 import numbers
 import warnings
 from collections.abc import Iterable, Mapping
-from typing import Any
 
 import numpy as np
 import pandas as pd
@@ -59,7 +58,7 @@ def text_values(series: pd.Series) -> np.ndarray:
     return text
 
 
-def check_draws(permutations: Any, rng: Any) -> None:
+def check_draws(permutations: object, rng: object) -> None:
     if isinstance(permutations, bool) or not isinstance(permutations, numbers.Integral):
         raise SpecError(f"permutations was {permutations!r} but must be a whole number")
     if int(permutations) < 0:
@@ -71,7 +70,7 @@ def check_draws(permutations: Any, rng: Any) -> None:
         )
 
 
-def check_alpha(alpha: Any) -> None:
+def check_alpha(alpha: object) -> None:
     if isinstance(alpha, bool) or not isinstance(alpha, numbers.Real) or not 0 < float(alpha) < 1:
         raise SpecError(f"alpha was {alpha!r} but must be a number strictly between 0 and 1")
 
@@ -209,7 +208,7 @@ def as_fractions(covered_fraction: ArrayLike, name: str = "covered_fraction") ->
     return np.clip(arr, 0.0, 1.0)
 
 
-def check_permutation_count(permutations: Any) -> int:
+def check_permutation_count(permutations: object) -> int:
     if (
         isinstance(permutations, bool)
         or not isinstance(permutations, numbers.Integral)
@@ -222,7 +221,7 @@ def check_permutation_count(permutations: Any) -> int:
     return int(permutations)
 
 
-def check_generator(rng: Any) -> np.random.Generator:
+def check_generator(rng: object) -> np.random.Generator:
     if not isinstance(rng, np.random.Generator):
         raise SpecError(
             "rng must be a numpy.random.Generator, for example "

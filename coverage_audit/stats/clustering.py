@@ -45,6 +45,7 @@ import pandas as pd
 from numpy.typing import ArrayLike
 
 from .._util import to_jsonable
+from ..choices import FdrMethod
 from ..errors import AnalysisError, SpecError
 from ..weights import AreaGraph
 from ._spatial import _MIN_AREAS, _binary, _resolve_weights, _row_standardise, _values
@@ -193,7 +194,7 @@ def clustering_summary(
     *,
     permutations: int = 999,
     rng: np.random.Generator | None = None,
-    fdr: str = "bh",
+    fdr: FdrMethod = "bh",
     alpha: float = 0.05,
 ) -> ClusteringResult:
     """Run every clustering statistic of an audit.

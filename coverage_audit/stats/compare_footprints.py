@@ -259,7 +259,7 @@ def _coverage_of(name: str, summary: Mapping[str, Any]) -> tuple[Mapping[str, An
     return coverage, None if enclaves is None else int(enclaves)
 
 
-def _group_counts(entry: Any, by: str) -> tuple[float, float] | None:
+def _group_counts(entry: object, by: str) -> tuple[float, float] | None:
     """Return a group's (covered population, population) for the areal rate, if given."""
     if by != "rate" or not isinstance(entry, Mapping):
         return None

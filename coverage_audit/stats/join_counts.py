@@ -8,12 +8,17 @@ from typing import Any
 
 import numpy as np
 import scipy.sparse as sp
-from libpysal.graph import Graph
 from numpy.typing import ArrayLike
 
 from .._util import clean_number
-from ..weights import AreaGraph
-from ._spatial import _binary, _length, _permutation_blocks, _quadratic_forms, _resolve_weights
+from ._spatial import (
+    WeightsLike,
+    _binary,
+    _length,
+    _permutation_blocks,
+    _quadratic_forms,
+    _resolve_weights,
+)
 from ._validate import check_draws, warn_degenerate
 from .moran import _weight_sums
 
@@ -99,7 +104,7 @@ class JoinCountResult:
 
 def join_counts(
     served: ArrayLike,
-    graph: AreaGraph | Graph | sp.spmatrix | sp.sparray,
+    graph: WeightsLike,
     *,
     permutations: int = 999,
     rng: np.random.Generator | None = None,

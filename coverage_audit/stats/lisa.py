@@ -4,17 +4,17 @@ from __future__ import annotations
 
 from collections.abc import Sequence
 from dataclasses import dataclass, field
-from typing import Any
+from typing import Any, get_args
 
 import numpy as np
 import pandas as pd
 import scipy.sparse as sp
-from libpysal.graph import Graph
 from numpy.typing import ArrayLike
 
+from ..choices import FdrMethod
 from ..errors import AnalysisError, SpecError
-from ..weights import AreaGraph
 from ._spatial import (
+    WeightsLike,
     _conditional_draws,
     _conditional_pvalues,
     _is_constant,
@@ -36,7 +36,7 @@ CLUSTER_LABELS: tuple[str, ...] = (
 
 
 #: Multiple-testing policies of :func:`local_moran`.
-FDR_METHODS: tuple[str, ...] = ("bh", "none")
+FDR_METHODS: tuple[FdrMethod, ...] = get_args(FdrMethod)
 
 
 #: Quadrant codes as esda numbers them (1 HH, 2 LH, 3 LL, 4 HL) and their labels.
@@ -88,7 +88,7 @@ class LocalMoranResult:
     significant: np.ndarray = field(repr=False)
     cluster: np.ndarray = field(repr=False)
     in_statistics: np.ndarray = field(repr=False)
-    fdr: str
+    fdr: FdrMethod
     alpha: float
     permutations: int
 
@@ -123,11 +123,11 @@ class LocalMoranResult:
 
 def local_moran(
     y: ArrayLike,
-    graph: AreaGraph | Graph | sp.spmatrix | sp.sparray,
+    graph: WeightsLike,
     *,
     permutations: int = 999,
     rng: np.random.Generator | None = None,
-    fdr: str = "bh",
+    fdr: FdrMethod = "bh",
     alpha: float = 0.05,
     variable: str | None = None,
 ) -> LocalMoranResult:
@@ -314,7 +314,7 @@ def _local_moran(
 def _local_result(
     core: _LocalCore,
     mask: np.ndarray | None,
-    fdr: str,
+    fdr: FdrMethod,
     alpha: float,
     permutations: int,
     variable: str | None,

@@ -25,6 +25,7 @@ from scipy.optimize import linprog
 
 from .._util import to_jsonable
 from ..errors import AnalysisError, DroppedRowsWarning, SmallSampleWarning, SpecError
+from ._spatial import WeightsLike
 from ._validate import area_ids, check_columns
 from .model_design import MINORITY_STEP, DroppedRow, _build_design
 from .residual_moran import ResidualMoran, _residual_moran, _resolve_weights
@@ -256,7 +257,7 @@ def exclusion_models(
     id_column: str | None = None,
     categorical: Sequence[str] = (),
     category_references: Mapping[str, str] | None = None,
-    weights: Any = None,
+    weights: WeightsLike | np.ndarray | None = None,
     robust: Literal["HC0", "HC1"] = "HC0",
 ) -> ExclusionModels:
     """Model the odds of an area being left out, by minority share, with and without controls.

@@ -15,12 +15,11 @@ from typing import Any
 
 import numpy as np
 import scipy.sparse as sp
-from libpysal.graph import Graph
 from numpy.typing import ArrayLike
 
 from .._util import clean_number
-from ..weights import AreaGraph
 from ._spatial import (
+    WeightsLike,
     _is_constant,
     _length,
     _one_sided_normal_p,
@@ -160,7 +159,7 @@ class BivariateMoranResult:
 
 def moran(
     y: ArrayLike,
-    graph: AreaGraph | Graph | sp.spmatrix | sp.sparray,
+    graph: WeightsLike,
     *,
     permutations: int = 999,
     rng: np.random.Generator | None = None,
@@ -217,7 +216,7 @@ def moran(
 def bivariate_moran(
     x: ArrayLike,
     y: ArrayLike,
-    graph: AreaGraph | Graph | sp.spmatrix | sp.sparray,
+    graph: WeightsLike,
     *,
     permutations: int = 999,
     rng: np.random.Generator | None = None,
