@@ -8,40 +8,5 @@ summary); this module re-exports their public names so that existing imports kee
 
 from __future__ import annotations
 
-from .stats.clustering import (
-    CLUSTER_LABELS,
-    FDR_METHODS,
-    BivariateMoranResult,
-    ClusteringResult,
-    JoinCountResult,
-    LocalMoranResult,
-    MoranResult,
-    benjamini_hochberg,
-    bivariate_moran,
-    clustering_summary,
-    join_counts,
-    lisa_crosstab,
-    local_moran,
-    moran,
-    moran_moments,
-    two_sided_normal_p,
-)
-
-__all__ = [
-    "CLUSTER_LABELS",
-    "FDR_METHODS",
-    "BivariateMoranResult",
-    "ClusteringResult",
-    "JoinCountResult",
-    "LocalMoranResult",
-    "MoranResult",
-    "benjamini_hochberg",
-    "bivariate_moran",
-    "clustering_summary",
-    "join_counts",
-    "lisa_crosstab",
-    "local_moran",
-    "moran",
-    "moran_moments",
-    "two_sided_normal_p",
-]
+from .stats.clustering import *  # noqa: F403 - re-exporting the family is this module's job
+from .stats.clustering import __all__  # noqa: F401
