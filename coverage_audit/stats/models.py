@@ -326,20 +326,8 @@ def exclusion_models(
     ``(2y - 1) x'd >= 0`` for every area, not all zero, means the likelihood has no
     maximum.
     """
-    if robust not in ("HC0", "HC1"):
-        raise SpecError(f'robust was "{robust}" but is expected to be one of ["HC0", "HC1"]')
     controls = tuple(controls)
-    check_columns(table, ["served", "covered_fraction", minority_column, *controls], id_column)
-    if len(set(controls)) != len(controls) or minority_column in controls:
-        raise AnalysisError(
-            f"the control columns {list(controls)} repeat a column or the minority column "
-            f'"{minority_column}"; list each column once'
-        )
-    unknown_cat = [c for c in categorical if c not in controls]
-    if unknown_cat:
-        raise AnalysisError(
-            f"categorical columns {unknown_cat} are not among the controls {list(controls)}"
-        )
+    _check_arguments(table, controls, minority_column, id_column, categorical, robust)
     ids = area_ids(table, id_column)
     design = _build_design(
         table, ids, minority_column, controls, set(categorical), category_references or {}
@@ -356,39 +344,14 @@ def exclusion_models(
     x_full = design.matrix[keep]
     names = design.names
     n, k = x_full.shape
-    if n < k + 2:
-        raise AnalysisError(
-            f"only {n} area(s) have usable values but the model with controls has {k} "
-            f"parameters (intercept, {minority_column}"
-            + (", " + ", ".join(controls) if controls else "")
-            + f"); at least {k + 2} areas are needed: use fewer controls or more areas"
-        )
     unserved = 1.0 - design.served[keep]
     uncovered = 1.0 - design.covered[keep]
-    n_unserved = int(unserved.sum())
-    if n_unserved in (0, n):
-        state = "served" if n_unserved == 0 else "unserved"
-        raise AnalysisError(
-            f"every one of the {n} areas is {state}, so the odds of being unserved cannot be "
-            "modelled; check the served threshold"
-        )
-    if np.ptp(uncovered) == 0:
-        raise AnalysisError(
-            f"covered_fraction is {1 - uncovered[0]:g} in every area, so the fractional model "
-            "has nothing to explain"
-        )
-    _check_rank(x_full[:, :2], names[:2], minority_column)
-    _check_rank(x_full, names, minority_column)
+    _check_outcomes(n, k, unserved, uncovered, controls, minority_column)
     model_sets = [("minority_only", [0, 1])]
     if controls:
         model_sets.append(("with_controls", list(range(k))))
-    for _, cols in model_sets:
-        _check_separation(
-            x_full[:, cols], unserved, [names[c] for c in cols], "unserved", minority_column
-        )
-        _check_separation(
-            x_full[:, cols], uncovered, [names[c] for c in cols], "uncovered share", minority_column
-        )
+    _check_design(x_full, names, unserved, uncovered, model_sets, minority_column)
+    n_unserved = int(unserved.sum())
     events = min(n_unserved, n - n_unserved)
     epp = events / max(k - 1, 1)
     if epp < MIN_EVENTS_PER_PARAMETER:
@@ -404,38 +367,12 @@ def exclusion_models(
     for suffix, cols in model_sets:
         xs = x_full[:, cols]
         col_names = [names[c] for c in cols]
-        models[f"unserved_{suffix}"] = _fit(
-            f"unserved_{suffix}", "logit", unserved, xs, col_names, keep, moran_weights, robust
-        )
-        models[f"uncovered_{suffix}"] = _fit(
-            f"uncovered_{suffix}",
-            "fractional_logit",
-            uncovered,
-            xs,
-            col_names,
-            keep,
-            moran_weights,
-            robust,
-        )
-    changes: list[MinorityChange] = []
-    if controls:
-        for prefix, kind in (("unserved", "logit"), ("uncovered", "fractional_logit")):
-            alone = models[f"{prefix}_minority_only"].terms[1].odds_ratio
-            with_c = models[f"{prefix}_with_controls"].terms[1].odds_ratio
-            ratio = with_c / alone
-            changes.append(MinorityChange(kind, alone, with_c, ratio, 100.0 * (ratio - 1.0)))
-    notes = [OUTCOME_NOTE, SCALE_NOTE]
-    notes.append(
-        "logit standard errors are model-based; fractional logit standard errors are the "
-        f"{robust} sandwich (Papke and Wooldridge 1996)"
-    )
-    if design.references:
-        notes.append(
-            "categorical controls are coded against reference levels: "
-            + ", ".join(f"{c} = {v}" for c, v in design.references.items())
-        )
-    if moran_weights is None:
-        notes.append("no spatial weights were given, so residual Moran's I was not computed")
+        for outcome, kind, y in (
+            ("unserved", "logit", unserved),
+            ("uncovered", "fractional_logit", uncovered),
+        ):
+            name = f"{outcome}_{suffix}"
+            models[name] = _fit(name, kind, y, xs, col_names, keep, moran_weights, robust)
     return ExclusionModels(
         minority_term=names[1],
         controls=controls,
@@ -444,10 +381,112 @@ def exclusion_models(
         n_areas=n,
         events_per_parameter=float(epp),
         models=models,
-        minority_change=tuple(changes),
+        minority_change=_minority_changes(models) if controls else (),
         dropped=tuple(design.dropped),
-        notes=tuple(notes),
+        notes=_notes(robust, design.references, moran_weights is not None),
     )
+
+
+def _check_arguments(
+    table: pd.DataFrame,
+    controls: tuple[str, ...],
+    minority_column: str,
+    id_column: str | None,
+    categorical: Sequence[str],
+    robust: str,
+) -> None:
+    """Raise on an unknown option, a missing column or a column listed twice."""
+    if robust not in ("HC0", "HC1"):
+        raise SpecError(f'robust was "{robust}" but is expected to be one of ["HC0", "HC1"]')
+    check_columns(table, ["served", "covered_fraction", minority_column, *controls], id_column)
+    if len(set(controls)) != len(controls) or minority_column in controls:
+        raise AnalysisError(
+            f"the control columns {list(controls)} repeat a column or the minority column "
+            f'"{minority_column}"; list each column once'
+        )
+    unknown_cat = [c for c in categorical if c not in controls]
+    if unknown_cat:
+        raise AnalysisError(
+            f"categorical columns {unknown_cat} are not among the controls {list(controls)}"
+        )
+
+
+def _check_outcomes(
+    n: int,
+    k: int,
+    unserved: np.ndarray,
+    uncovered: np.ndarray,
+    controls: tuple[str, ...],
+    minority_column: str,
+) -> None:
+    """Raise when too few areas remain or an outcome does not vary."""
+    if n < k + 2:
+        raise AnalysisError(
+            f"only {n} area(s) have usable values but the model with controls has {k} "
+            f"parameters (intercept, {minority_column}"
+            + (", " + ", ".join(controls) if controls else "")
+            + f"); at least {k + 2} areas are needed: use fewer controls or more areas"
+        )
+    n_unserved = int(unserved.sum())
+    if n_unserved in (0, n):
+        state = "served" if n_unserved == 0 else "unserved"
+        raise AnalysisError(
+            f"every one of the {n} areas is {state}, so the odds of being unserved cannot be "
+            "modelled; check the served threshold"
+        )
+    if np.ptp(uncovered) == 0:
+        raise AnalysisError(
+            f"covered_fraction is {1 - uncovered[0]:g} in every area, so the fractional model "
+            "has nothing to explain"
+        )
+
+
+def _check_design(
+    x_full: np.ndarray,
+    names: Sequence[str],
+    unserved: np.ndarray,
+    uncovered: np.ndarray,
+    model_sets: Sequence[tuple[str, list[int]]],
+    minority_column: str,
+) -> None:
+    """Raise on a collinear design or a separated outcome, before any fit."""
+    _check_rank(x_full[:, :2], names[:2], minority_column)
+    _check_rank(x_full, names, minority_column)
+    for _, cols in model_sets:
+        _check_separation(
+            x_full[:, cols], unserved, [names[c] for c in cols], "unserved", minority_column
+        )
+        _check_separation(
+            x_full[:, cols], uncovered, [names[c] for c in cols], "uncovered share", minority_column
+        )
+
+
+def _minority_changes(models: Mapping[str, ModelFit]) -> tuple[MinorityChange, ...]:
+    """Return how the minority odds ratio moves when the controls enter, per outcome."""
+    changes: list[MinorityChange] = []
+    for prefix, kind in (("unserved", "logit"), ("uncovered", "fractional_logit")):
+        alone = models[f"{prefix}_minority_only"].terms[1].odds_ratio
+        with_c = models[f"{prefix}_with_controls"].terms[1].odds_ratio
+        ratio = with_c / alone
+        changes.append(MinorityChange(kind, alone, with_c, ratio, 100.0 * (ratio - 1.0)))
+    return tuple(changes)
+
+
+def _notes(robust: str, references: Mapping[str, str], spatial: bool) -> tuple[str, ...]:
+    """Return the reading notes: outcome, scale, standard errors, references, residual Moran."""
+    notes = [OUTCOME_NOTE, SCALE_NOTE]
+    notes.append(
+        "logit standard errors are model-based; fractional logit standard errors are the "
+        f"{robust} sandwich (Papke and Wooldridge 1996)"
+    )
+    if references:
+        notes.append(
+            "categorical controls are coded against reference levels: "
+            + ", ".join(f"{c} = {v}" for c, v in references.items())
+        )
+    if not spatial:
+        notes.append("no spatial weights were given, so residual Moran's I was not computed")
+    return tuple(notes)
 
 
 def _check_rank(x: np.ndarray, names: Sequence[str], minority_column: str) -> None:
