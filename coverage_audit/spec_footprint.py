@@ -118,37 +118,20 @@ def _footprint_from(
             )
         if fp_d.get("kind", "polygons") != "polygons":
             raise SpecError(f'{where}: [{label}] id and ids with path need kind = "polygons"')
-    if zips is not None or relationship is not None or crosswalk is not None:
-        if zips is None or (relationship is None) == (crosswalk is None):
-            raise SpecError(
-                f'{where}: [{label}] ZIP-code zones need zips = "FILE" and exactly one of '
-                'zcta_relationship = "FILE" (the Census ZCTA-to-tract relationship file) or '
-                'crosswalk = "FILE" (with crosswalk_ratio = "COLUMN")'
-            )
-        if crosswalk is not None and crosswalk_ratio is None:
-            raise SpecError(
-                f'{where}: [{label}] crosswalk needs crosswalk_ratio = "COLUMN", the share of '
-                "each area held by the ZIP code (for example a residential-address ratio)"
-            )
+    _check_zip_sources(zips, relationship, crosswalk, crosswalk_ratio, where, label)
     radius = fp_d.get("radius")
     radius_column = _str(fp_d, "radius_column", where, label)
     kind = fp_d.get("kind")
     if kind is None:
-        if zips is not None:
-            kind = "zips"
-        elif layer_id is not None:
-            kind = "polygons"
-        elif served_ids is not None or served_column is not None or ids is not None:
-            kind = "ids"
-        elif radius is not None or radius_column is not None:
-            kind = "points"
-        elif path is not None:
-            kind = "polygons"
-        else:
-            raise SpecError(
-                f"{where}: [{label}] needs a path (polygons, or points with radius), "
-                "served_ids, served_column or ids"
-            )
+        kind = _inferred_kind(
+            zips=zips,
+            layer=layer_id is not None,
+            listed=served_ids is not None or served_column is not None or ids is not None,
+            reach=radius is not None or radius_column is not None,
+            path=path,
+            where=where,
+            label=label,
+        )
     if kind not in FOOTPRINT_KINDS:
         raise SpecError(
             f'{where}: [{label}] kind was "{kind}" but is expected to be one of {list(FOOTPRINT_KINDS)}'
@@ -174,21 +157,7 @@ def _footprint_from(
             radius_m = _parse_length(radius, unit, where, label)
     elif radius is not None or radius_column is not None:
         raise SpecError(f'{where}: [{label}] radius applies only to kind = "points"')
-    if kind == "ids":
-        given = [
-            k
-            for k, v in (("served_ids", served_ids), ("served_column", served_column), ("ids", ids))
-            if v is not None
-        ]
-        if len(given) != 1:
-            raise SpecError(
-                f"{where}: [{label}] a list of served areas needs exactly one of served_ids "
-                f"(a file of ids), served_column (a flag column of the areas) or ids; got {given}"
-            )
-    elif served_ids is not None or served_column is not None or (ids is not None and not layer_id):
-        raise SpecError(
-            f'{where}: [{label}] served_ids/served_column/ids apply only to kind = "ids"'
-        )
+    _check_served_list(kind, served_ids, served_column, ids, layer_id, where, label)
     return FootprintSpec(
         name=name,
         kind=kind,
@@ -209,6 +178,84 @@ def _footprint_from(
         crosswalk=crosswalk,
         crosswalk_ratio=crosswalk_ratio,
     )
+
+
+def _check_zip_sources(
+    zips: Path | None,
+    relationship: Path | None,
+    crosswalk: Path | None,
+    crosswalk_ratio: str | None,
+    where: str,
+    label: str,
+) -> None:
+    """Raise unless ZIP-code zones come with exactly one way to reach the areas."""
+    if zips is None and relationship is None and crosswalk is None:
+        return
+    if zips is None or (relationship is None) == (crosswalk is None):
+        raise SpecError(
+            f'{where}: [{label}] ZIP-code zones need zips = "FILE" and exactly one of '
+            'zcta_relationship = "FILE" (the Census ZCTA-to-tract relationship file) or '
+            'crosswalk = "FILE" (with crosswalk_ratio = "COLUMN")'
+        )
+    if crosswalk is not None and crosswalk_ratio is None:
+        raise SpecError(
+            f'{where}: [{label}] crosswalk needs crosswalk_ratio = "COLUMN", the share of '
+            "each area held by the ZIP code (for example a residential-address ratio)"
+        )
+
+
+def _inferred_kind(
+    *,
+    zips: Path | None,
+    layer: bool,
+    listed: bool,
+    reach: bool,
+    path: Path | None,
+    where: str,
+    label: str,
+) -> str:
+    """Return the footprint kind a table without ``kind`` implies by its other keys."""
+    if zips is not None:
+        return "zips"
+    if layer:
+        return "polygons"
+    if listed:
+        return "ids"
+    if reach:
+        return "points"
+    if path is not None:
+        return "polygons"
+    raise SpecError(
+        f"{where}: [{label}] needs a path (polygons, or points with radius), "
+        "served_ids, served_column or ids"
+    )
+
+
+def _check_served_list(
+    kind: str,
+    served_ids: Path | None,
+    served_column: str | None,
+    ids: tuple[str, ...] | None,
+    layer_id: str | None,
+    where: str,
+    label: str,
+) -> None:
+    """Raise unless a list footprint names its served areas exactly one way (others none)."""
+    if kind == "ids":
+        given = [
+            k
+            for k, v in (("served_ids", served_ids), ("served_column", served_column), ("ids", ids))
+            if v is not None
+        ]
+        if len(given) != 1:
+            raise SpecError(
+                f"{where}: [{label}] a list of served areas needs exactly one of served_ids "
+                f"(a file of ids), served_column (a flag column of the areas) or ids; got {given}"
+            )
+    elif served_ids is not None or served_column is not None or (ids is not None and not layer_id):
+        raise SpecError(
+            f'{where}: [{label}] served_ids/served_column/ids apply only to kind = "ids"'
+        )
 
 
 _LENGTH_RE = re.compile(r"^\s*([0-9]*\.?[0-9]+(?:[eE][+-]?[0-9]+)?)\s*([a-zA-Z]*)\s*$")
