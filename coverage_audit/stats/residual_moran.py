@@ -19,7 +19,7 @@ import scipy.sparse as sp
 from .._util import to_jsonable
 from ..errors import AnalysisError
 from ._spatial import WeightsLike, weights_parts
-from .moran import moran_moments
+from .moran import MoranResult, moran_moments
 
 #: |z| of residual Moran's I above which the residuals are called spatially clustered.
 MORAN_Z_FLAG = 1.96
@@ -129,17 +129,37 @@ def _residual_moran(
     row_sums = np.asarray(sub.sum(axis=1)).ravel()
     scale = np.divide(1.0, row_sums, out=np.zeros_like(row_sums), where=row_sums > 0)
     sub = sp.diags(scale) @ sub
-    i, ei, vi, z, p_two_sided = moran_randomisation(values, sub)
+    result = _randomisation_moran(values, sub)
+    if result is None:  # constant residuals: I is undefined
+        nan = math.nan
+        return ResidualMoran(
+            nan, -1.0 / (values.size - 1), nan, nan, nan, int(values.size), False, nan
+        )
+    z = float(result.z_rand)
     return ResidualMoran(
-        I=i,
-        EI=ei,
-        VI_rand=vi,
+        I=float(result.I),
+        EI=float(result.EI),
+        VI_rand=float(result.VI_rand),
         z_rand=z,
-        p_rand=p_two_sided / 2.0,
+        p_rand=result.p_rand,
         n=int(values.size),
         space_not_accounted_for=bool(math.isfinite(z) and abs(z) > MORAN_Z_FLAG),
-        p_rand_two_sided=p_two_sided,
+        p_rand_two_sided=result.p_rand_two_sided,
     )
+
+
+def _randomisation_moran(values: np.ndarray, weights: sp.spmatrix) -> MoranResult | None:
+    """Moran's I of ``values`` by :func:`~coverage_audit.stats.moran.moran_moments`.
+
+    None for constant values (I undefined), without the degenerate-statistic warning: a
+    model whose residuals do not vary has nothing spatial left to test. The p-values keep
+    the convention of the global statistic, named in its keys: ``p_rand`` one-sided,
+    ``p_rand_two_sided`` doubled.
+    """
+    y = np.asarray(values, dtype=float)
+    if y.size and float(np.ptp(y)) == 0.0:
+        return None
+    return moran_moments(y, weights)
 
 
 def moran_randomisation(
@@ -167,14 +187,14 @@ def moran_randomisation(
     the kurtosis ``b2`` of Cliff and Ord (1981, *Spatial Processes*, eq. 1.38; equation
     number from memory), as esda's ``Moran.VI_rand`` computes it. For regression
     residuals this is a screen, not an exact test: it ignores that the residuals are
-    estimated. Computed by :func:`coverage_audit.clustering.moran_moments`, the one
+    estimated. Computed by :func:`coverage_audit.stats.moran.moran_moments`, the one
     implementation of Moran's I.
     """
-    y = np.asarray(values, dtype=float)
-    if y.size and float(np.ptp(y)) == 0.0:
-        nan = float("nan")
-        return nan, -1.0 / (y.size - 1) if y.size > 1 else nan, nan, nan, nan
-    result = moran_moments(y, weights)
+    result = _randomisation_moran(values, weights)
+    if result is None:
+        nan = math.nan
+        n = np.asarray(values).size
+        return nan, -1.0 / (n - 1) if n > 1 else nan, nan, nan, nan
     return (
         float(result.I),
         float(result.EI),
