@@ -55,6 +55,7 @@ from .spec_areas import (
     AreasSpec,
     PopulationSpec,
     TableSpec,
+    _areas_from,
 )
 from .spec_areas import (
     _population_from as _population_from,
@@ -90,6 +91,7 @@ from .spec_explain import (
     ActivitySpec,
     ChangeSpec,
     ExplainSpec,
+    _change_from,
 )
 from .spec_explain import (
     _activity_from as _activity_from,
@@ -111,6 +113,7 @@ from .spec_footprint import (
     LENGTH_UNITS,
     MAX_CIRCLE_VERTICES,
     FootprintSpec,
+    _footprints_from,
     parse_length,
 )
 from .spec_footprint import (
@@ -477,17 +480,7 @@ def spec_from_dict(
         if required not in data:
             raise SpecError(f"{where}: the [{required}] table is missing; it is required")
 
-    areas_d = _table(data["areas"], where, "areas")
-    _check_keys(areas_d, _AREAS_KEYS, where, "[areas]")
-    areas = AreasSpec(
-        path=_path(areas_d, "path", base, where, "areas", required=True),  # type: ignore[arg-type]
-        id=_str(areas_d, "id", where, "areas"),
-        layer=_str(areas_d, "layer", where, "areas"),
-        crs=_str(areas_d, "crs", where, "areas"),
-        table=_path(areas_d, "table", base, where, "areas"),
-        table_id=_str(areas_d, "table_id", where, "areas"),
-        id_width=_int(areas_d, "id_width", where, "areas", minimum=1),
-    )
+    areas = _areas_from(data["areas"], base, where)
 
     pop_d = _table(data["population"], where, "population")
     _check_keys(pop_d, _POP_KEYS, where, "[population]")
@@ -498,18 +491,8 @@ def spec_from_dict(
         or default_of(PopulationSpec, "margin_draws"),
     )
 
-    raw_fp = data["footprint"]
-    fp_list = list(raw_fp) if isinstance(raw_fp, list) else [raw_fp]
-    if not fp_list:
-        raise SpecError(f"{where}: [footprint] is empty; give at least one footprint")
-    footprints = []
-    for k, item in enumerate(fp_list):
-        label = "footprint" if len(fp_list) == 1 else f"footprint #{k + 1}"
-        footprints.append(_footprint_from(_table(item, where, label), base, where, label, k))
+    footprints = _footprints_from(data["footprint"], base, where)
     names = [f.name for f in footprints]
-    dupes = sorted({n for n in names if names.count(n) > 1})
-    if dupes:
-        raise SpecError(f"{where}: footprint names must differ; repeated: {dupes}")
 
     analysis = _analysis_from(_table(data.get("analysis", {}), where, "analysis"), where)
     if (
@@ -520,29 +503,9 @@ def spec_from_dict(
             f'{where}: [analysis] contrast_group was "{analysis.contrast_group}" but must be one of '
             f"the groups {population.group_names}"
         )
-    out_d = _table(data.get("output", {}), where, "output")
-    _check_keys(out_d, _OUTPUT_KEYS, where, "[output]")
-    out = OutputSpec()  # the defaults
-    output = OutputSpec(
-        map=_bool(out_d, "map", where, "output", out.map),
-        report=_bool(out_d, "report", where, "output", out.report),
-        tiles=_bool(out_d, "tiles", where, "output", out.tiles),
-    )
+    output = _output_from(_table(data.get("output", {}), where, "output"), where)
     explain = _explain_from(data.get("explain"), where)
-    change = None
-    if "change" in data:
-        ch_d = _table(data["change"], where, "change")
-        _check_keys(ch_d, _CHANGE_KEYS, where, "[change]")
-        before = _str(ch_d, "before", where, "change", required=True)
-        after = _str(ch_d, "after", where, "change", required=True)
-        for name in (before, after):
-            if name not in names:
-                raise SpecError(
-                    f'{where}: [change] names footprint "{name}" but the footprints are {names}'
-                )
-        if before == after:
-            raise SpecError(f"{where}: [change] before and after must be two different footprints")
-        change = ChangeSpec(before=str(before), after=str(after))
+    change = _change_from(data["change"], where, names) if "change" in data else None
     activity = _activity_from(data.get("activity"), base, where)
     study_area = _study_area_from(data.get("study_area"), base, where)
     tables = _tables_from(data.get("table"), base, where)
@@ -567,6 +530,16 @@ def spec_from_dict(
         access=_access_from(data.get("access"), base, where, footprints[0]),
         blocks=_blocks_from(data.get("blocks"), base, where, population),
         dasymetric=_dasymetric_from(data.get("dasymetric"), base, where, "blocks" in data),
+    )
+
+
+def _output_from(out_d: Mapping[str, Any], where: str) -> OutputSpec:
+    _check_keys(out_d, _OUTPUT_KEYS, where, "[output]")
+    out = OutputSpec()  # the defaults
+    return OutputSpec(
+        map=_bool(out_d, "map", where, "output", out.map),
+        report=_bool(out_d, "report", where, "output", out.report),
+        tiles=_bool(out_d, "tiles", where, "output", out.tiles),
     )
 
 

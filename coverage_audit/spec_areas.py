@@ -19,6 +19,7 @@ from .spec_values import (
     _check_keys,
     _choice,
     _float,
+    _int,
     _path,
     _str,
     _table,
@@ -248,4 +249,18 @@ def _population_from(pop_d: Mapping[str, Any], where: str) -> PopulationSpec:
         moes=tuple(moes),
         total_moe=_str(pop_d, "total_moe", where, "population"),
         unit=_str(pop_d, "unit", where, "population") or default_of(PopulationSpec, "unit"),
+    )
+
+
+def _areas_from(value: Any, base: Path, where: str) -> AreasSpec:
+    areas_d = _table(value, where, "areas")
+    _check_keys(areas_d, _AREAS_KEYS, where, "[areas]")
+    return AreasSpec(
+        path=_path(areas_d, "path", base, where, "areas", required=True),  # type: ignore[arg-type]
+        id=_str(areas_d, "id", where, "areas"),
+        layer=_str(areas_d, "layer", where, "areas"),
+        crs=_str(areas_d, "crs", where, "areas"),
+        table=_path(areas_d, "table", base, where, "areas"),
+        table_id=_str(areas_d, "table_id", where, "areas"),
+        id_width=_int(areas_d, "id_width", where, "areas", minimum=1),
     )

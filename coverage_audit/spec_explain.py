@@ -154,3 +154,19 @@ def _activity_from(value: Any, base: Path, where: str) -> ActivitySpec | None:
         ),
         id_width=_int(ac_d, "id_width", where, "activity", minimum=1),
     )
+
+
+def _change_from(value: Any, where: str, names: list[str]) -> ChangeSpec:
+    """Read ``[change]``: two different footprints among ``names``."""
+    ch_d = _table(value, where, "change")
+    _check_keys(ch_d, _CHANGE_KEYS, where, "[change]")
+    before = _str(ch_d, "before", where, "change", required=True)
+    after = _str(ch_d, "after", where, "change", required=True)
+    for name in (before, after):
+        if name not in names:
+            raise SpecError(
+                f'{where}: [change] names footprint "{name}" but the footprints are {names}'
+            )
+    if before == after:
+        raise SpecError(f"{where}: [change] before and after must be two different footprints")
+    return ChangeSpec(before=str(before), after=str(after))

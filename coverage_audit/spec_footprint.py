@@ -18,6 +18,7 @@ from .spec_values import (
     _choice,
     _path,
     _str,
+    _table,
     default_of,
 )
 
@@ -292,3 +293,19 @@ def _parse_length(value: Any, unit: str, where: str, label: str) -> float:
         return parse_length(value, unit)
     except ValueError as exc:
         raise SpecError(f"{where}: [{label}] radius: {exc}") from None
+
+
+def _footprints_from(raw_fp: Any, base: Path, where: str) -> list[FootprintSpec]:
+    """Read ``[footprint]`` (one table) or ``[[footprint]]`` (several), names all different."""
+    fp_list = list(raw_fp) if isinstance(raw_fp, list) else [raw_fp]
+    if not fp_list:
+        raise SpecError(f"{where}: [footprint] is empty; give at least one footprint")
+    footprints = []
+    for k, item in enumerate(fp_list):
+        label = "footprint" if len(fp_list) == 1 else f"footprint #{k + 1}"
+        footprints.append(_footprint_from(_table(item, where, label), base, where, label, k))
+    names = [f.name for f in footprints]
+    dupes = sorted({n for n in names if names.count(n) > 1})
+    if dupes:
+        raise SpecError(f"{where}: footprint names must differ; repeated: {dupes}")
+    return footprints
