@@ -106,7 +106,9 @@ def _catchment(value: Any, where: str) -> tuple[float, str, float]:
     return metres, "m", LENGTH_UNITS[unit]
 
 
-def _access_from(value: Any, base: Path, where: str, footprint: FootprintSpec) -> AccessSpec | None:
+def _access_from(
+    value: object, base: Path, where: str, footprint: FootprintSpec
+) -> AccessSpec | None:
     if value is None:
         return None
     ac_d = _table(value, where, "access")

@@ -147,7 +147,7 @@ _POP_KEYS = (
 _GROUP_KEYS = ("column", "label", "moe")
 
 
-def _tables_from(value: Any, base: Path, where: str) -> tuple[TableSpec, ...]:
+def _tables_from(value: object, base: Path, where: str) -> tuple[TableSpec, ...]:
     if value is None:
         return ()
     items = list(value) if isinstance(value, list) else [value]
@@ -252,7 +252,7 @@ def _population_from(pop_d: Mapping[str, Any], where: str) -> PopulationSpec:
     )
 
 
-def _areas_from(value: Any, base: Path, where: str) -> AreasSpec:
+def _areas_from(value: object, base: Path, where: str) -> AreasSpec:
     areas_d = _table(value, where, "areas")
     _check_keys(areas_d, _AREAS_KEYS, where, "[areas]")
     return AreasSpec(

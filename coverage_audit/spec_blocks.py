@@ -5,7 +5,6 @@ from __future__ import annotations
 from collections.abc import Mapping
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Any
 
 from .errors import SpecError
 from .spec_areas import PopulationSpec
@@ -74,7 +73,9 @@ class DasymetricSpec:
 _BLOCKS_KEYS = ("path", "id", "total", "groups", "preset")
 
 
-def _dasymetric_from(value: Any, base: Path, where: str, has_blocks: bool) -> DasymetricSpec | None:
+def _dasymetric_from(
+    value: object, base: Path, where: str, has_blocks: bool
+) -> DasymetricSpec | None:
     """Parse ``[dasymetric]``: a mask path and, for a raster, the settled cell values."""
     if value is None:
         return None
@@ -99,7 +100,7 @@ def _dasymetric_from(value: Any, base: Path, where: str, has_blocks: bool) -> Da
 
 
 def _blocks_from(
-    value: Any, base: Path, where: str, population: PopulationSpec
+    value: object, base: Path, where: str, population: PopulationSpec
 ) -> BlocksSpec | None:
     """Parse ``[blocks]``; every analysed group must get a block column."""
     if value is None:

@@ -76,7 +76,7 @@ def _str_list(d: Mapping[str, Any], key: str, where: str, label: str) -> tuple[s
     return tuple(value)
 
 
-def _explain_from(value: Any, where: str) -> ExplainSpec | None:
+def _explain_from(value: object, where: str) -> ExplainSpec | None:
     if value is None:
         return None
     ex_d = _table(value, where, "explain")
@@ -117,7 +117,7 @@ def _explain_from(value: Any, where: str) -> ExplainSpec | None:
     )
 
 
-def _activity_from(value: Any, base: Path, where: str) -> ActivitySpec | None:
+def _activity_from(value: object, base: Path, where: str) -> ActivitySpec | None:
     if value is None:
         return None
     ac_d = _table(value, where, "activity")
@@ -156,7 +156,7 @@ def _activity_from(value: Any, base: Path, where: str) -> ActivitySpec | None:
     )
 
 
-def _change_from(value: Any, where: str, names: list[str]) -> ChangeSpec:
+def _change_from(value: object, where: str, names: list[str]) -> ChangeSpec:
     """Read ``[change]``: two different footprints among ``names``."""
     ch_d = _table(value, where, "change")
     _check_keys(ch_d, _CHANGE_KEYS, where, "[change]")

@@ -295,7 +295,7 @@ def _parse_length(value: Any, unit: str, where: str, label: str) -> float:
         raise SpecError(f"{where}: [{label}] radius: {exc}") from None
 
 
-def _footprints_from(raw_fp: Any, base: Path, where: str) -> list[FootprintSpec]:
+def _footprints_from(raw_fp: object, base: Path, where: str) -> list[FootprintSpec]:
     """Read ``[footprint]`` (one table) or ``[[footprint]]`` (several), names all different."""
     fp_list = list(raw_fp) if isinstance(raw_fp, list) else [raw_fp]
     if not fp_list:

@@ -4,7 +4,6 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Any
 
 from .errors import SpecError
 from .spec_footprint import parse_length
@@ -63,7 +62,7 @@ _STUDY_AREA_KEYS = (
 ID_LIST_SUFFIXES = (".csv", ".tsv", ".txt", ".parquet", ".pq")
 
 
-def _study_area_from(value: Any, base: Path, where: str) -> StudyAreaSpec | None:
+def _study_area_from(value: object, base: Path, where: str) -> StudyAreaSpec | None:
     if value is None:
         return None
     t = "study_area"
