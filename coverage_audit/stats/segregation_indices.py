@@ -21,6 +21,15 @@ def _empty_group_message(name: str, what: str) -> str:
     )
 
 
+def _group_and_total(x: ArrayLike, t: ArrayLike) -> tuple[np.ndarray, np.ndarray]:
+    """Return the checked counts of group ``x`` and the total ``t`` (same length, x <= t)."""
+    xa = as_counts(x, "x")
+    ta = as_counts(t, "t")
+    same_length({"x": xa, "t": ta})
+    within_total(xa, ta, "x", "t")
+    return xa, ta
+
+
 def _dissim(x: np.ndarray, y: np.ndarray) -> float:
     """Two-group dissimilarity, Duncan and Duncan (1955), ASR 20(2), 210-217.
 
@@ -130,10 +139,7 @@ def dissimilarity_vs_rest(x: ArrayLike, t: ArrayLike) -> float:
     >>> round(dissimilarity_vs_rest([80, 20, 0], [100, 100, 100]), 12)
     0.7
     """
-    xa = as_counts(x, "x")
-    ta = as_counts(t, "t")
-    same_length({"x": xa, "t": ta})
-    within_total(xa, ta, "x", "t")
+    xa, ta = _group_and_total(x, t)
     rest = ta - xa
     if xa.sum() <= 0:
         warn_degenerate(_empty_group_message("x", "dissimilarity"))
@@ -173,10 +179,7 @@ def isolation(x: ArrayLike, t: ArrayLike) -> float:
     >>> round(isolation([80, 20, 0], [100, 100, 100]), 12)
     0.68
     """
-    xa = as_counts(x, "x")
-    ta = as_counts(t, "t")
-    same_length({"x": xa, "t": ta})
-    within_total(xa, ta, "x", "t")
+    xa, ta = _group_and_total(x, t)
     if xa.sum() <= 0:
         warn_degenerate(_empty_group_message("x", "isolation"))
     return _interaction(xa, xa, ta)
@@ -250,10 +253,7 @@ def correlation_ratio(x: ArrayLike, t: ArrayLike) -> float:
     >>> round(correlation_ratio([80, 20, 0], [100, 100, 100]), 12)
     0.52
     """
-    xa = as_counts(x, "x")
-    ta = as_counts(t, "t")
-    same_length({"x": xa, "t": ta})
-    within_total(xa, ta, "x", "t")
+    xa, ta = _group_and_total(x, t)
     if xa.sum() <= 0:
         warn_degenerate(_empty_group_message("x", "correlation ratio"))
     elif xa.sum() >= ta.sum():
