@@ -20,23 +20,20 @@ import pandas as pd
 import shapely
 from pyproj import Geod, Transformer
 
+from .compare import change_between, compare_footprints, peer_comparison
 from .coverage import coverage_by_group, covered_fraction, footprint_fractions
 from .enclaves import count_enclaves
 from .errors import AnalysisError, DegenerateStatisticWarning, InputError
+from .explain import DEFAULT_THRESHOLDS, discover_rules, exclusion_models, sensitivity_thresholds
 from .footprint import Footprint, build_footprint, cut_pieces, geodesic_circles
 from .inputs import AreaInputs, Exclusions, InputRecord, ids_as_text, read_hashed, read_table
 from .io.joins import MatchReport, match_ids
 from .options import enclave_options
 from .spec import AuditSpec
-from .stats.change import change_between
-from .stats.compare_footprints import compare_footprints
-from .stats.models import exclusion_models
-from .stats.peers import peer_comparison
-from .stats.rules import discover_rules
-from .stats.sweeps import DEFAULT_THRESHOLDS as SWEEP_THRESHOLDS
-from .stats.sweeps import sensitivity_thresholds
 from .weights import AreaGraph
 
+#: Served thresholds of the sensitivity sweep: the one grid, 0.25 to 0.75 (stats.sweeps).
+SWEEP_THRESHOLDS = DEFAULT_THRESHOLDS
 #: Reach multipliers of the radius sweep for point footprints (half to double).
 SWEEP_RADII = (0.5, 0.75, 1.0, 1.25, 1.5, 2.0)
 
