@@ -216,12 +216,28 @@ def repair(geoms: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     geoms = np.asarray(geoms, dtype=object)
     present = ~(shapely.is_missing(geoms) | shapely.is_empty(geoms))
     invalid = np.zeros(geoms.size, dtype=bool)
-    invalid[present] = ~shapely.is_valid(geoms[present])
+    invalid[present] = ~_on_threads(shapely.is_valid, geoms[present])
     if invalid.any():
         fixed = shapely.make_valid(geoms[invalid])
         geoms = geoms.copy()
         geoms[invalid] = polygonal(fixed)
     return geoms, invalid
+
+
+#: Geometries per task of a vectorised shapely test run on several threads.
+_TEST_CHUNK = 20_000
+
+
+def _on_threads(test: Any, geoms: np.ndarray) -> np.ndarray:
+    """``test(geoms)`` (a vectorised shapely function, which releases the GIL) on all cores."""
+    n = geoms.size
+    workers = min(os.cpu_count() or 1, max(1, n // _TEST_CHUNK))
+    if workers == 1:
+        return np.asarray(test(geoms))
+    cuts = np.linspace(0, n, workers + 1).astype(int)
+    with ThreadPoolExecutor(max_workers=workers) as pool:
+        parts = list(pool.map(lambda k: test(geoms[cuts[k] : cuts[k + 1]]), range(workers)))
+    return np.concatenate(parts)
 
 
 #: Coordinates per thread below which projection runs on one thread.

@@ -148,6 +148,8 @@ def hint_float_ids(series: pd.Series, where: str) -> None:
     present = series.dropna()
     if len(present) == 0:
         return
+    if not np.char.find(present.to_numpy().astype(str), ".").max() >= 0:
+        return  # no id has a decimal point (looked at in one vectorised pass)
     looks = present.map(lambda v: bool(_FLOAT_ID_RE.match(str(v))))
     if looks.mean() >= 0.5:
         example = present[looks].iloc[0]
