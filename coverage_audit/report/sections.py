@@ -546,3 +546,5 @@ def _local_moran_part(local: Mapping[str, Any]) -> Html:
             )
         )
     return join(parts)
+
+
