@@ -20,6 +20,13 @@ import pandas as pd
 import shapely
 from pyproj import Geod, Transformer
 
+from .apportion import (
+    change_apportionment,
+    further_footprint,
+    placement,
+    served_basis,
+    sweep_apportionment,
+)
 from .compare import change_between, compare_footprints, peer_comparison
 from .coverage import coverage_by_group, covered_fraction, footprint_fractions
 from .enclaves import count_enclaves
@@ -123,7 +130,7 @@ def sensitivity_section(
 ) -> dict[str, Any]:
     """Recompute the disparity and enclave count over served thresholds and reaches."""
     groups, reference = inputs.groups, inputs.reference
-    fraction = frame["covered_fraction"].to_numpy(dtype=float)
+    fraction = served_basis(frame)  # covered population share when people were placed
     counts = {g: frame[g].to_numpy(dtype=float) for g in groups}
     geoms = np.asarray(frame.geometry.array, dtype=object)
     rows = sensitivity_thresholds(
@@ -139,7 +146,7 @@ def sensitivity_section(
         entry = row.to_dict()
         entry["enclaves"] = count
         threshold_rows.append(entry)
-    out: dict[str, Any] = {"thresholds": threshold_rows}
+    out: dict[str, Any] = {"thresholds": threshold_rows, **sweep_apportionment(spec, footprint)}
     if footprint.kind == "points" and footprint.points is not None:
         points = footprint.points.to_crs("EPSG:4326")
         lon = points.geometry.x.to_numpy()
@@ -239,15 +246,19 @@ def other_footprints(
     """Coverage and enclave counts of every footprint after the first.
 
     Returns the comparison section and each footprint's covered fractions by name (the
-    first included).
+    first included): covered population shares when people were placed by blocks or a
+    mask (:func:`~coverage_audit.apportion.further_footprint`).
     """
     geoms = np.asarray(frame.geometry.array, dtype=object)
     ids = frame[inputs.id_column].to_numpy(dtype=object)
     threshold = spec.analysis.served_threshold
-    fractions = {spec.footprint.name: frame["covered_fraction"].to_numpy(dtype=float)}
+    fractions = {spec.footprint.name: served_basis(frame)}
     results: dict[str, Any] = {}
     for fp in built:
-        cf = footprint_fractions(fp, geoms, ids.tolist())
+        # Counted by blocks or mask as the first footprint was, when the spec places people.
+        cf, covered = further_footprint(
+            spec, inputs, fp, frame, footprint_fractions(fp, geoms, ids.tolist())
+        )
         fractions[fp.name] = cf
         cov = coverage_by_group(
             frame,
@@ -256,7 +267,8 @@ def other_footprints(
             fraction=cf,
             threshold=threshold,
             comparison=spec.analysis.comparison,
-        ).to_dict()
+            covered=covered,
+        ).to_dict() | {"apportionment": placement(spec)}
         results[fp.name] = {
             "coverage": cov,
             "enclave_count": _enclave_counts([cf >= threshold], frame, graph, spec)[0],
@@ -266,7 +278,10 @@ def other_footprints(
 
 def comparison_section(primary: dict[str, Any], others: dict[str, Any]) -> dict[str, Any]:
     """Side-by-side coverage of every footprint, ranked."""
-    return compare_footprints({**primary, **others}).to_dict()
+    merged = {**primary, **others}
+    methods = {str(v["coverage"].get("apportionment", "areal")) for v in merged.values()}
+    method = methods.pop() if len(methods) == 1 else "mixed"
+    return compare_footprints(merged).to_dict() | {"apportionment": method}
 
 
 def change_section(
@@ -288,7 +303,7 @@ def change_section(
         groups=inputs.groups,
         reference=inputs.reference,
         threshold=threshold,
-    ).to_dict()
+    ).to_dict() | change_apportionment(spec)
 
 
 #: Columns that name a service site, in order of preference.

@@ -185,15 +185,21 @@ def combine(parts: Sequence[PartitionSums], width: int) -> pd.DataFrame:
     return frame.groupby("id", sort=True).sum()
 
 
-def apportion(spec: Any, inputs: Any, footprint: Any, frame: gpd.GeoDataFrame) -> Apportioned:
-    """Place people within areas by census blocks or by a settlement mask, as the spec says."""
+def apportion(
+    spec: Any, inputs: Any, footprint: Any, frame: gpd.GeoDataFrame, *, record: bool = True
+) -> Apportioned:
+    """Place people within areas by census blocks or by a settlement mask, as the spec says.
+
+    With ``record=False`` (a further footprint over areas already apportioned once) the
+    inputs' records and exclusions are left as they are, so nothing is counted twice.
+    """
     if spec.dasymetric is not None:
-        return apportion_dasymetric(spec, inputs, footprint, frame)
-    return apportion_blocks(spec, inputs, footprint, frame)
+        return apportion_dasymetric(spec, inputs, footprint, frame, record=record)
+    return apportion_blocks(spec, inputs, footprint, frame, record=record)
 
 
 def apportion_blocks(
-    spec: Any, inputs: Any, footprint: Any, frame: gpd.GeoDataFrame
+    spec: Any, inputs: Any, footprint: Any, frame: gpd.GeoDataFrame, *, record: bool = True
 ) -> Apportioned:
     """Replace the areas' counts by their blocks' sums and count covered people by block.
 
@@ -207,6 +213,9 @@ def apportion_blocks(
     footprint : Footprint
     frame : geopandas.GeoDataFrame
         The analysed areas with their areal ``covered_fraction``.
+    record : bool
+        Add the blocks file to the inputs and its left-out rows to the exclusions (False
+        when the same blocks are apportioned again for a further footprint).
 
     Returns
     -------
@@ -247,24 +256,26 @@ def apportion_blocks(
     pieces = np.asarray(footprint.pieces, dtype=object) if footprint.kind != "ids" else None
     parts, how = run_partitions(bspec.path, task, pieces, spec.analysis)
     sums = combine(parts, len(names))
-    inputs.inputs.append(
-        InputRecord("blocks", str(bspec.path), digest(bspec.path), sum(p.rows for p in parts))
-    )
     excluded = sorted(
         (e for p in parts for e in p.excluded), key=lambda e: (e[0], e[1] or "", e[2])
     )
-    inputs.exclusions.add(
-        "blocks", [e[0] for e in excluded], [e[1] for e in excluded], [e[2] for e in excluded]
-    )
+    if record:
+        inputs.inputs.append(
+            InputRecord("blocks", str(bspec.path), digest(bspec.path), sum(p.rows for p in parts))
+        )
+        inputs.exclusions.add(
+            "blocks", [e[0] for e in excluded], [e[1] for e in excluded], [e[2] for e in excluded]
+        )
     has = np.isin(ids, sums.index.to_numpy())
     if not has.any():
         raise InputError(
             f"no block of '{bspec.path}' falls in an analysed area (by GEOID prefix); check "
             "that the blocks and the areas are of the same state and county"
         )
-    inputs.exclusions.add(
-        "areas", frame.loc[~has, "source_row"], frame.loc[~has, id_col], NO_BLOCK_REASON
-    )
+    if record:
+        inputs.exclusions.add(
+            "areas", frame.loc[~has, "source_row"], frame.loc[~has, id_col], NO_BLOCK_REASON
+        )
     out = frame.loc[has].reset_index(drop=True)
     row = sums.loc[out[id_col].astype(str).to_numpy()]
     covered: dict[str, np.ndarray] = {}
@@ -502,3 +513,94 @@ def block_cautions(cautions: Sequence[str], summary: Mapping[str, Any]) -> list[
             "areas)."
         )
     return [text if AREAL_CAUTION_PART in c else c for c in cautions]
+
+
+# --- comparisons and sweeps ------------------------------------------------------------------
+
+#: Why the reach sweep stays areal when people are placed within areas.
+RADIUS_AREAL_NOTE = (
+    "the reach sweep uses areal covered fractions: counting people by {method} would need "
+    "the people placed again for every reach; the served-threshold sweep uses the covered "
+    "population shares"
+)
+#: How the change section's group rates read when people are placed within areas.
+CHANGE_NOTE = (
+    "served areas by covered population share ({method}); a group's covered rate on each side "
+    "weights the group's people in each area by the area's covered population share"
+)
+
+
+def placement(spec: Any) -> str:
+    """How the audit placed people within areas: "blocks", "dasymetric" or "areal"."""
+    if getattr(spec, "dasymetric", None) is not None:
+        return "dasymetric"
+    return "blocks" if getattr(spec, "blocks", None) is not None else "areal"
+
+
+def served_basis(frame: pd.DataFrame) -> np.ndarray:
+    """Return the per-area value compared with the served threshold, as ``run`` does.
+
+    The covered population share where people were placed within areas (blocks or a
+    settlement mask), else the areal covered fraction.
+    """
+    column = (
+        "covered_population_share"
+        if "covered_population_share" in frame.columns
+        else "covered_fraction"
+    )
+    return frame[column].to_numpy(dtype=float)
+
+
+def further_footprint(
+    spec: Any, inputs: Any, footprint: Any, frame: gpd.GeoDataFrame, fraction: np.ndarray
+) -> tuple[np.ndarray, dict[str, np.ndarray] | None]:
+    """Return a further footprint's served basis and covered people, placed like the first.
+
+    Parameters
+    ----------
+    spec : AuditSpec
+    inputs : AreaInputs
+        Its records and exclusions are not touched (the first footprint recorded them).
+    footprint : Footprint
+        A footprint after the first.
+    frame : geopandas.GeoDataFrame
+        The analysed areas (already apportioned once: counts summed from blocks).
+    fraction : numpy.ndarray
+        The footprint's areal covered fraction of each area.
+
+    Returns
+    -------
+    numpy.ndarray, dict or None
+        Each area's covered population share and each group's covered people, by the
+        spec's blocks or mask; with neither, ``fraction`` itself and None (areal).
+    """
+    if placement(spec) == "areal":
+        return np.asarray(fraction, dtype=float), None
+    placed = apportion(
+        spec, inputs, footprint, frame.assign(covered_fraction=fraction), record=False
+    )
+    if len(placed.frame) != len(frame):  # the same blocks: no further area can drop out
+        raise AnalysisError(
+            f"footprint '{getattr(footprint, 'name', '')}' was apportioned over "
+            f"{len(placed.frame)} areas, not the {len(frame)} analysed"
+        )
+    return placed.share, placed.covered
+
+
+def sweep_apportionment(spec: Any, footprint: Any) -> dict[str, Any]:
+    """Keys of the sensitivity section saying how each sweep placed people."""
+    method = placement(spec)
+    out: dict[str, Any] = {"apportionment": method}
+    if method != "areal" and getattr(footprint, "kind", None) == "points":
+        out["radius_apportionment"] = "areal"
+        out["radius_note"] = RADIUS_AREAL_NOTE.format(method=method)
+    return out
+
+
+def change_apportionment(spec: Any) -> dict[str, Any]:
+    """Keys of the change section saying how its served areas and rates were counted."""
+    method = placement(spec)
+    out: dict[str, Any] = {"apportionment": method}
+    if method != "areal":
+        out["apportionment_note"] = CHANGE_NOTE.format(method=method)
+    return out

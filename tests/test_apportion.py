@@ -406,3 +406,68 @@ def test_demo_delivery_reports_both_ways(tmp_path):
     assert "assumed to be spread evenly within the block" in page
     areal = pd.read_csv(tmp_path / "out" / "areas.csv", dtype={"geoid": str})
     assert "covered_population_share" in areal.columns
+
+
+TWO_FOOTPRINTS = """
+[[footprint]]
+name = "zone"
+path = "zone.gpkg"
+
+[[footprint]]
+name = "right"
+path = "right.gpkg"
+"""
+
+
+def test_comparison_change_and_sweep_count_people_by_block(people_in_uncovered_half):
+    """Further footprints, the change and the threshold sweep use block-based shares."""
+    folder = people_in_uncovered_half
+    # "right" covers the right half of cell 1, where all of cell 1's 100 people live.
+    gpd.GeoDataFrame(geometry=[shapely.box(500, 0, 1000, 1000)], crs=GRID_CRS).to_file(
+        folder / "right.gpkg"
+    )
+    text = spec_text("", analysis_extra="sensitivity = true\n")
+    text = text.replace('id = "geoid"', 'id = "geoid"\nlayer = "areas"')
+    text = text.replace("[footprint]\n\n", TWO_FOOTPRINTS + "\n")
+    text += BLOCKS_TABLE.format(path="blocks.gpkg")
+    text += '\n[change]\nbefore = "zone"\nafter = "right"\n'
+    result = run_audit(load_spec(write_spec(folder / "audit.toml", text)))
+    s = result.summary
+    assert s["comparison"]["apportionment"] == "blocks"
+    right = next(f for f in s["comparison"]["footprints"] if f["name"] == "right")
+    # Hand-computed from the blocks: "right" covers cell 1's 80 white and 10 black people
+    # of 260 white and 710 black (areal weighting would give half: 40/260 and 5/710).
+    assert right["groups"]["white"]["rate"] == pytest.approx(80 / 260, abs=1e-12)
+    assert right["groups"]["black"]["rate"] == pytest.approx(10 / 710, abs=1e-12)
+    assert result.areas.set_index("geoid").loc["01001000001", "covered_fraction_right"] == 1.0
+    # Change at the 0.5 threshold, by covered population share: "zone" serves cell 3 only
+    # (cell 1's people are outside it), "right" serves cell 1 only. Areal fractions would
+    # have served cell 1 on both sides (0.5 each) and gained nothing.
+    change = s["change"]
+    assert change["apportionment"] == "blocks" and "apportionment_note" in change
+    assert change["lost_service"]["ids"] == ["01001000003"]
+    assert change["gained_service"]["ids"] == ["01001000001"]
+    # Threshold sweep at 0.25: only cell 3 (share 1) is served by blocks; cell 1 (areal
+    # fraction 0.5, share 0) is not, so 1 of 4 areas is served, not 2.
+    sens = s["sensitivity"]
+    assert sens["apportionment"] == "blocks"
+    assert "radius_apportionment" not in sens  # a polygon footprint: no reach sweep
+    first = sens["thresholds"][0]
+    assert first["threshold"] == 0.25
+    assert first["served_area_share"] == 0.25
+
+
+def test_reach_sweep_says_it_stays_areal():
+    """A points footprint's reach sweep is areal when people are placed; the key says so."""
+    from types import SimpleNamespace
+
+    from coverage_audit.apportion import change_apportionment, sweep_apportionment
+
+    blocks = SimpleNamespace(blocks=object(), dasymetric=None)
+    areal = SimpleNamespace(blocks=None, dasymetric=None)
+    points = SimpleNamespace(kind="points")
+    out = sweep_apportionment(blocks, points)
+    assert out["apportionment"] == "blocks" and out["radius_apportionment"] == "areal"
+    assert "placed again for every reach" in out["radius_note"]
+    assert sweep_apportionment(areal, points) == {"apportionment": "areal"}
+    assert change_apportionment(areal) == {"apportionment": "areal"}
