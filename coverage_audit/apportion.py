@@ -51,6 +51,7 @@ PREFIX_WIDTHS = (11, 12)
 ENVELOPE_PAD_M = 1_000.0
 #: dask scheduler of ``engine = "dask"`` without ``dask_scheduler``: local processes.
 LOCAL_SCHEDULER = "processes"
+NO_CRS = "blocks file '{path}' has no CRS; save it with its CRS (EPSG:4269)"
 NO_BLOCK_REASON = "no census block of the blocks file has this area's GEOID as its prefix"
 
 
@@ -147,12 +148,7 @@ def frame_task(
     """
     check_columns(frame, task.columns, path)
     clean = clean_blocks(frame, task.columns)
-    county = _county_of(Path(path))
-    if county is not None and not all(v.startswith(county[0]) for v in clean.ids):
-        raise AnalysisError(
-            f"blocks of '{path}' are not all of county {county[0]}; prepare the dataset again "
-            "with coverage-audit prepare-blocks"
-        )
+    _check_county(clean, path)
     geoms = _project(clean.geometry, frame.crs, task.crs_wkt, path)
     if geoms.size and task.served is None:
         low = shapely.bounds(geoms)
@@ -165,9 +161,18 @@ def frame_task(
     return block_sums(clean, _fractions(clean, geoms, shapely.from_wkb(pieces_wkb), task), task)
 
 
+def _check_county(clean: CleanBlocks, path: str) -> None:
+    county = _county_of(Path(path))
+    if county is not None and not all(v.startswith(county[0]) for v in clean.ids):
+        raise AnalysisError(
+            f"blocks of '{path}' are not all of county {county[0]}; prepare the dataset again "
+            "with coverage-audit prepare-blocks"
+        )
+
+
 def _project(geoms: np.ndarray, crs: Any, target_wkt: str, path: str) -> np.ndarray:
     if crs is None:
-        raise InputError(f"blocks file '{path}' has no CRS; save it with its CRS (EPSG:4269)")
+        raise InputError(NO_CRS.format(path=path))
     series = gpd.GeoSeries(geoms, crs=crs)
     return np.asarray(series.to_crs(CRS.from_wkt(target_wkt)).array, dtype=object)
 
@@ -230,29 +235,9 @@ def apportion_blocks(
     bspec = spec.blocks
     id_col = inputs.id_column
     ids = frame[id_col].astype(str).to_numpy()
-    widths = {len(v) for v in ids}
-    if (
-        len(widths) != 1
-        or next(iter(widths)) not in PREFIX_WIDTHS
-        or not all(v.isdigit() for v in ids)
-    ):
-        raise InputError(
-            f"[blocks] needs areas whose ids are GEOIDs of one length, 11 digits (tracts) or "
-            f"12 (block groups); the areas' {id_col} values have lengths {sorted(widths)[:5]}"
-        )
-    groups = [n for n, _ in spec.population.groups]
-    names = ["population", *groups]
-    reference_at = names.index(spec.population.reference)
-    task = Task(
-        columns=BlockColumns(bspec.id, bspec.total, bspec.groups),
-        area_ids=np.array(sorted(ids), dtype=str),
-        width=next(iter(widths)),
-        crs_wkt=CRS(inputs.analysis_crs).to_wkt(),
-        minority_of=reference_at if spec.population.derive_minority else None,
-        served=footprint.served_ids if footprint.kind == "ids" else None,
+    task, names = _block_task(
+        spec, inputs, ids, footprint.served_ids if footprint.kind == "ids" else None
     )
-    if spec.population.derive_minority:
-        names.append("minority")
     pieces = np.asarray(footprint.pieces, dtype=object) if footprint.kind != "ids" else None
     parts, how = run_partitions(bspec.path, task, pieces, spec.analysis)
     sums = combine(parts, len(names))
@@ -268,10 +253,7 @@ def apportion_blocks(
         )
     has = np.isin(ids, sums.index.to_numpy())
     if not has.any():
-        raise InputError(
-            f"no block of '{bspec.path}' falls in an analysed area (by GEOID prefix); check "
-            "that the blocks and the areas are of the same state and county"
-        )
+        raise InputError(NO_MATCH.format(path=bspec.path))
     if record:
         inputs.exclusions.add(
             "areas", frame.loc[~has, "source_row"], frame.loc[~has, id_col], NO_BLOCK_REASON
@@ -312,6 +294,46 @@ def apportion_blocks(
         section=section,
         partitions=how,
     )
+
+
+NO_MATCH = (
+    "no block of '{path}' falls in an analysed area (by GEOID prefix); check that the "
+    "blocks and the areas are of the same state and county"
+)
+
+
+def _block_task(
+    spec: Any, inputs: Any, ids: np.ndarray, served: frozenset[str] | None
+) -> tuple[Task, list[str]]:
+    """Return the partitions' task and the names of its count columns (total first).
+
+    Raises an InputError unless the area ids are GEOIDs of 11 or 12 digits, one length.
+    """
+    widths = {len(v) for v in ids}
+    if (
+        len(widths) != 1
+        or next(iter(widths)) not in PREFIX_WIDTHS
+        or not all(v.isdigit() for v in ids)
+    ):
+        raise InputError(
+            f"[blocks] needs areas whose ids are GEOIDs of one length, 11 digits (tracts) or "
+            f"12 (block groups); the areas' {inputs.id_column} values have lengths "
+            f"{sorted(widths)[:5]}"
+        )
+    bspec = spec.blocks
+    names = ["population", *[n for n, _ in spec.population.groups]]
+    reference_at = names.index(spec.population.reference)
+    task = Task(
+        columns=BlockColumns(bspec.id, bspec.total, bspec.groups),
+        area_ids=np.array(sorted(ids), dtype=str),
+        width=next(iter(widths)),
+        crs_wkt=CRS(inputs.analysis_crs).to_wkt(),
+        minority_of=reference_at if spec.population.derive_minority else None,
+        served=served,
+    )
+    if spec.population.derive_minority:
+        names.append("minority")
+    return task, names
 
 
 # --- running the partitions ------------------------------------------------------------------

@@ -54,6 +54,11 @@ def _spec(folder: Path, blocks: str | None, extra: str = QUICK, footprint: str =
 @pytest.fixture
 def people_in_uncovered_half(two_by_two: Path) -> Path:
     """Cell 1's people all live in its right half; the footprint covers its left half."""
+    return write_uncovered_half(two_by_two)
+
+
+def write_uncovered_half(two_by_two: Path) -> Path:
+    """Write the six hand-built blocks of :func:`people_in_uncovered_half`."""
     box = shapely.box
     _blocks(
         [
