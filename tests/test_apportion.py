@@ -476,3 +476,18 @@ def test_reach_sweep_says_it_stays_areal():
     assert "placed again for every reach" in out["radius_note"]
     assert sweep_apportionment(areal, points) == {"apportionment": "areal"}
     assert change_apportionment(areal) == {"apportionment": "areal"}
+
+
+def test_report_says_which_further_analyses_count_by_block():
+    from coverage_audit.report.blocks_section import further_sentence
+
+    summary = {
+        "comparison": {"apportionment": "blocks"},
+        "sensitivity": {"apportionment": "blocks", "radius_apportionment": "areal"},
+    }
+    text = further_sentence(summary)
+    assert text.startswith(
+        "The footprint comparison and the served-threshold sweep also counted people by census"
+    )
+    assert "The reach sweep did not" in text
+    assert further_sentence({"sensitivity": {"apportionment": "areal"}}) == ""
