@@ -213,7 +213,7 @@ def main() -> None:
         slope, intercept = np.polyfit(sizes, times, 1)
         fit = np.polyval([slope, intercept], sizes)
         r2 = 1 - np.sum((np.array(times) - fit) ** 2) / max(
-            np.sum((times - np.mean(times)) ** 2), 1e-12
+            np.sum((np.array(times) - np.mean(times)) ** 2), 1e-12
         )
         print(
             "\npartition blocks, seconds:",
