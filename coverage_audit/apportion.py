@@ -32,6 +32,7 @@ from .dasymetric import Apportioned, apportion_dasymetric
 from .errors import AnalysisError, InputError
 from .inputs import InputRecord
 from .io.blocks import (
+    ROW_COLUMN,
     BlockColumns,
     CleanBlocks,
     check_columns,
@@ -134,7 +135,55 @@ def memory_task(chunk: tuple[Any, ...], pieces_wkb: np.ndarray, task: Task) -> P
 
 def file_task(path: str, pieces_wkb: np.ndarray, envelope: np.ndarray, task: Task) -> PartitionSums:
     """One partition file of a prepared dataset: read it, then :func:`frame_task`."""
-    return frame_task(gpd.read_parquet(path), pieces_wkb, envelope, task, path)
+    return frame_task(_read_partition(path, task), pieces_wkb, envelope, task, path)
+
+
+def _read_partition(path: str, task: Task) -> gpd.GeoDataFrame:
+    """Read a partition file's id, count, row and geometry columns (not the others)."""
+    import pyarrow.parquet as pq
+
+    present = set(pq.read_schema(path).names)
+    wanted = [task.columns.id, *task.columns.count_columns, ROW_COLUMN]
+    geometry = _geo_metadata(path).get("primary_column", "geometry")
+    columns = list(dict.fromkeys(c for c in [*wanted, geometry] if c in present))
+    # A named column that is absent is read anyway, so that check_columns names it.
+    if any(c not in present for c in wanted[:-1]):
+        return gpd.read_parquet(path)
+    return gpd.read_parquet(path, columns=columns)
+
+
+def _geo_metadata(path: str | Path) -> dict[str, Any]:
+    """Return the GeoParquet ``geo`` metadata of a file ({} when it has none)."""
+    import json
+
+    import pyarrow.parquet as pq
+
+    meta = pq.read_schema(path).metadata or {}
+    try:
+        return dict(json.loads(meta[b"geo"])) if b"geo" in meta else {}
+    except ValueError:
+        return {}
+
+
+def _file_crs(path: Path) -> CRS | None:
+    """Return a GeoParquet file's CRS from its metadata, without reading any geometry.
+
+    GeoParquet: a column's ``crs`` is PROJJSON; absent means OGC:CRS84; null, unknown.
+    """
+    geo = _geo_metadata(path)
+    if not geo:
+        return None
+    column = geo.get("columns", {}).get(geo.get("primary_column", "geometry"), {})
+    if "crs" not in column:
+        return CRS.from_user_input("OGC:CRS84")
+    value = column["crs"]
+    return (
+        None
+        if value is None
+        else CRS.from_json_dict(value)
+        if isinstance(value, dict)
+        else CRS(value)
+    )
 
 
 def frame_task(
@@ -173,8 +222,11 @@ def _check_county(clean: CleanBlocks, path: str) -> None:
 def _project(geoms: np.ndarray, crs: Any, target_wkt: str, path: str) -> np.ndarray:
     if crs is None:
         raise InputError(NO_CRS.format(path=path))
+    target = CRS.from_wkt(target_wkt)
+    if CRS(crs).equals(target):  # already in the analysis CRS: nothing to transform
+        return geoms
     series = gpd.GeoSeries(geoms, crs=crs)
-    return np.asarray(series.to_crs(CRS.from_wkt(target_wkt)).array, dtype=object)
+    return np.asarray(series.to_crs(target).array, dtype=object)
 
 
 def combine(parts: Sequence[PartitionSums], width: int) -> pd.DataFrame:
@@ -430,12 +482,10 @@ def digest(path: Path) -> str:
 
 def _envelope(path: Path, crs_wkt: str) -> np.ndarray:
     """Return a partition's bounding box in the analysis CRS, padded (ENVELOPE_PAD_M)."""
-    import pyarrow.parquet as pq
     from pyproj import Transformer
 
     box = file_bounds(path)
-    meta = pq.read_schema(path).metadata or {}
-    crs = gpd.read_parquet(path, columns=["geometry"]).crs if b"geo" in meta else None
+    crs = _file_crs(path)
     if crs is None:
         raise InputError(f"blocks file '{path}' has no CRS; prepare it with its CRS")
     to = Transformer.from_crs(crs, CRS.from_wkt(crs_wkt), always_xy=True)

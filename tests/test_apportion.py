@@ -491,3 +491,16 @@ def test_report_says_which_further_analyses_count_by_block():
     )
     assert "The reach sweep did not" in text
     assert further_sentence({"sensitivity": {"apportionment": "areal"}}) == ""
+
+
+def test_partition_crs_is_read_from_metadata(tmp_path):
+    """The GeoParquet metadata names the CRS (PROJJSON); no geometry is read for it."""
+    from pyproj import CRS
+
+    from coverage_audit.apportion import _file_crs
+
+    frame = _blocks([("010010000011001", shapely.box(0, 0, 1, 1), 1, 1, 0)])
+    frame.to_crs("EPSG:4269").to_parquet(tmp_path / "b.parquet")
+    assert _file_crs(tmp_path / "b.parquet").equals(CRS("EPSG:4269"))
+    pd.DataFrame({"a": [1]}).to_parquet(tmp_path / "plain.parquet")
+    assert _file_crs(tmp_path / "plain.parquet") is None
