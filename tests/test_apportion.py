@@ -504,3 +504,23 @@ def test_partition_crs_is_read_from_metadata(tmp_path):
     assert _file_crs(tmp_path / "b.parquet").equals(CRS("EPSG:4269"))
     pd.DataFrame({"a": [1]}).to_parquet(tmp_path / "plain.parquet")
     assert _file_crs(tmp_path / "plain.parquet") is None
+
+
+def test_repeated_block_ids_are_all_left_out():
+    from coverage_audit.io.blocks import BlockColumns, clean_blocks
+
+    box = shapely.box
+    frame = _blocks(
+        [
+            ("010010000011001", box(0, 0, 1, 1), 5, 1, 1),
+            ("010010000011002", box(1, 0, 2, 1), 5, 1, 1),
+            ("010010000011001", box(2, 0, 3, 1), 5, 1, 1),
+            ("0100100000110", box(3, 0, 4, 1), 5, 1, 1),
+        ]
+    )
+    columns = BlockColumns("GEOID20", "P2_001N", (("white", "P2_005N"), ("black", "P2_006N")))
+    clean = clean_blocks(frame, columns)
+    assert clean.ids.tolist() == ["010010000011002"]
+    reasons = {row: why for row, _, why in clean.excluded}
+    assert reasons[1] == reasons[3] == "duplicate block id"
+    assert "15-digit" in reasons[4]
