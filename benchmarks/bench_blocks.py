@@ -129,6 +129,9 @@ def main() -> None:
         "--skip-one-file", action="store_true", help="skip the run on one whole file"
     )
     parser.add_argument(
+        "--skip-partitions", action="store_true", help="skip the per-partition timings"
+    )
+    parser.add_argument(
         "--cache", type=Path, default=None, help="folder kept between runs (default: temporary)"
     )
     args = parser.parse_args()
@@ -203,6 +206,8 @@ def main() -> None:
                 f"{children:11.0f} {same}",
                 flush=True,
             )
+        if args.skip_partitions:
+            return
         # Per-partition time against partition size (county files, one at a time, here).
         sizes, times = [], []
         for f in dataset_files(folder / "prepared"):

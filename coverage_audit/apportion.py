@@ -138,18 +138,21 @@ def file_task(path: str, pieces_wkb: np.ndarray, envelope: np.ndarray, task: Tas
     return frame_task(_read_partition(path, task), pieces_wkb, envelope, task, path)
 
 
-def _read_partition(path: str, task: Task) -> gpd.GeoDataFrame:
-    """Read a partition file's id, count, row and geometry columns (not the others)."""
+def _read_partition(path: str, task: Task, columns_only: bool = False) -> Any:
+    """Read a partition file's id, count, row and geometry columns (not the others).
+
+    With ``columns_only``, return those column names instead ([] when one is absent).
+    """
     import pyarrow.parquet as pq
 
     present = set(pq.read_schema(path).names)
     wanted = [task.columns.id, *task.columns.count_columns, ROW_COLUMN]
     geometry = _geo_metadata(path).get("primary_column", "geometry")
     columns = list(dict.fromkeys(c for c in [*wanted, geometry] if c in present))
-    # A named column that is absent is read anyway, so that check_columns names it.
+    # A named column that is absent: all are read, so that check_columns names it.
     if any(c not in present for c in wanted[:-1]):
-        return gpd.read_parquet(path)
-    return gpd.read_parquet(path, columns=columns)
+        return [] if columns_only else gpd.read_parquet(path)
+    return columns if columns_only else gpd.read_parquet(path, columns=columns)
 
 
 def _geo_metadata(path: str | Path) -> dict[str, Any]:
@@ -527,7 +530,10 @@ def _run(
     # partition would travel back through this process), so there each task reads its own.
     if dataset is not None and args and analysis.dask_scheduler is not None:
         root = dataset
-        parts = dask_geopandas.read_parquet(root).to_delayed()
+        task0 = args[0][3]
+        first = dataset_files(root)[0]
+        columns = list(_read_partition(str(first), task0, columns_only=True))
+        parts = dask_geopandas.read_parquet(root, columns=columns or None).to_delayed()
         if len(parts) != len(args):
             raise AnalysisError(
                 f"dask-geopandas read {len(parts)} partitions from '{root}' but it has "
