@@ -1,22 +1,27 @@
 """Benchmark of block apportionment: local, dask local processes and a LocalCluster, same run.
 
 Generates a fictional block layer nested in tracts (--blocks, default 200,000; 10 blocks a
-tract; edges segmentized so blocks have about 20-60 vertices; tracts grouped into county
-bands of growing size; fixed seed), a footprint of buffered service points, writes the blocks as one
-GeoParquet file and prepares them as GeoParquet partitioned by county
-(io.blocks.prepare_blocks), then times, each once:
+tract; edges segmentized so blocks have about 30-80 vertices; tracts grouped into county
+bands of growing size; fixed seed) county by county, so that memory stays bounded by one
+county, with a footprint of buffered service points (as many per km2 at any size), and
+prepares the blocks as GeoParquet partitioned by county (io.blocks.prepare_blocks). With
+--cache DIR the generated layer is kept and reused (generation of 2 million blocks takes
+about 5 minutes). Then it times, each once:
 
-- baseline (named): engine "local" on the one file (read whole, one partition);
-- local, prepared dataset: county files one after another in this process;
+- baseline (named): engine "local" on the prepared dataset (county files in turn);
 - dask on local processes (the engine's default without dask_scheduler);
-- dask on a LocalCluster of 1 and of 2 worker processes x 1 thread (loopback only).
+- dask on a LocalCluster of 1 and of 2 worker processes x 1 thread (loopback only);
+- unless --skip-one-file: engine "local" on one GeoParquet file read whole.
 
 For each it prints the time, its ratio to the baseline, the peak resident memory above the
 start (this process, and the worker processes' summed peak) and whether the per-area sums
 equal the baseline's exactly. It then times each county partition alone and fits
 time = a + b x blocks, to show the cost grows linearly, and projects the national
-8,180,866 blocks (2020) on 1, 2, 8 and 32 workers from the fit.
-Usage: python benchmarks/bench_blocks.py [--blocks 200000] [--counties 8] [--skip-cluster]
+8,180,866 blocks (2020) on 1, 2, 8 and 32 workers from the fit. --blocks-crs EPSG:4269
+stores the blocks in NAD83 longitude/latitude, as TIGER/Line does, so that every run
+also projects them. Results: benchmarks/RESULTS_issue16.md.
+Usage: python benchmarks/bench_blocks.py [--blocks 200000] [--counties 8] [--cache DIR]
+       [--skip-cluster] [--skip-dask] [--skip-one-file] [--skip-partitions] [--blocks-crs CRS]
 """
 
 from __future__ import annotations
