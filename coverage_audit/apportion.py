@@ -201,16 +201,87 @@ def frame_task(
     check_columns(frame, task.columns, path)
     clean = clean_blocks(frame, task.columns)
     _check_county(clean, path)
-    geoms = _project(clean.geometry, frame.crs, task.crs_wkt, path)
-    if geoms.size and task.served is None:
-        low = shapely.bounds(geoms)
-        lo, hi = np.fmin.reduce(low[:, :2], axis=0), np.fmax.reduce(low[:, 2:], axis=0)
+    return block_sums(clean, _measure(clean, frame.crs, pieces_wkb, envelope, task, path), task)
+
+
+def _measure(
+    clean: CleanBlocks,
+    crs: Any,
+    pieces_wkb: np.ndarray,
+    envelope: np.ndarray,
+    task: Task,
+    path: str,
+) -> np.ndarray:
+    """Return each block's covered fraction, projecting only the blocks near a piece.
+
+    Blocks in another CRS than the analysis CRS are first placed by their bounding boxes
+    (sampled at corners, edge midpoints and centre, projected, padded); those whose box
+    meets no piece's box cannot meet a piece and get 0 without being projected. The
+    others are projected and measured exactly, as all blocks would be, so the fractions
+    are the same as projecting every block.
+    """
+    if crs is None:
+        raise InputError(NO_CRS.format(path=path))
+    if task.served is not None:
+        return _fractions(clean, clean.geometry, np.array([], dtype=object), task)
+    pieces = shapely.from_wkb(pieces_wkb)
+    target = CRS.from_wkt(task.crs_wkt)
+    same = CRS(crs).equals(target)
+    boxes = (
+        shapely.bounds(clean.geometry)
+        if same
+        else _projected_boxes(shapely.bounds(clean.geometry), CRS(crs), target)
+    )
+    if boxes.size:
+        lo, hi = np.fmin.reduce(boxes[:, :2], axis=0), np.fmax.reduce(boxes[:, 2:], axis=0)
         if np.any(lo < envelope[:2]) or np.any(hi > envelope[2:]):
             raise AnalysisError(
                 f"blocks of '{path}' reach beyond the envelope their footprint pieces were "
                 "chosen for; prepare the dataset again with coverage-audit prepare-blocks"
             )
-    return block_sums(clean, _fractions(clean, geoms, shapely.from_wkb(pieces_wkb), task), task)
+    if same:
+        return covered_fraction(clean.geometry, pieces)
+    fraction = np.zeros(len(clean.ids), dtype=float)
+    near = _near_pieces(boxes, pieces)
+    if near.any():
+        geoms = _project(clean.geometry[near], crs, task.crs_wkt, path)
+        fraction[near] = covered_fraction(geoms, pieces)
+    return fraction
+
+
+#: Padding of a block's projected box (metres, and share of its size) when picking blocks.
+BOX_PAD_M, BOX_PAD_SHARE = 1.0, 0.01
+
+
+def _projected_boxes(bounds: np.ndarray, crs: CRS, target: CRS) -> np.ndarray:
+    """Return (n, 4) boxes in ``target`` around boxes in ``crs`` (9 points each, unpadded)."""
+    from pyproj import Transformer
+
+    to = Transformer.from_crs(crs, target, always_xy=True)
+    fx = np.array([0.0, 0.5, 1.0])
+    xs = bounds[:, [0]] + (bounds[:, [2]] - bounds[:, [0]]) * fx  # (n, 3)
+    ys = bounds[:, [1]] + (bounds[:, [3]] - bounds[:, [1]]) * fx
+    px, py = to.transform(np.repeat(xs, 3, axis=1), np.tile(ys, (1, 3)))
+    px, py = np.asarray(px), np.asarray(py)
+    return np.column_stack([px.min(axis=1), py.min(axis=1), px.max(axis=1), py.max(axis=1)])
+
+
+def _near_pieces(boxes: np.ndarray, pieces: np.ndarray) -> np.ndarray:
+    """Return whether each padded box meets a piece's bounding box.
+
+    A box that could not be placed (not finite) counts as near, so that its block is
+    projected and measured.
+    """
+    near = ~np.isfinite(boxes).all(axis=1)
+    if pieces.size == 0 or boxes.size == 0:
+        return near
+    size = np.fmax(boxes[:, 2] - boxes[:, 0], boxes[:, 3] - boxes[:, 1])
+    pad = BOX_PAD_M + BOX_PAD_SHARE * np.nan_to_num(size)
+    padded = shapely.box(boxes[:, 0] - pad, boxes[:, 1] - pad, boxes[:, 2] + pad, boxes[:, 3] + pad)
+    ok = ~near
+    hit = shapely.STRtree(pieces).query(padded[ok])[0]
+    near[np.flatnonzero(ok)[np.unique(hit)]] = True
+    return near
 
 
 def _check_county(clean: CleanBlocks, path: str) -> None:

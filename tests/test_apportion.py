@@ -524,3 +524,39 @@ def test_repeated_block_ids_are_all_left_out():
     reasons = {row: why for row, _, why in clean.excluded}
     assert reasons[1] == reasons[3] == "duplicate block id"
     assert "15-digit" in reasons[4]
+
+
+def test_blocks_in_another_crs_projected_only_near_the_footprint():
+    """Consistency check: projecting only the blocks whose box meets a piece gives the
+    fractions of projecting every block (far blocks are exactly 0 either way)."""
+    from pyproj import CRS
+
+    from coverage_audit.apportion import Task, _measure, _project
+    from coverage_audit.coverage import covered_fraction
+    from coverage_audit.io.blocks import BlockColumns, clean_blocks
+
+    rng = np.random.default_rng(20261202)
+    cells = grid(20, 20, size=250.0)
+    rows = [
+        (f"01001000001{1000 + k:04d}", g, 10, 5, 5)
+        for k, g in enumerate(cells.geometry.rotate(7, origin=(0, 0)))
+    ]
+    frame = _blocks(rows).to_crs("EPSG:4269")  # stored as TIGER/Line stores them
+    columns = BlockColumns("GEOID20", "P2_001N", (("white", "P2_005N"), ("black", "P2_006N")))
+    clean = clean_blocks(frame, columns)
+    sites = shapely.points(rng.uniform(0, 5000, 6), rng.uniform(0, 5000, 6))
+    pieces = np.asarray(shapely.get_parts(shapely.union_all(shapely.buffer(sites, 600.0))))
+    task = Task(
+        columns=columns,
+        area_ids=np.array(["01001000001"]),
+        width=11,
+        crs_wkt=CRS(GRID_CRS).to_wkt(),
+        minority_of=None,
+        served=None,
+    )
+    envelope = np.array([-1e6, -1e6, 1e6, 1e6])
+    got = _measure(clean, frame.crs, shapely.to_wkb(pieces), envelope, task, "x")
+    every = covered_fraction(_project(clean.geometry, frame.crs, task.crs_wkt, "x"), pieces)
+    np.testing.assert_allclose(got, every, rtol=0, atol=1e-12)
+    assert (every == 0).any() and (every > 0).any()
+    assert np.array_equal(got == 0, every == 0)
