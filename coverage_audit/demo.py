@@ -717,6 +717,19 @@ Two areas have no residents: Ostmere Lake and Heron Commons Park.
   (`b19113_api.json`) and the ZCTA-to-tract relationship file
   (`tab20_zcta520_tract20_natl.txt`, fictional ZCTAs). One listed ZIP is a PO-box ZIP
   with no ZCTA: it is listed in exclusions.csv. All values are made up.
+- `lending.toml`: a mortgage lending review of Ostmere Savings from loan records in the
+  HMDA public layout (`hmda_records.txt`, pipe-delimited, three years, six fictional
+  lenders). The bank's share of applications from majority-minority tracts is set
+  against its peers' in the same market; it is the one lender below its peers.
+- `clinics.toml`: the primary care clinics of a fictional health cooperative
+  (`clinics.geojson`, each with its number of doctors), audited by reach (5 km) and by
+  access to capacity (an enhanced two-step floating catchment with a stepped distance
+  decay), so a clinic's crowding counts as well as its distance.
+- `delivery_blocks.toml`: the delivery zone again, with people counted where they live:
+  fictional census blocks (`blocks.parquet`, columns in the 2020 redistricting table P2
+  layout, read with the `pl_p2` preset). A tract half inside the zone may have most of
+  its residents in either half; the report gives the block-based rates beside the areal
+  ones and says how far they differ.
 
 Run them all with `coverage-audit demo`; outputs go to `outputs/demo/<scenario>/`.
 """

@@ -54,3 +54,11 @@ class MarginWarning(CoverageAuditWarning):
 
 class NoPopulationWarning(DegenerateStatisticWarning):
     """Every analysed area has zero population: no rate, ratio or index by group is defined."""
+
+
+class SmallSampleWarning(CoverageAuditWarning):
+    """A model has fewer events per parameter than the usual rule of thumb asks for."""
+
+
+class DroppedRowsWarning(CoverageAuditWarning):
+    """Rows with missing or non-numeric model values were left out of the models."""

@@ -10,8 +10,9 @@ from __future__ import annotations
 
 import math
 from collections.abc import Mapping
+from dataclasses import MISSING, fields
 from pathlib import Path
-from typing import Any
+from typing import Any, TypeVar, cast
 
 from .errors import SpecError
 
@@ -125,12 +126,32 @@ def _int_default(
     return default if value is None else value
 
 
+_Choice = TypeVar("_Choice", bound=str)
+
+
 def _choice(
-    d: Mapping[str, Any], key: str, where: str, label: str, allowed: tuple[str, ...], default: str
-) -> str:
+    d: Mapping[str, Any],
+    key: str,
+    where: str,
+    label: str,
+    allowed: tuple[_Choice, ...],
+    default: _Choice,
+) -> _Choice:
     value = d.get(key, default)
     if value not in allowed:
         raise SpecError(
             f'{where}: [{label}] {key} was "{value}" but is expected to be one of {list(allowed)}'
         )
-    return str(value)
+    return cast(_Choice, str(value))
+
+
+def default_of(section: Any, name: str) -> Any:
+    """Return the default of field ``name`` of the spec dataclass ``section``.
+
+    The defaults of a spec section are written once, in its dataclass; the parsers read
+    them from there.
+    """
+    for f in fields(section):
+        if f.name == name and f.default is not MISSING:
+            return f.default
+    raise TypeError(f"{section.__name__}.{name} has no default")

@@ -21,7 +21,7 @@ from __future__ import annotations
 import warnings
 from dataclasses import dataclass, field
 from functools import cached_property
-from typing import Literal
+from typing import get_args
 
 import geopandas as gpd
 import numpy as np
@@ -31,14 +31,12 @@ import shapely
 from libpysal.graph import Graph
 from scipy.sparse.csgraph import connected_components
 
+from .choices import ContiguityKind, IslandPolicy
 from .edges import EDGE_TOLERANCE_M, EdgeTable, edge_table
 from .errors import AnalysisError, IslandWarning, SpecError
 
-ContiguityKind = Literal["queen", "rook"]
-IslandPolicy = Literal["exclude", "knn"]
-
-CONTIGUITY_KINDS: tuple[str, ...] = ("queen", "rook")
-ISLAND_POLICIES: tuple[str, ...] = ("exclude", "knn")
+CONTIGUITY_KINDS: tuple[str, ...] = get_args(ContiguityKind)
+ISLAND_POLICIES: tuple[str, ...] = get_args(IslandPolicy)
 ISLAND_REASON = "island: no contiguity neighbour, left out of spatial statistics"
 
 
@@ -66,11 +64,11 @@ class AreaGraph:
     """
 
     ids: tuple[str, ...]
-    kind: str
+    kind: ContiguityKind
     adjacency: sp.csr_matrix
     islands: tuple[str, ...]
     component_labels: np.ndarray
-    island_policy: str
+    island_policy: IslandPolicy
     knn_k: int
     _knn_links: sp.csr_matrix = field(repr=False)
     _geometries: np.ndarray | None = field(repr=False, default=None)
@@ -188,8 +186,8 @@ def build_area_graph(
     geometries: np.ndarray,
     ids: list[str] | tuple[str, ...] | np.ndarray,
     *,
-    kind: str = "queen",
-    island_policy: str = "exclude",
+    kind: ContiguityKind = "queen",
+    island_policy: IslandPolicy = "exclude",
     knn_k: int = 1,
 ) -> AreaGraph:
     """Build the contiguity of the analysed areas.

@@ -20,7 +20,6 @@ from libpysal.graph import Graph
 from scipy import stats
 from statsmodels.stats.multitest import multipletests
 
-from coverage_audit import clustering as clustering_module
 from coverage_audit.clustering import (
     CLUSTER_LABELS,
     benjamini_hochberg,
@@ -37,6 +36,7 @@ from coverage_audit.errors import (
     IslandWarning,
     SpecError,
 )
+from coverage_audit.stats import _spatial as clustering_module
 from coverage_audit.synthetic import demographics, tessellation
 from coverage_audit.weights import build_area_graph
 

@@ -785,7 +785,7 @@ def test_sensitivity_errors():
 def test_non_convergence_is_an_error(monkeypatch):
     # The separation check runs first; disabling it shows the fitting fallback still
     # turns a diverging likelihood into a plain error instead of huge odds ratios.
-    import coverage_audit.explain as explain
+    import coverage_audit.stats.models as explain
 
     monkeypatch.setattr(explain, "_separation_direction", lambda x, y: None)
     table = _small_table()

@@ -16,7 +16,6 @@ import pytest
 from libpysal import examples
 from numpy.testing import assert_allclose, assert_array_equal
 
-from coverage_audit import segregation as seg
 from coverage_audit.errors import AnalysisError, DegenerateStatisticWarning, SpecError
 from coverage_audit.segregation import (
     areal_coverage_dissimilarity,
@@ -29,6 +28,7 @@ from coverage_audit.segregation import (
     isolation,
     segregation_summary,
 )
+from coverage_audit.stats import coverage_gap as seg
 
 SEED = 20240611
 # Hand-worked values are exact decimals; only float rounding separates them from ours.
