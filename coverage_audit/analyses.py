@@ -4,14 +4,14 @@ Takes the audited areas (with coverage and statistics), the spec and the footpri
 gives the summary sections ``explain``, ``sensitivity``, ``comparison``, ``change`` and
 ``peers``. Each section calls the pure functions of :mod:`coverage_audit.explain` and
 :mod:`coverage_audit.compare`; this module only prepares their inputs (derived control
-variables, other footprints' coverage, the activity table) and records why a section
-could not be computed instead of failing the whole audit.
+variables, other footprints' coverage) and records why a section could not be computed
+instead of failing the whole audit. It reads no file: the other footprints and the
+activity table come read by the input stage (:mod:`coverage_audit.io.further`).
 """
 
 from __future__ import annotations
 
 import warnings
-from dataclasses import dataclass, field
 from typing import Any
 
 import geopandas as gpd
@@ -32,10 +32,11 @@ from .coverage import coverage_by_group, covered_fraction, footprint_fractions
 from .enclaves import count_enclaves
 from .errors import AnalysisError, DegenerateStatisticWarning, InputError
 from .explain import DEFAULT_THRESHOLDS, discover_rules, exclusion_models, sensitivity_thresholds
-from .footprint import Footprint, build_footprint, cut_pieces, geodesic_circles
-from .inputs import AreaInputs, Exclusions, InputRecord, ids_as_text, read_hashed, read_table
-from .io.joins import MatchReport, match_ids
+from .footprint import Footprint, cut_pieces, geodesic_circles
+from .inputs import AreaInputs, InputRecord
+from .io.joins import MatchReport
 from .options import enclave_options
+from .results import ExplainFindings, Section, Skipped, WithDetails
 from .spec import AuditSpec
 from .weights import AreaGraph
 
@@ -69,11 +70,12 @@ def add_derived_columns(frame: gpd.GeoDataFrame, spec: AuditSpec, crs: Any) -> g
 
 def explain_section(
     frame: gpd.GeoDataFrame, spec: AuditSpec, id_column: str, graph: AreaGraph
-) -> dict[str, Any]:
+) -> ExplainFindings:
     """Exclusion models and rule discovery, as the ``[explain]`` table asks."""
     explain = spec.explain
     assert explain is not None
-    out: dict[str, Any] = {}
+    models: Section | None = None
+    rules: Section | None = None
     table = pd.DataFrame(frame.drop(columns=frame.geometry.name))
     missing = [c for c in (*explain.controls, *explain.rule_conditions) if c not in table.columns]
     if missing:
@@ -83,32 +85,32 @@ def explain_section(
         )
     if "minority_share" not in table.columns:
         reason = "needs the minority share: set derive_minority = true or name a group minority"
-        return {"models": {"skipped": reason}, "rules": {"skipped": reason}}
+        return ExplainFindings(Skipped(reason), Skipped(reason))
     if explain.models:
         try:
-            out["models"] = exclusion_models(
+            models = exclusion_models(
                 table,
                 controls=explain.controls,
                 id_column=id_column,
                 categorical=explain.categorical,
                 weights=graph,
-            ).to_dict()
+            )
         except AnalysisError as exc:
             warnings.warn(
                 f"exclusion models not estimated: {exc}", DegenerateStatisticWarning, stacklevel=2
             )
-            out["models"] = {"skipped": str(exc)}
+            models = Skipped(str(exc))
     if explain.rules:
         try:
-            out["rules"] = discover_rules(
+            rules = discover_rules(
                 table,
                 conditions=explain.rule_conditions,
                 max_length=explain.rule_max_length,
                 min_support=explain.rule_min_support,
-            ).to_dict()
+            )
         except AnalysisError as exc:
-            out["rules"] = {"skipped": str(exc)}
-    return out
+            rules = Skipped(str(exc))
+    return ExplainFindings(models, rules)
 
 
 def _enclave_counts(
@@ -193,49 +195,6 @@ def sensitivity_section(
     return out
 
 
-@dataclass(frozen=True)
-class FurtherInputs:
-    """What the further analyses read, read in the input stage with the areas.
-
-    Attributes
-    ----------
-    footprints : tuple of Footprint
-        Every footprint of the spec after the first, built over the analysed areas.
-    activity : tuple or None
-        The ``[activity]`` table, its input record and its match to the areas.
-    exclusions : Exclusions
-        Rows of these inputs left out (the audit adds them to its exclusions).
-    records : tuple of InputRecord
-        These inputs' files, for the manifest.
-    """
-
-    footprints: tuple[Footprint, ...] = ()
-    activity: tuple[pd.DataFrame, InputRecord, MatchReport] | None = None
-    exclusions: Exclusions = field(default_factory=Exclusions)
-    records: tuple[InputRecord, ...] = ()
-
-
-def read_further_inputs(spec: AuditSpec, inputs: AreaInputs) -> FurtherInputs:
-    """Build the other footprints and read the activity table, before any statistic."""
-    exclusions = Exclusions()
-    built = tuple(
-        build_footprint(
-            fp_spec,
-            inputs,
-            exclusions,
-            circle_vertices=spec.analysis.circle_vertices,
-            id_width=spec.areas.id_width,
-        )
-        for fp_spec in spec.footprints[1:]
-    )
-    records = [r for f in built for r in f.records]
-    activity = None
-    if spec.activity is not None:
-        activity = read_activity(spec, inputs.frame[inputs.id_column].tolist())
-        records.append(activity[1])
-    return FurtherInputs(built, activity, exclusions, tuple(records))
-
-
 def other_footprints(
     spec: AuditSpec,
     inputs: AreaInputs,
@@ -276,17 +235,17 @@ def other_footprints(
     return results, fractions
 
 
-def comparison_section(primary: dict[str, Any], others: dict[str, Any]) -> dict[str, Any]:
+def comparison_section(primary: dict[str, Any], others: dict[str, Any]) -> Section:
     """Side-by-side coverage of every footprint, ranked."""
     merged = {**primary, **others}
     methods = {str(v["coverage"].get("apportionment", "areal")) for v in merged.values()}
     method = methods.pop() if len(methods) == 1 else "mixed"
-    return compare_footprints(merged).to_dict() | {"apportionment": method}
+    return WithDetails(compare_footprints(merged), {"apportionment": method})
 
 
 def change_section(
     spec: AuditSpec, inputs: AreaInputs, frame: gpd.GeoDataFrame, fractions: dict[str, np.ndarray]
-) -> dict[str, Any]:
+) -> Section:
     """Areas that lost or gained service between two footprints, and the rate changes."""
     assert spec.change is not None
     table = pd.DataFrame(frame.drop(columns=frame.geometry.name))
@@ -296,14 +255,15 @@ def change_section(
         cf = fractions[name]
         return table.assign(covered_fraction=cf, served=cf >= threshold)
 
-    return change_between(
+    change = change_between(
         side(spec.change.before),
         side(spec.change.after),
         id_column=inputs.id_column,
         groups=inputs.groups,
         reference=inputs.reference,
         threshold=threshold,
-    ).to_dict() | change_apportionment(spec)
+    )
+    return WithDetails(change, change_apportionment(spec))
 
 
 #: Columns that name a service site, in order of preference.
@@ -349,45 +309,12 @@ def site_changes(change: Any, footprints: list[Footprint]) -> dict[str, Any]:
     return out
 
 
-def read_activity(
-    spec: AuditSpec, area_ids: list[str]
-) -> tuple[pd.DataFrame, InputRecord, MatchReport]:
-    """Read the ``[activity]`` table with text ids and report its match to the areas.
-
-    Raises
-    ------
-    InputError
-        When the id column is missing or too few rows match the areas.
-    """
-    activity = spec.activity
-    assert activity is not None
-    table, digest = read_hashed(
-        activity.path,
-        lambda: read_table(activity.path, id_column=activity.id, role="activity table"),
-        role="activity table",
-    )
-    record = InputRecord("activity", str(activity.path), digest, len(table))
-    if activity.id not in table.columns:
-        raise InputError(
-            f"activity table '{activity.path}' has no id column {activity.id!r}; its columns are "
-            f"{list(table.columns)}"
-        )
-    table = table.copy()
-    table[activity.id] = ids_as_text(
-        table[activity.id],
-        width=activity.id_width or spec.areas.id_width,
-        where=f"activity table '{activity.path}'",
-    )
-    match = match_ids("activity table", str(activity.path), list(table[activity.id]), area_ids)
-    return table, record, match
-
-
 def peers_section(
     spec: AuditSpec,
     inputs: AreaInputs,
     frame: gpd.GeoDataFrame,
     activity_read: tuple[pd.DataFrame, InputRecord, MatchReport],
-) -> dict[str, Any]:
+) -> WithDetails:
     """Each lender's share of activity in majority-minority areas against its peers."""
     activity = spec.activity
     assert activity is not None
@@ -410,4 +337,4 @@ def peers_section(
         lender_columns=list(activity.lender_columns) if activity.lender_columns else None,
         alpha=activity.alpha,
     )
-    return result.to_dict() | {"match": match.to_dict()}
+    return WithDetails(result, {"match": match.to_dict()})

@@ -532,9 +532,9 @@ def _cmd_check(args: argparse.Namespace) -> int:
     Lines are printed as each input is read, so a failing join (an error, exit 2) comes
     after the inputs that were fine.
     """
-    from .analyses import read_activity
     from .footprint import build_footprint
     from .inputs import load_areas
+    from .io.activity import read_activity
     from .spec import load_spec
 
     spec = load_spec(args.spec)

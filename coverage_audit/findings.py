@@ -32,6 +32,7 @@ __all__ = [
     "BUILDERS",
     "Finding",
     "build_findings",
+    "headline_findings",
     "register_finding",
 ]
 
@@ -89,6 +90,20 @@ def register_finding(kind: str, *, order: int = 100) -> Callable[[Builder], Buil
     return wrap
 
 
+def headline_findings(summary: Mapping[str, Any]) -> list[Finding]:
+    """Return the headline findings of an audit as :class:`Finding` objects, salient first.
+
+    Parameters
+    ----------
+    summary : mapping
+        The audit summary; any section may be missing (its findings are then absent).
+    """
+    found: list[Finding] = []
+    for _, _, builder in BUILDERS:
+        found.extend(builder(summary))
+    return [f for f in found if f.salient] + [f for f in found if not f.salient]
+
+
 def build_findings(summary: Mapping[str, Any]) -> list[dict[str, Any]]:
     """Return the headline findings of an audit as summary.json's ``findings`` list.
 
@@ -102,11 +117,7 @@ def build_findings(summary: Mapping[str, Any]) -> list[dict[str, Any]]:
     list of dict
         ``{"kind", "sentence", "figures"}`` items, salient findings first.
     """
-    found: list[Finding] = []
-    for _, _, builder in BUILDERS:
-        found.extend(builder(summary))
-    ordered = [f for f in found if f.salient] + [f for f in found if not f.salient]
-    return [f.to_dict() for f in ordered]
+    return [f.to_dict() for f in headline_findings(summary)]
 
 
 # --- wording ---------------------------------------------------------------------------

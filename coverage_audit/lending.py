@@ -1,8 +1,8 @@
 """The lending review: one lender's HMDA records against its peers', by tract category.
 
 Takes the ``[lending]`` table of the spec, the analysed areas (with their demographics and
-the footprint's ``served`` flag) and the exclusions, streams the HMDA public records
-(:mod:`coverage_audit.io.hmda`), and gives the summary section ``lending``: the lender's
+the footprint's ``served`` flag) and the HMDA public records as the input stage read them
+(counts by cell, :mod:`coverage_audit.io.hmda_counts`), and gives the summary section ``lending``: the lender's
 share of applications, originations, purchased loans (and, when asked, preapproval
 requests) in majority-minority, majority Black-and-Hispanic, high-minority and low- and
 moderate-income tracts against its peers' share, by year and market and pooled; denial
@@ -21,7 +21,6 @@ cells, not of records.
 
 from __future__ import annotations
 
-from pathlib import Path
 from typing import Any
 
 import geopandas as gpd
@@ -30,8 +29,8 @@ import pandas as pd
 
 from .errors import InputError
 from .findings import Finding, register_finding
-from .inputs import AreaInputs, InputRecord, sha256_file
-from .io.hmda import RecordFilters, RecordReader, open_records
+from .io.hmda import RecordReader
+from .io.hmda_counts import LendingRecords, tract_source_kind
 from .spec import AuditSpec
 from .spec_lending import LendingSpec
 from .stats.lending import band_peers, compare_shares, lmi_flags, mantel_haenszel, share_flags
@@ -55,38 +54,21 @@ CATEGORIES: tuple[str, ...] = (
 #: Lenders with fewer applications than this in the review's cells are left out of the
 #: screen of every lender (their shares say little).
 SCREEN_MIN_APPLICATIONS = 20
-_KEYS = ["year", "market", "lei", "tract", "action", "race", "ethnicity"]
-#: Chunk counts are folded together when they hold more rows than this.
-_COMPACT_ROWS = 2_000_000
 
 
 def lending_section(
-    spec: AuditSpec, inputs: AreaInputs, frame: gpd.GeoDataFrame
-) -> tuple[dict[str, Any], list[InputRecord]]:
-    """Run the lending review; add the map columns to ``frame`` in place.
+    spec: AuditSpec, read: LendingRecords, frame: gpd.GeoDataFrame, id_column: str
+) -> dict[str, Any]:
+    """Run the lending review on the records read in the input stage.
 
-    Returns the ``lending`` summary section and the input records of the files read.
-    Malformed records go to ``inputs.exclusions``.
+    Adds the map columns to ``frame`` in place and returns the ``lending`` summary section.
     """
     ls = spec.lending
     assert ls is not None
-    ids = frame[inputs.id_column].astype(str).to_numpy(dtype=object)
+    ids = frame[id_column].astype(str).to_numpy(dtype=object)
     source, area_cats, notes = _tract_source(spec, ls, frame, ids)
-    # Each file is hashed before and after the streamed read, so the manifest's digest is
-    # that of the bytes the figures come from (a file that changed meanwhile is refused).
-    before = {Path(p): sha256_file(Path(p)) for p in ls.path}
-    agg, tract_figures, scans, outside = _read(ls, source, set(ids), inputs)
-    for path, digest in before.items():
-        if sha256_file(path) != digest:
-            raise InputError(
-                f"[lending] records file '{path}' changed while it was being read (its "
-                "SHA-256 before and after reading differ); wait until it is no longer being "
-                "written, then rerun"
-            )
-    records = [
-        InputRecord("lending records", str(r.path), before[Path(r.path)], r.counts.lines)
-        for r in scans
-    ]
+    agg = read.counts.copy()
+    tract_figures, scans, outside = read.tract_figures, list(read.readers), read.outside
     cats = _categories(agg, source, area_cats, tract_figures, spec, ls)
     for name in CATEGORIES:
         agg[name] = cats[name]
@@ -149,7 +131,7 @@ def lending_section(
     for name, values in columns.items():
         frame[name] = values
     section["findings"] = _findings(section)
-    return section, records
+    return section
 
 
 # --------------------------------------------------------------------------- reading
@@ -159,15 +141,7 @@ def _tract_source(
     spec: AuditSpec, ls: LendingSpec, frame: gpd.GeoDataFrame, ids: np.ndarray
 ) -> tuple[str, pd.DataFrame | None, dict[str, Any]]:
     """Choose where tract categories come from; the areas' categories when used."""
-    has_minority = "minority_share" in frame.columns
-    source = ls.tract_source
-    if source == "auto":
-        source = "areas" if has_minority else "records"
-    if source == "areas" and not has_minority:
-        raise InputError(
-            '[lending] tract_source = "areas" needs the minority share of the areas: set '
-            "derive_minority = true or name a group minority in [population]"
-        )
+    source = tract_source_kind(ls, "minority_share" in frame.columns)
     pop = spec.population
     rule = pop.majority_minority_rule
     comparison = ">" if rule == "above" else ">="
@@ -233,123 +207,6 @@ def _black_hispanic(groups: list[str]) -> tuple[str, ...] | None:
     black = next((g for g in ("black_nh", "black") if g in groups), None)
     hispanic = next((g for g in ("hispanic", "hispanic_latino", "latino") if g in groups), None)
     return (black, hispanic) if black and hispanic else None
-
-
-def _filters(ls: LendingSpec) -> RecordFilters:
-    market_field = {"msa": "derived_msa-md", "county": "county_code"}.get(ls.market_by)
-
-    def fs(values: tuple[str, ...] | None) -> frozenset[str] | None:
-        return None if values is None else frozenset(values)
-
-    return RecordFilters(
-        years=None if ls.years is None else frozenset(ls.years),
-        market_field=market_field,
-        markets=fs(ls.markets),
-        loan_purpose=fs(ls.purposes),
-        lien_status=fs(ls.liens),
-        occupancy_type=fs(ls.occupancy),
-        total_units=fs(ls.total_units),
-        loan_type=fs(ls.loan_types),
-    )
-
-
-def _read(
-    ls: LendingSpec, source: str, area_ids: set[str], inputs: AreaInputs
-) -> tuple[pd.DataFrame, pd.DataFrame | None, list[RecordReader], int]:
-    """Stream every file: counts by cell, tract figures (records source), readers, outside."""
-    filters = _filters(ls)
-    market_field = {"msa": "derived_msa-md", "county": "county_code"}.get(ls.market_by)
-    fields = [market_field] if market_field else []
-    if source == "records":
-        fields += ["tract_minority_population_percent", "tract_to_msa_income_percentage"]
-    readers = open_records(
-        list(ls.path), fields, filters=filters, optional=["derived_race", "derived_ethnicity"]
-    )
-    parts: list[pd.DataFrame] = []
-    figures: list[pd.DataFrame] = []
-    outside = 0
-    restrict = source == "areas" or ls.market_by == "area"
-    for reader in readers:
-        for chunk in reader:
-            if restrict:
-                inside = chunk["census_tract"].isin(area_ids).to_numpy()
-                outside += int((~inside).sum())
-                chunk = chunk.loc[inside]
-                if chunk.empty:
-                    continue
-            keyed = pd.DataFrame(
-                {
-                    "year": chunk["activity_year"].astype(int).to_numpy(),
-                    "market": (
-                        chunk[market_field].to_numpy(dtype=object)
-                        if market_field
-                        else np.full(len(chunk), "study area", dtype=object)
-                    ),
-                    "lei": chunk["lei"].str.upper().to_numpy(dtype=object),
-                    "tract": chunk["census_tract"].to_numpy(dtype=object),
-                    "action": chunk["action_taken"].to_numpy(dtype=object),
-                    "race": chunk.get("derived_race", pd.Series("", index=chunk.index)).to_numpy(
-                        dtype=object
-                    ),
-                    "ethnicity": chunk.get(
-                        "derived_ethnicity", pd.Series("", index=chunk.index)
-                    ).to_numpy(dtype=object),
-                }
-            )
-            parts.append(keyed.groupby(_KEYS, sort=False).size().rename("n").reset_index())
-            if sum(len(p) for p in parts) > _COMPACT_ROWS:
-                # Fold the chunks' counts together so memory follows the distinct cells.
-                parts = [_sum_counts(parts)]
-            if source == "records":
-                fig = pd.DataFrame(
-                    {
-                        "year": keyed["year"].to_numpy(),
-                        "tract": keyed["tract"].to_numpy(),
-                        "minority_pct": pd.to_numeric(
-                            chunk["tract_minority_population_percent"], errors="coerce"
-                        ).to_numpy(dtype=float),
-                        "income_pct": pd.to_numeric(
-                            chunk["tract_to_msa_income_percentage"], errors="coerce"
-                        ).to_numpy(dtype=float),
-                    }
-                )
-                figures.append(fig.groupby(["year", "tract"], sort=False).first().reset_index())
-        excluded = sorted(reader.excluded, key=lambda e: e[0])
-        inputs.exclusions.add(
-            f"lending {reader.path.name}",
-            [e[0] for e in excluded],
-            [e[1] for e in excluded],
-            [e[2] for e in excluded],
-        )
-    if not parts:
-        names = ", ".join(f"'{r.path.name}'" for r in readers)
-        raise InputError(
-            f"[lending] no record of {names} is in scope ({_counts_text(readers, outside)}); "
-            "check years, markets and the other filters"
-        )
-    agg = _sum_counts(parts)
-    tract_figures = None
-    if figures:
-        tract_figures = (
-            pd.concat(figures, ignore_index=True).groupby(["year", "tract"]).first().reset_index()
-        )
-    return agg, tract_figures, readers, outside
-
-
-def _sum_counts(parts: list[pd.DataFrame]) -> pd.DataFrame:
-    """Return the counts of several chunks summed by cell, sorted by the keys."""
-    combined = pd.concat(parts, ignore_index=True)
-    return combined.groupby(_KEYS, sort=True)["n"].sum().reset_index()
-
-
-def _counts_text(readers: list[RecordReader], outside: int) -> str:
-    lines = sum(r.counts.lines for r in readers)
-    malformed = sum(sum(r.counts.malformed.values()) for r in readers)
-    filtered = sum(sum(r.counts.filtered.values()) for r in readers)
-    return (
-        f"{lines} records read, {malformed} malformed, {filtered} outside the filters, "
-        f"{outside} outside the analysed areas"
-    )
 
 
 def _categories(

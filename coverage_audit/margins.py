@@ -1,16 +1,19 @@
 """Survey error stage: margins (or replicates) of the counts into the audit's figures.
 
 Takes the analysed areas (with the ``<group>_moe`` columns :func:`inputs.load_areas`
-adds), the spec and the summary built so far, and adds to the summary each group's
-intervals and four-fifths confidence (``coverage.groups.<g>``), the method
+adds), the replicate counts the input stage read (:mod:`coverage_audit.io.further`), the
+spec and the summary built so far (only read), and returns :class:`SurveyFigures`: each
+group's intervals and four-fifths confidence (``coverage.groups.<g>``), the method
 (``coverage.uncertainty``: ``"delta"``, ``"replicates"`` or ``"none"``), 90% intervals of
 the segregation indices (``segregation.uncertainty``) and of each enclave's group shares
-(``group_shares_ci90``). The statistics are in :mod:`coverage_audit.stats.uncertainty`.
+(``group_shares_ci90``), which the findings tree sets into summary.json. The statistics
+are in :mod:`coverage_audit.stats.uncertainty`.
 """
 
 from __future__ import annotations
 
-from collections.abc import Sequence
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
@@ -32,13 +35,51 @@ from .stats.uncertainty import (
 SURVEY_CAUTION_START = "Counts from surveys such as the American Community Survey"
 
 
+#: One change :meth:`SurveyFigures.apply` makes: the path of a dict in the summary (keys,
+#: or list positions) and the items set there, in the order the stage computed them.
+Patch = tuple[tuple[str | int, ...], dict[str, Any]]
+
+
+@dataclass(frozen=True)
+class SurveyFigures:
+    """What the survey-error stage adds to the summary.
+
+    Attributes
+    ----------
+    method : str
+        ``"none"``, ``"delta"`` or ``"replicates"``.
+    patches : tuple of Patch
+        Where each figure goes in the summary (group intervals, class intervals, the
+        footprints compared, settings, segregation intervals, enclave shares).
+    """
+
+    method: str = "none"
+    patches: tuple[Patch, ...] = ()
+
+    def apply(self, summary: dict[str, Any]) -> None:
+        """Set the figures into ``summary`` (a fresh dict built by the findings)."""
+        if self.method == "none":
+            summary["coverage"]["uncertainty"] = "none"
+            return
+        for path, items in self.patches:
+            target: Any = summary
+            for key in path:
+                target = target[key]
+            target.update(items)
+
+
 def count_errors(
-    frame: pd.DataFrame, inputs: AreaInputs, spec: AuditSpec
+    frame: pd.DataFrame,
+    inputs: AreaInputs,
+    spec: AuditSpec,
+    replicates: Mapping[str, np.ndarray] | None = None,
 ) -> tuple[CountErrors | None, np.ndarray | None]:
     """Return the sampling error of the counts: SEs from margins, or replicates.
 
-    Returns the errors (None when neither margins nor replicates were given) and the
-    total's replicates when there are any.
+    ``replicates`` are the replicate counts read in the input stage
+    (:func:`coverage_audit.io.replicates.read_replicates`, key -> 80 x areas, in the order
+    of ``frame``). Returns the errors (None when neither margins nor replicates were
+    given) and the total's replicates when there are any.
     """
     pop = spec.population
     cols = inputs.margin_columns
@@ -55,16 +96,9 @@ def count_errors(
     }
     if pop.replicates is None:
         return CountErrors(se, composition), None
-    from .io.replicates import read_replicates
-
-    named = {"population": pop.total, **dict(pop.groups)}
-    reps = read_replicates(
-        pop.replicates,
-        named,
-        frame[inputs.id_column].astype(str).tolist(),
-        id_width=spec.areas.id_width,
-        exclusions=inputs.exclusions,
-    )
+    if replicates is None:
+        raise ValueError("the replicate table is read in the input stage; pass replicates")
+    reps = dict(replicates)
     total = reps.pop("population")
     if "minority" in inputs.groups:
         reps["minority"] = total - reps[pop.reference]
@@ -73,28 +107,32 @@ def count_errors(
 
 
 def survey_error(
-    summary: dict[str, Any],
+    summary: Mapping[str, Any],
     frame: pd.DataFrame,
     inputs: AreaInputs,
     spec: AuditSpec,
     rng: np.random.Generator,
-) -> None:
-    """Add the survey-error figures to ``summary`` in place (``"none"`` without margins)."""
+    replicates: Mapping[str, np.ndarray] | None = None,
+) -> SurveyFigures:
+    """Return the survey-error figures of the audit (method ``"none"`` without margins).
+
+    ``summary`` is the summary built so far, only read (the comparison group, the area
+    classes, the footprints compared and the enclaves say where figures go).
+    """
     coverage = summary["coverage"]
-    errors, total_reps = count_errors(frame, inputs, spec)
+    errors, total_reps = count_errors(frame, inputs, spec, replicates)
     if errors is None:
-        coverage["uncertainty"] = "none"
-        return
+        return SurveyFigures()
+    patches: list[Patch] = []
     counts = {g: frame[g].to_numpy(dtype=float) for g in inputs.groups}
     fraction = frame["covered_fraction"].to_numpy(dtype=float)
     served = frame["served"].to_numpy(dtype=bool)
     result = coverage_uncertainty(counts, errors, fraction, served, coverage["comparison_group"])
     for g, figures in result.to_dict()["groups"].items():
-        coverage["groups"][g].update(figures)
-    _class_intervals(coverage, frame, errors, total_reps)
-    _footprint_intervals(summary, frame, errors, counts)
-    coverage["uncertainty"] = errors.method
-    coverage["uncertainty_settings"] = {
+        patches.append((("coverage", "groups", g), dict(figures)))
+    patches += _class_intervals(coverage, frame, errors, total_reps)
+    patches += _footprint_intervals(summary, frame, errors, counts)
+    settings: dict[str, Any] = {
         "confidence": 0.9,
         "z": Z90,
         "groups_with_margins": [g for g in inputs.groups if errors.known(g)],
@@ -102,10 +140,13 @@ def survey_error(
         "cv_cutoffs": list(CV_CUTOFFS),
     }
     if "minority" in errors.composition and errors.replicates is None:
-        coverage["uncertainty_settings"]["minority_margin"] = (
+        settings["minority_margin"] = (
             "sqrt(MOE_total^2 + MOE_reference^2), the Census Bureau's approximation for a "
             "difference; the minority-reference covariance is carried"
         )
+    patches.append(
+        (("coverage",), {"uncertainty": errors.method, "uncertainty_settings": settings})
+    )
     enclaves = summary.get("enclaves", [])
     position = {str(i): k for k, i in enumerate(frame[inputs.id_column].astype(str))}
     members: Sequence[np.ndarray] = [
@@ -124,49 +165,60 @@ def survey_error(
         total_replicates=total_reps,
     )
     if "segregation" in summary:
-        summary["segregation"]["uncertainty"] = intervals.to_dict()
-    for e, shares in zip(enclaves, intervals.enclave_shares, strict=True):
-        e["group_shares_ci90"] = {g: shares.get(g) for g in e["group_shares"]}
+        patches.append((("segregation",), {"uncertainty": intervals.to_dict()}))
+    for k, (e, shares) in enumerate(zip(enclaves, intervals.enclave_shares, strict=True)):
+        ci = {g: shares.get(g) for g in e["group_shares"]}
+        patches.append((("enclaves", k), {"group_shares_ci90": ci}))
+    return SurveyFigures(errors.method, tuple(patches))
 
 
 def _footprint_intervals(
-    summary: dict[str, Any],
+    summary: Mapping[str, Any],
     frame: pd.DataFrame,
     errors: CountErrors,
     counts: dict[str, np.ndarray],
-) -> None:
-    """Add rate and ratio intervals and four-fifths confidence to each footprint compared."""
+) -> list[Patch]:
+    """Rate and ratio intervals and four-fifths confidence of each footprint compared."""
     comparison = summary.get("comparison")
     if not isinstance(comparison, dict):
-        return
+        return []
+    out: list[Patch] = []
     reference = comparison.get("reference_group")
     threshold = summary["coverage"]["served_threshold"]
     primary = summary["footprint"].get("name")
-    for entry in comparison.get("footprints") or []:
+    for k, entry in enumerate(comparison.get("footprints") or []):
         name = entry.get("name")
         column = "covered_fraction" if name == primary else f"covered_fraction_{name}"
         if column not in frame.columns or reference not in counts:
             continue
         fraction = frame[column].to_numpy(dtype=float)
         result = coverage_uncertainty(counts, errors, fraction, fraction >= threshold, reference)
-        for g, row in (entry.get("groups") or {}).items():
+        for g in entry.get("groups") or {}:
             if g in result.groups:
                 u = result.groups[g]
-                row["rate_ci90"] = u.rate_ci90
-                row["ratio_ci90"] = u.ratio_ci90
-                row["four_fifths_confidence"] = u.four_fifths_confidence
+                out.append(
+                    (
+                        ("comparison", "footprints", k, "groups", g),
+                        {
+                            "rate_ci90": u.rate_ci90,
+                            "ratio_ci90": u.ratio_ci90,
+                            "four_fifths_confidence": u.four_fifths_confidence,
+                        },
+                    )
+                )
+    return out
 
 
 def _class_intervals(
-    coverage: dict[str, Any],
+    coverage: Mapping[str, Any],
     frame: pd.DataFrame,
     errors: CountErrors,
     total_reps: np.ndarray | None,
-) -> None:
-    """Add ``rate_ci90`` to each class of area (majority-minority, income tiers, all)."""
+) -> list[Patch]:
+    """``rate_ci90`` of each class of area (majority-minority, income tiers, all)."""
     se_total = errors.se.get("population")
     if se_total is None and total_reps is None:
-        return
+        return []
     classes = coverage.get("area_classes") or {}
     n = len(frame)
     masks: dict[str, np.ndarray] = {"all": np.ones(n, dtype=bool)}
@@ -185,13 +237,17 @@ def _class_intervals(
         se_total=se_total,
         total_replicates=total_reps,
     )
+    out: list[Patch] = []
     for name, ci in intervals.items():
         if name.startswith("tier:"):
+            path: tuple[str | int, ...] = ("coverage", "area_classes", "income_tiers", name[5:])
             target = classes.get("income_tiers", {}).get(name[5:])
         else:
+            path = ("coverage", "area_classes", name)
             target = classes.get(name)
         if isinstance(target, dict):
-            target["rate_ci90"] = ci
+            out.append((path, {"rate_ci90": ci}))
+    return out
 
 
 def cautions(base: Sequence[str], summary: dict[str, Any]) -> list[str]:

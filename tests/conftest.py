@@ -112,3 +112,34 @@ def rng() -> np.random.Generator:
 
 def frame_of(values: dict) -> pd.DataFrame:
     return pd.DataFrame(values)
+
+
+#: The bundled demo region (fictional, generated from its fixed seed).
+DEMO_REGION = Path(__file__).resolve().parent.parent / "demo_regions" / "ostmere"
+
+
+@pytest.fixture(scope="session")
+def demo_audit():
+    """Run a demo scenario's audit once per test session (per xdist worker); return it.
+
+    A function of the scenario name giving the real :class:`~coverage_audit.audit.AuditResult`
+    (its ``findings`` are the typed tree the report and map are drawn from). The audits
+    run with 99 permutations and enclave draws, which keeps them to a second or two each.
+    """
+    import warnings
+
+    from coverage_audit import load_spec, run_audit
+
+    done: dict = {}
+
+    def run(name: str):
+        if name not in done:
+            spec = load_spec(DEMO_REGION / f"{name}.toml").with_analysis(
+                permutations=99, enclave_draws=99
+            )
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore")  # the demo's expected warnings
+                done[name] = run_audit(spec)
+        return done[name]
+
+    return run

@@ -172,10 +172,10 @@ def test_census_download_csv_with_preset_gives_the_tidy_rates(region):
     )
     assert "data.census.gov" in entry["layout"] and "tract" in entry["layout"]
     # The preset pairs each estimate with its margin, for the survey-error work.
-    pop = result.extras["inputs"].population
+    pop = result.inputs.population
     assert pop.group_moes["black_nh"] == "B03002_004M"
     assert pop.total_moe == "B03002_001M"
-    assert result.extras["inputs"].margins["B03002_008E"] == "B03002_008M"
+    assert result.inputs.margins["B03002_008E"] == "B03002_008M"
     assert result.summary["group_labels"]["black_nh"] == "Black alone, not Hispanic"
 
 
@@ -277,7 +277,7 @@ def test_annotation_makes_the_count_missing_and_is_listed(region):
     # ** is no margin (counted as missing).
     margins = result.areas.set_index("GEOID")["black_nh_moe"]
     assert margins["01001020300"] == 0.0
-    assert result.extras["inputs"].margins_missing == {"B03002_004M": 1}
+    assert result.inputs.margins_missing == {"B03002_004M": 1}
 
 
 @pytest.mark.parametrize(
@@ -571,11 +571,11 @@ def test_groups_naming_download_estimates_get_their_margins(region):
     }
     spec = _spec(tmp, population, table=[{"path": str(tmp / "download.csv")}])
     result = _run(spec)
-    pop = result.extras["inputs"].population
+    pop = result.inputs.population
     assert pop.group_moes == {"white": "B03002_003M", "black": "B03002_004M"}
     assert pop.total_moe == "B03002_001M"
     assert result.summary["group_labels"] == {"white": "white", "black": "Black, not Hispanic"}
-    assert result.extras["inputs"].margin_columns["black"] == "black_moe"
+    assert result.inputs.margin_columns["black"] == "black_moe"
 
 
 def test_report_lists_joins_with_layout_and_rate(region):

@@ -619,7 +619,7 @@ def test_map_draws_the_lender_share_and_gap_layers(base, browser_page, tmp_path)
 def test_a_record_file_changed_while_being_read_is_refused(region, monkeypatch):
     # Issue 9 item 6: the manifest's digest is that of the bytes read; a file that changes
     # during the streamed read is refused (common practice, no source).
-    import coverage_audit.lending as lending_module
+    import coverage_audit.io.hmda_counts as lending_module  # the read is in the input stage
 
     original = lending_module._read
 

@@ -33,6 +33,11 @@ def make_inputs(n_areas: int = 400, *, seed: int = SEED, kind: str = "polygons",
 
     Covered fractions come from the distance of each cell seed to the nearest service
     point (a smooth stand-in for the areal overlay; the map only displays them).
+
+    Kept hand-built on purpose (tests/test_report_real.py draws the map from real
+    findings): it holds what no real audit produces, markup in area names and in the
+    footprint's name, an enclave without a p-value and a missing LISA p-value, at sizes
+    (up to 85,000 areas) no demo scenario reaches.
     """
     rng = np.random.default_rng(seed)
     cells = synthetic.tessellation(n_areas, seed=seed)

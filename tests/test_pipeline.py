@@ -135,7 +135,10 @@ def test_every_module_imports_and_the_package_has_no_import_cycle():
     graph = _import_graph()
     for name in graph:
         importlib.import_module(name)
-    assert "coverage_audit.weights" in graph["coverage_audit.audit"]  # the graph is read at all
+    # The graph is read at all (the contiguity is imported by the statistics stage, which
+    # audit.py's orchestrator calls since the stages moved into modules of their own).
+    assert "coverage_audit.statistics" in graph["coverage_audit.audit"]
+    assert "coverage_audit.weights" in graph["coverage_audit.statistics"]
     assert _cycles(graph) == []
 
 

@@ -78,6 +78,11 @@ def make_inputs(n_areas: int = 150, *, seed: int = SEED, n_enclaves: int = 2) ->
 
     Covered fractions are exact overlays of the cells with the dissolved circles; the
     summary's coverage figures are hand-picked numbers chosen to exercise formatting.
+
+    Kept hand-built on purpose (tests/test_report_real.py draws the report from real
+    findings): it holds cases no real audit produces, a group with no rate at all (None
+    throughout), markup in input text, and numbers at formatting boundaries, each asserted
+    below as literal text.
     """
     rng = np.random.default_rng(seed)
     cells = synthetic.tessellation(n_areas, seed=seed)

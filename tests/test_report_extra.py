@@ -461,7 +461,13 @@ def sensitivity_block(*, radius: bool = True) -> dict:
 
 
 def make_base() -> dict:
-    """A small fictional region and a summary with the contract's coverage keys only."""
+    """A small fictional region and a summary with the contract's coverage keys only.
+
+    The further sections here are hand-built on purpose: their tables are checked against
+    literal numbers and against statsmodels on numbers chosen for the check, and they
+    include sections skipped for each reason and escaped input text, which the demo runs
+    do not produce. The real runs are below (``branches``) and in test_report_real.py.
+    """
     rng = np.random.default_rng(SEED)
     cells = synthetic.tessellation(36, seed=SEED)
     areas = gpd.GeoDataFrame({"geoid": cells["geoid"]}, geometry=cells.geometry, crs=cells.crs)
@@ -1075,7 +1081,7 @@ def branches(tmp_path_factory: pytest.TempPathFactory) -> dict:
         "groups": result.groups,
         "reference": result.spec.population.reference,
         "footprint": result.footprint_for_display(),
-        **result.extras.get("moran", {}),
+        "moran_lag": result.findings.moran_lag,
     }
     build_report(result.summary, result.manifest, result.areas, path=out, **options)
     return {"result": result, "path": out, "html": out.read_text("utf-8"), "options": options}

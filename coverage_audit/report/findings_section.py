@@ -11,8 +11,9 @@ from __future__ import annotations
 from collections.abc import Mapping
 from typing import Any
 
+from .audited_section import overview_figure
 from .markup import Html, fmt_count, get_in, para, tag
-from .sections import Page, overview_figure
+from .sections import Page
 
 #: Anchor of the findings section (the map links to it).
 FINDINGS_ANCHOR = "findings"

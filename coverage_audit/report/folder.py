@@ -5,7 +5,8 @@ tables do not hold: ``footprint.gpkg`` (layer ``footprint``: the dissolved footp
 ``sites``: the service points of a points footprint; ``outside_study_area``: the areas
 left outside a ``[study_area]``) and ``moran_lag.csv`` (the spatial lag ``W z`` of the
 standardised covered fraction under the Moran statistics' row-standardised weights, one
-row per area in the statistics). :func:`render_folder` draws map.html and report.html from
+row per area in the statistics, as the findings carry it:
+:attr:`coverage_audit.results.AuditFindings.moran_lag`). :func:`render_folder` draws map.html and report.html from
 those files and summary.json, manifest.json, areas.gpkg and exclusions.csv; the audit
 itself draws them with the same function from the same data, so ``coverage-audit report
 FOLDER`` gives the same pages the run wrote.
@@ -28,7 +29,8 @@ from ..errors import InputError
 from ..outputs import atomic_path, write_csv
 from ..progress import SilentProgress
 from .map import build_map
-from .page import build_report, moran_points
+from .markup import Findings, summary_data
+from .page import build_report
 
 #: Files the map and the report are drawn from, besides the data outputs.
 FOOTPRINT_FILE = "footprint.gpkg"
@@ -61,18 +63,6 @@ class Display:
     footprint: Mapping[str, Any]
     outside: gpd.GeoSeries | None = None
     moran_lag: np.ndarray | None = None
-
-
-def moran_lag(areas: gpd.GeoDataFrame, weights: Any, mask: Any) -> np.ndarray | None:
-    """Return ``W z`` per area (NaN outside ``mask``), or None when there is no scatterplot."""
-    if weights is None:
-        return None
-    points = moran_points(areas, moran_weights=weights, moran_mask=mask)
-    if points is None:
-        return None
-    full = np.full(len(areas), np.nan)
-    full[np.asarray(mask, dtype=bool)] = points[1]
-    return full
 
 
 def write_display(out: Path, display: Display, areas: gpd.GeoDataFrame) -> dict[str, Path]:
@@ -120,7 +110,7 @@ def write_display(out: Path, display: Display, areas: gpd.GeoDataFrame) -> dict[
 def render(
     out: Path,
     *,
-    summary: Mapping[str, Any],
+    summary: Mapping[str, Any] | Findings,
     manifest: Mapping[str, Any],
     areas: gpd.GeoDataFrame,
     exclusions: pd.DataFrame,
@@ -130,9 +120,11 @@ def render(
 ) -> tuple[dict[str, Path], dict[str, Any]]:
     """Draw map.html and report.html as ``output`` (the spec's ``[output]``) asks.
 
-    Without ``output``, the manifest's resolved spec says. Returns the paths written and
-    the map's description for the manifest.
+    ``summary`` is the audit's typed findings or summary.json's content as read. Without
+    ``output``, the manifest's resolved spec says. Returns the paths written and the
+    map's description for the manifest.
     """
+    summary = summary_data(summary)
     if output is None:
         output = manifest.get("spec", {}).get("output", {})
     paths: dict[str, Path] = {}

@@ -14,7 +14,6 @@ from __future__ import annotations
 
 import html
 import json
-import math
 import os
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
@@ -31,16 +30,65 @@ from jinja2 import Template
 
 from .._util import clean_number, to_jsonable
 from ..errors import InputError, SpecError
-from ..geographic import data_centre, shift_longitudes, unwrap_longitudes
-from . import assets, palette
+from ..geographic import data_centre, unwrap_longitudes
+from ..outputs import write_bytes
+from . import assets
 from .map_context import group_label, outside_overlay, site_change_overlay
+from .map_fields import (
+    _bool_codes,
+    _category_codes,
+    _check_footprint,
+    _nullable,
+    _scaled_fraction,
+    _share_series,
+)
+from .map_geometry import (
+    EXTENT_FRACTION,
+    SMALL_AREA_FRACTION,
+    _coordinate_decimals,
+    _simplify,
+    _unit_metres,
+    display_tolerance,
+)
+from .map_overlays import _enclave_info, _enclave_overlay, _footprint_overlays
+from .map_style import (
+    CF_SCALE,
+    COVERED_COLORS,
+    COVERED_LABELS,
+    COVERED_THRESHOLDS,
+    FOOTPRINT_KINDS,
+    INCOME_COLORS,
+    INCOME_TIERS,
+    LISA_COLORS,
+    LISA_LABELS,
+    MAJORITY_MINORITY_COLORS,
+    SERVED_COLORS,
+    SHARE_COLORS,
+    SHARE_LABELS,
+    SHARE_SCALE,
+    SHARE_THRESHOLDS,
+)
+from .markup import Findings, summary_data
 from .shapes import empty_shapes as _empty_shapes
 from .shapes import encode_shapes
 from .shapes import has_polygon as _has_polygon
 from .view import MISSING_COLOR, View
 
 __all__ = [
+    "CF_SCALE",
     "COVERED_COLORS",
+    "COVERED_LABELS",
+    "COVERED_THRESHOLDS",
+    "EXTENT_FRACTION",
+    "INCOME_COLORS",
+    "LISA_COLORS",
+    "MAJORITY_MINORITY_COLORS",
+    "SERVED_COLORS",
+    "SHARE_COLORS",
+    "SHARE_LABELS",
+    "SHARE_SCALE",
+    "SHARE_THRESHOLDS",
+    "SMALL_AREA_FRACTION",
     "FOOTPRINT_KINDS",
     "INCOME_TIERS",
     "LISA_LABELS",
@@ -51,46 +99,6 @@ __all__ = [
     "encode_shapes",
 ]
 
-#: Scale of the integer fractions on the page: covered fraction in 1/10000, shares in 1/1000.
-CF_SCALE = 10_000
-SHARE_SCALE = 1_000
-
-# Our own palettes. Sequential ramps run light to dark with strictly falling luminance,
-# so they read in grey and under the common colour-vision deficiencies; categorical pairs
-# differ in lightness as well as hue (blue against amber, not red against green).
-COVERED_COLORS: tuple[str, ...] = (
-    "#f7f4d9",
-    "#d3e7b6",
-    "#93cda4",
-    "#4fa79b",
-    "#2b7186",
-    "#233f6b",
-)
-COVERED_LABELS: tuple[str, ...] = ("0%", "> 0-25%", "25-50%", "50-75%", "75% to < 100%", "100%")
-COVERED_THRESHOLDS: tuple[int, ...] = (1, 2_500, 5_000, 7_500, CF_SCALE)
-
-SHARE_COLORS: tuple[str, ...] = ("#f6eff4", "#e3c3db", "#c98bbd", "#9c4f98", "#5c1f66")
-SHARE_LABELS: tuple[str, ...] = ("< 10%", "10-25%", "25-50%", "50-75%", ">= 75%")
-SHARE_THRESHOLDS: tuple[int, ...] = (100, 250, 500, 750)
-
-SERVED_COLORS: tuple[str, ...] = ("#e6a03b", "#2b7186")  # unserved, served
-MAJORITY_MINORITY_COLORS: tuple[str, ...] = ("#e4e1d8", "#7a3f8f")  # no, yes
-
-# Income tiers and LISA clusters: the project's palette, documented in palette.py.
-INCOME_TIERS: tuple[str, ...] = palette.INCOME_TIERS
-INCOME_COLORS: tuple[str, ...] = palette.INCOME_COLORS
-
-LISA_LABELS: tuple[str, ...] = palette.LISA_LABELS
-LISA_COLORS: tuple[str, ...] = palette.LISA_COLORS
-
-FOOTPRINT_KINDS: tuple[str, ...] = ("polygons", "points", "ids", "zips")
-
-#: Display simplification tolerance as a fraction of the region's larger extent: a
-#: quarter of a pixel on a 1,250-pixel wide view of the whole region.
-EXTENT_FRACTION = 1.0 / 5_000
-#: Cap of the tolerance as a fraction of the square root of the 10th-percentile area, so
-#: that small urban areas in a large rural region keep their shape.
-SMALL_AREA_FRACTION = 0.1
 
 _TILES = {
     "label": "Base map (online tiles)",
@@ -154,212 +162,6 @@ class MapInfo:
             "views": list(self.views),
             "overlays": list(self.overlays),
         }
-
-
-# --------------------------------------------------------------------------- geometry
-
-
-def _unit_metres(crs: Any) -> tuple[float, str]:
-    """Return (metres per CRS unit, unit name); degrees count as ~111 km at the equator."""
-    if crs is None:
-        return 1.0, "unknown"
-    if crs.is_geographic:
-        return 111_320.0, "degree"
-    try:
-        axis = crs.axis_info[0]
-        return float(axis.unit_conversion_factor), "m" if axis.unit_name == "metre" else str(
-            axis.unit_name
-        )
-    except (IndexError, AttributeError):  # pragma: no cover - every projected CRS has axes
-        return 1.0, "unknown"
-
-
-def display_tolerance(geoms: np.ndarray) -> float:
-    """Return the display simplification tolerance for a set of area geometries.
-
-    The tolerance is :data:`EXTENT_FRACTION` of the larger side of the bounding box, capped
-    at :data:`SMALL_AREA_FRACTION` of the square root of the 10th-percentile area (common
-    practice, no source: a fraction of a screen pixel at the whole-region view, and never
-    so coarse that the smaller areas lose their shape).
-
-    Parameters
-    ----------
-    geoms : numpy.ndarray of shapely geometries
-        Area geometries in a projected CRS.
-
-    Returns
-    -------
-    float
-        Tolerance in CRS units; 0 for an empty or degenerate input.
-    """
-    geoms = np.asarray(geoms)
-    keep = ~(shapely.is_missing(geoms) | shapely.is_empty(geoms))
-    if not keep.any():
-        return 0.0
-    xmin, ymin, xmax, ymax = shapely.total_bounds(geoms[keep])
-    extent = max(xmax - xmin, ymax - ymin)
-    small = math.sqrt(float(np.quantile(shapely.area(geoms[keep]), 0.1)))
-    tol = min(extent * EXTENT_FRACTION, small * SMALL_AREA_FRACTION)
-    return float(tol) if math.isfinite(tol) and tol > 0 else 0.0
-
-
-def _simplify(geoms: np.ndarray, tolerance: float) -> tuple[np.ndarray, str]:
-    """Simplify areas for display, keeping shared edges when they form a valid coverage."""
-    if tolerance <= 0:
-        return geoms, "none"
-    if _may_be_coverage(geoms) and shapely.coverage_is_valid(geoms):
-        return shapely.coverage_simplify(geoms, tolerance), "coverage"
-    # Overlapping or misaligned areas: simplifying each alone may open slivers between
-    # neighbours on screen, which is acceptable for display and is reported in MapInfo.
-    # The fast simplification first; the topology-preserving one only where it failed.
-    fast = shapely.simplify(geoms, tolerance, preserve_topology=False)
-    bad = shapely.is_empty(fast) | ~shapely.is_valid(fast)
-    bad &= ~shapely.is_empty(geoms)
-    if bad.any():
-        fast = fast.copy()
-        fast[bad] = shapely.simplify(geoms[bad], tolerance, preserve_topology=True)
-    return fast, "per_area"
-
-
-#: Below this share of vertices shared with another area, the areas cannot be a tiling
-#: whose shared edges match vertex for vertex (GEOS' check of that is skipped).
-_SHARED_VERTEX_SHARE = 0.3
-#: Areas looked at by that test.
-_SAMPLE_AREAS = 400
-
-
-def _may_be_coverage(geoms: np.ndarray) -> bool:
-    """Tell cheaply whether most vertices appear in more than one area (a clean tiling).
-
-    Looks at up to :data:`_SAMPLE_AREAS` areas spread through the layer and their
-    neighbours (by bounding box): the share of the sampled areas' vertices that are also
-    vertices of another area.
-    """
-    if geoms.size < 2:
-        return True
-    sample = np.unique(np.linspace(0, geoms.size - 1, min(geoms.size, _SAMPLE_AREAS)).astype(int))
-    _, near = shapely.STRtree(geoms).query(geoms[sample])
-    near = np.union1d(near, sample)
-    parts, part_owner = shapely.get_parts(geoms[near], return_index=True)
-    rings, ring_part = shapely.get_rings(parts, return_index=True)
-    coords, coord_ring = shapely.get_coordinates(rings, return_index=True)
-    if coords.shape[0] == 0:
-        return True
-    keep = np.r_[coord_ring[1:] == coord_ring[:-1], False]  # drop each closing vertex
-    owner = near[part_owner[ring_part[coord_ring[keep]]]]
-    x, y = coords[keep, 0], coords[keep, 1]
-    order = np.lexsort((owner, y, x))
-    x, y, owner = x[order], y[order], owner[order]
-    start = np.r_[True, (x[1:] != x[:-1]) | (y[1:] != y[:-1])]
-    first = np.flatnonzero(start)
-    several = np.minimum.reduceat(owner, first) != np.maximum.reduceat(owner, first)
-    shared = np.repeat(several, np.diff(np.r_[first, x.size]))
-    sampled = np.isin(owner, sample)
-    if not sampled.any():
-        return True
-    return bool(shared[sampled].mean() >= _SHARED_VERTEX_SHARE)
-
-
-def _coordinate_decimals(tolerance_m: float) -> int:
-    """Decimals of degrees that resolve a tenth of the tolerance (4 to 7).
-
-    One degree of latitude is about 111 km, so 5 decimals are about 1.1 m.
-    """
-    if tolerance_m <= 0:
-        return 6
-    step_deg = tolerance_m / 10.0 / 111_320.0
-    return int(min(7, max(4, math.ceil(-math.log10(step_deg)))))
-
-
-# --------------------------------------------------------------------------- fields
-
-
-def _nullable(values: np.ndarray, valid: np.ndarray) -> list[Any]:
-    out = values.astype(object)
-    out[~valid] = None
-    return out.tolist()
-
-
-def _scaled_fraction(series: pd.Series, scale: int, name: str) -> list[Any]:
-    """Return fractions as integers in ``1/scale`` (None where missing).
-
-    Values are truncated, but never to 0 for a positive value nor to ``scale`` for a value
-    below 1, so the page's classes (0%, 100%) match the exact figures.
-    """
-    values = pd.to_numeric(series, errors="coerce").to_numpy(dtype=float)
-    valid = np.isfinite(values)
-    if (values[valid] < -1e-9).any() or (values[valid] > 1 + 1e-9).any():
-        raise InputError(
-            f"column '{name}' holds values outside 0..1; shares and covered fractions must "
-            "be fractions, not percentages"
-        )
-    clipped = np.clip(np.where(valid, values, 0.0), 0.0, 1.0)
-    q = np.floor(clipped * scale + 1e-9).astype(np.int64)
-    q = np.where((clipped > 0) & (q == 0), 1, q)
-    q = np.where((clipped < 1) & (q >= scale), scale - 1, q)
-    return _nullable(q, valid)
-
-
-def _bool_codes(series: pd.Series) -> tuple[list[Any], bool]:
-    """Booleans (possibly with missing values) as 0/1/None; also whether any is missing."""
-    missing = series.isna().to_numpy()
-    values = np.where(missing, False, series.fillna(False).astype(bool).to_numpy())
-    return _nullable(values.astype(np.int64), ~missing), bool(missing.any())
-
-
-def _category_codes(
-    series: pd.Series, allowed: Sequence[str], column: str
-) -> tuple[list[Any], bool]:
-    """Category strings as indices into ``allowed`` (None stays None)."""
-    missing = series.isna().to_numpy()
-    text = series.astype(object).where(~series.isna(), None).astype("string")
-    bad = (~text.isin(list(allowed))).to_numpy() & ~missing
-    if not bad.any():
-        codes = pd.Categorical(text, categories=list(allowed)).codes.astype(np.int64)
-    else:
-        found = sorted(set(text[bad].tolist()))[:5]
-        raise InputError(
-            f"column '{column}' holds {found} which the map does not know; allowed values "
-            f"are {list(allowed)} (or empty)"
-        )
-    return _nullable(codes.astype(np.int64), ~missing), bool(missing.any())
-
-
-def _share_series(areas: pd.DataFrame, group: str) -> pd.Series:
-    share_col = f"{group}_share"
-    if share_col in areas.columns:
-        return areas[share_col]
-    if group in areas.columns and "population" in areas.columns:
-        pop = pd.to_numeric(areas["population"], errors="coerce")
-        counts = pd.to_numeric(areas[group], errors="coerce")
-        return (counts / pop.where(pop > 0)).astype(float)
-    raise InputError(
-        f"group '{group}' has neither a '{share_col}' column nor '{group}' and 'population' "
-        "count columns in the areas; add the share column or drop the group from the list"
-    )
-
-
-def _check_footprint(footprint: Mapping[str, Any] | None) -> None:
-    if footprint is None:
-        return
-    if not isinstance(footprint, Mapping):
-        raise InputError(
-            f"footprint must be a dict with 'kind', 'name' and 'geometry', got "
-            f"{type(footprint).__name__}"
-        )
-    kind = footprint.get("kind")
-    if kind not in FOOTPRINT_KINDS:
-        raise SpecError(
-            f"footprint kind was {kind!r} but is expected to be one of {list(FOOTPRINT_KINDS)}"
-        )
-    if kind == "points" and footprint.get("points") is None:
-        raise InputError(
-            "footprint of kind 'points' has no 'points' GeoDataFrame of service points; "
-            "pass the points so the map can draw them"
-        )
-    radius = footprint.get("radius_m")
-    if radius is not None and not (isinstance(radius, (int, float)) and radius >= 0):
-        raise SpecError(f"footprint radius_m was {radius!r} but must be a number >= 0 (metres)")
 
 
 # --------------------------------------------------------------------------- page data
@@ -565,132 +367,6 @@ def _interval_lines(summary: Mapping[str, Any]) -> list[str]:
     return lines
 
 
-def _footprint_overlays(
-    footprint: Mapping[str, Any] | None,
-    crs: Any,
-    tolerance: float,
-    decimals: int,
-    centre: float = float("nan"),
-) -> list[dict[str, Any]]:
-    if footprint is None:
-        return []
-    kind = footprint["kind"]
-    name = str(footprint.get("name") or "footprint")
-    out: list[dict[str, Any]] = []
-    if kind in ("polygons", "ids", "zips") and footprint.get("geometry") is not None:
-        geo = footprint["geometry"]
-        series = geo.geometry if isinstance(geo, gpd.GeoDataFrame) else gpd.GeoSeries(geo)
-        if series.crs is None:
-            series = series.set_crs(crs)
-        geoms = series.values.to_numpy() if hasattr(series.values, "to_numpy") else series.values
-        # Part by part: simplifying one dissolved multipolygon of thousands of circles
-        # with topology preserved across all of it is ten times slower, for the same look.
-        geoms = shapely.get_parts(np.asarray(geoms))
-        if tolerance > 0:
-            geoms = shapely.simplify(geoms, tolerance, preserve_topology=True)
-        lonlat = gpd.GeoSeries(geoms, crs=series.crs).to_crs(4326).values
-        lonlat = unwrap_longitudes(np.asarray(lonlat), centre)[0]  # one side of 180
-        lonlat = np.asarray(lonlat)[_has_polygon(np.asarray(lonlat))]
-        if lonlat.size:
-            label = {
-                "ids": "Footprint (listed areas)",
-                "zips": "Footprint (areas of the ZIP codes)",
-            }.get(kind, "Footprint")
-            out.append(
-                {
-                    "key": "footprint",
-                    "label": f"{label}: {name}",
-                    "kind": "outline",
-                    "shapes": encode_shapes(lonlat, decimals),
-                    "color": "#111111",
-                    "weight": 2,
-                    "dash": "6 4",
-                    "fill_color": "#111111",
-                    "fill_opacity": 0.04,
-                    "visible": True,
-                    "legend": [{"color": "#111111", "kind": "dash", "label": "footprint edge"}],
-                }
-            )
-    if kind == "points":
-        points = footprint["points"]
-        pts = points.geometry if isinstance(points, gpd.GeoDataFrame) else gpd.GeoSeries(points)
-        if pts.crs is None:
-            pts = pts.set_crs(crs)
-        pts = pts[~(pts.is_empty | pts.isna())].to_crs(4326)
-        radius = clean_number(footprint.get("radius_m"))
-        legend = [{"color": "#1f1f1f", "kind": "dot", "label": "service point"}]
-        if radius:
-            legend.append(
-                {"color": "#5a3d8a", "kind": "line", "label": f"reach: {radius:,.0f} m radius"}
-            )
-        named = next((c for c in ("name", "site_name", "site_id") if c in points.columns), None)
-        out.append(
-            {
-                "key": "points",
-                "label": f"Service points: {name}",
-                "kind": "points",
-                # Site names show when pointing at a site.
-                "names": (
-                    [str(v) for v in points.loc[pts.index, named]] if named is not None else None
-                ),
-                "lon": np.round(shift_longitudes(pts.x.to_numpy(), centre), 6).tolist(),
-                "lat": np.round(pts.y.to_numpy(), 6).tolist(),
-                "radius_m": radius,
-                "color": "#1f1f1f",
-                "reach_color": "#5a3d8a",
-                "visible": True,
-                "legend": legend,
-            }
-        )
-    return out
-
-
-def _enclave_overlay(
-    display: gpd.GeoSeries, enclave: pd.Series, decimals: int, centre: float = float("nan")
-) -> dict[str, Any] | None:
-    ids = enclave.where(enclave.notna(), None)
-    mask = ids.notna().to_numpy()
-    if not mask.any():
-        return None
-    frame = gpd.GeoDataFrame(
-        {"enclave": ids[mask].astype(str).to_numpy()},
-        geometry=display.values[mask],
-        crs=display.crs,
-    )
-    dissolved = frame.dissolve(by="enclave", sort=False)
-    # Natural order E1, E2, ..., E10 rather than the string order E1, E10, E2.
-    keys = sorted(dissolved.index, key=lambda s: (len(s), s))
-    dissolved = dissolved.loc[keys].to_crs(4326)
-    geoms = unwrap_longitudes(np.asarray(dissolved.geometry.values), centre)[0]
-    has = _has_polygon(geoms)
-    return {
-        "key": "enclaves",
-        "label": "Enclaves",
-        "kind": "outline",
-        "shapes": encode_shapes(geoms[has], decimals),
-        "labels": [str(k) for k, h in zip(keys, has, strict=True) if h],
-        "color": "#111111",
-        "casing": "#ffffff",
-        "weight": 2.5,
-        "dash": None,
-        "fill_color": None,
-        "visible": True,
-        "legend": [{"color": "#111111", "kind": "line", "label": "unserved enclave (labelled)"}],
-    }
-
-
-def _enclave_info(summary: Mapping[str, Any]) -> dict[str, dict[str, Any]]:
-    info: dict[str, dict[str, Any]] = {}
-    for item in summary.get("enclaves") or []:
-        if isinstance(item, Mapping) and item.get("id") is not None:
-            info[str(item["id"])] = {
-                "population": clean_number(item.get("population")),
-                "p_value": clean_number(item.get("p_value")),
-                "surround_share": clean_number(item.get("surround_share")),
-            }
-    return info
-
-
 def _page_json(data: Mapping[str, Any]) -> str:
     r"""JSON for a ``<script type="application/json">`` block.
 
@@ -769,8 +445,6 @@ def _render_page(title: str, bounds: list[list[float]], data_json: str) -> str:
 
 
 def _write_atomic(path: Path, text: str) -> int:
-    from ..outputs import write_bytes
-
     return write_bytes(path, text.encode("utf-8"))
 
 
@@ -784,7 +458,7 @@ def build_map(
     groups: Sequence[str],
     reference: str,
     footprint: Mapping[str, Any] | None = None,
-    summary: Mapping[str, Any] | None = None,
+    summary: Mapping[str, Any] | Findings | None = None,
     title: str,
     path: str | os.PathLike[str],
     tiles: bool = False,
@@ -811,8 +485,8 @@ def build_map(
     footprint : dict, optional
         ``{"kind": "polygons" | "points" | "ids", "name": str, "geometry": GeoSeries}``;
         points also give ``"points"`` (GeoDataFrame) and ``"radius_m"``.
-    summary : dict, optional
-        The audit summary (``summary.json`` content); used for the served threshold, the
+    summary : mapping or AuditFindings, optional
+        The audit's findings (the typed tree, or summary.json's content); used for the served threshold, the
         LISA settings, the area counts and enclave figures. Missing parts are skipped.
     title : str
         Page title.
@@ -856,7 +530,7 @@ def build_map(
             f"simplify_tolerance was {simplify_tolerance!r} but must be >= 0 (CRS units) or "
             "None for automatic"
         )
-    summary = summary or {}
+    summary = {} if summary is None else summary_data(summary)
     if label_column is None and "name" in areas.columns and id_column != "name":
         label_column = "name"
 

@@ -16,7 +16,7 @@ from __future__ import annotations
 import html
 import math
 from collections.abc import Callable, Iterable, Mapping, Sequence
-from typing import Any
+from typing import Any, Protocol
 
 import numpy as np
 import pandas as pd
@@ -386,3 +386,24 @@ def series(items: Sequence[str]) -> str:
 def are(items: Sequence[str]) -> str:
     """Return the verb that agrees with the count of ``items``."""
     return "is" if len(items) == 1 else "are"
+
+
+class Findings(Protocol):
+    """The typed findings of an audit (:class:`coverage_audit.results.AuditFindings`)."""
+
+    def to_dict(self) -> dict[str, Any]:
+        """Return summary.json's content."""
+        ...
+
+
+def summary_data(summary: Mapping[str, Any] | Findings) -> Mapping[str, Any]:
+    """Return the findings as summary.json holds them.
+
+    The pages take either the typed findings tree of an audit (its ``to_dict()`` is used)
+    or the mapping read from a written summary.json; anything else is passed on for the
+    caller's checks to name.
+    """
+    if isinstance(summary, Mapping):
+        return summary
+    to_dict = getattr(summary, "to_dict", None)
+    return to_dict() if callable(to_dict) else summary  # type: ignore[return-value]

@@ -27,13 +27,17 @@ import pandas as pd
 import scipy.sparse as sp
 
 from ..errors import InputError
+from ..outputs import write_bytes
 from . import blocks_section, further, uncertainty_section
 from .assessment_section import ANCHOR as ASSESSMENT_ANCHOR
 from .assessment_section import TITLE as ASSESSMENT_TITLE
 from .assessment_section import assessment_area_section
+from .audited_section import audited_section
+from .enclave_sections import contrast_group, enclave_order, enclaves_section
 from .findings_section import findings_section
 from .markup import (
     NA,
+    Findings,
     Html,
     as_number,
     fill,
@@ -50,6 +54,7 @@ from .markup import (
     ordered,
     para,
     section,
+    summary_data,
     tag,
 )
 from .sections import (
@@ -57,12 +62,8 @@ from .sections import (
     MAX_ENCLAVE_FIGURES,
     MAX_LISTED_EXCLUSIONS,
     Page,
-    audited_section,
     clustering_section,
-    contrast_group,
     coverage_section,
-    enclave_order,
-    enclaves_section,
     segregation_section,
 )
 from .text import ASSOCIATION_CAUTION, FOUR_FIFTHS_NOTE, METHODS, STANDARD_CAUTIONS
@@ -507,7 +508,7 @@ def _stylesheet() -> str:
 
 
 def render_report(
-    summary: Mapping[str, Any],
+    summary: Mapping[str, Any] | Findings,
     manifest: Mapping[str, Any],
     areas: gpd.GeoDataFrame,
     *,
@@ -521,6 +522,7 @@ def render_report(
     moran_mask: Any = None,
 ) -> str:
     """Return the report page as a string; the parameters are those of :func:`build_report`."""
+    summary = summary_data(summary)
     _check_inputs(summary, manifest, areas, exclusions, id_column, groups, reference)
     moran = moran_points(
         areas, moran_lag=moran_lag, moran_weights=moran_weights, moran_mask=moran_mask
@@ -600,7 +602,7 @@ def render_report(
 
 
 def build_report(
-    summary: Mapping[str, Any],
+    summary: Mapping[str, Any] | Findings,
     manifest: Mapping[str, Any],
     areas: gpd.GeoDataFrame,
     *,
@@ -618,9 +620,9 @@ def build_report(
 
     Parameters
     ----------
-    summary : mapping
-        The findings as written to summary.json (schema_version 1). Any section may be
-        absent; the page shows what is present, and ``None`` values as "n/a".
+    summary : mapping or AuditFindings
+        The findings: the audit's typed tree (:class:`coverage_audit.results.AuditFindings`)
+        or summary.json's content as read (schema_version 1). Any section may be absent; the page shows what is present, and ``None`` values as "n/a".
     manifest : mapping
         The run manifest: ``tool``, ``version``, ``spec``, ``inputs``, ``analysis_crs``,
         ``seed``, ``libraries``, ``circle_vertices``, ``started``, ``finished``.
@@ -681,6 +683,4 @@ def build_report(
         moran_weights=moran_weights,
         moran_mask=moran_mask,
     )
-    from ..outputs import write_bytes
-
     write_bytes(target, text.encode("utf-8"))

@@ -1,4 +1,4 @@
-"""The report's core sections: what was audited, coverage, segregation, clustering, enclaves.
+"""The report's core sections: coverage, segregation, clustering (and the shared Page).
 
 Takes the page's shared state (:class:`Page`: the summary.json findings, the manifest,
 the analysed areas and the footprint, with the region geometry prepared once for the
@@ -6,37 +6,31 @@ figures) and gives one escaped HTML ``<section>`` per stage of the audit, each b
 only from what the summary holds: a section whose data are absent is not called, a
 part whose data are absent is left out, and a missing value shows as "n/a". The
 sections of the further analyses (comparisons, explanations, sensitivity) live in
-:mod:`.further`; the top of the page, methods and cautions in :mod:`.page`.
+:mod:`.further`, the enclaves in :mod:`.enclave_sections`, what was audited in
+:mod:`.audited_section`; the top of the page, methods and cautions in :mod:`.page`.
 """
 
 from __future__ import annotations
 
-from collections.abc import Callable, Mapping, Sequence
+from collections.abc import Callable, Mapping
 from typing import Any
 
 import geopandas as gpd
 import numpy as np
 import pandas as pd
-import shapely
 
 from . import charts
-from .inputs_sections import joins_part
 from .markup import (
-    NA,
     Html,
     Num,
     as_mapping,
     as_number,
-    cell_text,
     figure,
-    first_of,
-    fmt_auto,
     fmt_bool,
     fmt_count,
     fmt_distance,
     fmt_fixed,
     fmt_p,
-    fmt_param,
     fmt_percent,
     fmt_points,
     get_in,
@@ -44,12 +38,10 @@ from .markup import (
     kv_table,
     ordered,
     para,
-    plural,
     section,
     table,
     tag,
 )
-from .provenance import DIGEST_SHOWN, PARAMETER_ROWS_IN_ONE, digest_cell, parameter_rows
 from .text import FOUR_FIFTHS_NOTE
 
 #: Exclusion rows listed in the page; beyond this the page links to exclusions.csv.
@@ -112,199 +104,6 @@ class Page:
             named = f" ({self.label(self.comparison_group)})" if self.comparison_group else ""
             return f"the highest-rate group{named}"
         return f"the reference group ({self.label(self.comparison_group or '')})"
-
-
-# --- what was audited ------------------------------------------------------------------
-
-
-def _footprint_text(page: Page) -> str:
-    fp = page.footprint
-    described = page.summary.get("footprint") or {}
-    kind = fp.get("kind") or described.get("kind")
-    name = fp.get("name") or described.get("name") or "an unnamed source"
-    if kind == "points":
-        points = fp.get("points")
-        count = len(points) if points is not None else described.get("points")
-        radius = fp.get("radius_m", described.get("radius_m"))
-        vertices = page.manifest.get("circle_vertices") or get_in(
-            page.manifest, "footprint", "circle_vertices"
-        )
-        text = (
-            f"Footprint: {fmt_count(count)} service points from {name}, each reaching "
-            f"{fmt_distance(radius, 'm')}"
-        )
-        if vertices:
-            text += f" (circles drawn with {fmt_count(vertices)} vertices)"
-        return text + ", dissolved into one footprint."
-    if kind == "polygons":
-        return f"Footprint: service-area polygons from {name}, dissolved into one footprint."
-    if kind == "ids":
-        return f"Footprint: the areas listed as served in {name}."
-    if kind == "zips":
-        return (
-            f"Footprint: the ZIP codes listed in {name}; each area's covered fraction is the "
-            "share of its land (ZCTA relationship file) or of its addresses (crosswalk) in them."
-        )
-    return "Footprint: not described."
-
-
-def _to_crs(frame: Any, crs: Any) -> gpd.GeoSeries | gpd.GeoDataFrame:
-    if not isinstance(frame, (gpd.GeoSeries, gpd.GeoDataFrame)):
-        frame = gpd.GeoSeries(frame, crs=crs)
-    if crs is not None and frame.crs is not None and frame.crs != crs:
-        frame = frame.to_crs(crs)
-    return frame
-
-
-def overview_figure(page: Page) -> Html:
-    """Return the small region map: served areas, footprint outline, service points."""
-    if not len(page.areas):
-        return Html("")
-    fp = page.footprint
-    outline = points = None
-    if fp.get("geometry") is not None and fp.get("kind") != "ids":
-        geoms = _to_crs(fp["geometry"], page.areas.crs).geometry.to_numpy()
-        outline = shapely.union_all(geoms)
-    if fp.get("kind") == "points" and fp.get("points") is not None:
-        points = _to_crs(fp["points"], page.areas.crs).geometry.to_numpy()
-    svg = charts.overview_chart(
-        page.layers, footprint=outline, points=points, salt="report-overview"
-    )
-    return figure(
-        svg,
-        "The analysed region: served areas in the mid tone, the rest in light "
-        "grey, the footprint outlined. The interactive map is in map.html.",
-    )
-
-
-def audited_section(page: Page) -> Html:
-    """Return the appendix "What was audited", placed after the cautions.
-
-    Areas, footprint, inputs with their digests, parameters, exclusions and versions.
-    """
-    m = page.manifest
-    areas = page.summary.get("areas") or {}
-    parts: list[Any] = [
-        para(
-            f"Areas: {fmt_count(areas.get('input'))} in the input, "
-            f"{fmt_count(areas.get('analysed'))} analysed, {fmt_count(areas.get('excluded'))} "
-            "excluded. Id column: ",
-            tag("code", page.id_column),
-            ". ",
-            _footprint_text(page),
-        )
-    ]
-    inputs = [i for i in m.get("inputs") or [] if isinstance(i, Mapping)]
-    if inputs:
-        input_rows: list[tuple[Any, ...]] = [
-            (
-                i.get("role") or NA,
-                tag("span", i.get("path") or NA, class_="mono"),
-                digest_cell(i.get("sha256")),
-                Num(fmt_count(i.get("rows"))),
-                i.get("crs") or NA,
-            )
-            for i in inputs
-        ]
-        parts.append(
-            table(
-                ("Role", "File", "SHA-256", Num("Rows"), "CRS"),
-                input_rows,
-                caption="Input files and their SHA-256 digests",
-            )
-        )
-    parts.append(joins_part(page.summary))
-    if m.get("analysis_crs"):
-        parts.append(
-            para(
-                "Analysis CRS (areas and distances are measured in it): ",
-                tag("code", m["analysis_crs"]),
-            )
-        )
-    params = parameter_rows(m["spec"]) if isinstance(m.get("spec"), Mapping) else []
-    if m.get("seed") is not None and not any(k.endswith("seed") for k, _ in params):
-        params.append(("seed", m["seed"]))
-    if params:
-        rows: list[tuple[Any, ...]] = [(tag("code", k), fmt_param(v)) for k, v in params]
-        # Two tables side by side: a long list of settings fills half the printed pages.
-        half = (len(rows) + 1) // 2 if len(rows) > PARAMETER_ROWS_IN_ONE else len(rows)
-        halves = [rows[:half], rows[half:]] if half < len(rows) else [rows]
-        parts.append(
-            tag(
-                "div",
-                *(
-                    table(
-                        ("Parameter", "Value"),
-                        chunk,
-                        caption="Parameters (resolved spec)" + (" continued" if k else ""),
-                    )
-                    for k, chunk in enumerate(halves)
-                ),
-                class_="table-pair",
-            )
-        )
-    parts.append(_exclusions_part(page))
-    libraries = m.get("libraries") or {}
-    if isinstance(libraries, Mapping) and libraries:
-        parts.append(tag("h3", "Software versions"))
-        parts.append(
-            para(
-                "; ".join(f"{name} {cell_text(v)}" for name, v in libraries.items()) + ".",
-                class_="versions",
-            )
-        )
-    parts.insert(
-        1,
-        para(
-            "Digests are shortened to their first "
-            f"{DIGEST_SHOWN} characters; the full values are in manifest.json.",
-            class_="muted",
-        ),
-    )
-    return section("audited", "Appendix: what was audited, inputs and provenance", *parts)
-
-
-def _exclusions_part(page: Page) -> Html:
-    frame = page.exclusions
-    recorded = page.summary.get("exclusions") or {}
-    total = recorded.get("count")
-    if total is None and frame is not None:
-        total = len(frame)
-    by_reason = recorded.get("by_reason")
-    if by_reason is None and frame is not None and len(frame):
-        by_reason = frame["reason"].astype(str).value_counts(sort=False).to_dict()
-    parts: list[Any] = [tag("h3", "Rows excluded")]
-    if not total:
-        return parts[0] + para("No input row was excluded.")
-    parts.append(para(f"{fmt_count(total)} input rows were not analysed."))
-    if by_reason:
-        rows: list[tuple[Any, ...]] = [
-            (reason, Num(fmt_count(n))) for reason, n in by_reason.items()
-        ]
-        parts.append(table(("Reason", Num("Rows")), rows, caption="Excluded rows by reason"))
-    if frame is not None and len(frame):
-        shown = frame.loc[:, list(EXCLUSION_COLUMNS)].iloc[:MAX_LISTED_EXCLUSIONS]
-        rows = [tuple(cell_text(v) for v in r) for r in shown.itertuples(index=False)]
-        long = len(frame) > MAX_LISTED_EXCLUSIONS
-        caption = (
-            f"Excluded rows: the first {MAX_LISTED_EXCLUSIONS} of {len(frame):,}"
-            if long
-            else "Excluded rows"
-        )
-        parts.append(
-            table(
-                ("Source", "Row", "Id", "Reason"), rows, caption=caption, table_id="exclusion-list"
-            )
-        )
-        if long:
-            parts.append(
-                para(
-                    "The full list is in ",
-                    tag("a", "exclusions.csv", href="exclusions.csv", class_="file-link"),
-                    ", beside this report.",
-                )
-            )
-    return join(parts)
 
 
 # --- coverage --------------------------------------------------------------------------
@@ -749,230 +548,3 @@ def _local_moran_part(local: Mapping[str, Any]) -> Html:
     return join(parts)
 
 
-# --- enclaves --------------------------------------------------------------------------
-
-
-def enclave_order(enclave: Mapping[str, Any]) -> tuple[float, int, str]:
-    """Sort key: most populous first, then most areas, then id (a total order)."""
-    return (
-        -(as_number(enclave.get("population")) or 0.0),
-        -len(enclave.get("area_ids") or ()),
-        str(enclave.get("id")),
-    )
-
-
-def enclaves_section(page: Page) -> Html:
-    """Return "Enclaves": the enclave table, shares, locator figures and holes."""
-    enclaves = [e for e in page.summary["enclaves"] if isinstance(e, Mapping)]
-    settings = as_mapping(page.summary.get("enclave_settings"))
-    contrast = contrast_group(page)
-    parts: list[Any] = []
-    if not enclaves:
-        parts.append(para("No enclave of unserved areas enclosed by served areas was found."))
-    else:
-        parts.append(
-            para(
-                "An enclave is a connected set of unserved areas whose outer boundary "
-                "runs mostly along served areas; its ring is the served areas next to "
-                "it. The p-value asks how often random connected sets of the same "
-                f"size have a {contrast} share at least as high."
-            )
-        )
-        rows = [
-            (
-                e.get("id") or NA,
-                Num(fmt_count(len(e.get("area_ids") or ()))),
-                Num(fmt_count(e.get("population"))),
-                Num(fmt_percent(e.get("surround_share"))),
-                # Earlier summaries named the tested share after the minority.
-                Num(fmt_percent(first_of(e, "contrast_share", "minority_share"))),
-                Num(fmt_percent(first_of(e, "mc_mean_contrast_share", "mc_mean_minority_share"))),
-                Num(fmt_p(e.get("p_value"))),
-                Num(fmt_count(e.get("mc_draws"))),
-                _tiers_text(e.get("income_tiers")),
-            )
-            for e in enclaves
-        ]
-        headers = (
-            "Enclave",
-            Num("Areas"),
-            Num("Population"),
-            Num("Boundary along served"),
-            Num(f"Share {contrast}"),
-            Num("Random-set mean share"),
-            Num("p-value"),
-            Num("Monte Carlo draws"),
-            "Income tiers (areas)",
-        )
-        parts.append(
-            table(headers, rows, caption="Enclaves of unserved areas", table_id="enclave-table")
-        )
-        parts.append(_enclave_shares_part(enclaves, page))
-        parts.append(_enclave_figures(enclaves, page))
-    if "clustering" not in page.summary and isinstance(page.summary.get("weights"), Mapping):
-        parts.append(
-            kv_table(
-                page.summary["weights"], caption="Contiguity between areas", labels=WEIGHT_LABELS
-            )
-        )
-    if settings:
-        parts.append(
-            settings_table(settings, caption="Enclave settings", labels=_ENCLAVE_SETTING_LABELS)
-        )
-    holes = [h for h in page.summary.get("holes") or [] if isinstance(h, Mapping)]
-    if holes:
-        parts.append(_holes_part(holes, page))
-    return section("enclaves", "Enclaves", *parts)
-
-
-_ENCLAVE_SETTING_LABELS = {
-    "min_surround": "Least share of the boundary along served areas",
-    "min_population": "Population an enclave must exceed",
-    "contiguity": "Contiguity",
-    "transparent_area_ids": "Areas looked through (no population)",
-    "transparent_rule": "Rule for looked-through areas",
-    "mc_draws": "Monte Carlo draws per enclave",
-    "contrast_group": "Group whose share is tested",
-    "unserved_components": "Connected groups of unserved areas",
-}
-
-
-def contrast_group(page: Page) -> str:
-    """Return the group whose share the enclave test compares (the minority by default)."""
-    group = get_in(page.summary, "enclave_settings", "contrast_group")
-    return str(group) if group else "minority"
-
-
-def _tiers_text(tiers: Any) -> str:
-    if not isinstance(tiers, Mapping) or not tiers:
-        return NA
-    order = [*INCOME_TIERS, *(t for t in tiers if t not in INCOME_TIERS)]
-    return ", ".join(f"{t} {fmt_count(tiers[t])}" for t in order if t in tiers)
-
-
-def settings_table(mapping: Mapping[str, Any], *, caption: str, labels: Mapping[str, str]) -> Html:
-    """Render settings as written (lists shortened to their first ten entries)."""
-    rows = [
-        (
-            labels.get(k, k.replace("_", " ")),
-            Num(fmt_auto(k, v) if isinstance(v, (list, tuple)) else fmt_param(v)),
-        )
-        for k, v in mapping.items()
-    ]
-    return table(("Setting", Num("Value")), rows, caption=caption)
-
-
-def _share_groups(records: Sequence[Mapping[str, Any]], page: Page, *keys: str) -> list[str]:
-    present: list[str] = []
-    for r in records:
-        for key in keys:
-            if isinstance(r.get(key), Mapping):
-                present.extend(g for g in r[key] if g not in present)
-    return ordered(page.groups, present)
-
-
-def _enclave_shares_part(enclaves: Sequence[Mapping[str, Any]], page: Page) -> Html:
-    order = _share_groups(enclaves, page, "group_shares", "ring_group_shares")
-    if not order:
-        return Html("")
-    rows = []
-    for e in enclaves:
-        for g in order:
-            diff = get_in(e, "share_difference", g)
-            if diff is None:
-                a, b = (
-                    as_number(get_in(e, "group_shares", g)),
-                    as_number(get_in(e, "ring_group_shares", g)),
-                )
-                diff = None if a is None or b is None else a - b
-            rows.append(
-                (
-                    f"{e.get('id') or NA}: {page.label(g)}",
-                    Num(fmt_percent(get_in(e, "group_shares", g))),
-                    Num(fmt_percent(get_in(e, "ring_group_shares", g))),
-                    Num(fmt_points(diff)),
-                    Num(fmt_fixed(get_in(e, "share_ratio", g))),
-                )
-            )
-    headers = (
-        "Enclave and group",
-        Num("Share in enclave"),
-        Num("Share in ring"),
-        Num("Difference"),
-        Num("Ratio"),
-    )
-    return table(headers, rows, caption="Group shares in each enclave and in its served ring")
-
-
-def _positions(index: pd.Index, ids: Any) -> np.ndarray:
-    if not ids:
-        return np.array([], dtype=np.int64)
-    found = index.get_indexer([str(i) for i in ids])
-    return np.sort(found[found >= 0])
-
-
-def _enclave_figures(enclaves: Sequence[Mapping[str, Any]], page: Page) -> Html:
-    index = pd.Index(page.areas[page.id_column].astype(str).to_numpy())
-    figures: list[Html] = []
-    for e in sorted(enclaves, key=enclave_order)[:MAX_ENCLAVE_FIGURES]:
-        members = _positions(index, e.get("area_ids"))
-        if members.size == 0:
-            continue
-        ring_ids = e.get("ring_area_ids")
-        ring = _positions(index, ring_ids) if ring_ids else page.layers.neighbours(members)
-        label = str(e.get("id") or NA)
-        svg = charts.enclave_locator_chart(
-            page.layers, members, ring, label=label, salt=f"report-enclave-{len(figures) + 1}"
-        )
-        figures.append(
-            figure(
-                svg,
-                f"Enclave {label}: {plural(members.size, 'area')}, "
-                f"{fmt_count(e.get('population'))} {page.residents}. Left: its place in "
-                "the region (the box marks the close-up). Right: the enclave "
-                "highlighted, its ring outlined.",
-            )
-        )
-    if not figures:
-        return Html("")
-    note = (
-        f" (the {MAX_ENCLAVE_FIGURES} most populous of {len(enclaves)})"
-        if len(enclaves) > MAX_ENCLAVE_FIGURES
-        else ""
-    )
-    return tag("h3", f"Where the enclaves lie{note}") + tag("div", *figures, class_="locators")
-
-
-def _holes_part(holes: Sequence[Mapping[str, Any]], page: Page) -> Html:
-    order = _share_groups(holes, page, "group_shares")
-    rows = [
-        (
-            h.get("id") or NA,
-            Num(fmt_count(len(h.get("area_ids") or ()))),
-            Num(fmt_count(h.get("population"))),
-            Num(
-                fmt_fixed(
-                    None
-                    if as_number(h.get("hole_area_m2")) is None
-                    else float(h["hole_area_m2"]) / 1e6,
-                    2,
-                )
-            ),
-            *(Num(fmt_percent(get_in(h, "group_shares", g))) for g in order),
-        )
-        for h in holes
-    ]
-    headers = (
-        "Hole",
-        Num("Areas touched"),
-        Num("Population (est.)"),
-        Num("Size (km\u00b2)"),
-        *(Num(f"{g} share") for g in order),
-    )
-    return (
-        tag("h3", "Holes in the footprint")
-        + para(
-            "Gaps inside the footprint that overlap populated areas; population is areal-weighted."
-        )
-        + table(headers, rows, caption="Holes in the footprint", table_id="hole-table")
-    )
