@@ -227,7 +227,9 @@ def other_footprints(
             threshold=threshold,
             comparison=spec.analysis.comparison,
             covered=covered,
-        ).to_dict() | {"apportionment": placement(spec)}
+        ).to_dict()
+        if covered is not None:
+            cov["apportionment"] = placement(spec)
         results[fp.name] = {
             "coverage": cov,
             "enclave_count": _enclave_counts([cf >= threshold], frame, graph, spec)[0],
@@ -239,8 +241,8 @@ def comparison_section(primary: dict[str, Any], others: dict[str, Any]) -> Secti
     """Side-by-side coverage of every footprint, ranked."""
     merged = {**primary, **others}
     methods = {str(v["coverage"].get("apportionment", "areal")) for v in merged.values()}
-    method = methods.pop() if len(methods) == 1 else "mixed"
-    return WithDetails(compare_footprints(merged), {"apportionment": method})
+    placed = {} if methods == {"areal"} else {"apportionment": "/".join(sorted(methods))}
+    return WithDetails(compare_footprints(merged), placed)
 
 
 def change_section(

@@ -737,19 +737,26 @@ def further_footprint(
 
 
 def sweep_apportionment(spec: Any, footprint: Any) -> dict[str, Any]:
-    """Keys of the sensitivity section saying how each sweep placed people."""
+    """Keys of the sensitivity section saying how each sweep placed people.
+
+    Empty for an areal audit (nothing differs from ``coverage.apportionment = "areal"``).
+    """
     method = placement(spec)
+    if method == "areal":
+        return {}
     out: dict[str, Any] = {"apportionment": method}
-    if method != "areal" and getattr(footprint, "kind", None) == "points":
+    if getattr(footprint, "kind", None) == "points":
         out["radius_apportionment"] = "areal"
         out["radius_note"] = RADIUS_AREAL_NOTE.format(method=method)
     return out
 
 
 def change_apportionment(spec: Any) -> dict[str, Any]:
-    """Keys of the change section saying how its served areas and rates were counted."""
+    """Keys of the change section saying how its served areas and rates were counted.
+
+    Empty for an areal audit.
+    """
     method = placement(spec)
-    out: dict[str, Any] = {"apportionment": method}
-    if method != "areal":
-        out["apportionment_note"] = CHANGE_NOTE.format(method=method)
-    return out
+    if method == "areal":
+        return {}
+    return {"apportionment": method, "apportionment_note": CHANGE_NOTE.format(method=method)}

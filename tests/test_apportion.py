@@ -474,8 +474,9 @@ def test_reach_sweep_says_it_stays_areal():
     out = sweep_apportionment(blocks, points)
     assert out["apportionment"] == "blocks" and out["radius_apportionment"] == "areal"
     assert "placed again for every reach" in out["radius_note"]
-    assert sweep_apportionment(areal, points) == {"apportionment": "areal"}
-    assert change_apportionment(areal) == {"apportionment": "areal"}
+    # An areal audit mixes nothing: its sections stay as they were (no key added).
+    assert sweep_apportionment(areal, points) == {}
+    assert change_apportionment(areal) == {}
 
 
 def test_report_says_which_further_analyses_count_by_block():
