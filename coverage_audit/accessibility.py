@@ -5,6 +5,8 @@ and ``minority_share``) and the points footprint, and gives the ``access`` secti
 summary.json and each area's score (column ``access`` of areas.csv). Site capacities come
 from a column of the points file (1 each by default); distances are straight lines in the
 analysis CRS between area centroids and sites, or the rows of a travel-cost table. The
+sites and the cost table are checked and read in the input stage
+(:func:`coverage_audit.io.costs.read_access_inputs`); this stage reads no file. The
 statistics themselves are in :mod:`coverage_audit.stats.access`.
 """
 
@@ -18,11 +20,10 @@ import numpy as np
 import pandas as pd
 import shapely
 
-from .errors import InputError
 from .findings import Finding, label, number, pct, register_finding
-from .footprint import Footprint
 from .inputs import AreaInputs
-from .spec import AccessSpec, AuditSpec
+from .io.costs import AccessInputs
+from .spec import AuditSpec
 from .stats.access import (
     AccessResult,
     Decay,
@@ -37,95 +38,26 @@ from .stats.access import (
 METHOD_NAMES = {"none": "2SFCA", "steps": "E2SFCA", "gaussian": "Gaussian 2SFCA"}
 
 
-def site_capacity(
-    points: gpd.GeoDataFrame, ac: AccessSpec, footprint: Footprint, inputs: AreaInputs
-) -> np.ndarray:
-    """Return each point's capacity; unusable ones are excluded (NaN) and listed."""
-    if ac.capacity is None:
-        return np.ones(len(points))
-    if ac.capacity not in points.columns:
-        path = footprint.records[0].path if footprint.records else footprint.name
-        raise InputError(
-            f"footprint '{footprint.name}' file '{path}' has no capacity column "
-            f"{ac.capacity!r}; its columns are "
-            f"{[c for c in points.columns if c not in ('geometry', 'radius_m', 'source_row')]} "
-            "(set [access] capacity to one of them, or leave it out for 1 each)"
-        )
-    raw = pd.to_numeric(points[ac.capacity], errors="coerce").to_numpy(dtype=float)
-    bad = ~(np.isfinite(raw) & (raw >= 0))
-    inputs.exclusions.add(
-        f"footprint:{footprint.name}",
-        points["source_row"].to_numpy()[bad],
-        _site_ids(points, ac)[bad],
-        f"capacity in column {ac.capacity} missing, not a number or negative (left out of access)",
-    )
-    return np.where(bad, np.nan, raw)
-
-
-def _site_ids(points: gpd.GeoDataFrame, ac: AccessSpec) -> np.ndarray:
-    from .io.costs import site_ids_as_text
-
-    if ac.site_id is None:
-        return np.array([str(int(r)) for r in points["source_row"]], dtype=object)
-    return site_ids_as_text(points[ac.site_id])
-
-
 def measure_access(
-    spec: AuditSpec, inputs: AreaInputs, footprint: Footprint, frame: gpd.GeoDataFrame
+    spec: AuditSpec, inputs: AreaInputs, frame: gpd.GeoDataFrame, access: AccessInputs
 ) -> tuple[dict[str, Any], np.ndarray]:
     """Run 2SFCA / E2SFCA as ``[access]`` asks; return the summary section and the scores.
 
-    Raises
-    ------
-    InputError
-        A named column is missing, no site is usable, or the cost table matches nothing.
+    ``access`` is what the input stage read (:func:`~coverage_audit.io.costs.read_access_inputs`):
+    the usable sites and their capacities, the matched cost table. Reads no file.
     """
     ac = spec.access
-    assert ac is not None and footprint.points is not None
-    points = footprint.points
-    if ac.site_id is not None and ac.site_id not in points.columns:
-        raise InputError(
-            f"footprint '{footprint.name}' has no site id column {ac.site_id!r}; its columns are "
-            f"{[c for c in points.columns if c not in ('geometry', 'radius_m', 'source_row')]}"
-        )
-    capacity = site_capacity(points, ac, footprint, inputs)
-    usable = np.isfinite(capacity)
-    if not usable.any():
-        raise InputError(
-            f"footprint '{footprint.name}': no point has a usable capacity in column "
-            f"{ac.capacity!r}; capacities must be numbers >= 0"
-        )
-    points = points.loc[usable]
-    capacity = capacity[usable]
+    assert ac is not None
+    points, capacity = access.points, access.capacity
     site_xy = shapely.get_coordinates(np.asarray(points.geometry.array))
     # The centroid of each area in the analysis CRS ([access] origins = "centroid").
     origin_xy = shapely.get_coordinates(shapely.centroid(np.asarray(frame.geometry.array)))
     population = frame["population"].to_numpy(dtype=float)
     costs_info = None
-    if ac.costs is not None:
-        from .io.costs import read_costs
-
-        site_ids = _site_ids(points, ac)
-        repeated = pd.Series(site_ids).duplicated()
-        if repeated.any():
-            raise InputError(
-                f"footprint '{footprint.name}': site id {site_ids[repeated.to_numpy()][0]!r} "
-                "names more than one point, so cost rows cannot be matched; give each site its "
-                "own id ([access] site_id)"
-            )
-        table = read_costs(
-            ac.costs,
-            origin_column=ac.cost_origin,
-            site_column=ac.cost_site,
-            cost_column=ac.cost_column,
-            factor=ac.cost_factor,
-            area_ids=frame[inputs.id_column].astype(str).to_numpy(dtype=object),
-            site_ids=site_ids,
-            id_width=spec.areas.id_width,
-            exclusions=inputs.exclusions,
-        )
-        inputs.inputs.append(table.record)
-        pairs = pairs_from_costs(table.origin, table.site, table.cost, len(frame), len(points))
+    table = access.costs
+    if table is not None:
+        origin = _frame_positions(table.origin, access.area_ids, frame, inputs.id_column)
+        pairs = pairs_from_costs(origin, table.site, table.cost, len(frame), len(points))
         costs_info = {
             "origin_column": ac.cost_origin,
             "site_column": ac.cost_site,
@@ -166,6 +98,17 @@ def measure_access(
         costs=costs_info,
     )
     return result.to_dict(), scores.access
+
+
+def _frame_positions(
+    origin: np.ndarray, area_ids: tuple[str, ...], frame: gpd.GeoDataFrame, id_column: str
+) -> np.ndarray:
+    """Return the cost rows' area positions in ``frame`` (read against ``area_ids``)."""
+    ids = frame[id_column].astype(str).to_numpy(dtype=object)
+    if tuple(ids.tolist()) == area_ids:
+        return origin
+    moved = pd.Index(ids).get_indexer(np.asarray(area_ids, dtype=object)[origin])
+    return moved.astype(np.int64)
 
 
 #: Ratio of mean access under which a group's finding is salient: the four-fifths rule of

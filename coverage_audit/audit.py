@@ -144,7 +144,7 @@ def _read_inputs(spec: AuditSpec, progress: SilentProgress) -> _Read:
             id_width=spec.areas.id_width,
         )
     inputs, study = _study_area(spec, inputs, footprint, progress)
-    return _Read(inputs, footprint, study, read_further_inputs(spec, inputs))
+    return _Read(inputs, footprint, study, read_further_inputs(spec, inputs, footprint))
 
 
 def _measure(
@@ -163,9 +163,14 @@ def _measure(
 
 
 def _exclusions(read: _Read, measured: AreaInputs, statistics: Statistics) -> Exclusions:
-    """Every row left out, in stage order (the later inputs' after the statistics')."""
+    """Every row left out, in stage order (the later inputs' after the statistics').
+
+    The access sites and cost rows come before the statistics' (where that stage once
+    read them), so exclusions.csv keeps its order.
+    """
     further = read.further
-    stages = [read.inputs.exclusions, measured.exclusions, statistics.exclusions]
+    access = [] if further.access is None else [further.access.exclusions]
+    stages = [read.inputs.exclusions, measured.exclusions, *access, statistics.exclusions]
     stages.append(further.exclusions)
     if further.lending is not None:
         stages.append(further.lending.exclusions)
@@ -229,9 +234,10 @@ def _result(
     """Return the result: areas in output order, findings, exclusions, manifest."""
     inputs, further = read.inputs, read.further
     lending = () if further.lending is None else further.lending.records
-    # Files read after the areas', in the order they were read: the people placed in areas,
+    costs = () if further.access is None else further.access.records
+    # Files read after the areas', in the manifest's order: the people placed in areas,
     # the access costs, the other footprints and activity table, the lending records.
-    later = (*measured.inputs, *statistics.records, *further.records, *lending)
+    later = (*measured.inputs, *costs, *further.records, *lending)
     finished = _dt.datetime.now(_dt.timezone.utc)
     manifest = build_manifest(spec, inputs, read.footprint, started, finished, later)
     # Tolerance under which boundaries count as shared (tolerant contiguity, edges.py).

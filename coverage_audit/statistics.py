@@ -11,7 +11,7 @@ object.
 from __future__ import annotations
 
 import warnings
-from dataclasses import dataclass, replace
+from dataclasses import dataclass
 from typing import Any
 
 import geopandas as gpd
@@ -24,7 +24,7 @@ from .coverage import CoverageResult
 from .enclaves import find_enclaves, footprint_holes
 from .errors import AnalysisError, DegenerateStatisticWarning
 from .footprint import Footprint
-from .inputs import AreaInputs, Exclusions, InputRecord
+from .inputs import AreaInputs, Exclusions
 from .io.further import FurtherInputs
 from .lending import lending_section  # also registers the lending findings
 from .options import enclave_options
@@ -47,10 +47,7 @@ class Statistics:
     frame : geopandas.GeoDataFrame
         The per-area frame with the statistics' columns added.
     exclusions : Exclusions
-        The rows the stage leaves out: sites or cost rows of the access measure, then the
-        areas the spatial statistics leave out (islands).
-    records : tuple of InputRecord
-        Input files the access measure read (its cost table).
+        The rows the stage leaves out: the areas the spatial statistics leave out (islands).
     moran_lag : numpy.ndarray or None
         The Moran scatterplot's lag per area, when the clustering statistics ran.
     """
@@ -58,7 +55,6 @@ class Statistics:
     findings: SpatialFindings
     frame: gpd.GeoDataFrame
     exclusions: Exclusions
-    records: tuple[InputRecord, ...] = ()
     moran_lag: np.ndarray | None = None
 
 
@@ -129,15 +125,12 @@ def compute_statistics(
     frame["enclave_id"] = enclaves.enclave_id
     primary = {"coverage": coverage.to_dict(), "enclave_count": len(enclaves.enclaves)}
     sections = _further_analyses(spec, inputs, footprint, frame, graph, primary, progress, further)
-    access_read: tuple[InputRecord, ...] = ()
-    if spec.access is not None:
-        # The access stage may read a cost table: it gets lists of its own for the rows
-        # it leaves out and the file it reads, and the audit gathers them.
-        own = replace(inputs, exclusions=Exclusions(), inputs=[])
+    if further.access is not None:
+        # Sites and cost table as the input stage read them (io/costs.read_access_inputs).
         with progress.stage("access (two-step floating catchment)"):
-            sections["access"], frame["access"] = measure_access(spec, own, footprint, frame)
-        access_read = tuple(own.inputs)
-        left_out = Exclusions([*own.exclusions.records, *left_out.records])
+            sections["access"], frame["access"] = measure_access(
+                spec, inputs, frame, further.access
+            )
     lag = None
     if isinstance(clustering, ClusteringResult) and graph.stats_mask.sum() >= 3:
         lag = spatial_lag(fraction, graph.stats_graph("r").sparse, graph.stats_mask)
@@ -145,7 +138,6 @@ def compute_statistics(
         findings=SpatialFindings(segregation, graph, clustering, enclaves, sections),
         frame=frame,
         exclusions=left_out,
-        records=access_read,
         moran_lag=lag,
     )
 

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import builtins
 import math
 from pathlib import Path
 
@@ -11,8 +12,9 @@ import pandas as pd
 import pytest
 import shapely
 
-from coverage_audit import load_spec, run_audit
+from coverage_audit import audit, inputs, load_spec, run_audit
 from coverage_audit.errors import InputError, SpecError
+from coverage_audit.io import costs as cost_io
 from coverage_audit.stats.access import (
     Decay,
     access_by_group,
@@ -455,6 +457,57 @@ def test_audit_access_cost_table(tmp_path):
     ex = result.exclusions[result.exclusions["source"] == "access_costs"]
     assert sorted(ex["row"].tolist()) == [15, 16, 17, 18]
     assert any("repeats" in r for r in ex["reason"])
+
+
+def test_access_stage_reads_no_file(tmp_path, monkeypatch):
+    # Pipeline layout (issue 14): the cost table and the sites are read in the input stage
+    # (io/costs.read_access_inputs, called by io/further.py); after it, every file reader
+    # the access stage could reach raises, and the audit still gives the hand figures.
+    # Consistency check of the layout, plus the hand example's 2SFCA as reference.
+    ids = [f"0100100000{k}" for k in range(1, 6)]
+    rows = [
+        (ids[i], s, abs(HAND_X[i] - x) / 1000.0)
+        for i in range(5)
+        for s, x in zip("ABC", SITES_X, strict=True)
+    ]
+    costs = pd.DataFrame(rows, columns=["origin", "site", "km"])
+    spec = _hand_region(
+        tmp_path,
+        'capacity = "doctors"\ncatchment = "10 km"\nsite_id = "site_id"\ncosts = "times.csv"\n'
+        'cost_column = "km"\ncost_unit = "km"\n',
+        costs,
+    )
+    read_inputs = audit._read_inputs
+    stages: list[str] = []
+
+    def forbid(*args, **kwargs):
+        raise AssertionError(f"a file was read after the input stage: {args[:1]}")
+
+    def read_then_forbid(*args, **kwargs):
+        read = read_inputs(*args, **kwargs)
+        stages.append("read")
+        assert read.further.access is not None and read.further.access.costs is not None
+        for module, name in (
+            (cost_io, "read_costs"),
+            (cost_io, "read_hashed"),
+            (cost_io, "read_table"),
+            (inputs, "read_hashed"),
+            (inputs, "read_table"),
+            (pd, "read_csv"),
+            (pd, "read_parquet"),
+            (gpd, "read_file"),
+            (builtins, "open"),
+        ):
+            monkeypatch.setattr(module, name, forbid)
+        return read
+
+    monkeypatch.setattr(audit, "_read_inputs", read_then_forbid)
+    result = _run(spec)
+    monkeypatch.undo()
+    assert stages == ["read"]
+    np.testing.assert_allclose(result.areas["access"], HAND_2SFCA, rtol=1e-12)  # by hand
+    assert result.summary["access"]["costs"]["used"] == 15
+    assert [r["role"] for r in result.manifest["inputs"]].count("access_costs") == 1
 
 
 def test_spec_errors(tmp_path):

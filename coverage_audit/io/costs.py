@@ -8,19 +8,26 @@ the summary reports. Rows that cannot be used (missing or negative cost, an id t
 matches no analysed area or no site, a repeated pair) are listed in the exclusions under
 ``access_costs``; pairs absent from the table are beyond the catchment. Any routing
 engine's output can be used as is; nothing is downloaded.
+
+:func:`read_access_inputs` is the ``[access]`` section's part of the input stage: it
+checks the points' site ids and capacities and reads the cost table, so that the access
+stage (:func:`coverage_audit.accessibility.measure_access`) works on what was read here.
 """
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
+import geopandas as gpd
 import numpy as np
 import pandas as pd
 
 from ..errors import InputError
-from ..inputs import Exclusions, InputRecord, ids_as_text, read_hashed, read_table
+from ..footprint import Footprint
+from ..inputs import AreaInputs, Exclusions, InputRecord, ids_as_text, read_hashed, read_table
+from ..spec import AccessSpec, AuditSpec
 
 #: Exclusions source of the cost table's rows.
 COSTS_SOURCE = "access_costs"
@@ -184,3 +191,124 @@ def read_costs(
         rows=n,
         excluded=int(bad.sum()),
     )
+
+
+@dataclass(frozen=True, eq=False)
+class AccessInputs:
+    """What the ``[access]`` stage reads, read in the input stage.
+
+    Attributes
+    ----------
+    points : geopandas.GeoDataFrame
+        The footprint's points with a usable capacity, in file order.
+    capacity : numpy.ndarray
+        Their capacities.
+    costs : CostTable or None
+        The matched cost table (``[access] costs``), positions into ``area_ids`` and
+        ``points``.
+    area_ids : tuple of str
+        The analysed area ids the cost table was matched to, in that order.
+    exclusions : Exclusions
+        Points without a usable capacity, then the cost table's unused rows.
+    records : tuple of InputRecord
+        The cost table as read, for the manifest.
+    """
+
+    points: gpd.GeoDataFrame
+    capacity: np.ndarray
+    costs: CostTable | None = None
+    area_ids: tuple[str, ...] = ()
+    exclusions: Exclusions = field(default_factory=Exclusions)
+    records: tuple[InputRecord, ...] = ()
+
+
+def read_access_inputs(
+    spec: AuditSpec, inputs: AreaInputs, footprint: Footprint
+) -> AccessInputs | None:
+    """Check the sites of ``[access]`` and read its cost table (``None`` without ``[access]``).
+
+    Raises
+    ------
+    InputError
+        A named column is missing, no site is usable, two sites share an id, or the cost
+        table matches nothing.
+    """
+    ac = spec.access
+    if ac is None:
+        return None
+    assert footprint.points is not None
+    points = footprint.points
+    if ac.site_id is not None and ac.site_id not in points.columns:
+        raise InputError(
+            f"footprint '{footprint.name}' has no site id column {ac.site_id!r}; its columns are "
+            f"{_point_columns(points)}"
+        )
+    left_out = Exclusions()
+    capacity = _site_capacity(points, ac, footprint, left_out)
+    usable = np.isfinite(capacity)
+    if not usable.any():
+        raise InputError(
+            f"footprint '{footprint.name}': no point has a usable capacity in column "
+            f"{ac.capacity!r}; capacities must be numbers >= 0"
+        )
+    points = points.loc[usable]
+    capacity = capacity[usable]
+    if ac.costs is None:
+        return AccessInputs(points, capacity, exclusions=left_out)
+    site_ids = _site_ids(points, ac)
+    repeated = pd.Series(site_ids).duplicated()
+    if repeated.any():
+        raise InputError(
+            f"footprint '{footprint.name}': site id {site_ids[repeated.to_numpy()][0]!r} "
+            "names more than one point, so cost rows cannot be matched; give each site its "
+            "own id ([access] site_id)"
+        )
+    area_ids = inputs.frame[inputs.id_column].astype(str).to_numpy(dtype=object)
+    table = read_costs(
+        ac.costs,
+        origin_column=ac.cost_origin,
+        site_column=ac.cost_site,
+        cost_column=ac.cost_column,
+        factor=ac.cost_factor,
+        area_ids=area_ids,
+        site_ids=site_ids,
+        id_width=spec.areas.id_width,
+        exclusions=left_out,
+    )
+    return AccessInputs(
+        points, capacity, table, tuple(area_ids.tolist()), left_out, (table.record,)
+    )
+
+
+def _point_columns(points: gpd.GeoDataFrame) -> list[str]:
+    return [c for c in points.columns if c not in ("geometry", "radius_m", "source_row")]
+
+
+def _site_capacity(
+    points: gpd.GeoDataFrame, ac: AccessSpec, footprint: Footprint, exclusions: Exclusions
+) -> np.ndarray:
+    """Return each point's capacity; unusable ones are NaN and listed in ``exclusions``."""
+    if ac.capacity is None:
+        return np.ones(len(points))
+    if ac.capacity not in points.columns:
+        path = footprint.records[0].path if footprint.records else footprint.name
+        raise InputError(
+            f"footprint '{footprint.name}' file '{path}' has no capacity column "
+            f"{ac.capacity!r}; its columns are {_point_columns(points)} "
+            "(set [access] capacity to one of them, or leave it out for 1 each)"
+        )
+    raw = pd.to_numeric(points[ac.capacity], errors="coerce").to_numpy(dtype=float)
+    bad = ~(np.isfinite(raw) & (raw >= 0))
+    exclusions.add(
+        f"footprint:{footprint.name}",
+        points["source_row"].to_numpy()[bad],
+        _site_ids(points, ac)[bad],
+        f"capacity in column {ac.capacity} missing, not a number or negative (left out of access)",
+    )
+    return np.where(bad, np.nan, raw)
+
+
+def _site_ids(points: gpd.GeoDataFrame, ac: AccessSpec) -> np.ndarray:
+    if ac.site_id is None:
+        return np.array([str(int(r)) for r in points["source_row"]], dtype=object)
+    return site_ids_as_text(points[ac.site_id])

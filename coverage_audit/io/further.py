@@ -1,9 +1,9 @@
 """The inputs of the later stages, read in the input stage with the areas.
 
 :func:`read_further_inputs` builds the spec's other footprints and reads the
-``[activity]`` table, the ``[lending]`` records (streamed into counts) and the variance
-replicate table of the population counts, so that no stage after the input stage reads a
-file. Each reader returns what it left out in an :class:`~coverage_audit.inputs.Exclusions`
+``[activity]`` table, the ``[lending]`` records (streamed into counts), the variance
+replicate table of the population counts and the ``[access]`` sites and cost table, so
+that no stage after the input stage reads a file. Each reader returns what it left out in an :class:`~coverage_audit.inputs.Exclusions`
 of its own and its files' input records; the audit gathers them.
 """
 
@@ -19,6 +19,7 @@ from ..footprint import Footprint, build_footprint
 from ..inputs import AreaInputs, Exclusions, InputRecord
 from ..spec import AuditSpec
 from .activity import read_activity
+from .costs import AccessInputs, read_access_inputs
 from .hmda_counts import LendingRecords, read_lending_records
 from .joins import MatchReport
 from .replicates import read_replicates
@@ -69,6 +70,9 @@ class FurtherInputs:
         The ``[lending]`` records as counts, with their own records and exclusions.
     replicates : Replicates or None
         The population's variance replicates, with their own exclusions.
+    access : AccessInputs or None
+        The ``[access]`` sites with their capacities and the matched cost table, with
+        their own records and exclusions.
     """
 
     footprints: tuple[Footprint, ...] = ()
@@ -77,10 +81,16 @@ class FurtherInputs:
     records: tuple[InputRecord, ...] = ()
     lending: LendingRecords | None = None
     replicates: Replicates | None = None
+    access: AccessInputs | None = None
 
 
-def read_further_inputs(spec: AuditSpec, inputs: AreaInputs) -> FurtherInputs:
-    """Build the other footprints and read the activity, lending and replicate tables."""
+def read_further_inputs(
+    spec: AuditSpec, inputs: AreaInputs, footprint: Footprint | None = None
+) -> FurtherInputs:
+    """Build the other footprints; read the activity, lending, replicate and cost tables.
+
+    ``footprint`` is the audited (first) footprint, whose points ``[access]`` measures.
+    """
     exclusions = Exclusions()
     built = tuple(
         build_footprint(
@@ -109,6 +119,7 @@ def read_further_inputs(spec: AuditSpec, inputs: AreaInputs) -> FurtherInputs:
         tuple(records),
         lending,
         _replicates(spec, inputs, area_ids),
+        None if footprint is None else read_access_inputs(spec, inputs, footprint),
     )
 
 

@@ -21,6 +21,8 @@ from typing import Any, Protocol
 import numpy as np
 import pandas as pd
 
+from .formats import FormatKind, field_format
+
 NA = "n/a"
 
 
@@ -148,11 +150,6 @@ def fmt_bool(value: Any) -> str:
     return NA if value is None else ("yes" if bool(value) else "no")
 
 
-#: Keys of statistics, whose whole-number values still print with decimals.
-_STATISTIC_PREFIXES = ("z_", "p_", "expected", "variance", "mean", "share", "ratio")
-_STATISTIC_KEYS = frozenset({"I", "EI", "z", "p"})
-
-
 def fmt_param(value: Any) -> str:
     """Format a spec parameter as written: numbers without padding, lists comma-joined."""
     if value is None:
@@ -169,7 +166,10 @@ def fmt_param(value: Any) -> str:
 
 
 def fmt_auto(key: str, value: Any) -> str:
-    """Format a value of a generic key/value table by its type and the shape of its key."""
+    """Format a value of a generic key/value table by its type and, for floats, its field.
+
+    A float prints as the kind of number its field holds (:mod:`.formats`).
+    """
     if value is None:
         return NA
     if isinstance(value, (bool, np.bool_)):
@@ -177,12 +177,7 @@ def fmt_auto(key: str, value: Any) -> str:
     if isinstance(value, (int, np.integer)):
         return fmt_count(value)
     if isinstance(value, (float, np.floating)):
-        if key.startswith("p_") or key.endswith("_p") or key == "p":
-            return fmt_p(value)
-        statistic = key in _STATISTIC_KEYS or key.startswith(_STATISTIC_PREFIXES)
-        if float(value).is_integer() and not statistic:
-            return fmt_count(value)  # a count carried as a float (joins, areas)
-        return fmt_fixed(value, 2 if key.startswith("z_") or key == "z" else 4)
+        return fmt_kind(field_format(key), value)
     if isinstance(value, Mapping):
         return "; ".join(f"{k}: {fmt_auto(str(k), v)}" for k, v in value.items()) or NA
     if isinstance(value, (list, tuple)):
@@ -191,6 +186,18 @@ def fmt_auto(key: str, value: Any) -> str:
         shown = ", ".join(fmt_auto(key, v) for v in value[:10])
         return shown + (f" … ({len(value):,} in all)" if len(value) > 10 else "")
     return str(value)
+
+
+def fmt_kind(kind: FormatKind, value: Any) -> str:
+    """Format a number as the kind of number it is (:data:`.formats.FormatKind`)."""
+    if kind == "p_value":
+        return fmt_p(value)
+    if kind == "z":
+        return fmt_fixed(value, 2)
+    f = as_number(value)
+    if kind in ("count", "measure") and f is not None and f.is_integer():
+        return fmt_count(f)  # a count carried as a float (joins, areas)
+    return fmt_fixed(value, 4)
 
 
 def cell_text(value: Any) -> str:
