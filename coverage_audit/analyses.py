@@ -20,6 +20,13 @@ import pandas as pd
 import shapely
 from pyproj import Geod, Transformer
 
+from .apportion import (
+    change_apportionment,
+    further_footprint,
+    placement,
+    served_basis,
+    sweep_apportionment,
+)
 from .compare import change_between, compare_footprints, peer_comparison
 from .coverage import coverage_by_group, footprint_fractions
 from .enclaves import count_enclaves
@@ -126,7 +133,7 @@ def sensitivity_section(
 ) -> dict[str, Any]:
     """Recompute the disparity and enclave count over served thresholds and reaches."""
     groups, reference = inputs.groups, inputs.reference
-    fraction = frame["covered_fraction"].to_numpy(dtype=float)
+    fraction = served_basis(frame)  # covered population share when people were placed
     counts = {g: frame[g].to_numpy(dtype=float) for g in groups}
     geoms = np.asarray(frame.geometry.array, dtype=object)
     rows = sensitivity_thresholds(
@@ -142,7 +149,7 @@ def sensitivity_section(
         entry = row.to_dict()
         entry["enclaves"] = count
         threshold_rows.append(entry)
-    out: dict[str, Any] = {"thresholds": threshold_rows}
+    out: dict[str, Any] = {"thresholds": threshold_rows, **sweep_apportionment(spec, footprint)}
     if footprint.kind == "points" and footprint.points is not None:
         points = footprint.points.to_crs("EPSG:4326")
         lon = points.geometry.x.to_numpy()
@@ -203,15 +210,19 @@ def other_footprints(
     """Coverage and enclave counts of every footprint after the first.
 
     Returns the comparison section and each footprint's covered fractions by name (the
-    first included).
+    first included): covered population shares when people were placed by blocks or a
+    mask (:func:`~coverage_audit.apportion.further_footprint`).
     """
     geoms = np.asarray(frame.geometry.array, dtype=object)
     ids = frame[inputs.id_column].to_numpy(dtype=object)
     threshold = spec.analysis.served_threshold
-    fractions = {spec.footprint.name: frame["covered_fraction"].to_numpy(dtype=float)}
+    fractions = {spec.footprint.name: served_basis(frame)}
     results: dict[str, Any] = {}
     for fp in built:
-        cf = footprint_fractions(fp, geoms, ids.tolist())
+        # Counted by blocks or mask as the first footprint was, when the spec places people.
+        cf, covered = further_footprint(
+            spec, inputs, fp, frame, footprint_fractions(fp, geoms, ids.tolist())
+        )
         fractions[fp.name] = cf
         cov = coverage_by_group(
             frame,
@@ -220,7 +231,10 @@ def other_footprints(
             fraction=cf,
             threshold=threshold,
             comparison=spec.analysis.comparison,
+            covered=covered,
         ).to_dict()
+        if covered is not None:
+            cov["apportionment"] = placement(spec)
         results[fp.name] = {
             "coverage": cov,
             "enclave_count": _enclave_counts([cf >= threshold], frame, graph, spec)[0],
@@ -230,7 +244,10 @@ def other_footprints(
 
 def comparison_section(primary: dict[str, Any], others: dict[str, Any]) -> Section:
     """Side-by-side coverage of every footprint, ranked."""
-    return compare_footprints({**primary, **others})
+    merged = {**primary, **others}
+    methods = {str(v["coverage"].get("apportionment", "areal")) for v in merged.values()}
+    placed = {} if methods == {"areal"} else {"apportionment": "/".join(sorted(methods))}
+    return WithDetails(compare_footprints(merged), placed)
 
 
 def change_section(
@@ -245,7 +262,7 @@ def change_section(
         cf = fractions[name]
         return table.assign(covered_fraction=cf, served=cf >= threshold)
 
-    return change_between(
+    change = change_between(
         side(spec.change.before),
         side(spec.change.after),
         id_column=inputs.id_column,
@@ -253,6 +270,7 @@ def change_section(
         reference=inputs.reference,
         threshold=threshold,
     )
+    return WithDetails(change, change_apportionment(spec))
 
 
 #: Columns that name a service site, in order of preference.

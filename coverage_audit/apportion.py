@@ -32,6 +32,7 @@ from .dasymetric import Apportioned, apportion_dasymetric
 from .errors import AnalysisError, InputError
 from .inputs import InputRecord
 from .io.blocks import (
+    ROW_COLUMN,
     BlockColumns,
     CleanBlocks,
     check_columns,
@@ -51,6 +52,7 @@ PREFIX_WIDTHS = (11, 12)
 ENVELOPE_PAD_M = 1_000.0
 #: dask scheduler of ``engine = "dask"`` without ``dask_scheduler``: local processes.
 LOCAL_SCHEDULER = "processes"
+NO_CRS = "blocks file '{path}' has no CRS; save it with its CRS (EPSG:4269)"
 NO_BLOCK_REASON = "no census block of the blocks file has this area's GEOID as its prefix"
 
 
@@ -133,7 +135,58 @@ def memory_task(chunk: tuple[Any, ...], pieces_wkb: np.ndarray, task: Task) -> P
 
 def file_task(path: str, pieces_wkb: np.ndarray, envelope: np.ndarray, task: Task) -> PartitionSums:
     """One partition file of a prepared dataset: read it, then :func:`frame_task`."""
-    return frame_task(gpd.read_parquet(path), pieces_wkb, envelope, task, path)
+    return frame_task(_read_partition(path, task), pieces_wkb, envelope, task, path)
+
+
+def _read_partition(path: str, task: Task, columns_only: bool = False) -> Any:
+    """Read a partition file's id, count, row and geometry columns (not the others).
+
+    With ``columns_only``, return those column names instead ([] when one is absent).
+    """
+    import pyarrow.parquet as pq
+
+    present = set(pq.read_schema(path).names)
+    wanted = [task.columns.id, *task.columns.count_columns, ROW_COLUMN]
+    geometry = _geo_metadata(path).get("primary_column", "geometry")
+    columns = list(dict.fromkeys(c for c in [*wanted, geometry] if c in present))
+    # A named column that is absent: all are read, so that check_columns names it.
+    if any(c not in present for c in wanted[:-1]):
+        return [] if columns_only else gpd.read_parquet(path)
+    return columns if columns_only else gpd.read_parquet(path, columns=columns)
+
+
+def _geo_metadata(path: str | Path) -> dict[str, Any]:
+    """Return the GeoParquet ``geo`` metadata of a file ({} when it has none)."""
+    import json
+
+    import pyarrow.parquet as pq
+
+    meta = pq.read_schema(path).metadata or {}
+    try:
+        return dict(json.loads(meta[b"geo"])) if b"geo" in meta else {}
+    except ValueError:
+        return {}
+
+
+def _file_crs(path: Path) -> CRS | None:
+    """Return a GeoParquet file's CRS from its metadata, without reading any geometry.
+
+    GeoParquet: a column's ``crs`` is PROJJSON; absent means OGC:CRS84; null, unknown.
+    """
+    geo = _geo_metadata(path)
+    if not geo:
+        return None
+    column = geo.get("columns", {}).get(geo.get("primary_column", "geometry"), {})
+    if "crs" not in column:
+        return CRS.from_user_input("OGC:CRS84")
+    value = column["crs"]
+    return (
+        None
+        if value is None
+        else CRS.from_json_dict(value)
+        if isinstance(value, dict)
+        else CRS(value)
+    )
 
 
 def frame_task(
@@ -147,29 +200,107 @@ def frame_task(
     """
     check_columns(frame, task.columns, path)
     clean = clean_blocks(frame, task.columns)
+    _check_county(clean, path)
+    return block_sums(clean, _measure(clean, frame.crs, pieces_wkb, envelope, task, path), task)
+
+
+def _measure(
+    clean: CleanBlocks,
+    crs: Any,
+    pieces_wkb: np.ndarray,
+    envelope: np.ndarray,
+    task: Task,
+    path: str,
+) -> np.ndarray:
+    """Return each block's covered fraction, projecting only the blocks near a piece.
+
+    Blocks in another CRS than the analysis CRS are first placed by their bounding boxes
+    (sampled at corners, edge midpoints and centre, projected, padded); those whose box
+    meets no piece's box cannot meet a piece and get 0 without being projected. The
+    others are projected and measured exactly, as all blocks would be, so the fractions
+    are the same as projecting every block.
+    """
+    if crs is None:
+        raise InputError(NO_CRS.format(path=path))
+    if task.served is not None:
+        return _fractions(clean, clean.geometry, np.array([], dtype=object), task)
+    pieces = shapely.from_wkb(pieces_wkb)
+    target = CRS.from_wkt(task.crs_wkt)
+    same = CRS(crs).equals(target)
+    boxes = (
+        shapely.bounds(clean.geometry)
+        if same
+        else _projected_boxes(shapely.bounds(clean.geometry), CRS(crs), target)
+    )
+    if boxes.size:
+        lo, hi = np.fmin.reduce(boxes[:, :2], axis=0), np.fmax.reduce(boxes[:, 2:], axis=0)
+        if np.any(lo < envelope[:2]) or np.any(hi > envelope[2:]):
+            raise AnalysisError(
+                f"blocks of '{path}' reach beyond the envelope their footprint pieces were "
+                "chosen for; prepare the dataset again with coverage-audit prepare-blocks"
+            )
+    if same:
+        return covered_fraction(clean.geometry, pieces)
+    fraction = np.zeros(len(clean.ids), dtype=float)
+    near = _near_pieces(boxes, pieces)
+    if near.any():
+        geoms = _project(clean.geometry[near], crs, task.crs_wkt, path)
+        fraction[near] = covered_fraction(geoms, pieces)
+    return fraction
+
+
+#: Padding of a block's projected box (metres, and share of its size) when picking blocks.
+BOX_PAD_M, BOX_PAD_SHARE = 1.0, 0.01
+
+
+def _projected_boxes(bounds: np.ndarray, crs: CRS, target: CRS) -> np.ndarray:
+    """Return (n, 4) boxes in ``target`` around boxes in ``crs`` (9 points each, unpadded)."""
+    from pyproj import Transformer
+
+    to = Transformer.from_crs(crs, target, always_xy=True)
+    fx = np.array([0.0, 0.5, 1.0])
+    xs = bounds[:, [0]] + (bounds[:, [2]] - bounds[:, [0]]) * fx  # (n, 3)
+    ys = bounds[:, [1]] + (bounds[:, [3]] - bounds[:, [1]]) * fx
+    px, py = to.transform(np.repeat(xs, 3, axis=1), np.tile(ys, (1, 3)))
+    px, py = np.asarray(px), np.asarray(py)
+    return np.column_stack([px.min(axis=1), py.min(axis=1), px.max(axis=1), py.max(axis=1)])
+
+
+def _near_pieces(boxes: np.ndarray, pieces: np.ndarray) -> np.ndarray:
+    """Return whether each padded box meets a piece's bounding box.
+
+    A box that could not be placed (not finite) counts as near, so that its block is
+    projected and measured.
+    """
+    near = ~np.isfinite(boxes).all(axis=1)
+    if pieces.size == 0 or boxes.size == 0:
+        return near
+    size = np.fmax(boxes[:, 2] - boxes[:, 0], boxes[:, 3] - boxes[:, 1])
+    pad = BOX_PAD_M + BOX_PAD_SHARE * np.nan_to_num(size)
+    padded = shapely.box(boxes[:, 0] - pad, boxes[:, 1] - pad, boxes[:, 2] + pad, boxes[:, 3] + pad)
+    ok = ~near
+    hit = shapely.STRtree(pieces).query(padded[ok])[0]
+    near[np.flatnonzero(ok)[np.unique(hit)]] = True
+    return near
+
+
+def _check_county(clean: CleanBlocks, path: str) -> None:
     county = _county_of(Path(path))
     if county is not None and not all(v.startswith(county[0]) for v in clean.ids):
         raise AnalysisError(
             f"blocks of '{path}' are not all of county {county[0]}; prepare the dataset again "
             "with coverage-audit prepare-blocks"
         )
-    geoms = _project(clean.geometry, frame.crs, task.crs_wkt, path)
-    if geoms.size and task.served is None:
-        low = shapely.bounds(geoms)
-        lo, hi = np.fmin.reduce(low[:, :2], axis=0), np.fmax.reduce(low[:, 2:], axis=0)
-        if np.any(lo < envelope[:2]) or np.any(hi > envelope[2:]):
-            raise AnalysisError(
-                f"blocks of '{path}' reach beyond the envelope their footprint pieces were "
-                "chosen for; prepare the dataset again with coverage-audit prepare-blocks"
-            )
-    return block_sums(clean, _fractions(clean, geoms, shapely.from_wkb(pieces_wkb), task), task)
 
 
 def _project(geoms: np.ndarray, crs: Any, target_wkt: str, path: str) -> np.ndarray:
     if crs is None:
-        raise InputError(f"blocks file '{path}' has no CRS; save it with its CRS (EPSG:4269)")
+        raise InputError(NO_CRS.format(path=path))
+    target = CRS.from_wkt(target_wkt)
+    if CRS(crs).equals(target):  # already in the analysis CRS: nothing to transform
+        return geoms
     series = gpd.GeoSeries(geoms, crs=crs)
-    return np.asarray(series.to_crs(CRS.from_wkt(target_wkt)).array, dtype=object)
+    return np.asarray(series.to_crs(target).array, dtype=object)
 
 
 def combine(parts: Sequence[PartitionSums], width: int) -> pd.DataFrame:
@@ -185,15 +316,21 @@ def combine(parts: Sequence[PartitionSums], width: int) -> pd.DataFrame:
     return frame.groupby("id", sort=True).sum()
 
 
-def apportion(spec: Any, inputs: Any, footprint: Any, frame: gpd.GeoDataFrame) -> Apportioned:
-    """Place people within areas by census blocks or by a settlement mask, as the spec says."""
+def apportion(
+    spec: Any, inputs: Any, footprint: Any, frame: gpd.GeoDataFrame, *, record: bool = True
+) -> Apportioned:
+    """Place people within areas by census blocks or by a settlement mask, as the spec says.
+
+    With ``record=False`` (a further footprint over areas already apportioned once) the
+    inputs' records and exclusions are left as they are, so nothing is counted twice.
+    """
     if spec.dasymetric is not None:
-        return apportion_dasymetric(spec, inputs, footprint, frame)
-    return apportion_blocks(spec, inputs, footprint, frame)
+        return apportion_dasymetric(spec, inputs, footprint, frame, record=record)
+    return apportion_blocks(spec, inputs, footprint, frame, record=record)
 
 
 def apportion_blocks(
-    spec: Any, inputs: Any, footprint: Any, frame: gpd.GeoDataFrame
+    spec: Any, inputs: Any, footprint: Any, frame: gpd.GeoDataFrame, *, record: bool = True
 ) -> Apportioned:
     """Replace the areas' counts by their blocks' sums and count covered people by block.
 
@@ -207,6 +344,9 @@ def apportion_blocks(
     footprint : Footprint
     frame : geopandas.GeoDataFrame
         The analysed areas with their areal ``covered_fraction``.
+    record : bool
+        Add the blocks file to the inputs and its left-out rows to the exclusions (False
+        when the same blocks are apportioned again for a further footprint).
 
     Returns
     -------
@@ -221,50 +361,29 @@ def apportion_blocks(
     bspec = spec.blocks
     id_col = inputs.id_column
     ids = frame[id_col].astype(str).to_numpy()
-    widths = {len(v) for v in ids}
-    if (
-        len(widths) != 1
-        or next(iter(widths)) not in PREFIX_WIDTHS
-        or not all(v.isdigit() for v in ids)
-    ):
-        raise InputError(
-            f"[blocks] needs areas whose ids are GEOIDs of one length, 11 digits (tracts) or "
-            f"12 (block groups); the areas' {id_col} values have lengths {sorted(widths)[:5]}"
-        )
-    groups = [n for n, _ in spec.population.groups]
-    names = ["population", *groups]
-    reference_at = names.index(spec.population.reference)
-    task = Task(
-        columns=BlockColumns(bspec.id, bspec.total, bspec.groups),
-        area_ids=np.array(sorted(ids), dtype=str),
-        width=next(iter(widths)),
-        crs_wkt=CRS(inputs.analysis_crs).to_wkt(),
-        minority_of=reference_at if spec.population.derive_minority else None,
-        served=footprint.served_ids if footprint.kind == "ids" else None,
+    task, names = _block_task(
+        spec, inputs, ids, footprint.served_ids if footprint.kind == "ids" else None
     )
-    if spec.population.derive_minority:
-        names.append("minority")
     pieces = np.asarray(footprint.pieces, dtype=object) if footprint.kind != "ids" else None
     parts, how = run_partitions(bspec.path, task, pieces, spec.analysis)
     sums = combine(parts, len(names))
-    inputs.inputs.append(
-        InputRecord("blocks", str(bspec.path), digest(bspec.path), sum(p.rows for p in parts))
-    )
     excluded = sorted(
         (e for p in parts for e in p.excluded), key=lambda e: (e[0], e[1] or "", e[2])
     )
-    inputs.exclusions.add(
-        "blocks", [e[0] for e in excluded], [e[1] for e in excluded], [e[2] for e in excluded]
-    )
+    if record:
+        inputs.inputs.append(
+            InputRecord("blocks", str(bspec.path), digest(bspec.path), sum(p.rows for p in parts))
+        )
+        inputs.exclusions.add(
+            "blocks", [e[0] for e in excluded], [e[1] for e in excluded], [e[2] for e in excluded]
+        )
     has = np.isin(ids, sums.index.to_numpy())
     if not has.any():
-        raise InputError(
-            f"no block of '{bspec.path}' falls in an analysed area (by GEOID prefix); check "
-            "that the blocks and the areas are of the same state and county"
+        raise InputError(NO_MATCH.format(path=bspec.path))
+    if record:
+        inputs.exclusions.add(
+            "areas", frame.loc[~has, "source_row"], frame.loc[~has, id_col], NO_BLOCK_REASON
         )
-    inputs.exclusions.add(
-        "areas", frame.loc[~has, "source_row"], frame.loc[~has, id_col], NO_BLOCK_REASON
-    )
     out = frame.loc[has].reset_index(drop=True)
     row = sums.loc[out[id_col].astype(str).to_numpy()]
     covered: dict[str, np.ndarray] = {}
@@ -301,6 +420,46 @@ def apportion_blocks(
         section=section,
         partitions=how,
     )
+
+
+NO_MATCH = (
+    "no block of '{path}' falls in an analysed area (by GEOID prefix); check that the "
+    "blocks and the areas are of the same state and county"
+)
+
+
+def _block_task(
+    spec: Any, inputs: Any, ids: np.ndarray, served: frozenset[str] | None
+) -> tuple[Task, list[str]]:
+    """Return the partitions' task and the names of its count columns (total first).
+
+    Raises an InputError unless the area ids are GEOIDs of 11 or 12 digits, one length.
+    """
+    widths = {len(v) for v in ids}
+    if (
+        len(widths) != 1
+        or next(iter(widths)) not in PREFIX_WIDTHS
+        or not all(v.isdigit() for v in ids)
+    ):
+        raise InputError(
+            f"[blocks] needs areas whose ids are GEOIDs of one length, 11 digits (tracts) or "
+            f"12 (block groups); the areas' {inputs.id_column} values have lengths "
+            f"{sorted(widths)[:5]}"
+        )
+    bspec = spec.blocks
+    names = ["population", *[n for n, _ in spec.population.groups]]
+    reference_at = names.index(spec.population.reference)
+    task = Task(
+        columns=BlockColumns(bspec.id, bspec.total, bspec.groups),
+        area_ids=np.array(sorted(ids), dtype=str),
+        width=next(iter(widths)),
+        crs_wkt=CRS(inputs.analysis_crs).to_wkt(),
+        minority_of=reference_at if spec.population.derive_minority else None,
+        served=served,
+    )
+    if spec.population.derive_minority:
+        names.append("minority")
+    return task, names
 
 
 # --- running the partitions ------------------------------------------------------------------
@@ -397,12 +556,10 @@ def digest(path: Path) -> str:
 
 def _envelope(path: Path, crs_wkt: str) -> np.ndarray:
     """Return a partition's bounding box in the analysis CRS, padded (ENVELOPE_PAD_M)."""
-    import pyarrow.parquet as pq
     from pyproj import Transformer
 
     box = file_bounds(path)
-    meta = pq.read_schema(path).metadata or {}
-    crs = gpd.read_parquet(path, columns=["geometry"]).crs if b"geo" in meta else None
+    crs = _file_crs(path)
     if crs is None:
         raise InputError(f"blocks file '{path}' has no CRS; prepare it with its CRS")
     to = Transformer.from_crs(crs, CRS.from_wkt(crs_wkt), always_xy=True)
@@ -444,7 +601,10 @@ def _run(
     # partition would travel back through this process), so there each task reads its own.
     if dataset is not None and args and analysis.dask_scheduler is not None:
         root = dataset
-        parts = dask_geopandas.read_parquet(root).to_delayed()
+        task0 = args[0][3]
+        first = dataset_files(root)[0]
+        columns = list(_read_partition(str(first), task0, columns_only=True))
+        parts = dask_geopandas.read_parquet(root, columns=columns or None).to_delayed()
         if len(parts) != len(args):
             raise AnalysisError(
                 f"dask-geopandas read {len(parts)} partitions from '{root}' but it has "
@@ -502,3 +662,101 @@ def block_cautions(cautions: Sequence[str], summary: Mapping[str, Any]) -> list[
             "areas)."
         )
     return [text if AREAL_CAUTION_PART in c else c for c in cautions]
+
+
+# --- comparisons and sweeps ------------------------------------------------------------------
+
+#: Why the reach sweep stays areal when people are placed within areas.
+RADIUS_AREAL_NOTE = (
+    "the reach sweep uses areal covered fractions: counting people by {method} would need "
+    "the people placed again for every reach; the served-threshold sweep uses the covered "
+    "population shares"
+)
+#: How the change section's group rates read when people are placed within areas.
+CHANGE_NOTE = (
+    "served areas by covered population share ({method}); a group's covered rate on each side "
+    "weights the group's people in each area by the area's covered population share"
+)
+
+
+def placement(spec: Any) -> str:
+    """How the audit placed people within areas: "blocks", "dasymetric" or "areal"."""
+    if getattr(spec, "dasymetric", None) is not None:
+        return "dasymetric"
+    return "blocks" if getattr(spec, "blocks", None) is not None else "areal"
+
+
+def served_basis(frame: pd.DataFrame) -> np.ndarray:
+    """Return the per-area value compared with the served threshold, as ``run`` does.
+
+    The covered population share where people were placed within areas (blocks or a
+    settlement mask), else the areal covered fraction.
+    """
+    column = (
+        "covered_population_share"
+        if "covered_population_share" in frame.columns
+        else "covered_fraction"
+    )
+    return frame[column].to_numpy(dtype=float)
+
+
+def further_footprint(
+    spec: Any, inputs: Any, footprint: Any, frame: gpd.GeoDataFrame, fraction: np.ndarray
+) -> tuple[np.ndarray, dict[str, np.ndarray] | None]:
+    """Return a further footprint's served basis and covered people, placed like the first.
+
+    Parameters
+    ----------
+    spec : AuditSpec
+    inputs : AreaInputs
+        Its records and exclusions are not touched (the first footprint recorded them).
+    footprint : Footprint
+        A footprint after the first.
+    frame : geopandas.GeoDataFrame
+        The analysed areas (already apportioned once: counts summed from blocks).
+    fraction : numpy.ndarray
+        The footprint's areal covered fraction of each area.
+
+    Returns
+    -------
+    numpy.ndarray, dict or None
+        Each area's covered population share and each group's covered people, by the
+        spec's blocks or mask; with neither, ``fraction`` itself and None (areal).
+    """
+    if placement(spec) == "areal":
+        return np.asarray(fraction, dtype=float), None
+    placed = apportion(
+        spec, inputs, footprint, frame.assign(covered_fraction=fraction), record=False
+    )
+    if len(placed.frame) != len(frame):  # the same blocks: no further area can drop out
+        raise AnalysisError(
+            f"footprint '{getattr(footprint, 'name', '')}' was apportioned over "
+            f"{len(placed.frame)} areas, not the {len(frame)} analysed"
+        )
+    return placed.share, placed.covered
+
+
+def sweep_apportionment(spec: Any, footprint: Any) -> dict[str, Any]:
+    """Keys of the sensitivity section saying how each sweep placed people.
+
+    Empty for an areal audit (nothing differs from ``coverage.apportionment = "areal"``).
+    """
+    method = placement(spec)
+    if method == "areal":
+        return {}
+    out: dict[str, Any] = {"apportionment": method}
+    if getattr(footprint, "kind", None) == "points":
+        out["radius_apportionment"] = "areal"
+        out["radius_note"] = RADIUS_AREAL_NOTE.format(method=method)
+    return out
+
+
+def change_apportionment(spec: Any) -> dict[str, Any]:
+    """Keys of the change section saying how its served areas and rates were counted.
+
+    Empty for an areal audit.
+    """
+    method = placement(spec)
+    if method == "areal":
+        return {}
+    return {"apportionment": method, "apportionment_note": CHANGE_NOTE.format(method=method)}

@@ -602,6 +602,11 @@ def _cmd_check(args: argparse.Namespace) -> int:
             f"study area '{study.name}' ({study.kind}): {study.areas_inside} areas inside, "
             f"{study.areas_outside} outside; {len(inputs.frame)} would be analysed"
         )
+    if spec.blocks is not None:
+        from .blocks_check import check_blocks
+
+        for line in check_blocks(spec, inputs):
+            print(line)
     if spec.activity is not None:
         _, _, match = read_activity(spec, inputs.frame[inputs.id_column].tolist())
         print(match.line())

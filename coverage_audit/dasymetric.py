@@ -134,13 +134,14 @@ def settled_fractions(
 
 
 def apportion_dasymetric(
-    spec: Any, inputs: Any, footprint: Any, frame: gpd.GeoDataFrame
+    spec: Any, inputs: Any, footprint: Any, frame: gpd.GeoDataFrame, *, record: bool = True
 ) -> Apportioned:
     """Covered people of each area on its settled land (see the module docstring).
 
     Returns an :class:`~coverage_audit.apportion.Apportioned` with ``method =
     "dasymetric"``: ``frame`` with ``covered_population_share``, ``settled_share`` and
-    ``served`` (share at or above the threshold), and each group's covered counts.
+    ``served`` (share at or above the threshold), and each group's covered counts. With
+    ``record=False`` the mask is not added to the inputs again.
     """
     dspec = spec.dasymetric
     geoms = np.asarray(frame.geometry.array, dtype=object)
@@ -169,7 +170,8 @@ def apportion_dasymetric(
     out["covered_population_share"] = share
     out["served"] = share >= spec.analysis.served_threshold
     covered = {g: out[g].to_numpy(dtype=float) * share for g in inputs.groups}
-    inputs.inputs.append(InputRecord("mask", str(dspec.mask), sha256_file(dspec.mask), 0))
+    if record:
+        inputs.inputs.append(InputRecord("mask", str(dspec.mask), sha256_file(dspec.mask), 0))
     section = {
         "mask": dspec.mask.name,
         "mask_kind": "raster" if dspec.mask.suffix.lower() in RASTER_SUFFIXES else "polygons",

@@ -54,6 +54,11 @@ def _spec(folder: Path, blocks: str | None, extra: str = QUICK, footprint: str =
 @pytest.fixture
 def people_in_uncovered_half(two_by_two: Path) -> Path:
     """Cell 1's people all live in its right half; the footprint covers its left half."""
+    return write_uncovered_half(two_by_two)
+
+
+def write_uncovered_half(two_by_two: Path) -> Path:
+    """Write the six hand-built blocks of :func:`people_in_uncovered_half`."""
     box = shapely.box
     _blocks(
         [
@@ -406,3 +411,153 @@ def test_demo_delivery_reports_both_ways(tmp_path):
     assert "assumed to be spread evenly within the block" in page
     areal = pd.read_csv(tmp_path / "out" / "areas.csv", dtype={"geoid": str})
     assert "covered_population_share" in areal.columns
+
+
+TWO_FOOTPRINTS = """
+[[footprint]]
+name = "zone"
+path = "zone.gpkg"
+
+[[footprint]]
+name = "right"
+path = "right.gpkg"
+"""
+
+
+def test_comparison_change_and_sweep_count_people_by_block(people_in_uncovered_half):
+    """Further footprints, the change and the threshold sweep use block-based shares."""
+    folder = people_in_uncovered_half
+    # "right" covers the right half of cell 1, where all of cell 1's 100 people live.
+    gpd.GeoDataFrame(geometry=[shapely.box(500, 0, 1000, 1000)], crs=GRID_CRS).to_file(
+        folder / "right.gpkg"
+    )
+    text = spec_text("", analysis_extra="sensitivity = true\n")
+    text = text.replace('id = "geoid"', 'id = "geoid"\nlayer = "areas"')
+    text = text.replace("[footprint]\n\n", TWO_FOOTPRINTS + "\n")
+    text += BLOCKS_TABLE.format(path="blocks.gpkg")
+    text += '\n[change]\nbefore = "zone"\nafter = "right"\n'
+    result = run_audit(load_spec(write_spec(folder / "audit.toml", text)))
+    s = result.summary
+    assert s["comparison"]["apportionment"] == "blocks"
+    right = next(f for f in s["comparison"]["footprints"] if f["name"] == "right")
+    # Hand-computed from the blocks: "right" covers cell 1's 80 white and 10 black people
+    # of 260 white and 710 black (areal weighting would give half: 40/260 and 5/710).
+    assert right["groups"]["white"]["rate"] == pytest.approx(80 / 260, abs=1e-12)
+    assert right["groups"]["black"]["rate"] == pytest.approx(10 / 710, abs=1e-12)
+    assert result.areas.set_index("geoid").loc["01001000001", "covered_fraction_right"] == 1.0
+    # Change at the 0.5 threshold, by covered population share: "zone" serves cell 3 only
+    # (cell 1's people are outside it), "right" serves cell 1 only. Areal fractions would
+    # have served cell 1 on both sides (0.5 each) and gained nothing.
+    change = s["change"]
+    assert change["apportionment"] == "blocks" and "apportionment_note" in change
+    assert change["lost_service"]["ids"] == ["01001000003"]
+    assert change["gained_service"]["ids"] == ["01001000001"]
+    # Threshold sweep at 0.25: only cell 3 (share 1) is served by blocks; cell 1 (areal
+    # fraction 0.5, share 0) is not, so 1 of 4 areas is served, not 2.
+    sens = s["sensitivity"]
+    assert sens["apportionment"] == "blocks"
+    assert "radius_apportionment" not in sens  # a polygon footprint: no reach sweep
+    first = sens["thresholds"][0]
+    assert first["threshold"] == 0.25
+    assert first["served_area_share"] == 0.25
+
+
+def test_reach_sweep_says_it_stays_areal():
+    """A points footprint's reach sweep is areal when people are placed; the key says so."""
+    from types import SimpleNamespace
+
+    from coverage_audit.apportion import change_apportionment, sweep_apportionment
+
+    blocks = SimpleNamespace(blocks=object(), dasymetric=None)
+    areal = SimpleNamespace(blocks=None, dasymetric=None)
+    points = SimpleNamespace(kind="points")
+    out = sweep_apportionment(blocks, points)
+    assert out["apportionment"] == "blocks" and out["radius_apportionment"] == "areal"
+    assert "placed again for every reach" in out["radius_note"]
+    # An areal audit mixes nothing: its sections stay as they were (no key added).
+    assert sweep_apportionment(areal, points) == {}
+    assert change_apportionment(areal) == {}
+
+
+def test_report_says_which_further_analyses_count_by_block():
+    from coverage_audit.report.blocks_section import further_sentence
+
+    summary = {
+        "comparison": {"apportionment": "blocks"},
+        "sensitivity": {"apportionment": "blocks", "radius_apportionment": "areal"},
+    }
+    text = further_sentence(summary)
+    assert text.startswith(
+        "The footprint comparison and the served-threshold sweep also counted people by census"
+    )
+    assert "The reach sweep did not" in text
+    assert further_sentence({"sensitivity": {"apportionment": "areal"}}) == ""
+
+
+def test_partition_crs_is_read_from_metadata(tmp_path):
+    """The GeoParquet metadata names the CRS (PROJJSON); no geometry is read for it."""
+    from pyproj import CRS
+
+    from coverage_audit.apportion import _file_crs
+
+    frame = _blocks([("010010000011001", shapely.box(0, 0, 1, 1), 1, 1, 0)])
+    frame.to_crs("EPSG:4269").to_parquet(tmp_path / "b.parquet")
+    assert _file_crs(tmp_path / "b.parquet").equals(CRS("EPSG:4269"))
+    pd.DataFrame({"a": [1]}).to_parquet(tmp_path / "plain.parquet")
+    assert _file_crs(tmp_path / "plain.parquet") is None
+
+
+def test_repeated_block_ids_are_all_left_out():
+    from coverage_audit.io.blocks import BlockColumns, clean_blocks
+
+    box = shapely.box
+    frame = _blocks(
+        [
+            ("010010000011001", box(0, 0, 1, 1), 5, 1, 1),
+            ("010010000011002", box(1, 0, 2, 1), 5, 1, 1),
+            ("010010000011001", box(2, 0, 3, 1), 5, 1, 1),
+            ("0100100000110", box(3, 0, 4, 1), 5, 1, 1),
+        ]
+    )
+    columns = BlockColumns("GEOID20", "P2_001N", (("white", "P2_005N"), ("black", "P2_006N")))
+    clean = clean_blocks(frame, columns)
+    assert clean.ids.tolist() == ["010010000011002"]
+    reasons = {row: why for row, _, why in clean.excluded}
+    assert reasons[1] == reasons[3] == "duplicate block id"
+    assert "15-digit" in reasons[4]
+
+
+def test_blocks_in_another_crs_projected_only_near_the_footprint():
+    """Consistency check: projecting only the blocks whose box meets a piece gives the
+    fractions of projecting every block (far blocks are exactly 0 either way)."""
+    from pyproj import CRS
+
+    from coverage_audit.apportion import Task, _measure, _project
+    from coverage_audit.coverage import covered_fraction
+    from coverage_audit.io.blocks import BlockColumns, clean_blocks
+
+    rng = np.random.default_rng(20261202)
+    cells = grid(20, 20, size=250.0)
+    rows = [
+        (f"01001000001{1000 + k:04d}", g, 10, 5, 5)
+        for k, g in enumerate(cells.geometry.rotate(7, origin=(0, 0)))
+    ]
+    frame = _blocks(rows).to_crs("EPSG:4269")  # stored as TIGER/Line stores them
+    columns = BlockColumns("GEOID20", "P2_001N", (("white", "P2_005N"), ("black", "P2_006N")))
+    clean = clean_blocks(frame, columns)
+    sites = shapely.points(rng.uniform(0, 5000, 6), rng.uniform(0, 5000, 6))
+    pieces = np.asarray(shapely.get_parts(shapely.union_all(shapely.buffer(sites, 600.0))))
+    task = Task(
+        columns=columns,
+        area_ids=np.array(["01001000001"]),
+        width=11,
+        crs_wkt=CRS(GRID_CRS).to_wkt(),
+        minority_of=None,
+        served=None,
+    )
+    envelope = np.array([-1e6, -1e6, 1e6, 1e6])
+    got = _measure(clean, frame.crs, shapely.to_wkb(pieces), envelope, task, "x")
+    every = covered_fraction(_project(clean.geometry, frame.crs, task.crs_wkt, "x"), pieces)
+    np.testing.assert_allclose(got, every, rtol=0, atol=1e-12)
+    assert (every == 0).any() and (every > 0).any()
+    assert np.array_equal(got == 0, every == 0)

@@ -172,8 +172,9 @@ def clean_blocks(frame: gpd.GeoDataFrame, columns: BlockColumns) -> CleanBlocks:
     flag(missing, "null or empty geometry")
     flag(~np.isin(shapely.get_type_id(geoms), (3, 6)) & ~missing, "not a polygon")
     ok = reason == ""
-    seen = pd.Series(ids[ok]).value_counts()
-    dup = ok & np.array([v is not None and seen.get(v, 0) > 1 for v in ids], dtype=bool)
+    # Every usable block whose id another usable block repeats (all copies are left out).
+    dup = np.zeros(n, dtype=bool)
+    dup[ok] = pd.Series(ids[ok], dtype=object).duplicated(keep=False).to_numpy()
     flag(dup, "duplicate block id")
     ok = reason == ""
     bad = np.flatnonzero(~ok)

@@ -60,6 +60,28 @@ def difference_sentence(
     )
 
 
+def further_sentence(summary: Mapping[str, Any], how: str = "by census block") -> str:
+    """Say which further analyses counted people the same way and which stayed areal."""
+    same = []
+    for key, name in (
+        ("comparison", "the footprint comparison"),
+        ("change", "the change between footprints"),
+        ("sensitivity", "the served-threshold sweep"),
+    ):
+        if as_mapping(summary.get(key)).get("apportionment") not in (None, "areal"):
+            same.append(name)
+    text = ""
+    if same:
+        names = same[0] if len(same) == 1 else ", ".join(same[:-1]) + " and " + same[-1]
+        text = f"{names[0].upper()}{names[1:]} also counted people {how}."
+    if as_mapping(summary.get("sensitivity")).get("radius_apportionment") == "areal":
+        text += (
+            " The reach sweep did not: it uses areal covered fractions, since counting "
+            "people for every reach would need them placed again each time."
+        )
+    return text.strip()
+
+
 def blocks_section(page: Page) -> Html:
     """Return the section: rates by block and by areal weighting, and the blocks used."""
     cov = as_mapping(page.summary.get("coverage"))
@@ -91,6 +113,7 @@ def blocks_section(page: Page) -> Html:
                 headers, rows, table_id="blocks-table", caption="Coverage rate by group, two ways"
             ),
             para(difference_sentence(groups, areal, "on settled land", page.label)),
+            *_further(page.summary, "on settled land"),
         )
     return section(
         ANCHOR,
@@ -108,4 +131,10 @@ def blocks_section(page: Page) -> Html:
         ),
         table(headers, rows, table_id="blocks-table", caption="Coverage rate by group, two ways"),
         para(difference_sentence(groups, areal, label=page.label)),
+        *_further(page.summary),
     )
+
+
+def _further(summary: Mapping[str, Any], how: str = "by census block") -> list[Html]:
+    text = further_sentence(summary, how)
+    return [para(text)] if text else []
