@@ -65,6 +65,9 @@ RASTER_DPI = 150
 RASTER_OVERVIEW_ABOVE = 5_000
 #: Width in pixels of that raster.
 RASTER_OVERVIEW_PIXELS = 1_000
+#: A close-up whose side is at least this share of the region's is drawn from the overview
+#: raster (it then has at least as many pixels across the close-up as the figure shows).
+CLOSE_UP_FROM_OVERVIEW = 0.35
 #: Decimals kept in SVG path coordinates (points of 1/72 inch): a tenth of a point is
 #: below what print or screen can show, and it halves the size of map figures.
 PATH_DECIMALS = 1
@@ -113,9 +116,13 @@ def figure_to_svg(fig: Figure, *, salt: str, title: str) -> str:
     return svg.replace("<svg ", f'<svg role="img" aria-label="{label}" ', 1)
 
 
+#: Digits past PATH_DECIMALS after a decimal point (matplotlib writes every number with a
+#: digit before the point); dropped in one pass, with no template to expand per number.
+_EXTRA_DIGITS = re.compile(rf"(?<=\d\.\d{{{PATH_DECIMALS}}})\d+")
+
+
 def _round_path_data(match: re.Match[str]) -> str:
-    rounded = re.sub(rf"(\d+\.\d{{{PATH_DECIMALS}}})\d+", r"\1", match.group(1))
-    return f' d="{rounded}"'
+    return f' d="{_EXTRA_DIGITS.sub("", match.group(1))}"'
 
 
 def _new_figure(width_in: float, height_in: float) -> Figure:
@@ -480,6 +487,11 @@ def _add_path(ax, path: Path | None, **style) -> None:
     if path is not None:
         filled = style.get("facecolor", "none") != "none"
         heavy = filled and np.shape(path.vertices)[0] > RASTERISE_VERTICES_ABOVE
+        if heavy and style.get("edgecolor") == style["facecolor"]:
+            # An edge in the fill's own tone only widens a rasterised layer by a hair, and
+            # stroking a path of this many vertices costs more than filling it; without
+            # antialiasing, neighbouring polygons leave no crack between them.
+            style = {**style, "linewidth": 0.0, "antialiased": False}
         # add_artist, not add_patch: the limits are always set by _frame, and walking a
         # path of many vertices for data limits is slow.
         ax.add_artist(PathPatch(path, rasterized=heavy, **style))
@@ -631,24 +643,32 @@ def enclave_locator_chart(
     _frame(overview, shapely.bounds(layers.region))
     overview.set_title("in the region", fontsize=9)
 
-    nearby = layers.tree.query(shapely.box(*window))
-    nearby = np.sort(nearby)
-    colours = np.where(layers.served[nearby], SERVED_TONE, REGION_GREY).astype(object)
-    colours[np.isin(nearby, members)] = ENCLAVE_TONE
     # Large regions: each polygon simplified within about a pixel of the close-up.
     close_tolerance = side / 1500.0 if large else 0.0
-    patches = []
-    facecolors = []
-    for tone in (REGION_GREY, SERVED_TONE, ENCLAVE_TONE):
-        path = polygon_path(
-            _for_display(layers.geometries[nearby[colours == tone]], close_tolerance)
+    if large and side >= CLOSE_UP_FROM_OVERVIEW * region_side:
+        # A close-up spanning a good part of a large region: the overview raster already
+        # has a pixel per pixel of the close-up, so it is drawn from that, with the
+        # enclave's outline of the overview on top, instead of every area in the window.
+        _show_raster(close, layers)
+        _add_path(
+            close, enclave_path, facecolor=ENCLAVE_TONE, edgecolor=ENCLAVE_TONE, linewidth=0.4
         )
-        if path is not None:
-            patches.append(PathPatch(path))
-            facecolors.append(tone)
-    close.add_collection(
-        PatchCollection(patches, facecolors=facecolors, edgecolors="white", linewidths=0.6)
-    )
+    else:
+        nearby = np.sort(layers.tree.query(shapely.box(*window)))
+        colours = np.where(layers.served[nearby], SERVED_TONE, REGION_GREY).astype(object)
+        colours[np.isin(nearby, members)] = ENCLAVE_TONE
+        patches = []
+        facecolors = []
+        for tone in (REGION_GREY, SERVED_TONE, ENCLAVE_TONE):
+            path = polygon_path(
+                _for_display(layers.geometries[nearby[colours == tone]], close_tolerance)
+            )
+            if path is not None:
+                patches.append(PathPatch(path))
+                facecolors.append(tone)
+        close.add_collection(
+            PatchCollection(patches, facecolors=facecolors, edgecolors="white", linewidths=0.6)
+        )
     _add_path(
         close,
         polygon_path(_for_display(layers.geometries[ring], close_tolerance)),
