@@ -31,7 +31,7 @@ from pyproj import CRS
 
 from ._util import clean_number
 from .coverage import covered_fraction
-from .errors import AnalysisError, InputError, SpecError
+from .errors import AnalysisError, InputError, MissingExtraError, SpecError
 from .footprint import Footprint
 from .inputs import PARQUET_SUFFIXES
 
@@ -59,14 +59,6 @@ INSTALL_HINT = 'pip install -e ".[distributed]"'
 # Bookkeeping columns carried through the shuffle: the input partition and row of each
 # area (its place in the input order) and, for dask input, its index value.
 _PART, _ROW, _INDEX, _KEY, _WKB = "__part", "__row", "__index", "__hilbert", "__wkb"
-
-
-class MissingExtraError(InputError, ImportError):
-    """The optional packages of the ``distributed`` extra (dask, dask-geopandas) are missing.
-
-    An :class:`~coverage_audit.errors.InputError`, so the CLI prints it without a
-    traceback, and an :class:`ImportError`, so ``except ImportError`` also catches it.
-    """
 
 
 @dataclass(frozen=True, eq=False)

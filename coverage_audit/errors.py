@@ -62,3 +62,11 @@ class SmallSampleWarning(CoverageAuditWarning):
 
 class DroppedRowsWarning(CoverageAuditWarning):
     """Rows with missing or non-numeric model values were left out of the models."""
+
+
+class MissingExtraError(InputError, ImportError):
+    """The optional packages of the ``distributed`` extra (dask, dask-geopandas) are missing.
+
+    An :class:`~coverage_audit.errors.InputError`, so the CLI prints it without a
+    traceback, and an :class:`ImportError`, so ``except ImportError`` also catches it.
+    """

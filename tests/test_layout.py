@@ -84,7 +84,5 @@ def test_warning_and_error_classes_live_in_errors():
         for node in ast.walk(ast.parse(path.read_text(encoding="utf-8"))):
             if isinstance(node, ast.ClassDef) and node.name.endswith(("Warning", "Error")):
                 elsewhere.append(f"{path.relative_to(PACKAGE)}:{node.name}")
-    # distributed.MissingExtraError (an InputError that is also an ImportError) is still
-    # declared beside the dask engine; it moves when that module is next changed.
-    assert set(elsewhere) <= {"distributed.py:MissingExtraError"}
+    assert elsewhere == []
     assert {"SmallSampleWarning", "DroppedRowsWarning"} <= declared
