@@ -31,6 +31,7 @@ import pyogrio
 from coverage_audit import run_audit
 from coverage_audit.progress import SilentProgress
 from coverage_audit.synthetic import (
+    FICTIONAL_CRS,
     demographics,
     densify_independently,
     service_points,
@@ -124,11 +125,18 @@ def main() -> None:
     parser.add_argument("--points", type=int, default=2_000)
     parser.add_argument("--no-map", action="store_true")
     parser.add_argument("--no-report", action="store_true")
+    parser.add_argument(
+        "--file-crs",
+        action="store_true",
+        help="analyse in the file's own equal-area CRS (analysis_crs): no projection on reading",
+    )
     args = parser.parse_args()
     folder = Path(tempfile.mkdtemp(prefix="ca-bench-real-"))
     t0 = time.perf_counter()
     spec = build_workload(folder, args.areas, args.points)
     spec["output"] = {"map": not args.no_map, "report": not args.no_report}
+    if args.file_crs:
+        spec["analysis"]["analysis_crs"] = FICTIONAL_CRS
     print(f"workload built in {time.perf_counter() - t0:.1f} s in {folder}", flush=True)
 
     sampler = _Sampler()

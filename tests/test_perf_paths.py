@@ -96,6 +96,23 @@ def test_threaded_projection_equals_to_crs(loose, monkeypatch):
     ).all()
 
 
+def test_projection_into_the_same_crs_is_skipped(loose, monkeypatch):
+    # Oracle: geopandas GeoSeries.to_crs into the CRS the geometries are already in (PROJ's
+    # no-op), coordinate for coordinate; and no transformer is built at all.
+    import coverage_audit.io.areas as areas_module
+
+    _, geoms = loose
+    expected = np.asarray(gpd.GeoSeries(geoms, crs=FICTIONAL_CRS).to_crs(FICTIONAL_CRS).array)
+
+    def refuse(*args, **kwargs):
+        raise AssertionError("a transformer was built for a projection into the same CRS")
+
+    monkeypatch.setattr(areas_module.Transformer, "from_crs", refuse)
+    got = project_geometries(geoms, FICTIONAL_CRS, FICTIONAL_CRS)
+    assert got is not geoms
+    assert shapely.equals_exact(got, expected, tolerance=0).all()
+
+
 def test_growth_on_threads_matches_the_array_path(monkeypatch):
     # Consistency check (the tool against itself): draws split across threads take the
     # same numbers from the generator as the array path, so the sets are identical.

@@ -255,6 +255,10 @@ def project_geometries(
     ``shapely.get_coordinates(geoms)`` (read earlier by the caller).
     """
     geoms = np.asarray(geoms, dtype=object)
+    if source is not None and CRS(source) == CRS(target):
+        # Already in the analysis CRS (e.g. ``analysis_crs`` names the file's own CRS):
+        # nothing to transform, the same numbers as PROJ's no-op would give.
+        return geoms.copy()
     if geoms.size == 0 or shapely.has_z(geoms).any():
         return np.asarray(gpd.GeoSeries(geoms, crs=source).to_crs(target).array, dtype=object)
     if coords is None:
