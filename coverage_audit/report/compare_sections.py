@@ -94,7 +94,7 @@ def comparison_section(page: Page) -> Html:
         return section("comparison", "Footprints compared", not_computed(reason))
     described = as_mapping(page.summary.get("footprints_compared"))
     footprints = records(cmp.get("footprints"))
-    reference = cmp.get("reference_group") or page.reference
+    reference = page.label(str(cmp.get("reference_group") or page.reference))
     primary = _primary_footprint(page)
     rule = cmp.get("ranking_rule")
     parts: list[Any] = [
@@ -123,10 +123,12 @@ def comparison_section(page: Page) -> Html:
             (
                 Num(fmt_count(f.get("rank"))),
                 label,
-                f.get("worst_group") or NA,
+                page.label(str(f["worst_group"])) if f.get("worst_group") else NA,
                 Num(fmt_fixed(f.get("worst_ratio"))),
                 Num(fmt_count(f.get("enclave_count"))),
-                tag("span", _group_list(below), class_="flag") if below else _group_list(below),
+                tag("span", _group_list(below, page), class_="flag")
+                if below
+                else _group_list(below, page),
             )
         )
         attrs.append({"class_": "flagged" if below else None, "data_footprint": name})
@@ -152,10 +154,10 @@ def comparison_section(page: Page) -> Html:
     return section("comparison", "Footprints compared", *parts)
 
 
-def _group_list(groups: Any) -> str:
+def _group_list(groups: Any, page: Page) -> str:
     if not isinstance(groups, (list, tuple)):
         return NA
-    return ", ".join(str(g) for g in groups) or "none"
+    return ", ".join(page.label(str(g)) for g in groups) or "none"
 
 
 def _below(fields: Mapping[str, Any]) -> bool:
@@ -199,7 +201,7 @@ def _footprint_ratio_table(
         for f in footprints
     ]
     return table(
-        ("Footprint", *(Num(g) for g in groups)),
+        ("Footprint", *(Num(page.label(g)) for g in groups)),
         rows,
         table_id="footprint-ratio-table",
         caption=f"Each group's {ranked_rate(cmp)} under each footprint (ranking ratio in brackets; "
@@ -270,7 +272,12 @@ def change_section(page: Page) -> Html:
         ]
         parts.append(
             table(
-                ("Change", Num("Areas"), Num("Population"), *(Num(f"{g} share") for g in groups)),
+                (
+                    "Change",
+                    Num("Areas"),
+                    Num("Population"),
+                    *(Num(f"{page.label(g)} share") for g in groups),
+                ),
                 rows,
                 table_id="change-areas-table",
                 caption="Areas that lost or gained service, and who lives there "
@@ -308,13 +315,14 @@ def _change_ids(
 
 def _change_groups_table(data: Mapping[str, Any], page: Page, change: Mapping[str, Any]) -> Html:
     reference = change.get("reference_group") or page.reference
+    reference_label = page.label(str(reference))
     rows = []
     attrs = []
     for g in ordered(page.groups, data):
         item = as_mapping(data.get(g))
         rows.append(
             (
-                g + (" (reference)" if g == reference else ""),
+                page.label(g) + (" (reference)" if g == reference else ""),
                 Num(fmt_percent(item.get("rate_before"))),
                 Num(fmt_percent(item.get("rate_after"))),
                 Num(fmt_pp_value(item.get("rate_change_pp"))),
@@ -343,7 +351,7 @@ def _change_groups_table(data: Mapping[str, Any], page: Page, change: Mapping[st
         row_attrs=attrs,
         table_id="change-groups-table",
         caption=f"Each group's rates before and after (changes in percentage points; ratios "
-        f"to {reference})",
+        f"to {reference_label})",
     )
 
 

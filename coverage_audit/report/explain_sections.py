@@ -366,6 +366,7 @@ def flag_sentence(
     labels: Sequence[str],
     *,
     what: str,
+    name: Callable[[str], str] = str,
 ) -> str:
     """Say in words whether each group's four-fifths flag changes across a sweep.
 
@@ -379,6 +380,8 @@ def flag_sentence(
         Text of each row's setting ("25.0%", "1,000 m").
     what : str
         The swept setting in words ("served threshold").
+    name : callable
+        A group's display label from its key (the key itself by default).
 
     Returns
     -------
@@ -390,12 +393,14 @@ def flag_sentence(
     for g in groups:
         flags = flags_of(rows, g)
         if all(flags):
-            steady_flagged.append(g)
+            steady_flagged.append(name(g))
         elif not any(flags):
-            steady_clear.append(g)
+            steady_clear.append(name(g))
         else:
             at = [lab for lab, f in zip(labels, flags, strict=True) if f]
-            moving.append(f"{g} is below four-fifths at {series(at)} but not at the other values")
+            moving.append(
+                f"{name(g)} is below four-fifths at {series(at)} but not at the other values"
+            )
     span = f"every {what} tried, from {labels[0]} to {labels[-1]}"
     if not moving:
         said = []
@@ -435,6 +440,7 @@ def _sweep_table(
     first_cells: Callable[[Mapping[str, Any], str], Sequence[Any]],
     table_id: str,
     caption: str,
+    name: Callable[[str], str] = str,
 ) -> Html:
     body = []
     attrs = []
@@ -462,7 +468,7 @@ def _sweep_table(
     headers = (
         *first_headers,
         Num("Areas served"),
-        *(Num(g) for g in groups),
+        *(Num(name(g)) for g in groups),
         Num("Enclaves"),
     )
     return table(headers, body, row_attrs=attrs, table_id=table_id, caption=caption)
@@ -474,9 +480,12 @@ def _verdict(
     labels: Sequence[str],
     what: str,
     element_id: str,
+    name: Callable[[str], str] = str,
 ) -> Html:
     return para(
-        flag_sentence(rows, groups, labels, what=what), class_="sweep-verdict", id=element_id
+        flag_sentence(rows, groups, labels, what=what, name=name),
+        class_="sweep-verdict",
+        id=element_id,
     )
 
 
@@ -503,7 +512,9 @@ def sensitivity_section(page: Page) -> Html:
         groups, drawn = sweep_groups(thresholds, page)
         labels = [fmt_percent(r.get("threshold")) for r in thresholds]
         marked = [_close(r.get("threshold"), audit_threshold) for r in thresholds]
-        comparison = series(list(dict.fromkeys(str(r.get("comparison_group")) for r in thresholds)))
+        comparison = series(
+            list(dict.fromkeys(page.label(str(r.get("comparison_group"))) for r in thresholds))
+        )
         parts.append(tag("h3", "Served threshold"))
         parts.append(
             _sweep_table(
@@ -517,13 +528,19 @@ def sensitivity_section(page: Page) -> Html:
                 table_id="threshold-table",
                 caption="Served-area rate (ratio to "
                 f"{comparison}) of each group at each served threshold; {STAR_NOTE}",
+                name=page.label,
             )
         )
-        parts.append(_verdict(thresholds, drawn, labels, "served threshold", "threshold-verdict"))
+        parts.append(
+            _verdict(thresholds, drawn, labels, "served threshold", "threshold-verdict", page.label)
+        )
         panels.append(
             charts.SweepPanel(
                 x=[as_number(r.get("threshold")) or math.nan for r in thresholds],
-                ratios={g: [get_in(r, "groups", g, "ratio") for r in thresholds] for g in drawn},
+                ratios={
+                    page.label(g): [get_in(r, "groups", g, "ratio") for r in thresholds]
+                    for g in drawn
+                },
                 tick_labels=[
                     f"{100 * (as_number(r.get('threshold')) or 0):.0f}%" for r in thresholds
                 ],
@@ -576,13 +593,16 @@ def _radius_part(
             table_id="radius-table",
             caption="Coverage rate (ratio) of each group as every radius is scaled; areas "
             f"served at the audit's threshold of {fmt_percent(threshold)}; {STAR_NOTE}",
+            name=page.label,
         ),
-        _verdict(radius, drawn, labels, "radius", "radius-verdict"),
+        _verdict(radius, drawn, labels, "radius", "radius-verdict", page.label),
     ]
     panels.append(
         charts.SweepPanel(
             x=[as_number(r.get("radius_m")) or math.nan for r in radius],
-            ratios={g: [get_in(r, "groups", g, "ratio") for r in radius] for g in drawn},
+            ratios={
+                page.label(g): [get_in(r, "groups", g, "ratio") for r in radius] for g in drawn
+            },
             tick_labels=[f"{(as_number(r.get('radius_m')) or 0) / 1000:g} km" for r in radius],
             x_label="radius of every service point (median shown when radii differ)",
             y_label="coverage-rate ratio",
