@@ -574,7 +574,9 @@ def _findings(section: dict[str, Any]) -> list[str]:
     return out
 
 
-@register_finding("lending", order=35)
+# First of all: lending findings exist only when the spec asks for a lending review, whose
+# subject they are (before the coverage gap of the branches' reach, which frames them).
+@register_finding("lending", order=3)
 def lending_findings(summary: Any) -> list[Finding]:
     """Return the lending review's headline findings (the sentences of its section)."""
     section = summary.get("lending")
