@@ -12,19 +12,22 @@ date metadata is left out, so the same inputs give the same bytes.
 
 from __future__ import annotations
 
-import io
-import re
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
-from html import escape
 
-import matplotlib
 import numpy as np
 import shapely
 from matplotlib.collections import PatchCollection
 from matplotlib.figure import Figure
 from matplotlib.patches import PathPatch, Rectangle
 from matplotlib.path import Path
+
+from .svg_figure import PATH_DECIMALS as PATH_DECIMALS
+from .svg_figure import RASTER_DPI as RASTER_DPI
+from .svg_figure import figure_to_svg as figure_to_svg
+from .svg_figure import mpl_text as mpl_text
+from .svg_figure import new_figure
+from .svg_figure import polygon_path as polygon_path
 
 #: Colours of the report figures (our own palette: greys for context, one blue for
 #: coverage, one warm tone for what needs a closer look).
@@ -59,7 +62,6 @@ RASTERISE_SCATTER_ABOVE = 1500
 #: :data:`RASTER_DPI`), so that a region of tens of thousands of tracts does not make
 #: every map figure megabytes long; outlines stay vector.
 RASTERISE_VERTICES_ABOVE = 20_000
-RASTER_DPI = 150
 #: Above this many areas the overview panels are drawn from a raster of the areas made
 #: once (no union of the region's geometry, no patch per area).
 RASTER_OVERVIEW_ABOVE = 5_000
@@ -68,66 +70,6 @@ RASTER_OVERVIEW_PIXELS = 1_000
 #: A close-up whose side is at least this share of the region's is drawn from the overview
 #: raster (it then has at least as many pixels across the close-up as the figure shows).
 CLOSE_UP_FROM_OVERVIEW = 0.35
-#: Decimals kept in SVG path coordinates (points of 1/72 inch): a tenth of a point is
-#: below what print or screen can show, and it halves the size of map figures.
-PATH_DECIMALS = 1
-
-
-def mpl_text(value: object) -> str:
-    """Return ``value`` as text matplotlib draws literally (``$`` would start mathtext)."""
-    return str(value).replace("$", r"\$")
-
-
-def figure_to_svg(fig: Figure, *, salt: str, title: str) -> str:
-    """Render ``fig`` to an SVG element string for inline use in HTML.
-
-    Parameters
-    ----------
-    fig : matplotlib.figure.Figure
-        The figure to render.
-    salt : str
-        Salt of the SVG element ids; distinct per figure so that several inline SVGs in
-        one page never share an id, and fixed so that output is reproducible.
-    title : str
-        Accessible name of the figure (placed in ``aria-label``; escaped here).
-
-    Returns
-    -------
-    str
-        An ``<svg>`` element without XML declaration or doctype.
-    """
-    buffer = io.BytesIO()
-    with matplotlib.rc_context(
-        {"svg.hashsalt": salt, "svg.fonttype": "none", "svg.image_inline": True}
-    ):
-        fig.savefig(buffer, format="svg", metadata={"Date": None}, dpi=RASTER_DPI)
-    svg = buffer.getvalue().decode("utf-8")
-    svg = svg[svg.index("<svg") :]
-    # The metadata block only names matplotlib (with a URL); the page does not need it.
-    svg = re.sub(r"<metadata>.*?</metadata>\s*", "", svg, flags=re.S)
-    # Element ids (figure_1, axes_1, ...) repeat from figure to figure; prefixed, they stay
-    # unique within the page, as HTML requires, and references follow them.
-    prefix = re.sub(r"[^A-Za-z0-9_-]", "-", salt)
-    svg = re.sub(r'\bid="([^"]+)"', rf'id="{prefix}-\1"', svg)
-    svg = re.sub(r"url\(#([^)]+)\)", rf"url(#{prefix}-\1)", svg)
-    svg = re.sub(r'href="#([^"]+)"', rf'href="#{prefix}-\1"', svg)
-    svg = re.sub(r' d="([^"]*)"', _round_path_data, svg)
-    label = escape(title, quote=True)
-    return svg.replace("<svg ", f'<svg role="img" aria-label="{label}" ', 1)
-
-
-#: Digits past PATH_DECIMALS after a decimal point (matplotlib writes every number with a
-#: digit before the point); dropped in one pass, with no template to expand per number.
-_EXTRA_DIGITS = re.compile(rf"(?<=\d\.\d{{{PATH_DECIMALS}}})\d+")
-
-
-def _round_path_data(match: re.Match[str]) -> str:
-    return f' d="{_EXTRA_DIGITS.sub("", match.group(1))}"'
-
-
-def _new_figure(width_in: float, height_in: float) -> Figure:
-    fig = Figure(figsize=(width_in, height_in), dpi=100, layout="constrained")
-    return fig
 
 
 def coverage_bar_chart(
@@ -164,7 +106,7 @@ def coverage_bar_chart(
         Inline SVG markup.
     """
     n = len(labels)
-    fig = _new_figure(7.0, 0.9 + 0.42 * max(n, 1))
+    fig = new_figure(7.0, 0.9 + 0.42 * max(n, 1))
     ax = fig.add_subplot()
     y = np.arange(n)[::-1]
     values = np.array([np.nan if r is None else 100.0 * float(r) for r in rates], dtype=float)
@@ -257,7 +199,7 @@ def moran_scatter_chart(
     """
     from .palette import MORAN_LINE_COLOR, MORAN_QUADRANT_COLORS
 
-    fig = _new_figure(5.2, 5.2)
+    fig = new_figure(5.2, 5.2)
     ax = fig.add_subplot()
     many = z.size > RASTERISE_SCATTER_ABOVE
     # Points take the tone of their quadrant (palette.py); the quadrants are named in a
@@ -305,44 +247,6 @@ def moran_scatter_chart(
         heading += f" (I = {moran_i:.4f})"
     ax.set_title(heading, fontsize=10)
     return figure_to_svg(fig, salt=salt, title=heading)
-
-
-def polygon_path(geometries: np.ndarray | Sequence[object]) -> Path | None:
-    """Return one compound matplotlib path of all polygons in ``geometries``.
-
-    Multi-part geometries are split and non-polygonal parts dropped. Rings are oriented
-    (exteriors counter-clockwise, holes clockwise) so that holes stay empty under either
-    fill rule. Built from flat coordinate arrays, without a Python loop over geometries.
-
-    Parameters
-    ----------
-    geometries : array of shapely geometries
-        Polygons or multipolygons.
-
-    Returns
-    -------
-    matplotlib.path.Path or None
-        ``None`` when there is no polygon to draw.
-    """
-    geoms = np.asarray(geometries, dtype=object).ravel()
-    if geoms.size == 0:
-        return None
-    geoms = geoms[~(shapely.is_missing(geoms) | shapely.is_empty(geoms))]
-    parts = shapely.get_parts(geoms)
-    polys = parts[shapely.get_type_id(parts) == shapely.GeometryType.POLYGON]
-    if polys.size == 0:
-        return None
-    polys = shapely.orient_polygons(polys, exterior_cw=False)
-    rings = shapely.get_rings(polys)
-    coords, ring_index = shapely.get_coordinates(rings, return_index=True)
-    if coords.shape[0] == 0:
-        return None
-    codes = np.full(coords.shape[0], Path.LINETO, dtype=Path.code_type)
-    starts = np.concatenate([[0], np.flatnonzero(np.diff(ring_index)) + 1])
-    ends = np.concatenate([starts[1:] - 1, [coords.shape[0] - 1]])
-    codes[starts] = Path.MOVETO
-    codes[ends] = Path.CLOSEPOLY
-    return Path(coords, codes)
 
 
 @dataclass(frozen=True, eq=False)
@@ -534,7 +438,7 @@ def overview_chart(
     str
         Inline SVG markup.
     """
-    fig = _new_figure(6.4, 4.6)
+    fig = new_figure(6.4, 4.6)
     ax = fig.add_subplot()
     if layers.image is not None:
         _show_raster(ax, layers)
@@ -603,7 +507,7 @@ def enclave_locator_chart(
     str
         Inline SVG markup.
     """
-    fig = _new_figure(6.4, 2.9)
+    fig = new_figure(6.4, 2.9)
     overview, close = fig.subplots(1, 2, width_ratios=[1, 1.25])
     if layers.image is not None:
         _show_raster(overview, layers)
@@ -755,7 +659,7 @@ def sweep_figure(panels: Sequence[SweepPanel]) -> Figure:
     matplotlib.figure.Figure
     """
     n = max(len(panels), 1)
-    fig = _new_figure(7.2, 0.5 + 2.9 * n)
+    fig = new_figure(7.2, 0.5 + 2.9 * n)
     axes = fig.subplots(n, 1, squeeze=False)[:, 0]
     for ax, panel in zip(axes, panels, strict=False):
         x = np.asarray(panel.x, dtype=float)

@@ -546,5 +546,3 @@ def _local_moran_part(local: Mapping[str, Any]) -> Html:
             )
         )
     return join(parts)
-
-
