@@ -599,7 +599,30 @@ def _run(
     # On a cluster the county files are read as a dask-geopandas collection and each read
     # partition is measured where it was read. Local processes share no memory (a read
     # partition would travel back through this process), so there each task reads its own.
-    if dataset is not None and args and analysis.dask_scheduler is not None:
+    if analysis.dask_scheduler is not None:
+        from distributed import Client
+
+        with Client(analysis.dask_scheduler) as client:
+            # Each partition's footprint pieces (and, for one block file cut into chunks,
+            # its blocks) go to the workers directly, ahead of the task graph, so the graph
+            # stays small however many pieces a county meets.
+            pieces = client.scatter([a[1] for a in args], hash=False) if args else []
+            first = [a[0] for a in args]
+            if func is memory_task and args:
+                first = client.scatter(first, hash=False)
+            args = [(f, p, *a[2:]) for f, p, a in zip(first, pieces, args, strict=True)]
+            tasks = _dask_tasks(dask, dask_geopandas, func, args, dataset)
+            return list(client.gather(client.compute(tasks)))
+    tasks = _dask_tasks(dask, dask_geopandas, func, args, None)
+    workers = max(1, min(len(tasks), os.cpu_count() or 1))
+    return list(dask.compute(*tasks, scheduler=LOCAL_SCHEDULER, num_workers=workers))
+
+
+def _dask_tasks(
+    dask: Any, dask_geopandas: Any, func: Any, args: list[tuple[Any, ...]], dataset: Path | None
+) -> list[Any]:
+    """Return one delayed task per partition (see :func:`_run`)."""
+    if dataset is not None and args:
         root = dataset
         task0 = args[0][3]
         first = dataset_files(root)[0]
@@ -611,16 +634,8 @@ def _run(
                 f"{len(args)} files; prepare the dataset again with coverage-audit prepare-blocks"
             )
         task = dask.delayed(frame_task, pure=False)
-        tasks = [task(part, *a[1:], a[0]) for part, a in zip(parts, args, strict=True)]
-    else:
-        tasks = [dask.delayed(func, pure=False)(*a) for a in args]
-    if analysis.dask_scheduler is None:
-        workers = max(1, min(len(tasks), os.cpu_count() or 1))
-        return list(dask.compute(*tasks, scheduler=LOCAL_SCHEDULER, num_workers=workers))
-    from distributed import Client
-
-    with Client(analysis.dask_scheduler) as client:
-        return list(client.gather(client.compute(tasks)))
+        return [task(part, *a[1:], a[0]) for part, a in zip(parts, args, strict=True)]
+    return [dask.delayed(func, pure=False)(*a) for a in args]
 
 
 def run_on_client(client: Any, func: Any, args: list[tuple[Any, ...]]) -> list[PartitionSums]:

@@ -350,6 +350,8 @@ def test_local_cluster_equals_local(random_region):
     ) as cluster:
         extra = f'engine = "dask"\ndask_scheduler = "{cluster.scheduler_address}"\n'
         assert _coverage(random_region, "prepared", extra) == local
+        # One block file cut into chunks: the chunks and pieces are scattered to workers.
+        assert _coverage(random_region, "blocks.gpkg", extra) == local
 
 
 def test_prepare_blocks_command(people_in_uncovered_half, capsys):
