@@ -31,6 +31,7 @@ from .coverage import covered_fraction
 from .dasymetric import Apportioned, apportion_dasymetric
 from .errors import AnalysisError, InputError
 from .inputs import InputRecord
+from .io.areas import project_geometries
 from .io.blocks import (
     ROW_COLUMN,
     BlockColumns,
@@ -296,11 +297,8 @@ def _check_county(clean: CleanBlocks, path: str) -> None:
 def _project(geoms: np.ndarray, crs: Any, target_wkt: str, path: str) -> np.ndarray:
     if crs is None:
         raise InputError(NO_CRS.format(path=path))
-    target = CRS.from_wkt(target_wkt)
-    if CRS(crs).equals(target):  # already in the analysis CRS: nothing to transform
-        return geoms
-    series = gpd.GeoSeries(geoms, crs=crs)
-    return np.asarray(series.to_crs(target).array, dtype=object)
+    # The areas' projection: threaded, nothing done when already in the analysis CRS.
+    return project_geometries(geoms, crs, CRS.from_wkt(target_wkt))
 
 
 def combine(parts: Sequence[PartitionSums], width: int) -> pd.DataFrame:

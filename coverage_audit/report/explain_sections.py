@@ -440,7 +440,7 @@ def _sweep_table(
     first_cells: Callable[[Mapping[str, Any], str], Sequence[Any]],
     table_id: str,
     caption: str,
-    name: Callable[[str], str] = str,
+    name: Callable[[str], str],
 ) -> Html:
     body = []
     attrs = []
@@ -480,7 +480,7 @@ def _verdict(
     labels: Sequence[str],
     what: str,
     element_id: str,
-    name: Callable[[str], str] = str,
+    name: Callable[[str], str],
 ) -> Html:
     return para(
         flag_sentence(rows, groups, labels, what=what, name=name),
